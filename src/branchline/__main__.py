@@ -1,0 +1,3 @@
+from branchline.cli import main
+
+raise SystemExit(main())

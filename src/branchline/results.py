@@ -1,0 +1,113 @@
+"""Result records: frozen dataclasses, and their pandas tables.
+
+Everything numerical returns these records; writers and plots only read them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+Array = np.ndarray
+
+EVENT_KINDS = ("fold", "hopf", "branch_point")
+
+# Numerical status of a branch (a failure is a status, not an exception).
+STATUS_DONE = "done"  # reached the interval edge (or direction not requested)
+STATUS_MAX_POINTS = "max_points"  # stopped at steps.max_points
+STATUS_CLOSED = "closed"  # the branch closed on itself (an isola)
+STATUS_FAILED = "failed"  # numerical trouble; message says where and why
+
+
+@dataclass(frozen=True)
+class Branch:
+    """One traced equilibrium branch, rows in trace order.
+
+    Attributes
+    ----------
+    name : str
+        Trace name (``<parent>.<k>`` for branches started at a branch point).
+    vary : str
+        The continuation parameter's name.
+    parameters : ndarray (m,)
+        The trace's parameter vector (defaults with ``set`` applied); the
+        ``vary`` entry holds the start value, per-row values are ``parameter_values``.
+    parameter_values : ndarray (k,)
+    states : ndarray (k, n)
+    arclength : ndarray (k,)
+        Signed pseudo-arclength from the start point (negative on the side traced
+        with decreasing parameter first).
+    tangents : ndarray (k, n + 1)
+        Unit tangents (state components, then parameter), oriented in trace order.
+    eigenvalues : ndarray (k, r), complex
+        The r leading eigenvalues of df/dx (all of them for dense models), sorted
+        by decreasing real part.
+    unstable_count : ndarray (k,) int
+        Eigenvalues with positive real part.
+    test_values : ndarray (k, 3)
+        Test functions in the order of ``TEST_FUNCTIONS`` in :mod:`branchline.events`.
+    newton_iterations : ndarray (k,) int
+    residual_norms : ndarray (k,)
+    status, message : str
+        How the trace ended; ``message`` says where and why on failure.
+    counts : dict
+        Work counters: rhs/jacobian evaluations, factorizations, rejected steps.
+    parent : str or None
+        The branch this one was started from at a branch point.
+    interval : tuple (lo, hi)
+    """
+
+    name: str
+    vary: str
+    parameters: Array
+    parameter_values: Array
+    states: Array
+    arclength: Array
+    tangents: Array
+    eigenvalues: Array
+    unstable_count: Array
+    test_values: Array
+    newton_iterations: Array
+    residual_norms: Array
+    status: str
+    message: str
+    interval: tuple[float, float]
+    counts: dict[str, int] = field(default_factory=dict)
+    parent: str | None = None
+
+    @property
+    def stable(self) -> Array:
+        return self.unstable_count == 0
+
+    def __len__(self) -> int:
+        return len(self.parameter_values)
+
+
+@dataclass(frozen=True)
+class Event:
+    """A located stability change on a branch.
+
+    ``state`` and ``value`` solve the event's defining system to near machine
+    precision (``note`` says when a fallback was used instead).
+    """
+
+    trace: str
+    kind: str  # one of EVENT_KINDS
+    vary: str
+    value: float  # the varied parameter at the event
+    state: Array  # (n,)
+    parameters: Array  # (m,) full parameter vector at the event
+    arclength: float  # position along the branch (interpolated between rows)
+    frequency: float | None = None  # Hopf: omega (rad per time unit)
+    lyapunov: float | None = None  # Hopf: first Lyapunov coefficient l1
+    criticality: str | None = None  # Hopf: "supercritical" / "subcritical"
+    branching: str | None = None  # branch point: "transcritical" / "pitchfork"
+    fold_coefficient: float | None = None  # fold: quadratic normal-form coefficient
+    note: str = ""
+    details: dict[str, Any] = field(default_factory=dict)  # JSON-ready detail
+
+    @property
+    def period(self) -> float | None:
+        return None if not self.frequency else 2.0 * np.pi / self.frequency
