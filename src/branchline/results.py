@@ -111,3 +111,65 @@ class Event:
     @property
     def period(self) -> float | None:
         return None if not self.frequency else 2.0 * np.pi / self.frequency
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Everything one scan produced.
+
+    ``status`` is ``"done"`` or ``"failed"``; on failure ``message`` says which
+    trace stopped, where and why, and every point computed so far is kept.
+    Tables and files are made from this record by :mod:`branchline.tables`
+    and :mod:`branchline.writers`.
+    """
+
+    scan: Any  # branchline.scan.Scan
+    model: Any  # branchline.model.Model
+    branches: tuple[Branch, ...]
+    events: tuple[Event, ...]
+    status: str
+    message: str
+    timings: dict[str, float] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+    def branch(self, name: str) -> Branch:
+        for branch in self.branches:
+            if branch.name == name:
+                return branch
+        raise KeyError(f"no trace named {name!r}; traces: {[b.name for b in self.branches]}")
+
+    def points_frame(self):
+        """points.csv as a pandas DataFrame."""
+        from branchline.tables import points_frame
+
+        return points_frame(self)
+
+    def events_frame(self):
+        """events.csv as a pandas DataFrame."""
+        from branchline.tables import events_frame
+
+        return events_frame(self)
+
+    def info(self) -> dict[str, Any]:
+        """run.json content: what was run, settings with defaults filled in, timings."""
+        from branchline.tables import run_info
+
+        return run_info(self)
+
+    def event_records(self) -> list[dict[str, Any]]:
+        """events.json entries (JSON-ready dicts with full detail)."""
+        from branchline.tables import event_records
+
+        return event_records(self)
+
+    def report(self) -> str:
+        """The stability-change report (markdown)."""
+        from branchline.report import render_report
+
+        return render_report(self.points_frame(), self.event_records(), self.info())
+
+    def figure(self, x: str | None = None, y: str | None = None):
+        """The bifurcation diagram as a matplotlib Figure."""
+        from branchline.plotting import bifurcation_figure
+
+        return bifurcation_figure(self.points_frame(), self.event_records(), self.info(), x=x, y=y)

@@ -1,0 +1,220 @@
+"""The command line: argument parsing, exit codes, progress display.
+
+Nothing numerical happens here; every command calls the Python API.
+Exit codes: 0 success, 2 invalid scan file (nothing written), 1 numerics
+failed part-way (what was computed is written and the report says why).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+import numpy as np
+
+EXIT_OK = 0
+EXIT_NUMERICS = 1
+EXIT_INVALID = 2
+
+PYTHON_MODEL_NOTICE = (
+    "note: this scan's [model.python] section imports {source}; importing a module "
+    "runs its code, so only run scan files you trust."
+)
+
+
+class _Progress:
+    """One self-overwriting status line on a terminal; silent otherwise."""
+
+    def __init__(self, enabled: bool) -> None:
+        self.enabled = enabled
+        self.shown = False
+
+    def __call__(self, trace: str, points: int) -> None:
+        if self.enabled and points % 50 == 0:
+            sys.stderr.write(f"\r  tracing {trace}: {points} points   ")
+            sys.stderr.flush()
+            self.shown = True
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r" + " " * 60 + "\r")
+            sys.stderr.flush()
+
+
+def _error(message: str) -> None:
+    print(f"branchline: error: {message}", file=sys.stderr)
+
+
+def _load(path: str):
+    from branchline.scan import load_scan
+
+    return load_scan(path)
+
+
+def _command_run(args: argparse.Namespace) -> int:
+    from branchline.errors import ScanError
+    from branchline.report import CAUTION, summary_table
+    from branchline.runner import run_scan
+    from branchline.writers import write_results
+
+    try:
+        scan = _load(args.scan)
+    except ScanError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    out = Path(args.out) if args.out else Path("runs") / Path(args.scan).stem
+    quiet = args.quiet
+    if hasattr(scan.model, "rhs") and not quiet:
+        print(PYTHON_MODEL_NOTICE.format(source=scan.model.rhs.split(":")[0]), file=sys.stderr)
+    progress = _Progress(enabled=not quiet and sys.stderr.isatty())
+    try:
+        result = run_scan(scan, progress=progress)
+    except ScanError as err:
+        progress.close()
+        _error(str(err))
+        return EXIT_INVALID
+    progress.close()
+    write_results(result, out)
+    if not quiet:
+        for warning in result.warnings:
+            print(f"warning: {warning}", file=sys.stderr)
+        points = sum(len(b) for b in result.branches)
+        seconds = result.timings.get("total_seconds", float("nan"))
+        print(f"{scan.title}: {len(result.branches)} traces, {points} points, "
+              f"{len(result.events)} stability changes in {seconds:.2f} s")
+        print(summary_table(result.event_records()))
+        print(f"results written to {out}/")
+        print(CAUTION)
+    if result.status != "done":
+        _error(f"the computation stopped early: {result.message} (see {out / 'report.md'})")
+        return EXIT_NUMERICS
+    return EXIT_OK
+
+
+def _parse_settings(pairs: list[str], scan) -> dict[str, float]:
+    from branchline.errors import ScanError
+
+    known = tuple(scan.model.parameters)
+    overrides = {}
+    for pair in pairs:
+        name, sep, value = pair.partition("=")
+        name = name.strip()
+        if not sep or name not in known:
+            raise ScanError(
+                scan.source,
+                f"--set {pair}",
+                f"expected NAME=VALUE with NAME one of {', '.join(known)}",
+            )
+        try:
+            number = float(value)
+        except ValueError:
+            number = float("nan")
+        if not np.isfinite(number):
+            raise ScanError(scan.source, f"--set {pair}", f"{value!r} is not a finite number")
+        overrides[name] = number
+    return overrides
+
+
+def _command_inspect(args: argparse.Namespace) -> int:
+    from branchline.errors import ScanError
+    from branchline.inspection import describe_equilibrium
+
+    try:
+        scan = _load(args.scan)
+        overrides = _parse_settings(args.set or [], scan)
+        text, converged = describe_equilibrium(scan, overrides)
+    except ScanError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    print(text)
+    return EXIT_OK if converged else EXIT_NUMERICS
+
+
+def _command_plot(args: argparse.Namespace) -> int:
+    from branchline.plotting import bifurcation_figure, save_figure
+    from branchline.writers import ResultsFolderError, read_results
+
+    try:
+        saved = read_results(args.folder)
+    except ResultsFolderError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    try:
+        figure = bifurcation_figure(saved.points, saved.events, saved.info, x=args.x, y=args.y)
+    except ValueError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    target = Path(args.output) if args.output else saved.folder / f"diagram.{args.format}"
+    save_figure(figure, target)
+    print(f"diagram written to {target}")
+    return EXIT_OK
+
+
+def _command_report(args: argparse.Namespace) -> int:
+    from branchline.report import render_report
+    from branchline.writers import ResultsFolderError, read_results
+
+    try:
+        saved = read_results(args.folder)
+    except ResultsFolderError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    print(render_report(saved.points, saved.events, saved.info))
+    return EXIT_OK
+
+
+def _command_batch(args: argparse.Namespace) -> int:
+    _error("batch runs are not available in this version; run each scan with `branchline run`")
+    return EXIT_INVALID
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="branchline",
+        description="Follow equilibria of an ODE model through a parameter and report "
+        "where their stability changes.",
+    )
+    sub = parser.add_subparsers(dest="command", required=True)
+
+    run = sub.add_parser("run", help="run a scan file and write its results folder")
+    run.add_argument("scan", help="the scan file (TOML)")
+    run.add_argument("--out", help="results folder (default runs/<scan file stem>/)")
+    run.add_argument("--quiet", action="store_true", help="no progress and no summary")
+    run.set_defaults(handler=_command_run)
+
+    inspect = sub.add_parser("inspect", help="solve for one equilibrium and describe it")
+    inspect.add_argument("scan")
+    inspect.add_argument("--set", action="append", metavar="NAME=VALUE",
+                         help="override a parameter (repeatable)")
+    inspect.set_defaults(handler=_command_inspect)
+
+    plot = sub.add_parser("plot", help="redraw the diagram of a results folder")
+    plot.add_argument("folder")
+    plot.add_argument("--x", help="horizontal axis: a parameter or state")
+    plot.add_argument("--y", help="vertical axis: a state, parameter, observable or norm")
+    plot.add_argument("--format", choices=("png", "svg", "pdf"), default="png")
+    plot.add_argument("--output", help="file to write instead of DIR/diagram.<format>")
+    plot.set_defaults(handler=_command_plot)
+
+    report = sub.add_parser("report", help="print the stability-change report of a results folder")
+    report.add_argument("folder")
+    report.set_defaults(handler=_command_report)
+
+    batch = sub.add_parser("batch", help="run many scans")
+    batch.add_argument("scans", nargs="+")
+    batch.add_argument("--out")
+    batch.add_argument("--jobs", type=int, default=1)
+    batch.add_argument("--cluster")
+    batch.add_argument("--quiet", action="store_true")
+    batch.set_defaults(handler=_command_batch)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``branchline`` console command."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    args = build_parser().parse_args(argv)
+    return args.handler(args)

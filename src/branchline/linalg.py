@@ -1,0 +1,240 @@
+"""Shared numerical linear algebra: bordered solves, tangents, eigenvalues, norms.
+
+Every curve branchline follows solves square systems bordered by one extra row,
+
+    [ G_u ]          G_u : (N, N + 1) Jacobian of the curve's equations,
+    [ c^T ] z = b    c   : (N + 1,) border row (a tangent or a unit vector),
+
+so this module holds the one place where such a system is solved. Dense
+Jacobians (numpy arrays) go straight to LAPACK through ``np.linalg.solve``;
+scipy.sparse Jacobians are bordered as sparse matrices and factorized with
+SuperLU (``scipy.sparse.linalg.splu``). The dispatch is automatic.
+
+The dense path is the hot path of every continuation run with a small model,
+so it avoids scipy calls, validation and temporary objects.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+Array = np.ndarray
+
+# Above this many states a dense Jacobian's eigenvalues are still computed in
+# full (LAPACK), below it always; sparse Jacobians use shift-invert Arnoldi.
+# Full dense eigenvalues cost O(n^3): 400 states take ~0.1 s, still acceptable
+# per point for a model a user chose to give densely.
+DENSE_EIGEN_LIMIT = 400
+
+# How many eigenvalues to report for a sparse (large) Jacobian: enough to see
+# a pair crossing the imaginary axis next to the rightmost real eigenvalue.
+SPARSE_EIGEN_COUNT = 6
+
+# Shifts (times the Jacobian's scale) at which shift-invert Arnoldi looks for
+# eigenvalues near the imaginary axis, besides the rightmost ones.
+IMAGINARY_AXIS_SHIFTS = (0.0,)
+
+
+class SingularMatrixError(ArithmeticError):
+    """A bordered system could not be solved (exactly singular or non-finite)."""
+
+
+def is_sparse(matrix: object) -> bool:
+    """True for scipy.sparse matrices and arrays."""
+    return sp.issparse(matrix)
+
+
+def norm(vector: Array) -> float:
+    """Euclidean norm of a real 1-D array (cheaper than ``np.linalg.norm`` for short vectors)."""
+    return math.sqrt(float(np.dot(vector, vector)))
+
+
+def bordered_matrix(jacobian: Array, border: Array) -> Array:
+    """The square matrix [jacobian; border^T] (dense ndarray or scipy.sparse CSC).
+
+    Parameters
+    ----------
+    jacobian : ndarray or sparse matrix, shape (N, N + 1)
+    border : ndarray, shape (N + 1,)
+
+    Returns
+    -------
+    ndarray or scipy.sparse.csc_matrix, shape (N + 1, N + 1)
+    """
+    if sp.issparse(jacobian):
+        return sp.vstack([jacobian, sp.csr_matrix(border.reshape(1, -1))], format="csc")
+    rows = jacobian.shape[0]
+    square = np.empty((rows + 1, rows + 1))
+    square[:rows] = jacobian
+    square[rows] = border
+    return square
+
+
+def solve_square(matrix: object, rhs: Array) -> Array:
+    """Solve ``matrix @ z = rhs`` for a dense or sparse square matrix.
+
+    Raises
+    ------
+    SingularMatrixError
+        When the matrix is exactly singular or the solution is not finite.
+    """
+    try:
+        if sp.issparse(matrix):
+            solution = spla.splu(sp.csc_matrix(matrix)).solve(rhs)
+        else:
+            solution = np.linalg.solve(matrix, rhs)
+    except (np.linalg.LinAlgError, RuntimeError, ValueError) as exc:
+        raise SingularMatrixError(str(exc)) from exc
+    if not np.all(np.isfinite(solution)):
+        raise SingularMatrixError("the solution of the linear system is not finite")
+    return solution
+
+
+def bordered_solve(jacobian: object, border: Array, rhs: Array) -> Array:
+    """Solve the bordered system [jacobian; border^T] z = rhs.
+
+    Parameters
+    ----------
+    jacobian : ndarray or sparse matrix, shape (N, N + 1)
+    border : ndarray, shape (N + 1,)
+    rhs : ndarray, shape (N + 1,)
+
+    Returns
+    -------
+    ndarray, shape (N + 1,)
+    """
+    return solve_square(bordered_matrix(jacobian, border), rhs)
+
+
+def tangent(jacobian: object, previous: Array) -> Array:
+    """Unit null vector of an (N, N + 1) Jacobian, oriented like ``previous``.
+
+    Solves [G_u; previous^T] z = e_{N+1} and normalizes z (Keller's
+    pseudo-arclength tangent; Allgower & Georg, Introduction to Numerical
+    Continuation Methods, section 2.1). Since previous . z = 1 > 0, the new
+    tangent keeps the orientation of ``previous`` through turning points.
+
+    Parameters
+    ----------
+    jacobian : ndarray or sparse matrix, shape (N, N + 1)
+    previous : ndarray, shape (N + 1,)
+        The tangent at a nearby point (any non-zero scale).
+
+    Returns
+    -------
+    ndarray, shape (N + 1,), unit Euclidean norm.
+    """
+    rhs = np.zeros(previous.shape[0])
+    rhs[-1] = 1.0
+    z = bordered_solve(jacobian, previous, rhs)
+    return z / norm(z)
+
+
+def initial_tangent(jacobian: object, parameter_sign: float = 1.0) -> Array:
+    """A unit null vector of an (N, N + 1) Jacobian with no previous tangent.
+
+    Tries the border e_{N+1} first (the parameter direction, right away
+    correct away from turning points), then the other unit vectors, and
+    orients the result so its last (parameter) component has the sign of
+    ``parameter_sign`` (when that component is not zero).
+
+    Raises
+    ------
+    SingularMatrixError
+        If no unit-vector border gives a solvable system (the Jacobian's rank
+        is below N).
+    """
+    size = jacobian.shape[1]
+    order = [size - 1, *range(size - 1)]
+    for index in order:
+        border = np.zeros(size)
+        border[index] = 1.0
+        try:
+            z = bordered_solve(jacobian, border, border)
+        except SingularMatrixError:
+            continue
+        z = z / norm(z)
+        if z[-1] * parameter_sign < 0.0:
+            z = -z
+        return z
+    raise SingularMatrixError("the Jacobian has no one-dimensional null space")
+
+
+def sort_by_real_part(eigenvalues: Array) -> Array:
+    """Eigenvalues sorted by decreasing real part (ties: decreasing imaginary part)."""
+    order = np.lexsort((-eigenvalues.imag, -eigenvalues.real))
+    return eigenvalues[order]
+
+
+def dense_eigenvalues(matrix: Array) -> Array:
+    """All eigenvalues of a dense square matrix, sorted by decreasing real part."""
+    values = np.linalg.eigvals(matrix).astype(complex, copy=False)
+    return values[np.argsort(-values.real, kind="stable")]
+
+
+def leading_eigenvalues(matrix: object, count: int = SPARSE_EIGEN_COUNT) -> Array:
+    """The ``count`` eigenvalues with the largest real parts.
+
+    Dense matrices (or any matrix with at most ``count + 2`` rows): all
+    eigenvalues from LAPACK, then the first ``count``. Sparse matrices:
+    implicitly restarted Arnoldi (ARPACK through ``scipy.sparse.linalg.eigs``)
+    for the rightmost eigenvalues, plus shift-invert Arnoldi at the shifts of
+    ``IMAGINARY_AXIS_SHIFTS`` for the eigenvalues nearest the imaginary axis
+    (where stability changes), merged and sorted.
+
+    Returns
+    -------
+    ndarray (r,) complex, r <= count, sorted by decreasing real part.
+    """
+    size = matrix.shape[0]
+    if not sp.issparse(matrix) or size <= count + 2:
+        dense = matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix)
+        return dense_eigenvalues(dense)[:count]
+    matrix = sp.csc_matrix(matrix)
+    found: list[Array] = []
+    try:
+        found.append(spla.eigs(matrix, k=count, which="LR", return_eigenvectors=False))
+    except (spla.ArpackNoConvergence, spla.ArpackError) as exc:
+        values = getattr(exc, "eigenvalues", None)
+        if values is not None and len(values):
+            found.append(np.asarray(values))
+    for shift in IMAGINARY_AXIS_SHIFTS:
+        try:
+            found.append(
+                spla.eigs(matrix, k=count, sigma=shift, which="LM", return_eigenvectors=False)
+            )
+        except (spla.ArpackNoConvergence, spla.ArpackError, RuntimeError) as exc:
+            values = getattr(exc, "eigenvalues", None)
+            if values is not None and len(values):
+                found.append(np.asarray(values))
+    if not found:
+        return np.full(count, np.nan + 0j)
+    merged = _unique_eigenvalues(np.concatenate(found).astype(complex))
+    merged = sort_by_real_part(merged)[:count]
+    if merged.shape[0] < count:
+        merged = np.concatenate([merged, np.full(count - merged.shape[0], np.nan + 0j)])
+    return merged
+
+
+def _unique_eigenvalues(values: Array, rtol: float = 1e-8) -> Array:
+    """Drop eigenvalues found twice by different Arnoldi runs."""
+    kept: list[complex] = []
+    for value in values:
+        if not any(abs(value - other) <= rtol * max(1.0, abs(other)) for other in kept):
+            kept.append(complex(value))
+    return np.array(kept, dtype=complex)
+
+
+def count_by_half_plane(eigenvalues: Array, zero_tolerance: float) -> tuple[int, int, int]:
+    """Counts of eigenvalues with positive, (near-)zero and negative real part.
+
+    ``zero_tolerance`` is absolute: |Re lambda| <= zero_tolerance counts as zero.
+    """
+    real = eigenvalues.real
+    positive = int(np.count_nonzero(real > zero_tolerance))
+    negative = int(np.count_nonzero(real < -zero_tolerance))
+    return positive, real.shape[0] - positive - negative, negative

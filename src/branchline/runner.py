@@ -1,0 +1,158 @@
+"""Run a scan: model -> traces -> events -> branch switching -> RunResult.
+
+No I/O here: the command line and notebooks call :func:`run_scan` and then
+write or inspect the record it returns.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from branchline.branches import trace_branch
+from branchline.errors import ScanError
+from branchline.events import locate_events
+from branchline.model import Model, build_model, check_jacobian, resolve_callable
+from branchline.results import STATUS_FAILED, Branch, Event, RunResult
+from branchline.scan import Scan, TraceSpec
+from branchline.switching import trace_switched
+
+# Branch points closer than this (relative, in state and parameter) to one
+# already switched at are the same point met again from a child branch.
+SAME_POINT_TOLERANCE = 1e-6
+# Child branches may meet further branch points; stop switching this deep.
+MAX_SWITCH_DEPTH = 3
+
+Progress = Callable[[str, int], None]
+
+
+@dataclass(frozen=True)
+class _TraceOutcome:
+    branches: list[Branch]
+    events: list[Event]
+
+
+def start_vector(model: Model, spec: TraceSpec, parameters: np.ndarray, source: str) -> np.ndarray:
+    """The trace's start guess as a state vector, shape (n,)."""
+    if isinstance(spec.start, str):
+        function = resolve_callable(spec.start, source, f"trace[{spec.name}].start")
+        values = np.asarray(function(dict(zip(model.parameters, parameters))), dtype=float)
+        if values.shape != (model.size,):
+            raise ScanError(
+                source,
+                f"trace[{spec.name}].start",
+                f"{spec.start} returned shape {values.shape}, expected ({model.size},)",
+            )
+        return values
+    return np.array([spec.start[name] for name in model.states], dtype=float)
+
+
+def _seen(event: Event, visited: list[Event]) -> bool:
+    for other in visited:
+        scale = 1.0 + abs(other.value) + float(np.linalg.norm(other.state))
+        gap = abs(event.value - other.value) + float(np.linalg.norm(event.state - other.state))
+        if gap <= SAME_POINT_TOLERANCE * scale:
+            return True
+    return False
+
+
+def _follow(model: Model, spec: TraceSpec, source: str, progress: Progress | None) -> _TraceOutcome:
+    parameters = model.parameter_vector(spec.set)
+    x0 = start_vector(model, spec, parameters, source)
+    callback = (lambda count: progress(spec.name, count)) if progress else None
+    root = trace_branch(
+        model,
+        spec.name,
+        spec.vary,
+        parameters,
+        x0,
+        spec.interval,
+        spec.direction,
+        spec.steps,
+        progress=callback,
+    )
+    branches, events = [root], list(locate_events(model, root))
+    if not spec.switch_branches:
+        return _TraceOutcome(branches, events)
+    visited: list[Event] = []
+    queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
+    while queue:
+        parent, event, depth = queue.pop(0)
+        if _seen(event, visited) or depth > MAX_SWITCH_DEPTH:
+            continue
+        visited.append(event)
+        child_progress = (lambda count, n=parent.name: progress(n, count)) if progress else None
+        children = trace_switched(
+            model, parent, event, spec.steps, spec.interval, progress=child_progress
+        )
+        for child in children:
+            branches.append(child)
+            found = list(locate_events(model, child))
+            events.extend(found)
+            queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
+    return _TraceOutcome(branches, events)
+
+
+def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
+    """Run everything a validated scan asks for.
+
+    Parameters
+    ----------
+    scan : Scan
+        From :func:`branchline.scan.load_scan` or :func:`branchline.scan.scan_from_dict`.
+    progress : callable (trace name, points so far) -> None, optional
+        Called as points are computed (the command line's progress display).
+
+    Returns
+    -------
+    RunResult
+        ``status`` is ``"failed"`` if any trace stopped on numerical trouble;
+        ``message`` then says which trace, where and why. All points computed
+        are kept either way.
+
+    Examples
+    --------
+    >>> from branchline import scan_from_dict, run_scan
+    >>> scan = scan_from_dict({
+    ...     "model": {"parameters": {"h": 0.1},
+    ...               "equations": {"N": "N*(1 - N) - h"}},
+    ...     "trace": [{"vary": "h", "interval": [0.0, 0.4], "start": {"N": 0.9}}]})
+    >>> result = run_scan(scan)
+    >>> [e.kind for e in result.events]
+    ['fold']
+    """
+    started = time.perf_counter()
+    model = build_model(scan.model, source=scan.source)
+    compiled = time.perf_counter()
+    warnings = []
+    branches: list[Branch] = []
+    events: list[Event] = []
+    for spec in scan.traces:
+        if model.python_source and getattr(model, "jacobian_source", None):
+            parameters = model.parameter_vector(spec.set)
+            check = check_jacobian(model, start_vector(model, spec, parameters, scan.source), parameters)
+            if not check.ok:
+                warnings.append(check.message)
+        outcome = _follow(model, spec, scan.source, progress)
+        branches.extend(outcome.branches)
+        events.extend(outcome.events)
+    failed = [b for b in branches if b.status == STATUS_FAILED]
+    message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
+    finished = time.perf_counter()
+    return RunResult(
+        scan=scan,
+        model=model,
+        branches=tuple(branches),
+        events=tuple(events),
+        status=STATUS_FAILED if failed else "done",
+        message=message,
+        timings={
+            "compile_seconds": compiled - started,
+            "continuation_seconds": finished - compiled,
+            "total_seconds": finished - started,
+        },
+        warnings=tuple(warnings),
+    )
