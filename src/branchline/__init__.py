@@ -1,4 +1,56 @@
 """branchline: follow equilibria of ODE models through a parameter, and locate,
-classify and report where their stability changes."""
+classify and report where their stability changes.
+
+The public API, for scripts and notebooks::
+
+    import branchline
+    scan = branchline.load_scan("scans/harvested_stock.toml")   # or scan_from_dict({...})
+    result = branchline.run_scan(scan)                          # a RunResult record
+    result.points_frame(), result.events_frame()                # pandas tables
+    result.figure(); print(result.report())
+    branchline.write_results(result, "runs/stock")              # the results folder
+    saved = branchline.read_results("runs/stock")               # read back
+
+Names are imported lazily so that ``import branchline`` stays fast.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
 
 __version__ = "0.1.0"
+
+_EXPORTS = {
+    "load_scan": "branchline.scan",
+    "scan_from_dict": "branchline.scan",
+    "Scan": "branchline.scan",
+    "ScanError": "branchline.errors",
+    "build_model": "branchline.model",
+    "Model": "branchline.model",
+    "run_scan": "branchline.runner",
+    "run": "branchline.api",
+    "write_results": "branchline.writers",
+    "read_results": "branchline.writers",
+    "SavedRun": "branchline.writers",
+    "RunResult": "branchline.results",
+    "Branch": "branchline.results",
+    "Event": "branchline.results",
+    "solve_equilibrium": "branchline.equilibrium",
+    "linearize": "branchline.equilibrium",
+    "render_report": "branchline.report",
+    "bifurcation_figure": "branchline.plotting",
+}
+
+__all__ = [*sorted(_EXPORTS), "__version__"]
+
+
+def __getattr__(name: str) -> Any:
+    module = _EXPORTS.get(name)
+    if module is None:
+        raise AttributeError(f"module 'branchline' has no attribute {name!r}")
+    return getattr(importlib.import_module(module), name)
+
+
+def __dir__() -> list[str]:
+    return __all__

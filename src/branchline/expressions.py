@@ -58,6 +58,8 @@ MAX_EXPONENT = 1000
 MAX_NUMBER_DIGITS = 400
 
 _LOG10_2 = math.log10(2.0)
+# Characters shown either side of the caret in messages about long expressions.
+_CARET_CONTEXT = 60
 
 
 def _log10(x: sympy.Expr) -> sympy.Expr:
@@ -214,7 +216,7 @@ def _parse_checked(text: str) -> sympy.Expr:
     python_text, columns = _powers_as_python(text)
     tree = _syntax_tree(python_text, columns)
     _check_tree_size(tree, columns)
-    expr = _Builder(columns).build(tree.body)
+    expr = _Builder(python_text, columns).build(tree.body)
     _check_result(expr)
     return expr
 
@@ -314,11 +316,36 @@ def _column(node: ast.AST, columns: list[int]) -> int | None:
 class _Builder:
     """Turns a checked syntax tree into sympy, node by node, from the whitelist only."""
 
-    def __init__(self, columns: list[int]) -> None:
+    def __init__(self, python_text: str, columns: list[int]) -> None:
+        self.text = python_text
         self.columns = columns
 
     def refuse(self, problem: str, node: ast.AST) -> _Refusal:
         return _Refusal(problem, _column(node, self.columns))
+
+    def where(self, node: ast.AST) -> int | None:
+        """The column to point at: the operator or dot itself where the node has one."""
+        if isinstance(node, (ast.Attribute, ast.Subscript)):
+            return self.after(node.value)
+        if isinstance(node, ast.Compare):
+            return self.after(node.left)
+        if isinstance(node, ast.BoolOp):
+            return self.after(node.values[0])
+        if isinstance(node, ast.IfExp):
+            return self.after(node.body)
+        if isinstance(node, ast.BinOp):
+            return self.after(node.left)
+        return _column(node, self.columns)
+
+    def after(self, node: ast.AST) -> int | None:
+        """The column of the first character after ``node`` that is not a space or ')'."""
+        end = getattr(node, "end_col_offset", None)
+        if end is None or getattr(node, "end_lineno", 1) != 1:
+            return _column(node, self.columns)
+        text = self.text
+        while end < len(text) and text[end] in " )":
+            end += 1
+        return self.columns[min(end, len(self.columns) - 1)]
 
     def build(self, node: ast.AST) -> sympy.Expr:
         if isinstance(node, ast.Constant):
@@ -333,7 +360,7 @@ class _Builder:
             result = self.call(node)
         else:
             problem = _REFUSED_NODES.get(type(node), f"'{type(node).__name__}' is not allowed")
-            raise self.refuse(problem, node)
+            raise _Refusal(problem, self.where(node))
         self.check_numbers(result, node)
         return result
 
@@ -379,7 +406,7 @@ class _Builder:
         if isinstance(node.op, ast.Pow):
             return self.power(self.build(node.left), self.build(node.right), node)
         text = _OPERATOR_TEXT.get(type(node.op), type(node.op).__name__)
-        raise self.refuse(f"the operator '{text}' is not allowed", node)
+        raise _Refusal(f"the operator '{text}' is not allowed", self.where(node))
 
     def chain(self, node: ast.BinOp, group: tuple[type, ...]) -> list[sympy.Expr]:
         """Operands of a left-nested + - (or * /) chain, negated (inverted) where needed.
@@ -403,14 +430,18 @@ class _Builder:
 
     def power(self, base: sympy.Expr, exponent: sympy.Expr, node: ast.AST) -> sympy.Expr:
         if exponent.is_Number:
+            column = self.where(node)
             if abs(exponent) > MAX_EXPONENT:
-                raise self.refuse(
-                    f"the exponent {exponent} is too large (at most {MAX_EXPONENT} in size)",
-                    node,
+                raise _Refusal(
+                    f"the exponent {_short(exponent)} is too large "
+                    f"(at most {MAX_EXPONENT} in size)",
+                    column,
                 )
             if base.is_Number and abs(exponent) * _decimal_size(base) > MAX_NUMBER_DIGITS:
-                raise self.refuse(
-                    f"the power {base}**{exponent} is too large to compute", node
+                raise _Refusal(
+                    f"the power {_short(base)}**{_short(exponent)} is too large to compute "
+                    f"(more than {MAX_NUMBER_DIGITS} digits)",
+                    column,
                 )
         return sympy.Pow(base, exponent)
 
@@ -476,6 +507,16 @@ def _decimal_size(number: sympy.Expr) -> float:
     return 0.0  # pi, E and the like: bounded
 
 
+def _short(number: sympy.Expr) -> str:
+    """A number for a message: exact when short, else its size."""
+    if number.is_Float:
+        return f"{float(number):g}"
+    text = str(number)
+    if len(text) <= 20:
+        return text
+    return f"(a number of about {_decimal_size(number):.0f} digits)"
+
+
 def _check_result(expr: sympy.Expr) -> None:
     if expr.has(sympy.zoo, sympy.nan, sympy.oo, -sympy.oo):
         raise _Refusal("the expression is infinite or undefined (a division by zero?)", None)
@@ -498,10 +539,17 @@ def _prefix(where: str) -> str:
 
 
 def _message(text: str, refusal: _Refusal, where: str) -> str:
+    """The problem, then the text with a caret under the offending column."""
     message = _prefix(where) + refusal.problem
-    if refusal.column is None or len(text) > 200:
+    if refusal.column is None:
         return message
-    return f"{message}\n    {text}\n    {' ' * refusal.column}^"
+    start = max(0, refusal.column - _CARET_CONTEXT)
+    stop = refusal.column + _CARET_CONTEXT
+    excerpt = text[start:stop]
+    lead = "..." if start > 0 else ""
+    tail = "..." if stop < len(text) else ""
+    caret = " " * (len(lead) + refusal.column - start) + "^"
+    return f"{message}\n    {lead}{excerpt}{tail}\n    {caret}"
 
 
 __all__ = [

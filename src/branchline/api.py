@@ -1,0 +1,51 @@
+"""One-call convenience for notebooks and scripts."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from branchline.results import RunResult
+from branchline.runner import run_scan
+from branchline.scan import Scan, load_scan, scan_from_dict
+from branchline.writers import write_results
+
+
+def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None) -> RunResult:
+    """Load (if needed), validate and run a scan; optionally write its results folder.
+
+    Parameters
+    ----------
+    scan : path, dict or Scan
+        A scan file, a dict with the scan file's layout, or a loaded Scan.
+    out : path, optional
+        If given, the results folder to write (as ``branchline run --out``).
+
+    Returns
+    -------
+    RunResult
+        Tables via ``.points_frame()`` / ``.events_frame()``, events via
+        ``.events``, the diagram via ``.figure()``, the report via ``.report()``.
+
+    Raises
+    ------
+    branchline.ScanError
+        If the scan is invalid (nothing is written then).
+
+    Examples
+    --------
+    >>> import branchline
+    >>> result = branchline.run({
+    ...     "model": {"parameters": {"mu": -1.0}, "equations": {"x": "mu*x - x^3"}},
+    ...     "trace": [{"vary": "mu", "interval": [-1, 1], "start": {"x": 0.0}}]})
+    >>> [(e.kind, round(e.value, 12)) for e in result.events]
+    [('branch_point', 0.0)]
+    """
+    if isinstance(scan, dict):
+        scan = scan_from_dict(scan)
+    elif not isinstance(scan, Scan):
+        scan = load_scan(scan)
+    result = run_scan(scan)
+    if out is not None:
+        write_results(result, out)
+    return result
