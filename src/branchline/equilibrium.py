@@ -225,6 +225,11 @@ def solve_equilibrium(
     """
     x = np.array(x0, dtype=float).reshape(-1)
     p = np.array(p, dtype=float).reshape(-1)
+    with np.errstate(all="ignore"):
+        return _newton(model, x, p, residual_tol, update_rtol, max_iterations)
+
+
+def _newton(model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
     f = _evaluate(model.rhs, x, p)
     if f is None:
         return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE,

@@ -4,19 +4,156 @@ Test functions (evaluated at every accepted point, in this order):
 
 - ``fold``: the parameter component of the unit tangent; changes sign at a
   turning point of the branch.
-- ``hopf``: a smooth function that vanishes when a pair of eigenvalues sums to
-  zero (determinant of the bialternate product 2A (.) I, i.e. prod_{i<j}
-  (lambda_i + lambda_j)); neutral saddles (real lambda, -lambda) are rejected at
-  location.
-- ``branch_point``: the determinant of the bordered Jacobian [[f_x, f_p],
-  [t^T]], which changes sign where two branches cross.
+- ``hopf``: a function that vanishes when a pair of eigenvalues sums to zero:
+  the determinant of the bialternate product 2A (.) I, i.e.
+  prod_{i<j} (lambda_i + lambda_j) (Kuznetsov, Elements of Applied Bifurcation
+  Theory, section 10.2.2), for up to ``BIALTERNATE_MAX_SIZE`` eigenvalues, and
+  for longer rows (large models) a function of the leading eigenvalues only
+  (see :func:`hopf_test`). Neutral saddles (real lambda, -lambda) change its
+  sign too and are rejected at location.
+- ``branch_point``: the determinant of the bordered Jacobian [[f_x, f_p], [t^T]],
+  which changes sign where two branches cross (Allgower & Georg, Introduction
+  to Numerical Continuation Methods, section 8.1).
+
+Each sign change brackets an event, which :func:`locate_events` refines by
+Newton's method on the event's defining system:
+
+- fold: the minimally augmented system f = 0, g = 0 with g from a bordered
+  system (Govaerts, Numerical Methods for Bifurcations of Dynamical Equilibria,
+  section 4.4; Kuznetsov, section 10.2.1);
+- Hopf: the standard extended system f = 0, A q = i omega q, <c, q> = 1
+  (Kuznetsov, section 10.2.2; Griewank & Reddien 1983);
+- branch point: the extended system f + mu psi = 0, [f_x, f_p]^T psi = 0,
+  psi^T psi = 1 (Moore, "The numerical treatment of non-trivial bifurcation
+  points", Numer. Funct. Anal. Optim. 2 (1980); Allgower & Georg, section 8.1).
+
+Only when Newton fails is the event placed by bisection on the test function
+along the branch (the event's ``note`` says so).
 """
 
 from __future__ import annotations
 
+import cmath
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from functools import lru_cache
+
 import numpy as np
 
+from branchline.normal_forms import (
+    branch_point_normal_form,
+    dense,
+    directional_jacobian,
+    fold_normal_form,
+    hopf_normal_form,
+    parameter_second_derivative,
+)
+from branchline.results import Branch, Event
+
+Array = np.ndarray
+
 TEST_FUNCTIONS = ("fold", "hopf", "branch_point")
+
+# Rows with up to this many eigenvalues use the full bialternate product
+# (n (n - 1) / 2 factors); longer rows use the leading eigenvalues only.
+BIALTERNATE_MAX_SIZE = 50
+
+# Up to this many eigenvalues the pair product is a plain Python loop (faster
+# than numpy's per-call overhead for a handful of factors).
+PYTHON_PRODUCT_MAX_SIZE = 8
+
+# Test values are returned as sign * exp(log|value|) with the logarithm
+# clipped here, so that products of many factors never overflow to inf or
+# underflow to 0 (which would hide a sign).
+LOG_CLIP = 600.0
+
+# Newton on the defining systems: stop when the update is this small relative
+# to the unknowns (one more iteration then only polishes the last bits).
+NEWTON_STEP_RTOL = 1e-13
+NEWTON_MAX_ITERATIONS = 30
+# A converged event must lie within this many bracket lengths of its bracket;
+# further away, Newton has found some other point.
+BRACKET_REACH = 2.0
+
+# Complex eigenvalues: |Im| above this fraction of the spectral scale.
+COMPLEX_RTOL = 1e-8
+# A located Hopf point with omega below this fraction of the Jacobian's scale
+# is a Bogdanov-Takens-like degenerate point, not reported as Hopf.
+SMALLEST_RELATIVE_FREQUENCY = 1e-6
+
+# Bisection fallback: stop at this relative bracket width in arclength.
+BISECTION_RTOL = 1e-14
+BISECTION_MAX_ITERATIONS = 200
+
+# Two located events of one kind closer than this (relative) are one event.
+SAME_EVENT_RTOL = 1e-7
+
+
+# ----------------------------------------------------------------------------
+# test functions (hot path)
+
+
+@lru_cache(maxsize=64)
+def _pair_indices(count: int) -> tuple[Array, Array]:
+    return np.triu_indices(count, 1)
+
+
+def _signed_log_product(factors: Array) -> float:
+    """prod(factors).real as sign * exp(clipped log-magnitude), without overflow."""
+    magnitudes = np.abs(factors)
+    if not np.all(magnitudes > 0.0):
+        return 0.0
+    phase = np.prod(factors / magnitudes)
+    sign = 1.0 if phase.real >= 0.0 else -1.0
+    log_size = float(np.sum(np.log(magnitudes)))
+    return sign * math.exp(min(max(log_size, -LOG_CLIP), LOG_CLIP))
+
+
+def hopf_test(eigenvalues: Array) -> float:
+    """The Hopf test function from a row of eigenvalues (sorted by decreasing real part).
+
+    Up to ``BIALTERNATE_MAX_SIZE`` eigenvalues: prod_{i<j} (lambda_i + lambda_j),
+    the determinant of the bialternate product 2A (.) I (smooth in the
+    Jacobian's entries, so the engine's step control can extrapolate it; its
+    magnitude is clipped at exp(+-LOG_CLIP) instead of overflowing). Longer rows
+    (large models): (-1)^(number of complex pairs with positive real part) times
+    the smallest |Re lambda| over complex pairs, which is continuous through a
+    Hopf crossing and blind to eigenvalues entering or leaving the row.
+    """
+    values = eigenvalues.tolist()
+    count = len(values)
+    if count > BIALTERNATE_MAX_SIZE:
+        return _leading_pairs_test(np.asarray(eigenvalues))
+    lam = np.asarray(eigenvalues)
+    if count <= PYTHON_PRODUCT_MAX_SIZE:
+        product = 1.0 + 0.0j
+        for i in range(count - 1):
+            first = values[i]
+            for j in range(i + 1, count):
+                product *= first + values[j]
+    else:
+        i, j = _pair_indices(count)
+        with np.errstate(all="ignore"):
+            product = complex(np.prod(lam[i] + lam[j]))
+    if cmath.isfinite(product) and product != 0.0:
+        return product.real
+    lam = lam[np.isfinite(lam)]
+    if lam.shape[0] < 2:
+        return 1.0
+    i, j = _pair_indices(lam.shape[0])
+    return _signed_log_product(lam[i] + lam[j])
+
+
+def _leading_pairs_test(eigenvalues: Array) -> float:
+    lam = eigenvalues[np.isfinite(eigenvalues)]
+    if lam.shape[0] == 0:
+        return 1.0
+    upper = lam[lam.imag > COMPLEX_RTOL * float(np.max(np.abs(lam)))]
+    if upper.shape[0] == 0:
+        return 1.0
+    unstable = int(np.count_nonzero(upper.real > 0.0))
+    return (-1.0) ** unstable * float(np.min(np.abs(upper.real)))
 
 
 def equilibrium_tests(
@@ -26,31 +163,755 @@ def equilibrium_tests(
 
     Parameters
     ----------
-    jac_x : ndarray (n, n)
+    jac_x : ndarray (n, n) or scipy.sparse matrix
         df/dx at the point.
     jac_p : ndarray (n,)
         df/dp for the varied parameter.
     tangent : ndarray (n + 1,)
         Unit tangent (states, then parameter).
-    eigenvalues : ndarray (n,) complex
-        Eigenvalues of ``jac_x``.
+    eigenvalues : ndarray (r,) complex
+        Eigenvalues of ``jac_x`` (all, or the r leading ones), NaN-padded allowed.
 
     Returns
     -------
     ndarray (3,)
-        Values in the order of :data:`TEST_FUNCTIONS`.
+        Values in the order of :data:`TEST_FUNCTIONS`. Only their signs, zeros
+        and local smoothness carry meaning.
     """
-    fold = tangent[-1]
-    lam = eigenvalues
-    n = lam.shape[0]
-    if n < 2:
-        hopf = 1.0
-    else:
-        i, j = np.triu_indices(n, 1)
-        hopf = float(np.real(np.prod(lam[i] + lam[j])))
+    return np.array(
+        [float(tangent[-1]), hopf_test(eigenvalues), bordered_determinant(jac_x, jac_p, tangent)]
+    )
+
+
+def bordered_determinant(jac_x: object, jac_p: Array, tangent: Array) -> float:
+    """det [[f_x, f_p], [t^T]]: explicit for n <= 2, LAPACK LU, or sparse SuperLU.
+
+    Overflow is avoided by falling back to log-determinants, clipped at exp(+-LOG_CLIP).
+    """
+    n = jac_x.shape[0]
+    if hasattr(jac_x, "toarray"):
+        if n > BIALTERNATE_MAX_SIZE:
+            return _sparse_bordered_determinant(jac_x, jac_p, tangent)
+        jac_x = jac_x.toarray()
+    if n == 1:
+        return float(jac_x[0, 0] * tangent[1] - jac_p[0] * tangent[0])
+    if n == 2:
+        (a, b), (c, d) = jac_x.tolist()
+        e, f = float(jac_p[0]), float(jac_p[1])
+        g, h, i = tangent.tolist()
+        return a * (d * i - f * h) - b * (c * i - f * g) + e * (c * h - d * g)
     bordered = np.empty((n + 1, n + 1))
     bordered[:n, :n] = jac_x
     bordered[:n, n] = jac_p
     bordered[n] = tangent
-    branch = np.linalg.det(bordered)
-    return np.array([fold, hopf, branch])
+    value = float(np.linalg.det(bordered))
+    if math.isfinite(value) and value != 0.0:
+        return value
+    sign, log_det = np.linalg.slogdet(bordered)
+    if sign == 0.0 or not math.isfinite(log_det):
+        return 0.0
+    return float(sign) * math.exp(min(max(float(log_det), -LOG_CLIP), LOG_CLIP))
+
+
+def _sparse_bordered_determinant(jac_x, jac_p: Array, tangent: Array) -> float:
+    import scipy.sparse as sp
+    import scipy.sparse.linalg as spla
+
+    matrix = sp.bmat(
+        [[jac_x, sp.csc_matrix(np.asarray(jac_p).reshape(-1, 1))], [sp.csr_matrix(tangent)]],
+        format="csc",
+    )
+    try:
+        lu = spla.splu(matrix)
+    except RuntimeError:
+        return 0.0
+    diagonal = np.concatenate([lu.U.diagonal()])
+    if np.any(diagonal == 0.0):
+        return 0.0
+    sign = float(np.prod(np.sign(diagonal)))
+    sign *= _permutation_sign(lu.perm_r) * _permutation_sign(lu.perm_c)
+    log_det = float(np.sum(np.log(np.abs(diagonal))))
+    return sign * math.exp(min(max(log_det, -LOG_CLIP), LOG_CLIP))
+
+
+def _permutation_sign(permutation: Array) -> float:
+    seen = np.zeros(permutation.shape[0], dtype=bool)
+    sign = 1.0
+    for start in range(permutation.shape[0]):
+        if seen[start]:
+            continue
+        length = 0
+        index = start
+        while not seen[index]:
+            seen[index] = True
+            index = permutation[index]
+            length += 1
+        if length % 2 == 0:
+            sign = -sign
+    return sign
+
+
+# ----------------------------------------------------------------------------
+# Newton on a defining system
+
+
+@dataclass
+class NewtonOutcome:
+    converged: bool
+    solution: Array
+    residual_norms: list[float] = field(default_factory=list)
+    message: str = ""
+
+
+def newton(
+    system: Callable[[Array], tuple[Array, Array]], z0: Array, scale: float = 1.0
+) -> NewtonOutcome:
+    """Newton's method on a square system z -> (residual, Jacobian).
+
+    Converged when the update is below ``NEWTON_STEP_RTOL`` relative to |z|
+    (the residual is then at rounding level); one more evaluation records the
+    final residual norm.
+    """
+    z = np.array(z0, dtype=float)
+    history: list[float] = []
+    for _ in range(NEWTON_MAX_ITERATIONS):
+        try:
+            residual, jacobian = system(z)
+        except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+            return NewtonOutcome(False, z, history, f"evaluation failed: {exc}")
+        size = float(np.linalg.norm(residual))
+        history.append(size)
+        if not np.isfinite(size):
+            return NewtonOutcome(False, z, history, "the residual is not finite")
+        try:
+            step = np.linalg.solve(jacobian, -residual)
+        except np.linalg.LinAlgError:
+            return NewtonOutcome(False, z, history, "singular Jacobian of the defining system")
+        if not np.all(np.isfinite(step)):
+            return NewtonOutcome(False, z, history, "the Newton update is not finite")
+        z = z + step
+        if float(np.linalg.norm(step)) <= NEWTON_STEP_RTOL * (scale + float(np.linalg.norm(z))):
+            residual, _ = system(z)
+            history.append(float(np.linalg.norm(residual)))
+            return NewtonOutcome(True, z, history)
+    return NewtonOutcome(False, z, history, f"no convergence in {NEWTON_MAX_ITERATIONS} iterations")
+
+
+# ----------------------------------------------------------------------------
+# the branch as a curve u = (x, p)
+
+
+@dataclass(frozen=True)
+class _Bracket:
+    """Two consecutive rows of a branch between which a test function changes sign."""
+
+    kind: str
+    row: int  # the first of the two rows
+    fraction: float  # linear-interpolation estimate of the crossing within the step
+    hint: dict = field(default_factory=dict)  # kind-specific seed information
+
+
+def _curve_point(branch: Branch, row: int) -> Array:
+    return np.append(branch.states[row], branch.parameter_values[row])
+
+
+def _with_value(params: Array, k: int, value: float) -> Array:
+    full = np.array(params, dtype=float)
+    full[k] = value
+    return full
+
+
+def _interpolate_fraction(a: float, b: float) -> float:
+    if a == b:
+        return 0.5
+    return float(np.clip(a / (a - b), 0.0, 1.0))
+
+
+def correct_on_branch(
+    model, params: Array, k: int, guess: Array, direction: Array
+) -> NewtonOutcome:
+    """The branch point u = (x, p) with f(u) = 0 and direction . (u - guess) = 0 (Newton)."""
+
+    def system(u: Array) -> tuple[Array, Array]:
+        full = _with_value(params, k, u[-1])
+        x = u[:-1]
+        residual = np.append(model.rhs(x, full), direction @ (u - guess))
+        jacobian = np.vstack(
+            [
+                np.column_stack(
+                    [dense(model.jacobian(x, full)), model.parameter_jacobian(x, full)[:, k]]
+                ),
+                direction,
+            ]
+        )
+        return residual, jacobian
+
+    return newton(system, guess)
+
+
+# ----------------------------------------------------------------------------
+# brackets
+
+
+def _sign_changes(values: Array) -> list[int]:
+    signs = np.sign(values)
+    rows = []
+    for row in range(values.shape[0] - 1):
+        a, b = signs[row], signs[row + 1]
+        if a != b and not (a == 0 and row > 0):  # a zero row is counted once, from before
+            if np.isfinite(values[row]) and np.isfinite(values[row + 1]):
+                rows.append(row)
+    return rows
+
+
+def _upper_eigenvalues(row: Array) -> Array:
+    lam = row[np.isfinite(row)]
+    if lam.shape[0] == 0:
+        return lam
+    scale = max(float(np.max(np.abs(lam))), 1e-300)
+    return lam[lam.imag > COMPLEX_RTOL * scale]
+
+
+def _hopf_crossings(before: Array, after: Array) -> list[tuple[float, float]]:
+    """Complex pairs whose real part changes sign between two rows: (fraction, omega guess)."""
+    upper_a, upper_b = _upper_eigenvalues(before), _upper_eigenvalues(after)
+    crossings = []
+    for value in upper_a:
+        if upper_b.shape[0] == 0:
+            break
+        match = upper_b[int(np.argmin(np.abs(upper_b - value)))]
+        if np.sign(value.real) != np.sign(match.real) and (value.real != 0 or match.real != 0):
+            fraction = _interpolate_fraction(value.real, match.real)
+            omega = float(value.imag + fraction * (match.imag - value.imag))
+            crossings.append((fraction, omega))
+    return crossings
+
+
+def _nearest_pair(row: Array) -> tuple[complex, complex]:
+    """The pair (lambda_i, lambda_j), i < j, with the smallest |lambda_i + lambda_j|."""
+    lam = row[np.isfinite(row)]
+    i, j = _pair_indices(lam.shape[0])
+    best = int(np.argmin(np.abs(lam[i] + lam[j])))
+    return complex(lam[i[best]]), complex(lam[j[best]])
+
+
+def find_brackets(branch: Branch) -> list[_Bracket]:
+    """Every sign change of a test function between consecutive rows, with seeds."""
+    tests = branch.test_values
+    brackets: list[_Bracket] = []
+    for column, kind in ((0, "fold"), (2, "branch_point")):
+        for row in _sign_changes(tests[:, column]):
+            fraction = _interpolate_fraction(tests[row, column], tests[row + 1, column])
+            brackets.append(_Bracket(kind, row, fraction))
+    hopf_rows = set(_sign_changes(tests[:, 1]))
+    for row in range(len(branch) - 1):
+        crossings = _hopf_crossings(branch.eigenvalues[row], branch.eigenvalues[row + 1])
+        for fraction, omega in crossings:
+            brackets.append(_Bracket("hopf", row, fraction, {"omega": omega}))
+        if row in hopf_rows and not crossings:
+            # the test changed sign but no tracked complex pair crossed: a neutral
+            # saddle (kappa < 0) unless a pair turned complex within the step
+            for end in (row, row + 1):
+                first, second = _nearest_pair(branch.eigenvalues[end])
+                kappa = (first * second).real
+                if kappa > 0.0 and abs(first.imag) > 0.0:
+                    hint = {"omega": math.sqrt(kappa)}
+                    brackets.append(_Bracket("hopf", row, 0.5, hint))
+                    break
+    return brackets
+
+
+# ----------------------------------------------------------------------------
+# defining systems
+
+
+def _fold_system(model, params: Array, k: int, border_b: Array, border_c: Array):
+    """Minimally augmented fold system: unknowns u = (x, p), equations (f, g)."""
+    n = border_b.shape[0]
+
+    def system(u: Array) -> tuple[Array, Array]:
+        x, full = u[:-1], _with_value(params, k, u[-1])
+        a_matrix = dense(model.jacobian(x, full))
+        fp = model.parameter_jacobian(x, full)[:, k]
+        bordered = np.zeros((n + 1, n + 1))
+        bordered[:n, :n] = a_matrix
+        bordered[:n, n] = border_b
+        bordered[n, :n] = border_c
+        rhs = np.zeros(n + 1)
+        rhs[n] = 1.0
+        vg = np.linalg.solve(bordered, rhs)
+        wg = np.linalg.solve(bordered.T, rhs)
+        v, g, w = vg[:n], vg[n], wg[:n]
+        g_x = -(w @ directional_jacobian(model, x, full, v))
+        g_p = -float(w @ model.jacobian_parameter_derivative(x, full, v)[:, k])
+        residual = np.append(model.rhs(x, full), g)
+        jacobian = np.vstack([np.column_stack([a_matrix, fp]), np.append(g_x, g_p)])
+        return residual, jacobian
+
+    return system
+
+
+def _hopf_system(model, params: Array, k: int, c: Array):
+    """Extended Hopf system: unknowns (x, p, omega, Re q, Im q), 3n + 2 equations."""
+    n = c.shape[0]
+    eye = np.eye(n)
+
+    def system(z: Array) -> tuple[Array, Array]:
+        x, p, omega = z[:n], z[n], z[n + 1]
+        qr, qi = z[n + 2 : 2 * n + 2], z[2 * n + 2 :]
+        q = qr + 1j * qi
+        full = _with_value(params, k, p)
+        a_matrix = dense(model.jacobian(x, full))
+        fp = model.parameter_jacobian(x, full)[:, k]
+        eigen_residual = a_matrix @ q - 1j * omega * q
+        normal = np.vdot(c, q) - 1.0
+        residual = np.concatenate(
+            [
+                model.rhs(x, full),
+                eigen_residual.real,
+                eigen_residual.imag,
+                [normal.real, normal.imag],
+            ]
+        )
+        bq = directional_jacobian(model, x, full, q)
+        apq = model.jacobian_parameter_derivative(x, full, q)[:, k]
+        size = 3 * n + 2
+        jac = np.zeros((size, size))
+        jac[:n, :n], jac[:n, n] = a_matrix, fp
+        rows_r, rows_i = slice(n, 2 * n), slice(2 * n, 3 * n)
+        cols_r, cols_i = slice(n + 2, 2 * n + 2), slice(2 * n + 2, 3 * n + 2)
+        jac[rows_r, :n], jac[rows_i, :n] = bq.real, bq.imag
+        jac[rows_r, n], jac[rows_i, n] = apq.real, apq.imag
+        jac[rows_r, n + 1], jac[rows_i, n + 1] = qi, -qr
+        jac[rows_r, cols_r], jac[rows_r, cols_i] = a_matrix, omega * eye
+        jac[rows_i, cols_r], jac[rows_i, cols_i] = -omega * eye, a_matrix
+        # <c, q> = (cr - i ci) . (qr + i qi)
+        jac[3 * n, cols_r], jac[3 * n, cols_i] = c.real, c.imag
+        jac[3 * n + 1, cols_r], jac[3 * n + 1, cols_i] = -c.imag, c.real
+        return residual, jac
+
+    return system
+
+
+def _branch_point_system(model, params: Array, k: int):
+    """Moore's extended system: unknowns (x, p, psi, mu), 2n + 2 equations."""
+
+    def system(z: Array) -> tuple[Array, Array]:
+        n = (z.shape[0] - 2) // 2
+        x, p, psi, mu = z[:n], z[n], z[n + 1 : 2 * n + 1], z[2 * n + 1]
+        full = _with_value(params, k, p)
+        a_matrix = dense(model.jacobian(x, full))
+        fp = model.parameter_jacobian(x, full)[:, k]
+        g_u = np.column_stack([a_matrix, fp])
+        residual = np.concatenate(
+            [model.rhs(x, full) + mu * psi, g_u.T @ psi, [0.5 * (psi @ psi - 1.0)]]
+        )
+        hessian = np.empty((n + 1, n + 1))
+        for j, unit in enumerate(np.eye(n)):
+            hessian[j, :n] = psi @ directional_jacobian(model, x, full, unit)
+            hessian[j, n] = psi @ model.jacobian_parameter_derivative(x, full, unit)[:, k]
+        hessian[n, :n] = hessian[:n, n]
+        hessian[n, n] = psi @ parameter_second_derivative(model, x, full, k)
+        size = 2 * n + 2
+        jac = np.zeros((size, size))
+        jac[:n, : n + 1] = g_u
+        jac[:n, n + 1 : 2 * n + 1] = mu * np.eye(n)
+        jac[:n, 2 * n + 1] = psi
+        jac[n : 2 * n + 1, : n + 1] = hessian
+        jac[n : 2 * n + 1, n + 1 : 2 * n + 1] = g_u.T
+        jac[2 * n + 1, n + 1 : 2 * n + 1] = psi
+        return residual, jac
+
+    return system
+
+
+# ----------------------------------------------------------------------------
+# location
+
+
+def _json_complex(values: Array) -> list[list[float]]:
+    return [[float(v.real), float(v.imag)] for v in np.asarray(values, dtype=complex).ravel()]
+
+
+def _sorted_eigenvalues(a_matrix: Array) -> Array:
+    values = np.linalg.eigvals(a_matrix).astype(complex)
+    return values[np.lexsort((-values.imag, -values.real))]
+
+
+def _event_tangent(model, x: Array, full: Array, k: int, chord: Array) -> Array:
+    g_u = np.column_stack([dense(model.jacobian(x, full)), model.parameter_jacobian(x, full)[:, k]])
+    t = np.linalg.svd(g_u)[2][-1]
+    return t if t @ chord >= 0 else -t
+
+
+def _arclength_at(branch: Branch, row: int, u: Array) -> float:
+    ua, ub = _curve_point(branch, row), _curve_point(branch, row + 1)
+    chord = ub - ua
+    length = float(chord @ chord)
+    theta = 0.0 if length == 0 else float(np.clip((u - ua) @ chord / length, 0.0, 1.0))
+    sa, sb = branch.arclength[row], branch.arclength[row + 1]
+    return float(sa + theta * (sb - sa))
+
+
+def _within_bracket(branch: Branch, row: int, u: Array) -> bool:
+    ua, ub = _curve_point(branch, row), _curve_point(branch, row + 1)
+    reach = BRACKET_REACH * float(np.linalg.norm(ub - ua))
+    middle = 0.5 * (ua + ub)
+    return float(np.linalg.norm(u - middle)) <= reach + 1e-12 * (1.0 + float(np.linalg.norm(ua)))
+
+
+def _seed(branch: Branch, bracket: _Bracket) -> Array:
+    ua, ub = _curve_point(branch, bracket.row), _curve_point(branch, bracket.row + 1)
+    return ua + bracket.fraction * (ub - ua)
+
+
+def _bisect_on_branch(
+    model, branch: Branch, k: int, row: int, test: Callable[[Array, Array], float]
+) -> tuple[Array | None, list[float]]:
+    """Fallback: bisection on a test function along the branch between two rows.
+
+    Points between the rows are put on the branch by Newton on
+    f = 0, chord . (u - u_guess) = 0. Returns the point and the bracket widths.
+    """
+    ua, ub = _curve_point(branch, row), _curve_point(branch, row + 1)
+    chord = ub - ua
+
+    def value_at(theta: float) -> tuple[float, Array | None]:
+        guess = ua + theta * chord
+        outcome = correct_on_branch(model, branch.parameters, k, guess, chord)
+        if not outcome.converged:
+            return math.nan, None
+        return test(outcome.solution, chord), outcome.solution
+
+    lo, hi = 0.0, 1.0
+    f_lo, point = value_at(lo)
+    f_hi, _ = value_at(hi)
+    widths: list[float] = []
+    if not (np.isfinite(f_lo) and np.isfinite(f_hi)) or np.sign(f_lo) == np.sign(f_hi):
+        return None, widths
+    for _ in range(BISECTION_MAX_ITERATIONS):
+        middle = 0.5 * (lo + hi)
+        f_mid, candidate = value_at(middle)
+        if candidate is None:
+            return None, widths
+        point = candidate
+        if np.sign(f_mid) == np.sign(f_lo):
+            lo, f_lo = middle, f_mid
+        else:
+            hi = middle
+        widths.append(hi - lo)
+        if hi - lo <= BISECTION_RTOL or f_mid == 0.0:
+            break
+    return point, widths
+
+
+def _base_details(branch: Branch, bracket: _Bracket, a_matrix: Array, method: str) -> dict:
+    return {
+        "method": method,
+        "bracket_rows": [int(bracket.row), int(bracket.row + 1)],
+        "test_values": {
+            "before": [float(v) for v in branch.test_values[bracket.row]],
+            "after": [float(v) for v in branch.test_values[bracket.row + 1]],
+            "order": list(TEST_FUNCTIONS),
+        },
+        "eigenvalues": _json_complex(_sorted_eigenvalues(a_matrix)),
+    }
+
+
+def _make_event(
+    model, branch: Branch, k: int, bracket: _Bracket, u: Array, kind: str, details: dict, **fields
+) -> Event:
+    x = np.array(u[:-1], dtype=float)
+    full = _with_value(branch.parameters, k, float(u[-1]))
+    chord = _curve_point(branch, bracket.row + 1) - _curve_point(branch, bracket.row)
+    details.setdefault("tangent", [float(t) for t in _event_tangent(model, x, full, k, chord)])
+    details["residual_norm"] = float(np.linalg.norm(model.rhs(x, full)))
+    return Event(
+        trace=branch.name,
+        kind=kind,
+        vary=branch.vary,
+        value=float(u[-1]),
+        state=x,
+        parameters=full,
+        arclength=_arclength_at(branch, bracket.row, u),
+        details=details,
+        **fields,
+    )
+
+
+def _format_value(value: float) -> str:
+    return f"{value:.6g}"
+
+
+def _locate_fold(model, branch: Branch, k: int, bracket: _Bracket) -> Event | None:
+    u0 = _seed(branch, bracket)
+    full0 = _with_value(branch.parameters, k, u0[-1])
+    left, _, right = np.linalg.svd(dense(model.jacobian(u0[:-1], full0)))
+    system = _fold_system(model, branch.parameters, k, left[:, -1], right[-1])
+    outcome = newton(system, u0)
+    note = ""
+    method = "Newton on the minimally augmented fold system (Govaerts)"
+    u = outcome.solution
+    if not (outcome.converged and _within_bracket(branch, bracket.row, u)):
+        point, _ = _bisect_on_branch(
+            model, branch, k, bracket.row, lambda u, c: _fold_test(model, branch, k, u, c)
+        )
+        if point is None:
+            return None
+        u = point
+        method = "bisection on the tangent's parameter component"
+        note = f"located by bisection (Newton on the fold system failed: {outcome.message or 'left the bracket'})"
+    x, full = u[:-1], _with_value(branch.parameters, k, u[-1])
+    a_matrix = dense(model.jacobian(x, full))
+    form = fold_normal_form(model, x, full, k)
+    if form.degenerate == "branch point":
+        return None  # a branch point where the traced branch turns: reported as branch_point
+    details = _base_details(branch, bracket, a_matrix, method)
+    details["newton_residual_norms"] = [float(r) for r in outcome.residual_norms]
+    details["eigenvectors"] = {
+        "right": [float(v) for v in form.right_vector],
+        "left": [float(v) for v in form.left_vector],
+    }
+    details["normal_form"] = {
+        "coefficient": form.coefficient,
+        "parameter_sensitivity": form.parameter_sensitivity,
+    }
+    side_note = ""
+    if form.degenerate == "cusp":
+        side_note = "close to a cusp point (quadratic coefficient near zero)"
+    else:
+        relation = "<" if form.two_equilibria_side == "below" else ">"
+        other = ">" if relation == "<" else "<"
+        value = _format_value(float(u[-1]))
+        side_note = (
+            f"two equilibria nearby for {branch.vary} {relation} {value}, "
+            f"none for {branch.vary} {other} {value}"
+        )
+    note = "; ".join(s for s in (side_note, note) if s)
+    return _make_event(
+        model, branch, k, bracket, u, "fold", details, fold_coefficient=form.coefficient, note=note
+    )
+
+
+def _fold_test(model, branch: Branch, k: int, u: Array, chord: Array) -> float:
+    full = _with_value(branch.parameters, k, u[-1])
+    return float(_event_tangent(model, u[:-1], full, k, chord)[-1])
+
+
+def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | None:
+    u0 = _seed(branch, bracket)
+    n = u0.shape[0] - 1
+    full0 = _with_value(branch.parameters, k, u0[-1])
+    a0 = dense(model.jacobian(u0[:-1], full0))
+    values, vectors = np.linalg.eig(a0)
+    omega_guess = float(bracket.hint.get("omega", 0.0))
+    index = int(np.argmin(np.abs(values - 1j * omega_guess)))
+    if abs(values[index].imag) <= 0.0:
+        return None  # the nearest eigenvalue is real: a neutral saddle, not a Hopf point
+    q0 = vectors[:, index]
+    if values[index].imag < 0:
+        q0 = q0.conj()
+    q0 = q0 / np.linalg.norm(q0)
+    z0 = np.concatenate([u0, [abs(values[index].imag)], q0.real, q0.imag])
+    outcome = newton(_hopf_system(model, branch.parameters, k, q0), z0)
+    z = outcome.solution
+    u, omega = z[: n + 1], float(z[n + 1])
+    method = "Newton on the extended Hopf system (A q = i omega q, <c, q> = 1)"
+    note = ""
+    q = z[n + 2 : 2 * n + 2] + 1j * z[2 * n + 2 :]
+    scale = max(float(np.max(np.abs(values))), 1e-300)
+    if not (outcome.converged and _within_bracket(branch, bracket.row, u)):
+        point, _ = _bisect_on_branch(
+            model,
+            branch,
+            k,
+            bracket.row,
+            lambda u, c: _hopf_pair_real(model, branch, k, u, omega_guess),
+        )
+        if point is None:
+            return None
+        u = point
+        full = _with_value(branch.parameters, k, u[-1])
+        omega = _crossing_frequency(dense(model.jacobian(u[:-1], full)), omega_guess)
+        q = None
+        method = "bisection on the real part of the crossing pair"
+        note = f"located by bisection (Newton on the Hopf system failed: {outcome.message or 'left the bracket'})"
+    if abs(omega) <= SMALLEST_RELATIVE_FREQUENCY * scale:
+        return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
+    omega = abs(omega)
+    x, full = u[:-1], _with_value(branch.parameters, k, u[-1])
+    form = hopf_normal_form(model, x, full, omega, q if q is not None and z[n + 1] > 0 else None)
+    a_matrix = dense(model.jacobian(x, full))
+    details = _base_details(branch, bracket, a_matrix, method)
+    details["newton_residual_norms"] = [float(r) for r in outcome.residual_norms]
+    details["eigenvectors"] = {
+        "right": _json_complex(form.right_vector),
+        "left": _json_complex(form.left_vector),
+        "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
+    }
+    details["normal_form"] = {
+        "c1": [form.c1.real, form.c1.imag],
+        "terms": [[t.real, t.imag] for t in form.terms],
+    }
+    notes = []
+    if form.near_bautin:
+        notes.append("close to a Bautin point; criticality uncertain")
+    if note:
+        notes.append(note)
+    return _make_event(
+        model,
+        branch,
+        k,
+        bracket,
+        u,
+        "hopf",
+        details,
+        frequency=omega,
+        lyapunov=form.lyapunov,
+        criticality=form.criticality,
+        note="; ".join(notes),
+    )
+
+
+def _crossing_frequency(a_matrix: Array, omega_guess: float) -> float:
+    """Imaginary part of the upper-half-plane eigenvalue nearest i * omega_guess."""
+    values = np.linalg.eigvals(a_matrix)
+    upper = values[values.imag > 0]
+    if upper.shape[0] == 0:
+        return 0.0
+    return float(upper[int(np.argmin(np.abs(upper - 1j * omega_guess)))].imag)
+
+
+def _hopf_pair_real(model, branch: Branch, k: int, u: Array, omega_guess: float) -> float:
+    full = _with_value(branch.parameters, k, u[-1])
+    values = np.linalg.eigvals(dense(model.jacobian(u[:-1], full)))
+    upper = values[values.imag > 0]
+    if upper.shape[0] == 0:
+        return math.nan
+    return float(upper[int(np.argmin(np.abs(upper - 1j * omega_guess)))].real)
+
+
+def _locate_branch_point(model, branch: Branch, k: int, bracket: _Bracket) -> Event | None:
+    u0 = _seed(branch, bracket)
+    n = u0.shape[0] - 1
+    full0 = _with_value(branch.parameters, k, u0[-1])
+    g_u = np.column_stack(
+        [dense(model.jacobian(u0[:-1], full0)), model.parameter_jacobian(u0[:-1], full0)[:, k]]
+    )
+    psi0 = np.linalg.svd(g_u)[0][:, -1]
+    z0 = np.concatenate([u0, psi0, [0.0]])
+    outcome = newton(_branch_point_system(model, branch.parameters, k), z0)
+    z = outcome.solution
+    u, psi = z[: n + 1], z[n + 1 : 2 * n + 1]
+    method = "Newton on Moore's extended branch-point system"
+    note = ""
+    if not (outcome.converged and _within_bracket(branch, bracket.row, u)):
+        point, _ = _bisect_on_branch(
+            model,
+            branch,
+            k,
+            bracket.row,
+            lambda u, c: _branch_point_test(model, branch, k, u, c),
+        )
+        if point is None:
+            return None
+        u, psi = point, None
+        method = "bisection on the bordered determinant"
+        note = f"located by bisection (Newton on the branch-point system failed: {outcome.message or 'left the bracket'})"
+    x, full = u[:-1], _with_value(branch.parameters, k, u[-1])
+    form = branch_point_normal_form(model, x, full, k, psi)
+    chord = _curve_point(branch, bracket.row + 1) - _curve_point(branch, bracket.row)
+    overlap = np.abs(form.tangents @ chord)
+    traced = int(np.argmax(overlap))
+    details = _base_details(branch, bracket, dense(model.jacobian(x, full)), method)
+    details["newton_residual_norms"] = [float(r) for r in outcome.residual_norms]
+    details["eigenvectors"] = {"left": [float(v) for v in form.left_vector]}
+    details["tangents"] = [[float(v) for v in t] for t in form.tangents]
+    details["traced_tangent_index"] = traced
+    details["tangent"] = [
+        float(v) for v in form.tangents[traced] * np.sign(form.tangents[traced] @ chord or 1.0)
+    ]
+    details["normal_form"] = {
+        "coefficients": list(form.coefficients),
+        "discriminant": form.discriminant,
+        "null_basis": [[float(v) for v in t] for t in form.null_basis],
+    }
+    if not form.branching:
+        note = "; ".join(
+            s for s in ("degenerate branch point: no two real crossing branches", note) if s
+        )
+    return _make_event(
+        model,
+        branch,
+        k,
+        bracket,
+        u,
+        "branch_point",
+        details,
+        branching=form.branching or None,
+        note=note,
+    )
+
+
+def _branch_point_test(model, branch: Branch, k: int, u: Array, chord: Array) -> float:
+    full = _with_value(branch.parameters, k, u[-1])
+    a_matrix = dense(model.jacobian(u[:-1], full))
+    fp = model.parameter_jacobian(u[:-1], full)[:, k]
+    t = _event_tangent(model, u[:-1], full, k, chord)
+    return bordered_determinant(a_matrix, fp, t)
+
+
+_LOCATORS = {"fold": _locate_fold, "hopf": _locate_hopf, "branch_point": _locate_branch_point}
+
+
+def _same_point(a: Event, b: Event) -> bool:
+    scale = 1.0 + abs(a.value) + float(np.linalg.norm(a.state))
+    gap = abs(a.value - b.value) + float(np.linalg.norm(a.state - b.state))
+    return gap <= SAME_EVENT_RTOL * scale
+
+
+def locate_events(model, branch: Branch) -> list[Event]:
+    """Locate every stability change along a traced branch.
+
+    Each sign change of a test function between consecutive rows is refined by
+    Newton's method on the event's defining system (see the module docstring);
+    bisection on the test function is the fallback, and says so in ``note``.
+    Folds that coincide with a branch point (the traced branch turning back
+    through a pitchfork) are reported once, as the branch point; an event met
+    from two brackets is reported once.
+
+    Parameters
+    ----------
+    model : Model
+    branch : Branch
+
+    Returns
+    -------
+    list of Event, in trace order (by arclength).
+    """
+    if len(branch) < 2:
+        return []
+    k = model.parameter_index(branch.vary)
+    order = {"branch_point": 0, "hopf": 1, "fold": 2}
+    brackets = sorted(find_brackets(branch), key=lambda b: order[b.kind])
+    events: list[Event] = []
+    for bracket in brackets:
+        try:
+            event = _LOCATORS[bracket.kind](model, branch, k, bracket)
+        except (ArithmeticError, ValueError, np.linalg.LinAlgError):
+            event = None
+        if event is None:
+            continue
+        duplicate = any(
+            _same_point(event, other)
+            and (
+                other.kind == event.kind or (event.kind == "fold" and other.kind == "branch_point")
+            )
+            for other in events
+        )
+        if not duplicate:
+            events.append(event)
+    events.sort(
+        key=lambda e: e.arclength if branch.arclength[-1] >= branch.arclength[0] else -e.arclength
+    )
+    return events

@@ -56,6 +56,10 @@ MAX_EXPONENT = 1000
 # exceed this many decimal digits in numerator or denominator; doubles end at
 # about 1e308, so nothing useful is lost.
 MAX_NUMBER_DIGITS = 400
+# sympy looks for exact roots of a number by factoring it, which takes
+# milliseconds at a few hundred digits; no rate law takes the root of such a
+# number, so roots of numbers (or numeric factors) beyond this are refused.
+MAX_ROOT_DIGITS = 50
 
 _LOG10_2 = math.log10(2.0)
 # Characters shown either side of the caret in messages about long expressions.
@@ -437,9 +441,19 @@ class _Builder:
                     f"(at most {MAX_EXPONENT} in size)",
                     column,
                 )
+            factor = _numeric_factor(base)
+            if (
+                factor is not None
+                and not exponent.is_Integer
+                and _decimal_size(factor) > MAX_ROOT_DIGITS
+            ):
+                raise _Refusal(
+                    f"roots of numbers with more than {MAX_ROOT_DIGITS} digits are not supported",
+                    column,
+                )
             if base.is_Number and abs(exponent) * _decimal_size(base) > MAX_NUMBER_DIGITS:
                 raise _Refusal(
-                    f"the power {_short(base)}**{_short(exponent)} is too large to compute "
+                    f"the power {_short(base)}**{_short(exponent)} is out of range "
                     f"(more than {MAX_NUMBER_DIGITS} digits)",
                     column,
                 )
@@ -470,12 +484,12 @@ class _Builder:
         arity = FUNCTION_ARITY[name]
         if len(node.args) != arity:
             plural = "" if arity == 1 else "s"
-            raise self.refuse(
-                f"{name} takes {arity} argument{plural}, got {len(node.args)}", node
-            )
+            raise self.refuse(f"{name} takes {arity} argument{plural}, got {len(node.args)}", node)
         args = [self.build(arg) for arg in node.args]
         if name == "pow":
             return self.power(args[0], args[1], node)
+        if name == "sqrt":
+            return self.power(args[0], sympy.Rational(1, 2), node)
         return FUNCTIONS[name](*args)
 
     # -- guards
@@ -494,17 +508,26 @@ class _Builder:
             )
 
 
+def _numeric_factor(expr: sympy.Expr) -> sympy.Expr | None:
+    """The number ``expr`` is, or the numeric factor sympy keeps first in a product."""
+    if expr.is_Number:
+        return expr
+    if expr.is_Mul and expr.args and expr.args[0].is_Number:
+        return expr.args[0]
+    return None
+
+
 def _decimal_size(number: sympy.Expr) -> float:
-    """About how many decimal digits ``number`` spans (either way of 1), without overflow."""
+    """About how many decimal digits ``number`` spans (either side of 1), without overflow."""
     if number.is_Rational:
-        p, q = int(number.p), int(number.q)
-        return max(abs(p).bit_length(), q.bit_length()) * _LOG10_2
+        p, q = abs(int(number.p)), int(number.q)
+        return max(math.log10(p) if p else 0.0, math.log10(q))
     if number.is_Float:
-        _sign, mantissa, exponent, bits = number._mpf_
+        _sign, mantissa, exponent, _bits = number._mpf_
         if not mantissa:
             return 0.0
-        return abs(exponent + bits) * _LOG10_2
-    return 0.0  # pi, E and the like: bounded
+        return abs(math.log10(mantissa) + exponent * _LOG10_2)
+    return 0.0  # pi and the like: bounded
 
 
 def _short(number: sympy.Expr) -> str:

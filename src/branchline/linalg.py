@@ -30,6 +30,10 @@ Array = np.ndarray
 # per point for a model a user chose to give densely.
 DENSE_EIGEN_LIMIT = 400
 
+# Sparse matrices up to this size are converted to dense for their eigenvalues:
+# LAPACK on 200 x 200 takes ~20 ms, less than a few Arnoldi runs, and gives all.
+SPARSE_DENSE_LIMIT = 200
+
 # How many eigenvalues to report for a sparse (large) Jacobian: enough to see
 # a pair crossing the imaginary axis next to the rightmost real eigenvalue.
 SPARSE_EIGEN_COUNT = 6
@@ -37,6 +41,51 @@ SPARSE_EIGEN_COUNT = 6
 # Shifts (times the Jacobian's scale) at which shift-invert Arnoldi looks for
 # eigenvalues near the imaginary axis, besides the rightmost ones.
 IMAGINARY_AXIS_SHIFTS = (0.0,)
+
+
+# numpy's LAPACK gufuncs behind np.linalg.solve / eigvals, called directly on the
+# hot path: the public wrappers spend ~3-7 us per call on validation, which is
+# most of the cost for a 3x3 system. They return NaN instead of raising for a
+# singular matrix, so callers check finiteness (and run under
+# np.errstate(invalid="ignore")). If a numpy release moves them, the public
+# functions are used instead (checked once at import).
+def _public_solve(matrix: Array, rhs: Array) -> Array:
+    try:
+        return np.linalg.solve(matrix, rhs)
+    except np.linalg.LinAlgError:
+        return np.full(rhs.shape, np.nan)
+
+
+def _public_eigvals(matrix: Array) -> Array:
+    try:
+        return np.linalg.eigvals(matrix).astype(complex, copy=False)
+    except np.linalg.LinAlgError:
+        return np.full(matrix.shape[0], np.nan + 0j)
+
+
+def _private_gufuncs():
+    try:
+        from numpy.linalg import _umath_linalg as gufuncs
+
+        def solve(matrix: Array, rhs: Array) -> Array:
+            return gufuncs.solve1(matrix, rhs, signature="dd->d")
+
+        def eigvals(matrix: Array) -> Array:
+            return gufuncs.eigvals(matrix, signature="d->D")
+
+        probe = np.array([[2.0, 1.0], [0.0, 3.0]])
+        with np.errstate(all="ignore"):
+            good = np.allclose(solve(probe, np.array([3.0, 3.0])), [1.0, 1.0]) and np.allclose(
+                np.sort(eigvals(probe).real), [2.0, 3.0]
+            )
+        return (solve, eigvals) if good else (_public_solve, _public_eigvals)
+    except (ImportError, AttributeError, TypeError, ValueError):
+        return _public_solve, _public_eigvals
+
+
+solve_unchecked, eigvals_unchecked = _private_gufuncs()
+solve_unchecked.__doc__ = """Dense solve without checks: NaN (not an exception) when singular."""
+eigvals_unchecked.__doc__ = """Dense eigenvalues (complex) without checks or sorting."""
 
 
 class SingularMatrixError(ArithmeticError):
@@ -171,16 +220,32 @@ def sort_by_real_part(eigenvalues: Array) -> Array:
 
 
 def dense_eigenvalues(matrix: Array) -> Array:
-    """All eigenvalues of a dense square matrix, sorted by decreasing real part."""
-    values = np.linalg.eigvals(matrix).astype(complex, copy=False)
-    return values[np.argsort(-values.real, kind="stable")]
+    """All eigenvalues of a dense square matrix, sorted by decreasing real part.
+
+    Non-finite entries or a failed QR iteration give NaN eigenvalues.
+    """
+    with np.errstate(all="ignore"):
+        values = eigvals_unchecked(np.asarray(matrix, dtype=float))
+    return sort_eigenvalues(values)
+
+
+def sort_eigenvalues(values: Array) -> Array:
+    """Complex eigenvalues sorted by decreasing real part (cheap for n <= 2)."""
+    size = values.shape[0]
+    if size == 2:
+        if values[1].real > values[0].real:
+            return values[::-1].copy()
+        return values
+    if size > 2:
+        return values[np.argsort(-values.real, kind="stable")]
+    return values
 
 
 def leading_eigenvalues(matrix: object, count: int = SPARSE_EIGEN_COUNT) -> Array:
     """The ``count`` eigenvalues with the largest real parts.
 
-    Dense matrices (or any matrix with at most ``count + 2`` rows): all
-    eigenvalues from LAPACK, then the first ``count``. Sparse matrices:
+    Dense matrices, and sparse ones with at most ``SPARSE_DENSE_LIMIT`` rows:
+    all eigenvalues from LAPACK, then the first ``count``. Sparse matrices:
     implicitly restarted Arnoldi (ARPACK through ``scipy.sparse.linalg.eigs``)
     for the rightmost eigenvalues, plus shift-invert Arnoldi at the shifts of
     ``IMAGINARY_AXIS_SHIFTS`` for the eigenvalues nearest the imaginary axis
@@ -191,7 +256,7 @@ def leading_eigenvalues(matrix: object, count: int = SPARSE_EIGEN_COUNT) -> Arra
     ndarray (r,) complex, r <= count, sorted by decreasing real part.
     """
     size = matrix.shape[0]
-    if not sp.issparse(matrix) or size <= count + 2:
+    if not sp.issparse(matrix) or size <= max(count + 2, SPARSE_DENSE_LIMIT):
         dense = matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix)
         return dense_eigenvalues(dense)[:count]
     matrix = sp.csc_matrix(matrix)

@@ -2,16 +2,70 @@
 
 Internally a parameter set is a 1-D float array ``p`` ordered as
 ``Model.parameters``; Python models' own functions receive a dict.
+
+Expression models are parsed by the whitelisting parser of
+:mod:`branchline.expressions`, differentiated exactly by sympy and compiled
+with ``sympy.lambdify`` (common subexpressions shared) into plain Python
+functions that return flat tuples; the hot-path callables (``rhs``,
+``jacobian``, ``parameter_jacobian``, ``derivatives``) cost about a microsecond
+per call for small models. The normal-form derivatives (``second``, ``third``,
+``jacobian_parameter_derivative``) are compiled on first use.
+
+Python models (``[model.python]``) import user code: **importing the named
+module runs that module's code, by design** (it is the user's own model). Their
+missing derivatives come from finite differences (:mod:`branchline.differences`).
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+import importlib
+import os
+import sys
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+import scipy.sparse
+import scipy.special
+import sympy as sp
+
+from branchline.differences import (
+    central_jacobian,
+    directional_derivative,
+)
+from branchline.errors import ExpressionError, ScanError
+from branchline.expressions import parse_expression
+from branchline.scan import ExpressionModelSpec, PythonModelSpec
 
 Array = np.ndarray
+
+# Above this many states a finite-difference Jacobian is returned as a
+# scipy.sparse matrix (its exact zeros dropped), so that the linear algebra
+# switches to sparse LU; below it dense LAPACK is faster.
+DENSE_STATE_LIMIT = 200
+
+# Relative disagreement between a user Jacobian and central differences above
+# which check_jacobian reports a mismatch. Central differences are accurate to
+# about eps**(2/3) ~ 4e-11 on well-scaled models; 1e-4 leaves room for badly
+# scaled ones while any real error in a formula is of order one.
+JACOBIAN_CHECK_TOLERANCE = 1e-4
+# Entries smaller than this fraction of their row's largest entry are compared
+# against that floor instead of themselves: differences cannot resolve them.
+JACOBIAN_CHECK_FLOOR = 1e-4
+# Random directions probed by check_jacobian for models too large for a full
+# column-by-column comparison (each costs two rhs calls).
+JACOBIAN_CHECK_DIRECTIONS = 8
+
+# Failures of the fast pure-Python evaluation (math module, Python floats) that
+# the numpy evaluation turns into inf/nan instead: log of a negative number,
+# division by zero, overflow, a fractional power of a negative number (Python
+# returns a complex number, which the float conversion refuses), and inputs
+# that are not 1-D float arrays.
+_FAST_PATH_FAILURES = (ArithmeticError, ValueError, TypeError, AttributeError)
+
+# Functions that numpy lacks under their sympy printer names.
+_NUMPY_EXTRAS = {"erf": scipy.special.erf, "erfc": scipy.special.erfc, "gamma": scipy.special.gamma}
 
 
 @dataclass(frozen=True)
@@ -46,6 +100,10 @@ class Model:
         ``"module:function"`` of a Python model's rhs (its module was imported).
     exact_derivatives : bool
         True when derivatives are exact (sympy), False when finite differences.
+    derivatives : callable (x, p) -> (ndarray (n, n), ndarray (n, m)) or None
+        df/dx and df/dp from one compiled call (expression models only).
+    jacobian_source : str or None
+        ``"module:function"`` of a Python model's own Jacobian, if it has one.
     """
 
     states: tuple[str, ...]
@@ -64,6 +122,8 @@ class Model:
     definitions: dict[str, str] | None = None
     python_source: str | None = None
     exact_derivatives: bool = True
+    derivatives: Callable[[Array, Array], tuple[Array, Array]] | None = None
+    jacobian_source: str | None = None
 
     @property
     def size(self) -> int:
@@ -80,6 +140,653 @@ class Model:
         return p
 
 
-def build_model(spec) -> Model:
-    """Compile an ExpressionModelSpec or PythonModelSpec into a :class:`Model`."""
-    raise NotImplementedError
+@dataclass(frozen=True)
+class JacobianCheck:
+    """Outcome of comparing a model's Jacobian with central differences of its rhs.
+
+    Attributes
+    ----------
+    max_relative_error : float
+        Largest entry-wise relative disagreement (see :func:`check_jacobian`).
+    ok : bool
+        ``max_relative_error <= JACOBIAN_CHECK_TOLERANCE``.
+    message : str
+        One line for a person: what was compared and, on mismatch, the worst entry.
+    """
+
+    max_relative_error: float
+    ok: bool
+    message: str
+
+
+def build_model(spec: ExpressionModelSpec | PythonModelSpec, source: str = "<dict>") -> Model:
+    """Compile an ExpressionModelSpec or PythonModelSpec into a :class:`Model`.
+
+    Parameters
+    ----------
+    spec : ExpressionModelSpec or PythonModelSpec
+    source : str
+        The scan file name, used in error messages.
+
+    Raises
+    ------
+    ScanError
+        An expression the parser refuses, an unknown name, or a Python
+        function that cannot be imported or returns the wrong shape.
+
+    Examples
+    --------
+    >>> spec = ExpressionModelSpec(parameters={"a": 2.0}, equations={"x": "a - x^2"})
+    >>> model = build_model(spec)
+    >>> model.jacobian(np.array([1.5]), model.defaults)
+    array([[-3.]])
+    """
+    if isinstance(spec, PythonModelSpec):
+        return _build_python_model(spec, source)
+    return _build_expression_model(spec, source)
+
+
+def jacobian_dense(model: Model, x: Array, p: Array) -> Array:
+    """df/dx as a dense (n, n) array, whatever the model's Jacobian returns."""
+    matrix = model.jacobian(x, p)
+    if scipy.sparse.issparse(matrix):
+        return matrix.toarray()
+    return np.asarray(matrix, dtype=float)
+
+
+# ---------------------------------------------------------------------------
+# Expression models
+# ---------------------------------------------------------------------------
+
+
+def _build_expression_model(spec: ExpressionModelSpec, source: str) -> Model:
+    states = tuple(spec.equations)
+    parameters = tuple(spec.parameters)
+    x = [sp.Symbol(f"_x{i}", real=True) for i in range(len(states))]
+    p = [sp.Symbol(f"_p{k}", real=True) for k in range(len(parameters))]
+    known: dict[str, sp.Expr] = dict(zip(states, x, strict=True))
+    known.update(zip(parameters, p, strict=True))
+    for name, text in spec.definitions.items():
+        known[name] = _translate(text, known, f"model.definitions.{name}", source)
+    f = [
+        _translate(text, known, f"model.equations.{name}", source)
+        for name, text in spec.equations.items()
+    ]
+    observed = [
+        _translate(text, known, f"model.observables.{name}", source)
+        for name, text in spec.observables.items()
+    ]
+    calculus = _SymbolicDerivatives(f, x, p)
+    return Model(
+        states=states,
+        parameters=parameters,
+        defaults=np.array([float(v) for v in spec.parameters.values()], dtype=float),
+        rhs=_real_function(f, [x, p], (len(x),)),
+        jacobian=_real_function(calculus.jacobian_entries, [x, p], (len(x), len(x))),
+        parameter_jacobian=_real_function(calculus.parameter_entries, [x, p], (len(x), len(p))),
+        derivatives=_split_function(
+            calculus.jacobian_entries + calculus.parameter_entries,
+            [x, p],
+            ((len(x), len(x)), (len(x), len(p))),
+        ),
+        second=_Lazy(calculus.compile_second),
+        third=_Lazy(calculus.compile_third),
+        jacobian_parameter_derivative=_Lazy(calculus.compile_parameter_derivative),
+        observables=_observable_function(tuple(spec.observables), observed, [x, p]),
+        observable_names=tuple(spec.observables),
+        equations=dict(spec.equations),
+        definitions=dict(spec.definitions),
+        exact_derivatives=True,
+    )
+
+
+def _translate(text: str, known: dict[str, sp.Expr], key: str, source: str) -> sp.Expr:
+    """Parse one expression and replace every name by its state/parameter symbol or definition."""
+    try:
+        expression = parse_expression(text, where=key)
+    except ExpressionError as error:
+        raise ScanError(source, key, str(error)) from None
+    replacements = {}
+    for symbol in expression.free_symbols:
+        if symbol.name not in known:
+            raise ScanError(
+                source,
+                key,
+                f"unknown name '{symbol.name}': not a state, a parameter or an earlier definition",
+            )
+        replacements[symbol] = known[symbol.name]
+    # Kinks (abs, sign, step) differentiate to Dirac deltas; off the kink they are zero.
+    return expression.xreplace(replacements)
+
+
+class _SymbolicDerivatives:
+    """Exact derivatives of f in sympy; the higher ones built and compiled on demand."""
+
+    def __init__(self, f: list[sp.Expr], x: list[sp.Symbol], p: list[sp.Symbol]) -> None:
+        self.f, self.x, self.p = f, x, p
+        self.jacobian = [[sp.diff(fi, xj) for xj in x] for fi in f]
+        self.jacobian_entries = [entry for row in self.jacobian for entry in row]
+        self.parameter_entries = [sp.diff(fi, pk) for fi in f for pk in p]
+        n = len(x)
+        self.u = [sp.Symbol(f"_u{i}") for i in range(n)]
+        self.v = [sp.Symbol(f"_v{i}") for i in range(n)]
+        self.w = [sp.Symbol(f"_w{i}") for i in range(n)]
+        self._second: list[sp.Expr] | None = None
+
+    def _action(self, vector: list[sp.Symbol]) -> list[sp.Expr]:
+        """(df/dx) vector, symbolically."""
+        return [
+            sp.Add(*[entry * vj for entry, vj in zip(row, vector, strict=True) if entry != 0])
+            for row in self.jacobian
+        ]
+
+    def _directional(self, expressions: list[sp.Expr], vector: list[sp.Symbol]) -> list[sp.Expr]:
+        """sum_j d(expression)/dx_j vector_j for each expression."""
+        return [
+            sp.Add(*[sp.diff(e, xj) * vj for xj, vj in zip(self.x, vector, strict=True)])
+            for e in expressions
+        ]
+
+    def second_entries(self) -> list[sp.Expr]:
+        if self._second is None:
+            self._second = self._directional(self._action(self.w), self.v)
+        return self._second
+
+    def compile_second(self) -> Callable:
+        return _complex_function(self.second_entries(), [self.x, self.p, self.v, self.w])
+
+    def compile_third(self) -> Callable:
+        third = self._directional(self.second_entries(), self.u)
+        return _complex_function(third, [self.x, self.p, self.u, self.v, self.w])
+
+    def compile_parameter_derivative(self) -> Callable:
+        action = self._action(self.v)
+        entries = [sp.diff(a, pk) for a in action for pk in self.p]
+        shape = (len(self.x), len(self.p))
+        return _complex_function(entries, [self.x, self.p, self.v], shape)
+
+
+class _Lazy:
+    """A callable compiled on its first call (keeps start-up short)."""
+
+    __slots__ = ("_build", "_function")
+
+    def __init__(self, build: Callable[[], Callable]) -> None:
+        self._build = build
+        self._function: Callable | None = None
+
+    def __call__(self, *args: Any) -> Any:
+        if self._function is None:
+            self._function = self._build()
+        return self._function(*args)
+
+
+def _zero(*_: object) -> sp.Expr:
+    return sp.S.Zero
+
+
+def _printer_settings(extra_names: Sequence[str] = ()) -> dict[str, Any]:
+    # As lambdify's own defaults, but terms are printed in sympy's internal
+    # order instead of being sorted (sorting dominates compile time).
+    return {
+        "fully_qualified_modules": False,
+        "inline": True,
+        "allow_unknown_functions": True,
+        "user_functions": {name: name for name in extra_names},
+        "order": "none",
+    }
+
+
+class _Compiled:
+    """Entries compiled twice from one common-subexpression elimination.
+
+    ``fast`` works on Python floats with the math module (None when some
+    function has no math counterpart); ``safe`` is numpy code, which turns
+    domain errors into nan/inf and broadcasts over arrays. ``safe`` is only
+    generated when first needed.
+    """
+
+    def __init__(self, arguments: list, expressions: list[sp.Expr], fast: bool = True) -> None:
+        # Kinks (abs, sign) differentiate to Dirac deltas; off the kink they are zero.
+        expressions = [
+            e.replace(sp.DiracDelta, _zero) if e.has(sp.DiracDelta) else e for e in expressions
+        ]
+        self.arguments = arguments
+        self.cse = sp.cse(expressions, order="none")
+        self._safe: Callable | None = None
+        self.fast = self._lambdify_fast() if fast else None
+
+    def _reuse(self, _: object) -> tuple:
+        return self.cse
+
+    def _lambdify_fast(self) -> Callable | None:
+        from sympy.printing.pycode import PythonCodePrinter
+
+        try:
+            printer = PythonCodePrinter(_printer_settings() | {"strict": True})
+            return sp.lambdify(
+                self.arguments, self.cse[1], modules="math", cse=self._reuse,
+                printer=printer, docstring_limit=0,
+            )
+        except Exception:  # the printer refuses a function: numpy code only
+            return None
+
+    @property
+    def safe(self) -> Callable:
+        if self._safe is None:
+            from sympy.printing.numpy import NumPyPrinter
+
+            printer = NumPyPrinter(_printer_settings(tuple(_NUMPY_EXTRAS)))
+            self._safe = sp.lambdify(
+                self.arguments, self.cse[1], modules=[_NUMPY_EXTRAS, "numpy"], cse=self._reuse,
+                printer=printer, docstring_limit=0,
+            )
+        return self._safe
+
+
+def _safe_values(safe: Callable, arrays: Sequence[Array], count: int, dtype: Any) -> Array:
+    """Evaluate the numpy version; entries broadcast over trailing axes of the inputs."""
+    trailing = np.broadcast_shapes(*(a.shape[1:] for a in arrays))
+    out = np.empty((count, *trailing), dtype=dtype)
+    with np.errstate(all="ignore"):
+        values = safe(*arrays)
+    for i, value in enumerate(values):
+        out[i] = value
+    return out
+
+
+def _real_function(expressions: list[sp.Expr], arguments: list, shape: tuple[int, ...]):
+    """Compile real-valued entries into (x, p) -> ndarray of ``shape``."""
+    compiled = _Compiled(arguments, expressions)
+    fast = compiled.fast
+    count = len(expressions)
+
+    def evaluate_safe(x: Array, p: Array) -> Array:
+        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
+        values = _safe_values(compiled.safe, arrays, count, float)
+        return values.reshape(shape + values.shape[1:])
+
+    if fast is None:
+        return evaluate_safe
+
+    def evaluate(x: Array, p: Array) -> Array:
+        try:
+            if x.ndim == 1:
+                return np.array(fast(x.tolist(), p.tolist()), dtype=float).reshape(shape)
+        except _FAST_PATH_FAILURES:
+            pass
+        return evaluate_safe(x, p)
+
+    return evaluate
+
+
+def _split_function(expressions: list[sp.Expr], arguments: list, shapes: tuple):
+    """Compile the entries of two blocks at once into (x, p) -> (block1, block2)."""
+    first_shape, second_shape = shapes
+    cut = first_shape[0] * first_shape[1]
+    compiled = _Compiled(arguments, expressions)
+    fast = compiled.fast
+    count = len(expressions)
+
+    def evaluate_safe(x: Array, p: Array) -> tuple[Array, Array]:
+        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
+        flat = _safe_values(compiled.safe, arrays, count, float)
+        trailing = flat.shape[1:]
+        return (
+            flat[:cut].reshape(first_shape + trailing),
+            flat[cut:].reshape(second_shape + trailing),
+        )
+
+    if fast is None:
+        return evaluate_safe
+
+    def evaluate(x: Array, p: Array) -> tuple[Array, Array]:
+        try:
+            if x.ndim == 1:
+                flat = np.array(fast(x.tolist(), p.tolist()), dtype=float)
+                return flat[:cut].reshape(first_shape), flat[cut:].reshape(second_shape)
+        except _FAST_PATH_FAILURES:
+            pass
+        return evaluate_safe(x, p)
+
+    return evaluate
+
+
+def _complex_function(expressions: list[sp.Expr], arguments: list, shape: tuple | None = None):
+    """Compile entries that may be complex (vector arguments) into numpy code."""
+    compiled = _Compiled(arguments, expressions, fast=False)
+    count = len(expressions)
+    shape = shape or (count,)
+
+    def evaluate(*inputs: Array) -> Array:
+        arrays = [np.asarray(a) for a in inputs]
+        dtype = np.result_type(float, *arrays)
+        values = _safe_values(compiled.safe, arrays, count, dtype)
+        return values.reshape(shape + values.shape[1:])
+
+    return evaluate
+
+
+def _observable_function(names: tuple[str, ...], expressions: list[sp.Expr], arguments: list):
+    """Compile observables into (x, p) -> {name: value}."""
+    if not names:
+        return lambda x, p: {}
+    values = _real_function(expressions, arguments, (len(names),))
+
+    def evaluate(x: Array, p: Array) -> dict[str, Any]:
+        result = values(x, p)
+        if result.ndim == 1:
+            return dict(zip(names, result.tolist(), strict=True))
+        return dict(zip(names, result, strict=True))
+
+    return evaluate
+
+
+# ---------------------------------------------------------------------------
+# Python models
+# ---------------------------------------------------------------------------
+
+
+def resolve_callable(reference: str, source: str, key: str) -> Callable:
+    """Import ``"module:function"`` and return the function.
+
+    Importing the module runs its code, by design: it is the user's own model.
+    When ``source`` is a scan file, its folder is searched first, so a model
+    module can sit next to the scan file.
+
+    Raises
+    ------
+    ScanError
+        Malformed reference, module not found or failing to import, attribute
+        missing, or not callable.
+    """
+    if not isinstance(reference, str) or reference.count(":") != 1:
+        raise ScanError(source, key, f"expected 'module:function', got {reference!r}")
+    module_name, attribute_path = (part.strip() for part in reference.split(":"))
+    if not module_name or not attribute_path:
+        raise ScanError(source, key, f"expected 'module:function', got {reference!r}")
+    module = _import_module(module_name, source, key)
+    target: Any = module
+    for attribute in attribute_path.split("."):
+        if not hasattr(target, attribute):
+            raise ScanError(
+                source, key, f"module '{module_name}' has no attribute '{attribute_path}'"
+            )
+        target = getattr(target, attribute)
+    if not callable(target):
+        raise ScanError(source, key, f"'{reference}' is not a function (it is {type(target).__name__})")
+    return target
+
+
+def _import_module(module_name: str, source: str, key: str):
+    folder = os.path.dirname(os.path.abspath(source)) if os.path.isfile(source) else None
+    added = folder is not None and folder not in sys.path
+    if added:
+        sys.path.insert(0, folder)
+    try:
+        return importlib.import_module(module_name)
+    except ModuleNotFoundError as error:
+        raise ScanError(source, key, f"cannot import module '{module_name}': {error}") from None
+    except Exception as error:  # the user's module itself failed while importing
+        raise ScanError(
+            source,
+            key,
+            f"importing module '{module_name}' failed: {type(error).__name__}: {error}",
+        ) from None
+    finally:
+        if added:
+            sys.path.remove(folder)
+
+
+def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
+    n = int(spec.size)
+    states = tuple(spec.states) if spec.states else tuple(f"x{i}" for i in range(n))
+    if len(states) != n:
+        raise ScanError(
+            source, "model.python.states", f"lists {len(states)} names but size is {n}"
+        )
+    parameters = tuple(spec.parameters)
+    defaults = np.array([float(v) for v in spec.parameters.values()], dtype=float)
+    rhs = _wrap_python_rhs(resolve_callable(spec.rhs, source, "model.python.rhs"), parameters, n, spec.rhs, source)
+    probe = np.ones(n)
+    _probe(rhs, probe, defaults)
+
+    if spec.jacobian is not None:
+        user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
+        sample = _probe(lambda x, p: user_jacobian(x, dict(zip(parameters, p.tolist()))), probe, defaults)
+        sparse = scipy.sparse.issparse(sample) if sample is not None else n > DENSE_STATE_LIMIT
+        jacobian = _wrap_python_jacobian(user_jacobian, parameters, n, sparse, spec.jacobian, source)
+        _probe(jacobian, probe, defaults)
+        levels = 0  # the Jacobian action is exact
+    else:
+        sparse = n > DENSE_STATE_LIMIT
+        jacobian = _difference_jacobian(rhs, sparse)
+        levels = 1
+    derivatives = _DifferenceDerivatives(rhs, jacobian if spec.jacobian else None, levels)
+
+    names: tuple[str, ...] = ()
+    observables: Callable = lambda x, p: {}  # noqa: E731
+    if spec.observables:
+        user_observables = resolve_callable(spec.observables, source, "model.python.observables")
+        observables = _wrap_python_observables(user_observables, parameters)
+        sample = _probe(observables, probe, defaults)
+        names = tuple(sample) if sample else ()
+
+    return Model(
+        states=states,
+        parameters=parameters,
+        defaults=defaults,
+        rhs=rhs,
+        jacobian=jacobian,
+        parameter_jacobian=derivatives.parameter_jacobian,
+        second=derivatives.second,
+        third=derivatives.third,
+        jacobian_parameter_derivative=derivatives.jacobian_parameter_derivative,
+        observables=observables,
+        observable_names=names,
+        sparse=sparse,
+        equations={},
+        definitions={},
+        python_source=spec.rhs,
+        exact_derivatives=False,
+        jacobian_source=spec.jacobian,
+    )
+
+
+def _probe(function: Callable, x: Array, p: Array) -> Any:
+    """Call a user function once at build time; shape errors surface, other failures wait.
+
+    The probe point (all states 1, default parameters) is arbitrary, so an
+    exception there is not held against the model; a ScanError (wrong shape) is.
+    """
+    try:
+        with np.errstate(all="ignore"):
+            return function(x, p)
+    except ScanError:
+        raise
+    except Exception:
+        return None
+
+
+def _wrap_python_rhs(user_rhs: Callable, parameters: tuple, n: int, reference: str, source: str):
+    expected = (n,)
+
+    def rhs(x: Array, p: Array) -> Array:
+        values = np.asarray(user_rhs(x, dict(zip(parameters, p.tolist()))), dtype=float)
+        if values.shape != expected:
+            raise ScanError(
+                source,
+                "model.python.rhs",
+                f"'{reference}' returned an array of shape {values.shape}; expected ({n},) "
+                "(one derivative per state, size = {n})".replace("{n}", str(n)),
+            )
+        return values
+
+    return rhs
+
+
+def _wrap_python_jacobian(
+    user_jacobian: Callable, parameters: tuple, n: int, sparse: bool, reference: str, source: str
+):
+    expected = (n, n)
+
+    def jacobian(x: Array, p: Array):
+        matrix = user_jacobian(x, dict(zip(parameters, p.tolist())))
+        if scipy.sparse.issparse(matrix):
+            matrix = matrix.tocsr() if sparse else matrix.toarray()
+        else:
+            matrix = np.asarray(matrix, dtype=float)
+            if sparse:
+                matrix = scipy.sparse.csr_matrix(matrix)
+        if matrix.shape != expected:
+            raise ScanError(
+                source,
+                "model.python.jacobian",
+                f"'{reference}' returned a matrix of shape {matrix.shape}; expected {expected}",
+            )
+        return matrix
+
+    return jacobian
+
+
+def _difference_jacobian(rhs: Callable, sparse: bool):
+    """df/dx by central differences: 2 n rhs calls (noted in the docs for large n)."""
+
+    def jacobian(x: Array, p: Array):
+        matrix = central_jacobian(lambda z: rhs(z, p), x)
+        return scipy.sparse.csr_matrix(matrix) if sparse else matrix
+
+    return jacobian
+
+
+def _wrap_python_observables(user_observables: Callable, parameters: tuple):
+    def observables(x: Array, p: Array) -> dict[str, float]:
+        values = user_observables(x, dict(zip(parameters, p.tolist())))
+        return {str(name): float(value) for name, value in dict(values).items()}
+
+    return observables
+
+
+class _DifferenceDerivatives:
+    """df/dp, B, C and d/dp (f_x v) of a Python model by nested central differences.
+
+    ``levels`` is the number of differences already inside a Jacobian action:
+    0 with an exact user Jacobian (action = J @ v), 1 without (a directional
+    difference of f). Each further derivative adds one level, and all levels
+    of one formula share the step of :func:`branchline.differences.central_step`.
+    """
+
+    def __init__(self, rhs: Callable, jacobian: Callable | None, levels: int) -> None:
+        self.rhs, self.user_jacobian, self.levels = rhs, jacobian, levels
+
+    def _action(self, x: Array, p: Array, v: Array, levels: int) -> Array:
+        if self.user_jacobian is not None:
+            return self.user_jacobian(x, p) @ v
+        return directional_derivative(lambda z: self.rhs(z, p), x, v, levels)
+
+    def parameter_jacobian(self, x: Array, p: Array) -> Array:
+        return central_jacobian(lambda q: self.rhs(x, q), p)
+
+    def second(self, x: Array, p: Array, v: Array, w: Array) -> Array:
+        return self._second(x, p, v, w, self.levels + 1)
+
+    def _second(self, x: Array, p: Array, v: Array, w: Array, levels: int) -> Array:
+        return directional_derivative(lambda z: self._action(z, p, v, levels), x, w, levels)
+
+    def third(self, x: Array, p: Array, u: Array, v: Array, w: Array) -> Array:
+        levels = self.levels + 2
+        return directional_derivative(lambda z: self._second(z, p, u, v, levels), x, w, levels)
+
+    def jacobian_parameter_derivative(self, x: Array, p: Array, v: Array) -> Array:
+        levels = self.levels + 1
+        p = np.asarray(p, dtype=float)
+        columns = []
+        for k in range(p.shape[0]):
+            direction = np.zeros_like(p)
+            direction[k] = 1.0
+            columns.append(
+                directional_derivative(lambda q: self._action(x, q, v, levels), p, direction, levels)
+            )
+        if not columns:
+            return np.zeros((np.asarray(x).shape[0], 0))
+        return np.column_stack(columns)
+
+
+# ---------------------------------------------------------------------------
+# Checking a Jacobian
+# ---------------------------------------------------------------------------
+
+
+def check_jacobian(model: Model, x: Array, p: Array) -> JacobianCheck:
+    """Compare the model's Jacobian at (x, p) with central differences of its rhs.
+
+    For up to ``DENSE_STATE_LIMIT`` states every entry is compared; above, the
+    products with ``JACOBIAN_CHECK_DIRECTIONS`` seeded random directions (a
+    wrong entry shows in almost every random product, at two rhs calls each).
+    The error of an entry is |J - D| / (max(|J|, |D|) + floor), the floor being
+    ``JACOBIAN_CHECK_FLOOR`` times the largest entry of its row.
+
+    Returns
+    -------
+    JacobianCheck
+    """
+    x = np.asarray(x, dtype=float)
+    p = np.asarray(p, dtype=float)
+    n = x.shape[0]
+    if n <= DENSE_STATE_LIMIT:
+        given = jacobian_dense(model, x, p)
+        differences = central_jacobian(lambda z: model.rhs(z, p), x)
+        what = "every entry"
+    else:
+        rng = np.random.default_rng(0)
+        directions = rng.standard_normal((n, JACOBIAN_CHECK_DIRECTIONS))
+        matrix = model.jacobian(x, p)
+        given = np.asarray(matrix @ directions)
+        differences = np.column_stack(
+            [
+                directional_derivative(lambda z: model.rhs(z, p), x, d, 1)
+                for d in directions.T
+            ]
+        )
+        what = f"products with {JACOBIAN_CHECK_DIRECTIONS} random directions"
+    return _compare(given, differences, model, what)
+
+
+def _compare(given: Array, differences: Array, model: Model, what: str) -> JacobianCheck:
+    magnitude = np.maximum(np.abs(given), np.abs(differences))
+    floor = JACOBIAN_CHECK_FLOOR * np.max(magnitude, axis=1, keepdims=True) + np.finfo(float).tiny
+    with np.errstate(invalid="ignore"):
+        errors = np.abs(given - differences) / (magnitude + floor)
+    if not np.all(np.isfinite(errors)):
+        return JacobianCheck(
+            float("nan"), False, "the Jacobian or the rhs is not finite at the check point"
+        )
+    worst = float(np.max(errors)) if errors.size else 0.0
+    source = model.jacobian_source or "the compiled Jacobian"
+    if worst <= JACOBIAN_CHECK_TOLERANCE:
+        return JacobianCheck(
+            worst, True, f"{source} agrees with finite differences ({what}; worst relative error {worst:.1e})"
+        )
+    i, j = np.unravel_index(int(np.argmax(errors)), errors.shape)
+    if what == "every entry":
+        place = f"d f[{model.states[i]}] / d {model.states[j]}"
+    else:
+        place = f"row {model.states[i]} of the product with random direction {j + 1}"
+    return JacobianCheck(
+        worst,
+        False,
+        f"{source} disagrees with finite differences of the rhs: {place} is "
+        f"{given[i, j]:.6g} but differences give {differences[i, j]:.6g} "
+        f"(relative error {worst:.1e}); check the Jacobian function",
+    )
+
+
+__all__ = [
+    "DENSE_STATE_LIMIT",
+    "JacobianCheck",
+    "Model",
+    "build_model",
+    "check_jacobian",
+    "jacobian_dense",
+    "resolve_callable",
+]

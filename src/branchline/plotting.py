@@ -1,0 +1,526 @@
+"""The bifurcation diagram, drawn from the saved tables alone.
+
+Top panel: a state (or parameter, observable, ``norm``) against the varied
+parameter, stable parts solid and unstable parts dashed, every located event
+marked and labelled in words. Bottom panel (shared x): the real part of the
+leading eigenvalue, so that each loss of stability is seen crossing zero.
+
+Figures are built as :class:`matplotlib.figure.Figure` objects without pyplot,
+so nothing here touches the global backend: rendering uses Agg and works
+without a screen, and a notebook can still display the returned figure.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+from typing import Any
+
+import matplotlib as mpl
+import numpy as np
+import pandas as pd
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+
+from branchline.report import (
+    BOOKKEEPING_COLUMNS,
+    _crossing_event,
+    _event_value_at,
+    _matching_event,
+    event_label,
+    fmt,
+    origin_event,
+    state_names,
+    trace_events,
+    trace_rows,
+)
+
+# Okabe & Ito, "Color Universal Design" (2008): distinguishable under the common
+# colour-vision deficiencies. Yellow is left out (too pale on white).
+TRACE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
+# One marker shape per event kind; unknown kinds get a plus.
+EVENT_MARKERS = {"fold": "D", "hopf": "s", "branch_point": "^"}
+DEFAULT_MARKER = "P"
+FIGURE_SIZE = (7.0, 6.5)  # inches: fits a journal page at full width
+PNG_DPI = 200
+FONT_SIZE = 9
+STABLE_STYLE = "-"
+UNSTABLE_STYLE = (0, (4.0, 2.5))  # dashes long enough to read on short runs
+LINE_WIDTH = 1.6
+MARKER_SIZE = 7.0
+LABEL_FONT_SIZE = 7.5
+# Offsets (points) tried in turn for an event label, so labels avoid each other.
+LABEL_OFFSETS = (
+    (10, 10),
+    (10, -20),
+    (-10, 10),
+    (-10, -20),
+    (22, 28),
+    (-22, 28),
+    (22, -38),
+    (-22, -38),
+    (34, 0),
+    (-34, 0),
+)
+FORMATS = ("png", "svg", "pdf")
+# Panel heights: the diagram gets most of the room.
+HEIGHT_RATIOS = (2.3, 1.0)
+# Spacing (display pixels) at which curves are sampled when labels look for room.
+LINE_SAMPLE_SPACING = 3.0
+
+
+# --------------------------------------------------------------------------- names
+
+
+def available_names(points: pd.DataFrame) -> list[str]:
+    """Names that can go on either axis: every numeric column plus ``norm``."""
+    names = [
+        c
+        for c in points.columns
+        if c not in BOOKKEEPING_COLUMNS and pd.api.types.is_numeric_dtype(points[c])
+    ]
+    if "norm" not in names:
+        names.append("norm")
+    return names
+
+
+def _check_name(points: pd.DataFrame, name: str, axis: str) -> None:
+    names = available_names(points)
+    if name not in names:
+        raise ValueError(
+            f"cannot plot {name!r} on the {axis} axis: no such column in the results. "
+            f"Available: {', '.join(names)}"
+        )
+
+
+def _default_names(points: pd.DataFrame, info: Mapping[str, Any]) -> tuple[str, str]:
+    traces = info.get("traces") or []
+    x = traces[0].get("vary") if traces else None
+    if not x:
+        parameters = (info.get("model") or {}).get("parameters") or {}
+        x = next((p for p in parameters if p in points.columns), "arclength")
+    states = state_names(points, info)
+    y = states[0] if states else "norm"
+    return str(x), y
+
+
+def _column(rows: pd.DataFrame, name: str, states: Sequence[str]) -> np.ndarray:
+    if name in rows.columns:
+        return rows[name].to_numpy(dtype=float)
+    if name == "norm":
+        return np.sqrt(sum(rows[s].to_numpy(dtype=float) ** 2 for s in states))
+    raise ValueError(f"cannot plot {name!r}: no such column in the results")
+
+
+def _event_coordinate(
+    event: Mapping[str, Any], name: str, rows: pd.DataFrame, states: Sequence[str]
+) -> float:
+    """An event's coordinate: from its own record, else interpolated along its trace."""
+    value = _event_value_at(event, name)
+    if value is not None:
+        return value
+    state = event.get("state") or {}
+    if name == "norm" and state:
+        return float(np.sqrt(sum(float(v) ** 2 for v in state.values())))
+    column = _column(rows, name, states)
+    return float(np.interp(float(event["arclength"]), rows["arclength"].to_numpy(float), column))
+
+
+# --------------------------------------------------------------------------- drawing pieces
+
+
+def _runs(
+    rows: pd.DataFrame,
+    events: Sequence[Mapping[str, Any]],
+    trace: str,
+    vary: str,
+    names: tuple[str, str],
+    states: Sequence[str],
+) -> list[tuple[bool, list[float], list[float], list[float], list[float]]]:
+    """Split a trace into stable/unstable runs: (stable, top x, top y, bottom x, bottom y).
+
+    At a change of stability both neighbouring runs end on the located event
+    (where the leading real part is 0), so the curve stays continuous; without
+    a located event the earlier run is extended to the next row.
+    """
+    xs = _column(rows, names[0], states)
+    ys = _column(rows, names[1], states)
+    lead = rows["leading_real"].to_numpy(dtype=float)
+    stable = rows["stable"].to_numpy(dtype=bool)
+    s = rows["arclength"].to_numpy(dtype=float)
+    p = rows[vary].to_numpy(dtype=float) if vary in rows.columns else None
+    located = trace_events(events, trace)
+
+    def row(i: int) -> tuple[float, float, float, float]:
+        return xs[i], ys[i], xs[i], lead[i]
+
+    def joint(i: int) -> tuple[float, float, float, float]:
+        event = None
+        if p is not None:
+            event = _matching_event(located, s[i - 1], s[i], p[i - 1], p[i])
+            event = event or _crossing_event(events, rows, i - 1, vary, trace)
+        if event is None:
+            return row(i)
+        ex = _event_coordinate(event, names[0], rows, states)
+        return ex, _event_coordinate(event, names[1], rows, states), ex, 0.0
+
+    runs = []
+    current: tuple[bool, list[float], list[float], list[float], list[float]]
+    current = (bool(stable[0]), *([v] for v in row(0)))
+    for i in range(1, len(rows)):
+        if stable[i] != stable[i - 1]:
+            meet = joint(i)
+            for values, v in zip(current[1:], meet, strict=True):
+                values.append(v)
+            runs.append(current)
+            current = (bool(stable[i]), *([v] for v in meet))
+        for values, v in zip(current[1:], row(i), strict=True):
+            values.append(v)
+    runs.append(current)
+    return runs
+
+
+def _join_to_origin(runs, rows, origin, names, states) -> None:
+    """Draw a switched branch from the branch point it was started beside.
+
+    Its start point lies one step off the branch point; the branch passes
+    through that point, so the gap is closed (in the style of the adjoining run)
+    when the start point is an end of the trace.
+    """
+    if origin is None or not runs:
+        return
+    s = rows["arclength"].to_numpy(dtype=float)
+    start = int(np.argmin(np.abs(s)))
+    try:
+        ox = _event_coordinate(origin, names[0], rows, states)
+        oy = _event_coordinate(origin, names[1], rows, states)
+    except ValueError:
+        return
+    if start == 0:
+        for values, v in zip(runs[0][1:], (ox, oy, ox, 0.0), strict=True):
+            values.insert(0, v)
+    elif start == len(rows) - 1:
+        for values, v in zip(runs[-1][1:], (ox, oy, ox, 0.0), strict=True):
+            values.append(v)
+
+
+def _drawn_traces(points: pd.DataFrame, info: Mapping[str, Any], x: str) -> list[str]:
+    """Traces to draw against ``x``: those varying ``x`` if any does, else all."""
+    names = list(dict.fromkeys(points["trace"].astype(str)))
+    varies = {str(t.get("name")): t.get("vary") for t in info.get("traces") or []}
+    matching = [n for n in names if varies.get(n) == x]
+    return matching or names
+
+
+def _trace_legend_label(name: str, info: Mapping[str, Any]) -> str:
+    entry = next((t for t in info.get("traces") or [] if t.get("name") == name), {})
+    if entry.get("parent"):
+        return f"trace {name} (branches off {entry['parent']})"
+    return f"trace {name}"
+
+
+def _boxes_overlap(a, b, pad: float = 2.0) -> bool:
+    return not (a.x1 + pad < b.x0 or b.x1 + pad < a.x0 or a.y1 + pad < b.y0 or b.y1 + pad < a.y0)
+
+
+def _line_vertices(ax) -> np.ndarray:
+    """Display coordinates of the drawn curves, densified so that a label box
+    lying across a long straight segment still contains vertices of it."""
+    chunks = []
+    for line in ax.get_lines():
+        xy = line.get_xydata()
+        if len(xy) < 2:
+            continue
+        shown = ax.transData.transform(xy)
+        gaps = np.hypot(*np.diff(shown, axis=0).T)
+        pieces = np.maximum(1, np.ceil(gaps / LINE_SAMPLE_SPACING).astype(int))
+        for a, b, n in zip(shown[:-1], shown[1:], pieces, strict=True):
+            chunks.append(a + np.linspace(0.0, 1.0, n, endpoint=False)[:, None] * (b - a))
+        chunks.append(shown[-1:])
+    return np.vstack(chunks) if chunks else np.empty((0, 2))
+
+
+def _place_labels(fig: Figure, ax, marks: list[tuple[float, float, str, str]]) -> None:
+    """Annotate event marks, trying offsets in turn.
+
+    A label goes at the first offset where it stays inside the axes and clear
+    of other labels, the event markers and the curves; failing that, at the
+    first offset clear of labels and markers (it may then lie across a curve,
+    on its white box); a label that fits nowhere is left out (the marker and
+    the legend still show the event).
+    """
+    fig.canvas.draw()  # settles the layout, so positions below are final
+    renderer = fig.canvas.get_renderer()
+    frame = ax.get_window_extent(renderer)
+    curves = _line_vertices(ax)
+    taken = []
+    for x, y, _, _ in marks:
+        cx, cy = ax.transData.transform((x, y))
+        size = MARKER_SIZE * fig.dpi / 72.0
+        taken.append(mpl.transforms.Bbox.from_bounds(cx - size / 2, cy - size / 2, size, size))
+    for index, (x, y, text, colour) in enumerate(marks):
+        others = [box for k, box in enumerate(taken) if k != index]
+        chosen = fallback = None
+        for dx, dy in LABEL_OFFSETS:
+            note = ax.annotate(
+                text,
+                (x, y),
+                xytext=(dx, dy),
+                textcoords="offset points",
+                ha="left" if dx >= 0 else "right",
+                va="bottom" if dy >= 0 else "top",
+                fontsize=LABEL_FONT_SIZE,
+                multialignment="left",
+                color="#222222",
+                bbox={
+                    "boxstyle": "round,pad=0.25",
+                    "fc": "white",
+                    "ec": colour,
+                    "lw": 0.6,
+                    "alpha": 0.92,
+                },
+                arrowprops={
+                    "arrowstyle": "-",
+                    "color": colour,
+                    "lw": 0.6,
+                    "shrinkA": 0,
+                    "shrinkB": 4,
+                },
+                zorder=6,
+            )
+            # the text's own box (the annotation's extent would include the arrow)
+            note.update_positions(renderer)
+            box = mpl.text.Text.get_window_extent(note, renderer).padded(3.0)
+            inside = (
+                box.x0 >= frame.x0
+                and box.x1 <= frame.x1
+                and box.y0 >= frame.y0
+                and box.y1 <= frame.y1
+            )
+            if not inside or any(_boxes_overlap(box, other) for other in others):
+                note.remove()
+                continue
+            crossed = np.any(
+                (curves[:, 0] >= box.x0)
+                & (curves[:, 0] <= box.x1)
+                & (curves[:, 1] >= box.y0)
+                & (curves[:, 1] <= box.y1)
+            )
+            if not crossed:
+                chosen = (note, box)
+                break
+            if fallback is None:
+                fallback = (note, box)
+            else:
+                note.remove()
+        if chosen is not None and fallback is not None:
+            fallback[0].remove()
+        chosen = chosen or fallback
+        if chosen is not None:
+            taken.append(chosen[1])
+
+
+# --------------------------------------------------------------------------- the figure
+
+
+def _axis_label(name: str, info: Mapping[str, Any]) -> str:
+    model = info.get("model") or {}
+    if name == "norm":
+        return "norm of the state (Euclidean)"
+    if name in (model.get("parameters") or {}):
+        return f"{name} (parameter)"
+    if name in (model.get("observables") or []):
+        return f"{name} (observable)"
+    return name
+
+
+def bifurcation_figure(
+    points: pd.DataFrame,
+    events: Sequence[Mapping[str, Any]],
+    info: Mapping[str, Any],
+    x: str | None = None,
+    y: str | None = None,
+) -> Figure:
+    """The bifurcation diagram of a results folder's tables.
+
+    Parameters
+    ----------
+    points, events, info
+        The saved tables (points.csv, events.json, run.json).
+    x : str, optional
+        Quantity on the horizontal axis; default the first trace's varied
+        parameter. When some traces vary ``x``, only those are drawn.
+    y : str, optional
+        Quantity on the vertical axis of the top panel: a state, parameter,
+        observable or ``norm``; default the first state (``norm`` for models
+        whose tables hold no individual states).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Two panels sharing x: the diagram, and the leading eigenvalue's real part.
+
+    Raises
+    ------
+    ValueError
+        If ``x`` or ``y`` is not a quantity of the results (the message lists those that are).
+    """
+    default_x, default_y = _default_names(points, info)
+    x = x or default_x
+    y = y or default_y
+    _check_name(points, x, "x")
+    _check_name(points, y, "y")
+    states = state_names(points, info)
+    if "norm" in (x, y) and "norm" not in points.columns and not states:
+        raise ValueError("cannot compute 'norm': the results hold no state columns")
+    with mpl.rc_context(_STYLE):
+        fig = Figure(figsize=FIGURE_SIZE, layout="constrained")
+        FigureCanvasAgg(fig)
+        top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=HEIGHT_RATIOS)
+        marks = _draw(fig, top, bottom, points, events, info, (x, y), states)
+        top.set_ylabel(_axis_label(y, info))
+        bottom.set_ylabel("leading eigenvalue,\nreal part (> 0: unstable)")
+        bottom.set_xlabel(_axis_label(x, info))
+        title = info.get("title")
+        if title:
+            fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
+        _legend(fig, top, points, events, info, x)
+        _place_labels(fig, top, marks)
+    return fig
+
+
+_STYLE = {
+    "font.size": FONT_SIZE,
+    "axes.labelsize": FONT_SIZE + 0.5,
+    "axes.titlesize": FONT_SIZE + 1,
+    "xtick.labelsize": FONT_SIZE - 0.5,
+    "ytick.labelsize": FONT_SIZE - 0.5,
+    "legend.fontsize": FONT_SIZE - 1,
+    "axes.grid": True,
+    "grid.color": "#DDDDDD",
+    "grid.linewidth": 0.6,
+    "axes.edgecolor": "#444444",
+    "axes.linewidth": 0.8,
+    "svg.fonttype": "none",  # keep text as text in SVG
+}
+
+
+def _draw(fig, top, bottom, points, events, info, names, states):
+    vary_of = {str(t.get("name")): str(t.get("vary")) for t in info.get("traces") or []}
+    marks = []
+    bottom.axhline(0.0, color="#333333", lw=0.9, zorder=1)
+    for k, name in enumerate(_drawn_traces(points, info, names[0])):
+        colour = TRACE_COLOURS[k % len(TRACE_COLOURS)]
+        rows = trace_rows(points, name)
+        if rows.empty:
+            continue
+        vary = vary_of.get(name) or names[0]
+        runs = _runs(rows, events, name, vary, names, states)
+        _join_to_origin(runs, rows, origin_event(events, info, name), names, states)
+        for stable, tx, ty, bx, by in runs:
+            style = STABLE_STYLE if stable else UNSTABLE_STYLE
+            top.plot(tx, ty, color=colour, ls=style, lw=LINE_WIDTH, zorder=3)
+            bottom.plot(bx, by, color=colour, ls=style, lw=LINE_WIDTH * 0.8, zorder=3)
+        for event in trace_events(events, name):
+            ex = _event_coordinate(event, names[0], rows, states)
+            ey = _event_coordinate(event, names[1], rows, states)
+            marker = EVENT_MARKERS.get(str(event.get("kind")), DEFAULT_MARKER)
+            for ax, yy in ((top, ey), (bottom, 0.0)):
+                ax.plot(
+                    ex,
+                    yy,
+                    marker=marker,
+                    ms=MARKER_SIZE if ax is top else MARKER_SIZE - 1.5,
+                    mfc="white",
+                    mec=colour,
+                    mew=1.5,
+                    ls="none",
+                    zorder=5,
+                )
+            value = _event_value_at(event, names[0])
+            text = event_label(event)
+            if value is not None:
+                text += f"\n{names[0]} = {fmt(value, 5)}"
+            marks.append((ex, ey, text, colour))
+    top.margins(x=0.03, y=0.08)
+    _shade_unstable(bottom)
+    return marks
+
+
+def _shade_unstable(ax) -> None:
+    """Tint the half-plane Re > 0 of the eigenvalue panel: the unstable side."""
+    lo, hi = ax.get_ylim()
+    if hi > 0:
+        ax.axhspan(0.0, hi, color="#D55E00", alpha=0.06, lw=0, zorder=0)
+    ax.set_ylim(lo, hi)
+
+
+def _legend(fig, top, points, events, info, x) -> None:
+    handles = []
+    for k, name in enumerate(_drawn_traces(points, info, x)):
+        colour = TRACE_COLOURS[k % len(TRACE_COLOURS)]
+        handles.append(
+            Line2D([], [], color=colour, lw=LINE_WIDTH, label=_trace_legend_label(name, info))
+        )
+    grey = "#555555"
+    handles.append(Line2D([], [], color=grey, lw=LINE_WIDTH, ls=STABLE_STYLE, label="stable"))
+    handles.append(Line2D([], [], color=grey, lw=LINE_WIDTH, ls=UNSTABLE_STYLE, label="unstable"))
+    seen = []
+    for event in events:
+        label = event_label(event)
+        if label in seen:
+            continue
+        seen.append(label)
+        marker = EVENT_MARKERS.get(str(event.get("kind")), DEFAULT_MARKER)
+        handles.append(
+            Line2D(
+                [],
+                [],
+                marker=marker,
+                ms=MARKER_SIZE - 1,
+                mfc="white",
+                mec=grey,
+                mew=1.3,
+                ls="none",
+                label=label,
+            )
+        )
+    top.legend(handles=handles, loc="best", framealpha=0.92, edgecolor="#BBBBBB")
+
+
+def save_figure(fig: Figure, path: str | Path) -> Path:
+    """Write a figure; the format follows the suffix (png at 200 dpi, svg, pdf).
+
+    Raises
+    ------
+    ValueError
+        For a suffix other than .png, .svg or .pdf.
+    """
+    path = Path(path)
+    fmt_name = path.suffix.lower().lstrip(".")
+    if fmt_name not in FORMATS:
+        raise ValueError(
+            f"{path}: cannot write a figure as {path.suffix or 'no suffix'!r}; "
+            f"use one of {', '.join('.' + f for f in FORMATS)}"
+        )
+    with mpl.rc_context(_STYLE):
+        fig.savefig(
+            path,
+            format=fmt_name,
+            dpi=PNG_DPI if fmt_name == "png" else "figure",
+            metadata=_metadata(fmt_name),
+        )
+    return path
+
+
+def _metadata(fmt_name: str) -> dict[str, Any]:
+    # Reproducible files: no creation dates stamped in.
+    if fmt_name == "svg":
+        return {"Date": None}
+    if fmt_name == "pdf":
+        return {"CreationDate": None}
+    return {}
+
+
+__all__ = ["TRACE_COLOURS", "available_names", "bifurcation_figure", "save_figure"]

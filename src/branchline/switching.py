@@ -1,0 +1,162 @@
+"""Branch switching at a located branch point.
+
+At a simple branch point two equilibrium branches cross. The traced one is
+already known; :func:`branch_starts` gives a start point on each half of the
+other one, a small distance ``SWITCH_OFFSET`` from the branch point along the
+tangent found from the algebraic branching equation (stored by
+:mod:`branchline.events` in ``event.details["tangents"]``), corrected onto the
+new branch by Newton on f = 0, t . (u - u_0) = 0 (Keller's method of branch
+switching; Allgower & Georg, Introduction to Numerical Continuation Methods,
+section 8.3; Kuznetsov, Elements of Applied Bifurcation Theory, section 10.2.4).
+:func:`trace_switched` follows each half-branch with the continuation engine.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+
+from branchline.events import correct_on_branch
+from branchline.normal_forms import branch_point_normal_form, dense
+from branchline.results import Branch, Event
+
+Array = np.ndarray
+
+# Distance (relative to 1 + |u| at the branch point, in (state, parameter)
+# space) from the branch point to the first point of a new branch: small
+# enough that the tangent predicts the branch well (error ~ curvature * d^2),
+# large enough that the bordered Jacobian there is far from singular (its
+# smallest singular value grows like d).
+SWITCH_OFFSET = 1e-3
+
+# The corrected start must keep this cosine with the predicted tangent;
+# otherwise Newton slid back onto the traced branch and the start is dropped.
+SMALLEST_TANGENT_COSINE = 0.9
+
+
+def _with_value(params: Array, k: int, value: float) -> Array:
+    full = np.array(params, dtype=float)
+    full[k] = value
+    return full
+
+
+def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
+    """The unit tangent of the crossing branch that is not the traced one."""
+    tangents = event.details.get("tangents")
+    traced = event.details.get("traced_tangent_index")
+    if tangents is None or traced is None:
+        form = branch_point_normal_form(model, event.state, event.parameters, k)
+        if not form.branching:
+            return None
+        tangents = form.tangents
+        traced_tangent = np.asarray(event.details.get("tangent", tangents[0]), dtype=float)
+        traced = int(np.argmax(np.abs(tangents @ traced_tangent)))
+    tangents = np.asarray(tangents, dtype=float)
+    if tangents.shape[0] != 2:
+        return None
+    return tangents[1 - int(traced)]
+
+
+def _branch_tangent(model, x: Array, full: Array, k: int, like: Array) -> Array:
+    g_u = np.column_stack([dense(model.jacobian(x, full)), model.parameter_jacobian(x, full)[:, k]])
+    t = np.linalg.svd(g_u)[2][-1]
+    return t if t @ like >= 0 else -t
+
+
+def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, float, Array]]:
+    """Start points for the two halves of the branch crossing the traced one.
+
+    Parameters
+    ----------
+    model : Model
+    branch : Branch
+        The traced branch the event lies on.
+    event : Event
+        A ``branch_point`` event from :func:`branchline.events.locate_events`.
+
+    Returns
+    -------
+    list of (x0 (n,), p0 float, tangent (n + 1,))
+        One entry per half-branch (usually two): an equilibrium on the new
+        branch near the branch point (residual at rounding level), the varied
+        parameter's value there, and the unit tangent pointing away from the
+        branch point. Empty for other events or a degenerate branch point.
+    """
+    if event.kind != "branch_point" or not event.branching:
+        return []
+    k = model.parameter_index(branch.vary)
+    direction = _new_tangent(model, branch, event, k)
+    if direction is None:
+        return []
+    u_event = np.append(event.state, event.value)
+    offset = SWITCH_OFFSET * (1.0 + float(np.linalg.norm(u_event)))
+    lo, hi = min(branch.interval), max(branch.interval)
+    starts = []
+    for sign in (1.0, -1.0):
+        tangent = sign * direction
+        guess = u_event + offset * tangent
+        outcome = correct_on_branch(model, event.parameters, k, guess, tangent)
+        if not outcome.converged:
+            continue
+        u = outcome.solution
+        if not lo <= u[-1] <= hi:
+            continue
+        full = _with_value(event.parameters, k, u[-1])
+        t = _branch_tangent(model, u[:-1], full, k, tangent)
+        if float(t @ tangent) < SMALLEST_TANGENT_COSINE:
+            continue
+        starts.append((u[:-1].copy(), float(u[-1]), t))
+    return starts
+
+
+def trace_switched(
+    model,
+    parent_branch: Branch,
+    event: Event,
+    steps,
+    interval: tuple[float, float],
+    progress: Callable[[int], None] | None = None,
+) -> list[Branch]:
+    """Follow each half of the branch crossing ``parent_branch`` at ``event``.
+
+    Parameters
+    ----------
+    model : Model
+    parent_branch : Branch
+    event : Event
+        A ``branch_point`` event on ``parent_branch``.
+    steps : branchline.scan.StepSettings
+    interval : (lo, hi)
+        Window of the varied parameter.
+    progress : callable(int), optional
+        Passed on to :func:`branchline.branches.trace_branch`.
+
+    Returns
+    -------
+    list of Branch
+        Named ``<parent>.1``, ``<parent>.2`` ... in the order started, each
+        traced from its start point away from the branch point only.
+    """
+    from branchline.branches import trace_branch  # the engine imports this module's siblings
+
+    k = model.parameter_index(parent_branch.vary)
+    children = []
+    for x0, p0, tangent in branch_starts(model, parent_branch, event):
+        name = f"{parent_branch.name}.{len(children) + 1}"
+        children.append(
+            trace_branch(
+                model,
+                name,
+                parent_branch.vary,
+                _with_value(event.parameters, k, p0),
+                x0,
+                interval,
+                "increasing" if tangent[-1] >= 0 else "decreasing",
+                steps,
+                parent=parent_branch.name,
+                start_tangent=tangent,
+                progress=progress,
+            )
+        )
+    return children
