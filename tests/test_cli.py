@@ -31,21 +31,36 @@ start = { N = 0.8 }
 
 # (id, text replacing part of GOOD or a whole file, words the message must contain)
 BAD_SCANS = [
-    ("unknown-key", GOOD.replace("interval =", "intervall ="), ["trace[1]", "intervall", "interval"]),
+    (
+        "unknown-key",
+        GOOD.replace("interval =", "intervall ="),
+        ["trace[1]", "intervall", "interval"],
+    ),
     ("missing-state", GOOD.replace("start = { N = 0.8 }", "start = { }"), ["trace[1].start", "N"]),
     ("extra-state", GOOD.replace("{ N = 0.8 }", "{ N = 0.8, P = 1.0 }"), ["trace[1].start", "P"]),
     ("unknown-name", GOOD.replace("- F*N", "- G*N"), ["model.equations.N", "G"]),
-    ("definition-loop",
-     GOOD.replace("[model.equations]", '[model.definitions]\na = "b + 1"\nb = "2*a"\n[model.equations]'),
-     ["model.definitions", "a", "b"]),
+    (
+        "definition-loop",
+        GOOD.replace(
+            "[model.equations]", '[model.definitions]\na = "b + 1"\nb = "2*a"\n[model.equations]'
+        ),
+        ["model.definitions", "a", "b"],
+    ),
     ("non-numeric", GOOD.replace("r = 1.0", 'r = "fast"'), ["model.parameters.r"]),
     ("reversed-interval", GOOD.replace("[0.0, 0.5]", "[0.5, 0.0]"), ["trace[1].interval"]),
     ("start-outside", GOOD.replace("[0.0, 0.5]", "[0.3, 0.5]"), ["trace[1].interval"]),
     ("steps-order", GOOD + "[steps]\ninitial = 0.5\nlargest = 0.1\n", ["steps"]),
     ("steps-negative", GOOD + "[steps]\nsmallest = -1e-8\n", ["steps.smallest"]),
-    ("code-in-expression", GOOD.replace('"r*N*(1 - N) - F*N"', "\"__import__('os').system('touch pwned')\""),
-     ["model.equations.N"]),
-    ("attribute-access", GOOD.replace('"r*N*(1 - N) - F*N"', '"N.__class__"'), ["model.equations.N"]),
+    (
+        "code-in-expression",
+        GOOD.replace('"r*N*(1 - N) - F*N"', "\"__import__('os').system('touch pwned')\""),
+        ["model.equations.N"],
+    ),
+    (
+        "attribute-access",
+        GOOD.replace('"r*N*(1 - N) - F*N"', '"N.__class__"'),
+        ["model.equations.N"],
+    ),
     ("huge-power", GOOD.replace('"r*N*(1 - N) - F*N"', '"9**9**9**9"'), ["model.equations.N"]),
     ("not-toml", "this is = = not toml", ["bad.toml"]),
     ("vary-unknown", GOOD.replace('vary = "F"', 'vary = "Q"'), ["trace[1].vary", "Q"]),
@@ -53,7 +68,9 @@ BAD_SCANS = [
 
 
 @pytest.mark.parametrize("case", BAD_SCANS, ids=[c[0] for c in BAD_SCANS])
-def test_bad_scan_exits_2_names_file_and_key_and_writes_nothing(tmp_path, capsys, monkeypatch, case):
+def test_bad_scan_exits_2_names_file_and_key_and_writes_nothing(
+    tmp_path, capsys, monkeypatch, case
+):
     _, text, words = case
     monkeypatch.chdir(tmp_path)
     scan = tmp_path / "bad.toml"
@@ -84,12 +101,28 @@ def test_run_writes_contract_files_and_round_trips(tmp_path):
     scan.write_text(GOOD)
     out = tmp_path / "out"
     assert main(["run", str(scan), "--out", str(out), "--quiet"]) == 0
-    for name in ("points.csv", "events.csv", "events.json", "report.md", "diagram.png",
-                 "diagram.svg", "run.json"):
+    for name in (
+        "points.csv",
+        "events.csv",
+        "events.json",
+        "report.md",
+        "diagram.png",
+        "diagram.svg",
+        "run.json",
+    ):
         assert (out / name).is_file(), name
     points = pd.read_csv(out / "points.csv")
-    assert list(points.columns) == ["trace", "step", "arclength", "F", "N", "stable",
-                                    "unstable_count", "leading_real", "leading_imag"]
+    assert list(points.columns) == [
+        "trace",
+        "step",
+        "arclength",
+        "F",
+        "N",
+        "stable",
+        "unstable_count",
+        "leading_real",
+        "leading_imag",
+    ]
     # Logistic growth with harvest F: N* = 1 - F/r exactly (elementary algebra).
     assert (abs(points["N"] - (1.0 - points["F"])) < 1e-10).all()
     # Trace order: arclength increases, step counts from 0, edges hit exactly.
@@ -107,7 +140,10 @@ def test_python_module_run_via_subprocess(tmp_path):
     scan.write_text(GOOD)
     done = subprocess.run(
         [sys.executable, "-m", "branchline", "run", str(scan), "--out", str(tmp_path / "o")],
-        capture_output=True, text=True, cwd=tmp_path, check=False,
+        capture_output=True,
+        text=True,
+        cwd=tmp_path,
+        check=False,
     )
     assert done.returncode == 0, done.stderr
     assert CAUTION in done.stdout

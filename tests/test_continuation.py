@@ -84,25 +84,39 @@ def budworm_built():
 
 def budworm_folds(k: float) -> list[tuple[float, float]]:
     """(x, r) of both folds for this k from the closed form (Strogatz section 3.7)."""
+
     def k_of_x(x):
         return 2.0 * x**3 / (x**2 - 1.0) - k
 
     # k(x) has its minimum at x = sqrt(3) (dk/dx = 0); one fold on each side.
-    roots = [brentq(k_of_x, 1.0 + 1e-9, math.sqrt(3.0), xtol=1e-15),
-             brentq(k_of_x, math.sqrt(3.0), 10.0 * k, xtol=1e-15)]
+    roots = [
+        brentq(k_of_x, 1.0 + 1e-9, math.sqrt(3.0), xtol=1e-15),
+        brentq(k_of_x, math.sqrt(3.0), 10.0 * k, xtol=1e-15),
+    ]
     return [(x, 2.0 * x**3 / (1.0 + x**2) ** 2) for x in roots]
 
 
 MODELS = {"hand": budworm_hand, "built": budworm_built}
 
 
-@pytest.fixture(params=[("hand", "full"), ("built", "full"), ("hand", "chord")],
-                ids=["hand-full", "built-full", "hand-chord"])
+@pytest.fixture(
+    params=[("hand", "full"), ("built", "full"), ("hand", "chord")],
+    ids=["hand-full", "built-full", "hand-chord"],
+)
 def budworm_branch(request):
     kind, newton = request.param
     model = MODELS[kind]()
-    branch = trace_branch(model, "budworm", "r", model.defaults, np.array([0.5]), (0.1, 0.7),
-                          "both", StepSettings(), newton=newton)
+    branch = trace_branch(
+        model,
+        "budworm",
+        "r",
+        model.defaults,
+        np.array([0.5]),
+        (0.1, 0.7),
+        "both",
+        StepSettings(),
+        newton=newton,
+    )
     return model, branch
 
 
@@ -113,11 +127,12 @@ def test_budworm_passes_both_turning_points(budworm_branch):
     changes = np.nonzero(np.diff(np.sign(fold_component)))[0]
     assert len(changes) == 2
     # The fold test function (tangent's parameter component) changes sign at the same rows.
-    np.testing.assert_array_equal(np.nonzero(np.diff(np.sign(branch.test_values[:, 0])))[0],
-                                  changes)
+    np.testing.assert_array_equal(
+        np.nonzero(np.diff(np.sign(branch.test_values[:, 0])))[0], changes
+    )
     lower, upper = budworm_folds(BUDWORM_K)
     # The turning points lie between the rows around each sign change.
-    for index, (x_fold, _) in zip(changes, (lower, upper)):
+    for index, (x_fold, _) in zip(changes, (lower, upper), strict=True):
         low, high = sorted(branch.states[index : index + 2, 0])
         assert low - 0.05 <= x_fold <= high + 0.05
 
@@ -125,7 +140,7 @@ def test_budworm_passes_both_turning_points(budworm_branch):
 def test_budworm_extreme_parameter_values_match_closed_form(budworm_branch):
     _, branch = budworm_branch
     changes = np.nonzero(np.diff(np.sign(branch.tangents[:, -1])))[0]
-    for index, (_, r_fold) in zip(changes, budworm_folds(BUDWORM_K)):
+    for index, (_, r_fold) in zip(changes, budworm_folds(BUDWORM_K), strict=True):
         window = slice(index - 2, index + 4)
         values = branch.parameter_values[window]
         upper_turn = r_fold > 0.3  # the lower fold is a maximum of r, the upper one a minimum
@@ -150,8 +165,10 @@ def test_budworm_points_on_all_three_sheets(budworm_branch):
     (x_low, _), (x_high, _) = budworm_folds(BUDWORM_K)
     x = branch.states[:, 0]
     assert np.any(x < x_low) and np.any((x > x_low) & (x < x_high)) and np.any(x > x_high)
-    residuals = [abs(model.rhs(row, np.array([r, BUDWORM_K]))[0])
-                 for row, r in zip(branch.states, branch.parameter_values)]
+    residuals = [
+        abs(model.rhs(row, np.array([r, BUDWORM_K]))[0])
+        for row, r in zip(branch.states, branch.parameter_values, strict=True)
+    ]
     assert max(residuals) < 1e-10
     assert np.all(branch.residual_norms < 1e-10)
     # Stability: the outer sheets are stable, the middle one unstable (one positive eigenvalue).
@@ -209,15 +226,25 @@ def test_budworm_record_is_complete(budworm_branch):
     for row in (0, k // 2, k - 1):
         p = np.array([branch.parameter_values[row], BUDWORM_K])
         assert branch.eigenvalues[row, 0].real == pytest.approx(
-            model.jacobian(branch.states[row], p)[0, 0], abs=1e-12)
+            model.jacobian(branch.states[row], p)[0, 0], abs=1e-12
+        )
 
 
 def test_directions_one_side_only():
     model = budworm_hand()
-    up = trace_branch(model, "up", "r", model.defaults, np.array([0.5]), (0.1, 0.7),
-                      "increasing", StepSettings())
-    down = trace_branch(model, "down", "r", model.defaults, np.array([0.5]), (0.1, 0.7),
-                        "decreasing", StepSettings())
+    up = trace_branch(
+        model, "up", "r", model.defaults, np.array([0.5]), (0.1, 0.7), "increasing", StepSettings()
+    )
+    down = trace_branch(
+        model,
+        "down",
+        "r",
+        model.defaults,
+        np.array([0.5]),
+        (0.1, 0.7),
+        "decreasing",
+        StepSettings(),
+    )
     assert up.parameter_values[0] == 0.4 and up.arclength[0] == 0.0
     assert up.parameter_values[1] > 0.4
     assert down.parameter_values[-1] == 0.4 and down.arclength[-1] == 0.0
@@ -230,10 +257,19 @@ def test_directions_one_side_only():
 def test_progress_callback_counts_points():
     model = budworm_hand()
     seen = []
-    branch = trace_branch(model, "t", "r", model.defaults, np.array([0.5]), (0.1, 0.7), "both",
-                          StepSettings(), progress=seen.append)
+    branch = trace_branch(
+        model,
+        "t",
+        "r",
+        model.defaults,
+        np.array([0.5]),
+        (0.1, 0.7),
+        "both",
+        StepSettings(),
+        progress=seen.append,
+    )
     assert seen and seen == sorted(seen)
-    assert seen[-1] == len(branch) + 1  # both sides count their shared start row
+    assert seen[-1] == len(branch)
 
 
 # ---------------------------------------------------------------------------
@@ -247,23 +283,25 @@ def circle_model():
         lambda x, p: np.array([1.0 - x[0] ** 2 - p[0] ** 2]),
         lambda x, p: np.array([[-2.0 * x[0]]]),
         lambda x, p: np.array([[-2.0 * p[0]]]),
-        ("x",), ("p",), (0.0,),
+        ("x",),
+        ("p",),
+        (0.0,),
     )
 
 
 @pytest.mark.parametrize("direction", ["both", "increasing", "decreasing"])
 def test_isola_closes_and_stops(direction):
     model = circle_model()
-    branch = trace_branch(model, "loop", "p", model.defaults, np.array([0.9]), (-2.0, 2.0),
-                          direction, StepSettings())
+    branch = trace_branch(
+        model, "loop", "p", model.defaults, np.array([0.9]), (-2.0, 2.0), direction, StepSettings()
+    )
     assert branch.status == "closed", branch.message
     assert "closed" in branch.message
     radius = np.hypot(branch.states[:, 0], branch.parameter_values)
     np.testing.assert_allclose(radius, 1.0, atol=1e-10)
     # Once around: first and last rows are the start point, the length is 2 pi to the
     # chord error of the steps.
-    np.testing.assert_array_equal(
-        np.abs(branch.arclength[[0, -1]]).min(), 0.0)
+    np.testing.assert_array_equal(np.abs(branch.arclength[[0, -1]]).min(), 0.0)
     length = branch.arclength[-1] - branch.arclength[0]
     assert 2 * math.pi * (1 - 1e-3) < length <= 2 * math.pi
     assert branch.parameter_values.min() == pytest.approx(-1.0, abs=2e-3)
@@ -276,14 +314,16 @@ def nan_wall_model(wall=0.5):
     def rhs(x, p):
         return np.array([p[0] - x[0] if p[0] >= wall else math.nan])
 
-    return hand_model(rhs, lambda x, p: np.array([[-1.0]]), lambda x, p: np.array([[1.0]]),
-                      ("x",), ("p",), (1.0,))
+    return hand_model(
+        rhs, lambda x, p: np.array([[-1.0]]), lambda x, p: np.array([[1.0]]), ("x",), ("p",), (1.0,)
+    )
 
 
 def test_failure_keeps_points_and_says_where():
     model = nan_wall_model()
-    branch = trace_branch(model, "wall", "p", model.defaults, np.array([1.0]), (0.0, 2.0),
-                          "both", StepSettings())
+    branch = trace_branch(
+        model, "wall", "p", model.defaults, np.array([1.0]), (0.0, 2.0), "both", StepSettings()
+    )
     assert branch.status == "failed"
     assert "decreasing side" in branch.message and "increasing side" in branch.message
     assert "not finite" in branch.message
@@ -297,10 +337,17 @@ def test_failure_keeps_points_and_says_where():
 
 def test_start_failure_returns_empty_failed_branch():
     # x' = x^2 + 1 + 0 p has no equilibrium: the start Newton fails.
-    model = hand_model(lambda x, p: x**2 + 1.0 + 0.0 * p[0], lambda x, p: np.diag(2.0 * x),
-                       lambda x, p: np.zeros((1, 1)), ("x",), ("p",), (0.0,))
-    branch = trace_branch(model, "none", "p", model.defaults, np.array([1.0]), (-1.0, 1.0),
-                          "both", StepSettings())
+    model = hand_model(
+        lambda x, p: x**2 + 1.0 + 0.0 * p[0],
+        lambda x, p: np.diag(2.0 * x),
+        lambda x, p: np.zeros((1, 1)),
+        ("x",),
+        ("p",),
+        (0.0,),
+    )
+    branch = trace_branch(
+        model, "none", "p", model.defaults, np.array([1.0]), (-1.0, 1.0), "both", StepSettings()
+    )
     assert branch.status == "failed"
     assert len(branch) == 0
     assert "no equilibrium found" in branch.message and "p=0" in branch.message
@@ -308,15 +355,24 @@ def test_start_failure_returns_empty_failed_branch():
 
 def test_start_outside_interval_is_reported():
     model = circle_model()
-    branch = trace_branch(model, "out", "p", np.array([3.0]), np.array([0.0]), (-1.0, 1.0),
-                          "both", StepSettings())
+    branch = trace_branch(
+        model, "out", "p", np.array([3.0]), np.array([0.0]), (-1.0, 1.0), "both", StepSettings()
+    )
     assert branch.status == "failed" and "outside" in branch.message
 
 
 def test_max_points_stops_with_message():
     model = budworm_hand()
-    branch = trace_branch(model, "t", "r", model.defaults, np.array([0.5]), (0.1, 0.7),
-                          "increasing", StepSettings(max_points=25))
+    branch = trace_branch(
+        model,
+        "t",
+        "r",
+        model.defaults,
+        np.array([0.5]),
+        (0.1, 0.7),
+        "increasing",
+        StepSettings(max_points=25),
+    )
     assert branch.status == "max_points"
     assert len(branch) == 25
     assert "25" in branch.message
@@ -329,11 +385,22 @@ def test_branch_switching_start_tangent():
         lambda x, p: np.array([x[0] * (p[0] - x[0])]),
         lambda x, p: np.array([[p[0] - 2.0 * x[0]]]),
         lambda x, p: np.array([[x[0]]]),
-        ("x",), ("p",), (0.0,),
+        ("x",),
+        ("p",),
+        (0.0,),
     )
-    branch = trace_branch(model, "t.1", "p", model.defaults, np.array([0.0]), (-1.0, 1.0),
-                          "both", StepSettings(), parent="t",
-                          start_tangent=np.array([1.0, 1.0]))
+    branch = trace_branch(
+        model,
+        "t.1",
+        "p",
+        model.defaults,
+        np.array([0.0]),
+        (-1.0, 1.0),
+        "both",
+        StepSettings(),
+        parent="t",
+        start_tangent=np.array([1.0, 1.0]),
+    )
     assert branch.status == "done" and branch.parent == "t"
     assert branch.parameter_values[0] == 0.0 and branch.parameter_values[-1] == 1.0
     np.testing.assert_allclose(branch.states[:, 0], branch.parameter_values, atol=1e-10)
@@ -368,7 +435,9 @@ def sign_changes(values):
 
 def test_two_close_events_are_not_stepped_over(monkeypatch):
     problem = LineWithCloseZeros()
-    settings = StepControl(initial=0.05, smallest=1e-8, largest=0.1, max_points=10_000)
+    # Constant steps of 0.1 in arclength (0.0707 in p) put both zeros (0.3, 0.302) inside
+    # the step from p = 0.2828 to p = 0.3536.
+    settings = StepControl(initial=0.1, smallest=1e-8, largest=0.1, max_points=10_000)
     u0, t0 = np.array([0.0, 0.0]), np.array([1.0, 1.0])
     curve = follow_curve(problem, u0, t0, settings, (0.0, 1.0))
     assert curve.status == "done"
@@ -384,7 +453,9 @@ def test_engine_counts_and_curve_fields():
     curve = follow_curve(problem, np.zeros(2), np.array([1.0, 1.0]), StepControl(), (0.0, 1.0))
     assert curve.points[-1, 1] == 1.0 and curve.points[0, 1] == 0.0
     assert set(curve.counts) == set(continuation.COUNT_KEYS)
-    assert curve.counts["newton_iterations"] == curve.newton_iterations.sum()
+    # Totals include the attempts of rejected steps.
+    assert curve.counts["newton_iterations"] >= curve.newton_iterations.sum()
+    assert curve.counts["rhs_evaluations"] >= curve.counts["newton_iterations"] + len(curve)
     assert curve.payloads.shape == (len(curve),)
     assert np.all(np.diff(curve.arclength) > 0)
 
@@ -401,12 +472,14 @@ def test_engine_chord_and_full_agree_on_circle():
             return None, np.array([tangent[-1]])
 
     for newton in ("full", "chord"):
-        curve = follow_curve(Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepControl(),
-                             newton=newton)
+        curve = follow_curve(
+            Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepControl(), newton=newton
+        )
         assert curve.status == "closed"
         assert sign_changes(curve.test_values[:, 0]) == 2
-        np.testing.assert_allclose(np.hypot(curve.points[:, 0], curve.points[:, 1]), 1.0,
-                                   atol=1e-10)
+        np.testing.assert_allclose(
+            np.hypot(curve.points[:, 0], curve.points[:, 1]), 1.0, atol=1e-10
+        )
 
 
 # ---------------------------------------------------------------------------
@@ -416,8 +489,10 @@ def test_engine_chord_and_full_agree_on_circle():
 
 def bratu_model(n, sparse):
     h = 1.0 / (n + 1)
-    lap = sp.diags([np.ones(n - 1), -2.0 * np.ones(n), np.ones(n - 1)], [-1, 0, 1],
-                   format="csr") / h**2
+    lap = (
+        sp.diags([np.ones(n - 1), -2.0 * np.ones(n), np.ones(n - 1)], [-1, 0, 1], format="csr")
+        / h**2
+    )
     dense_lap = lap.toarray()
 
     def rhs(u, p):
@@ -428,8 +503,15 @@ def bratu_model(n, sparse):
             return (lap + sp.diags(p[0] * np.exp(u))).tocsr()
         return dense_lap + np.diag(p[0] * np.exp(u))
 
-    return hand_model(rhs, jacobian, lambda u, p: np.exp(u).reshape(-1, 1),
-                      tuple(f"u{i}" for i in range(n)), ("lam",), (0.0,), sparse=sparse)
+    return hand_model(
+        rhs,
+        jacobian,
+        lambda u, p: np.exp(u).reshape(-1, 1),
+        tuple(f"u{i}" for i in range(n)),
+        ("lam",),
+        (0.0,),
+        sparse=sparse,
+    )
 
 
 def bratu_fold() -> float:
@@ -446,8 +528,16 @@ def test_bratu_fold_dense_and_sparse_agree():
     branches = {}
     for sparse in (False, True):
         model = bratu_model(n, sparse)
-        branch = trace_branch(model, "bratu", "lam", model.defaults, np.zeros(n), (0.0, 3.6),
-                              "increasing", StepSettings(largest=0.5, max_points=60))
+        branch = trace_branch(
+            model,
+            "bratu",
+            "lam",
+            model.defaults,
+            np.zeros(n),
+            (0.0, 3.6),
+            "increasing",
+            StepSettings(largest=0.5, max_points=60),
+        )
         branches[sparse] = branch
         assert sign_changes(branch.tangents[:, -1]) == 1
         # The discrete fold lies O(h^2) below the continuous one.
@@ -457,3 +547,56 @@ def test_bratu_fold_dense_and_sparse_agree():
     np.testing.assert_allclose(dense.parameter_values, sparse_branch.parameter_values, atol=1e-9)
     np.testing.assert_allclose(dense.states, sparse_branch.states, atol=1e-9)
     np.testing.assert_array_equal(dense.unstable_count, sparse_branch.unstable_count)
+
+
+def test_start_at_a_turning_point_leaves_both_ways():
+    # Started exactly at the lower fold of the budworm branch (closed form, Strogatz 3.7),
+    # the two sides must leave in opposite directions: one onto the lower sheet, one onto
+    # the middle sheet.
+    (x_fold, r_fold), (x_upper, _) = budworm_folds(BUDWORM_K)
+    model = budworm_hand()
+    parameters = np.array([r_fold, BUDWORM_K])
+    branch = trace_branch(
+        model,
+        "fold",
+        "r",
+        parameters,
+        np.array([x_fold]),
+        (0.1, 0.7),
+        "both",
+        StepSettings(max_points=400),
+    )
+    assert branch.status == "done", branch.message
+    x = branch.states[:, 0]
+    assert x[0] < x_fold < x[-1]
+    assert np.all(np.diff(branch.arclength) > 0)
+    # Lower and middle sheets lie at r below the lower fold's r.
+    assert np.all(branch.parameter_values[x < x_upper] <= r_fold + 1e-9)
+    assert x[-1] > x_upper  # the middle sheet turns at the upper fold onto the upper sheet
+
+
+def test_large_sparse_model_uses_leading_eigenvalues():
+    # 300 states (above linalg.SPARSE_DENSE_LIMIT): shift-invert Arnoldi gives the six
+    # leading eigenvalues per row. Bratu's lower branch is stable, the upper one has one
+    # unstable eigenvalue, exchanged at the fold (Bratu 1914; the stability exchange at a
+    # fold is general: Kuznetsov, Elements of Applied Bifurcation Theory, section 3.3).
+    n = 300
+    model = bratu_model(n, sparse=True)
+    branch = trace_branch(
+        model,
+        "bratu",
+        "lam",
+        model.defaults,
+        np.zeros(n),
+        (0.0, 3.6),
+        "increasing",
+        StepSettings(largest=1.0, max_points=45),
+    )
+    assert branch.eigenvalues.shape == (len(branch), 6)
+    turn = int(np.nonzero(np.diff(np.sign(branch.tangents[:, -1])))[0][0])
+    assert np.all(branch.unstable_count[: turn - 1] == 0)
+    assert np.all(branch.unstable_count[turn + 2 :] == 1)
+    for row in (5, turn + 5):
+        jac = model.jacobian(branch.states[row], np.array([branch.parameter_values[row]]))
+        dense = np.sort(np.linalg.eigvals(jac.toarray()).real)[::-1][:6]
+        np.testing.assert_allclose(branch.eigenvalues[row].real, dense, rtol=1e-8)

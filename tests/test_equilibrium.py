@@ -76,12 +76,10 @@ PLANAR_CASES = [
     ("centre", companion(0.0, 4.0), "centre", False, (0, 2, 0)),
     ("centre-slow", companion(0.0, 1e-4), "centre", False, (0, 2, 0)),
     ("degenerate-node-stable", companion(-2.0, 1.0), "stable_degenerate_node", True, (0, 0, 2)),
-    ("degenerate-node-unstable", companion(4.0, 4.0), "unstable_degenerate_node", True,
-     (2, 0, 0)),
+    ("degenerate-node-unstable", companion(4.0, 4.0), "unstable_degenerate_node", True, (2, 0, 0)),
     ("star-stable", -2.0 * np.eye(2), "stable_star", True, (0, 0, 2)),
     ("star-unstable", 3.0 * np.eye(2), "unstable_star", True, (2, 0, 0)),
-    ("line-of-fixed-points-attracting", companion(-1.0, 0.0), "zero_eigenvalue", False,
-     (0, 1, 1)),
+    ("line-of-fixed-points-attracting", companion(-1.0, 0.0), "zero_eigenvalue", False, (0, 1, 1)),
     ("line-of-fixed-points-repelling", companion(2.0, 0.0), "zero_eigenvalue", False, (1, 1, 0)),
     ("nilpotent", companion(0.0, 0.0), "zero_eigenvalue", False, (0, 2, 0)),
     ("plane-of-fixed-points", np.zeros((2, 2)), "zero_jacobian", False, (0, 2, 0)),
@@ -295,10 +293,14 @@ def test_sparse_jacobian_newton():
     def rhs(x, p):
         return lap @ x + 0.001 * np.exp(x)
 
-    dense = make_model(rhs, lambda x, p: lap.toarray() + np.diag(0.001 * np.exp(x)),
-                       states=tuple(f"x{i}" for i in range(n)))
-    sparse = make_model(rhs, lambda x, p: lap + sp.diags(0.001 * np.exp(x)),
-                        states=tuple(f"x{i}" for i in range(n)))
+    dense = make_model(
+        rhs,
+        lambda x, p: lap.toarray() + np.diag(0.001 * np.exp(x)),
+        states=tuple(f"x{i}" for i in range(n)),
+    )
+    sparse = make_model(
+        rhs, lambda x, p: lap + sp.diags(0.001 * np.exp(x)), states=tuple(f"x{i}" for i in range(n))
+    )
     first = solve_equilibrium(dense, np.zeros(n), dense.defaults)
     second = solve_equilibrium(sparse, np.zeros(n), sparse.defaults)
     assert first.converged and second.converged

@@ -84,15 +84,12 @@ def planar_hopf_coefficient(f_expr, g_expr, u, v, omega):
         return e.subs(at0)
 
     cubic = val(d(f, u, 3) + d(f, u, v, v) + d(g, u, u, v) + d(g, v, 3)) / 16
-    quadratic = (
-        val(
-            d(f, u, v) * (d(f, u, 2) + d(f, v, 2))
-            - d(g, u, v) * (d(g, u, 2) + d(g, v, 2))
-            - d(f, u, 2) * d(g, u, 2)
-            + d(f, v, 2) * d(g, v, 2)
-        )
-        / (16 * omega)
-    )
+    quadratic = val(
+        d(f, u, v) * (d(f, u, 2) + d(f, v, 2))
+        - d(g, u, v) * (d(g, u, 2) + d(g, v, 2))
+        - d(f, u, 2) * d(g, u, 2)
+        + d(f, v, 2) * d(g, v, 2)
+    ) / (16 * omega)
     return cubic + quadratic
 
 
@@ -115,7 +112,9 @@ def brusselator_lyapunov_by_planar_formula(a_value):
     assert sp.simplify((jac - sp.I * omega * sp.eye(2)) * q) == sp.zeros(2, 1)
     q = q / sp.sqrt(2 * sum(sp.Abs(c) ** 2 for c in q))
     t = sp.Matrix.hstack(2 * q.applyfunc(sp.re), -2 * q.applyfunc(sp.im))
-    shifted = rhs.subs({x: x0[0] + (t * sp.Matrix([u, v]))[0], y: x0[1] + (t * sp.Matrix([u, v]))[1]})
+    shifted = rhs.subs(
+        {x: x0[0] + (t * sp.Matrix([u, v]))[0], y: x0[1] + (t * sp.Matrix([u, v]))[1]}
+    )
     new = sp.simplify(t.inv() * shifted)
     linear = new.jacobian([u, v]).subs({u: 0, v: 0})
     assert sp.simplify(linear - sp.Matrix([[0, -omega], [omega, 0]])) == sp.zeros(2, 2)
@@ -130,9 +129,7 @@ def test_brusselator_lyapunov_coefficient_matches_the_planar_formula(a_value):
     l1_reference, omega_reference = brusselator_lyapunov_by_planar_formula(a_value)
     a = float(sp.Rational(a_value))
     b = 1.0 + a * a
-    model = expression_model(
-        {"x": "a - (b + 1)*x + x^2*y", "y": "b*x - x^2*y"}, {"a": a, "b": b}
-    )
+    model = expression_model({"x": "a - (b + 1)*x + x^2*y", "y": "b*x - x^2*y"}, {"a": a, "b": b})
     form = hopf_normal_form(model, np.array([a, b / a]), model.defaults, a)
     assert omega_reference == pytest.approx(a, rel=1e-15)  # omega = a (Prigogine & Lefever)
     assert form.lyapunov < 0  # supercritical
@@ -159,7 +156,13 @@ def settled_half_ranges(model, x0, params, t_settle, t_record):
 
     settle = solve_ivp(rhs, (0, t_settle), x0, method="LSODA", jac=jac, rtol=1e-10, atol=1e-12)
     record = solve_ivp(
-        rhs, (0, t_record), settle.y[:, -1], method="LSODA", jac=jac, rtol=1e-10, atol=1e-12,
+        rhs,
+        (0, t_record),
+        settle.y[:, -1],
+        method="LSODA",
+        jac=jac,
+        rtol=1e-10,
+        atol=1e-12,
         dense_output=True,
     )
     samples = record.sol(np.linspace(0, t_record, 20001))
@@ -233,11 +236,16 @@ def test_lorenz_hopf_is_subcritical_and_trajectories_leave():
     c = math.sqrt(b * (r - 1))
     centre = np.array([c, c, r - 1])
     start = centre + 1e-4 * np.real(form.right_vector)
+
+    def left(_t, z):
+        return float(np.linalg.norm(z - centre)) - 1.0
+
+    left.terminal = True
     trajectory = solve_ivp(
-        lambda _t, z: model.rhs(z, params), (0, 1000), start, rtol=1e-9, atol=1e-12
+        lambda _t, z: model.rhs(z, params), (0, 1000), start, rtol=1e-9, atol=1e-12, events=left
     )
-    distances = np.linalg.norm(trajectory.y.T - centre, axis=1)
-    assert distances.max() > 1.0
+    assert trajectory.status == 1  # the distance 1 was reached
+    assert len(trajectory.t_events[0]) == 1
 
 
 # ---------------------------------------------------------------------------

@@ -21,15 +21,25 @@ def test_notebook_is_stored_without_outputs():
 def test_harvested_stock_notebook_executes(tmp_path):
     path = NOTEBOOKS / "harvested_stock.ipynb"
     notebook = nbformat.read(path, as_version=4)
-    client = NotebookClient(notebook, timeout=300, kernel_name="python3",
-                            resources={"metadata": {"path": str(NOTEBOOKS)}})
+    client = NotebookClient(
+        notebook,
+        timeout=300,
+        kernel_name="python3",
+        resources={"metadata": {"path": str(NOTEBOOKS)}},
+    )
     client.execute()
     text = "\n".join(
         output.get("text", "")
-        for cell in notebook.cells if cell.cell_type == "code"
+        for cell in notebook.cells
+        if cell.cell_type == "code"
         for output in cell.outputs
     )
     assert "hysteresis window width" in text
-    errors = [o for c in notebook.cells if c.cell_type == "code" for o in c.outputs
-              if o.output_type == "error"]
+    errors = [
+        o
+        for c in notebook.cells
+        if c.cell_type == "code"
+        for o in c.outputs
+        if o.output_type == "error"
+    ]
     assert not errors

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import matplotlib.image as mpimg
 import numpy as np
+import pandas as pd
 import pytest
 from matplotlib.figure import Figure
 
@@ -21,6 +22,11 @@ from branchline.plotting import (
     save_figure,
 )
 from test_report import hopf_tables, s_curve_tables, transcritical_tables
+
+
+def _curves(ax) -> list:
+    """The drawn branch runs of an axes (not markers, guides or the zero line)."""
+    return [line for line in ax.get_lines() if (line.get_gid() or "").startswith("branch-")]
 
 
 def _texts(fig: Figure) -> list[str]:
@@ -44,7 +50,7 @@ def test_two_panels_with_the_scan_names_on_the_axes():
 def test_stable_parts_solid_unstable_dashed_and_continuous_at_the_folds():
     points, events, info = s_curve_tables()
     top = bifurcation_figure(points, events, info).axes[0]
-    curves = [line for line in top.get_lines() if len(line.get_xdata()) > 1]
+    curves = _curves(top)
     styles = [line.get_linestyle() for line in curves]
     assert styles == ["-", "--", "-"]
     # each run ends exactly on the located fold, where the next one starts
@@ -62,8 +68,18 @@ def test_every_event_is_marked_and_labelled_in_words():
     assert len([line for line in bottom.get_lines() if line.get_marker() == "D"]) == 2
     labels = _texts(fig)
     assert sum(text.startswith("fold") for text in labels) == 2
-    legend = [t.get_text() for t in top.get_legend().get_texts()]
-    assert legend == ["trace s", "stable", "unstable", "fold"]
+    (legend,) = fig.legends
+    entries = [t.get_text() for t in legend.get_texts()]
+    # three columns (traces, line styles, event kinds), padded with blanks
+    assert [e for e in entries if e.strip()] == [
+        "trace s",
+        "stable",
+        "unstable",
+        "start value (scan)",
+        "hysteresis window",
+        "fold",
+    ]
+    assert top.get_legend() is None  # outside the axes: it hides no data
 
 
 def test_hopf_and_switched_trace_in_the_legend():
@@ -72,9 +88,9 @@ def test_hopf_and_switched_trace_in_the_legend():
     assert any(t.startswith("Hopf (subcritical)") for t in _texts(fig))
     points, events, info = transcritical_tables()
     fig = bifurcation_figure(points, events, info)
-    legend = [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    legend = [t.get_text() for t in fig.legends[0].get_texts()]
     assert "trace zero.1 (branches off zero)" in legend
-    colours = {line.get_color() for line in fig.axes[0].get_lines() if len(line.get_xdata()) > 1}
+    colours = {line.get_color() for line in _curves(fig.axes[0])}
     assert colours == {TRACE_COLOURS[0], TRACE_COLOURS[1]}
 
 
@@ -122,3 +138,49 @@ def test_saves_png_and_svg(tmp_path):
     assert "fold" in text  # text kept as text
     with pytest.raises(ValueError, match=r"\.png, \.svg, \.pdf"):
         save_figure(fig, tmp_path / "diagram.jpg")
+
+
+def test_large_models_plot_the_norm_by_default():
+    # a model with more than 20 states: the tables hold `norm` instead of the states
+    points, events, info = s_curve_tables()
+    points = points.rename(columns={"x": "norm"})
+    points["norm"] = points["norm"].abs()
+    info["model"]["states"] = [f"u{i}" for i in range(25)]
+    events = [{**e, "state": {f"u{i}": 0.2 for i in range(25)}} for e in events]
+    fig = bifurcation_figure(points, events, info)
+    top = fig.axes[0]
+    assert top.get_ylabel().startswith("norm")
+    marks = [line for line in top.get_lines() if line.get_marker() == "D"]
+    # the event's norm is computed from its full state: sqrt(25 * 0.2^2) = 1
+    assert [float(m.get_ydata()[0]) for m in marks] == pytest.approx([1.0, 1.0], rel=1e-15)
+
+
+def test_stiff_eigenvalues_switch_to_a_symmetric_log_scale():
+    points, events, info = s_curve_tables()
+    assert bifurcation_figure(points, events, info).axes[1].get_yscale() == "linear"
+    damped = points["leading_real"] < 0
+    points.loc[damped, "leading_real"] *= 1000.0  # strongly damped stable parts
+    bottom = bifurcation_figure(points, events, info).axes[1]
+    assert bottom.get_yscale() == "symlog"
+    assert "log" in bottom.get_ylabel()
+
+
+def test_traces_varying_another_parameter_are_named_not_drawn():
+    points, events, info = s_curve_tables()
+    other = points.assign(trace="other", q=points["p"], p=0.0)
+    points = pd.concat([points.assign(q=0.0), other], ignore_index=True)
+    info["traces"].append({**info["traces"][0], "name": "other", "vary": "q"})
+    fig = bifurcation_figure(points, events, info)
+    curves = _curves(fig.axes[0])
+    assert {line.get_color() for line in curves} == {TRACE_COLOURS[0]}
+    assert "Not shown: other (varying q" in fig.axes[0].get_title(loc="left")
+    fig = bifurcation_figure(points, events, info, x="q")
+    assert fig.axes[1].get_xlabel() == "q"
+
+
+def test_no_points_gives_a_figure_that_says_so(tmp_path):
+    points, _events, info = s_curve_tables()
+    info["message"] = "trace s: Newton did not converge at the start point"
+    fig = bifurcation_figure(points.iloc[:0], [], info)
+    assert any("No equilibrium was computed" in t for t in _texts(fig))
+    assert save_figure(fig, tmp_path / "diagram.svg").is_file()

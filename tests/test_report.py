@@ -351,9 +351,17 @@ def test_operating_margin_is_measured_along_the_branch():
     assert margin.decreasing.relative == pytest.approx((p0 + FOLD_P) / p0, rel=1e-14)
     assert margin.increasing.event is None
     assert margin.increasing.reached_edge
+    # p0 lies in the hysteresis window: the lower branch is a second stable state there,
+    # the smallest real root of x^3 - x - p0 (the middle root is unstable)
+    lower = float(np.min(np.roots([1.0, 0.0, -1.0, -p0]).real))
+    (other,) = margin.coexisting
+    assert other.state["x"] == pytest.approx(lower, abs=1e-3)  # grid interpolation
     text = render_report(points, events, info)
     assert f"{p0 + FOLD_P:.6g} away ({100 * (p0 + FOLD_P) / p0:.4g} % of the start value)" in text
     assert "none within the traced part" in text
+    brief = text[text.index("## In brief") : text.index("## The model")]
+    assert f"fold at p = {-FOLD_P:.10g}" in brief
+    assert f"Hysteresis between p = {-FOLD_P:.10g} and {FOLD_P:.10g}" in brief
 
 
 def test_fold_reading_names_the_branch_the_state_jumps_to():
@@ -446,3 +454,78 @@ def test_branch_point_reading_and_switched_trace():
     # the child changes stability at its parent's branch point (recorded on the parent only)
     assert child[0].end_value == 0.0 and child[0].end_exact
     assert child[0].end_kind == "branch_point"
+
+
+def test_report_of_a_run_without_points():
+    _points, _events, info = s_curve_tables()
+    info["status"] = "failed"
+    info["message"] = "trace s: Newton did not converge at the start point"
+    info["traces"][0].update(
+        status="failed", message="Newton did not converge at the start point", points=0
+    )
+    empty = pd.DataFrame(columns=["trace", "step", "arclength"])
+    text = render_report(empty, [], info)
+    assert "## The run stopped early" in text
+    assert "Newton did not converge at the start point" in text
+    assert "None: no fold" in text
+    assert text.rstrip().endswith(CAUTION)
+
+
+def test_jump_targets_are_listed_nearest_first():
+    # Two copies of the S-curve, the second shifted up by 3 in x: at the upper
+    # fold the state can land on the lower branch of either copy.
+    points, events, info = s_curve_tables()
+    shifted = points.assign(trace="t", x=points["x"] + 3.0)
+    both = pd.concat([points, shifted], ignore_index=True)
+    targets = jump_targets(both, events[1], info)
+    landing = -2.0 / math.sqrt(3.0)
+    # From the fold at x = 1/sqrt(3): the shifted copy's lower branch (x = 3 - 2/sqrt(3),
+    # 1.27 away) is nearer than the own lower branch (x = -2/sqrt(3), 1.73 away); the
+    # copy's own fold is a double root, not a stable branch crossing the value.
+    assert [t.trace for t in targets] == ["t", "s"]
+    assert [t.state["x"] for t in targets] == pytest.approx([3.0 + landing, landing], abs=1e-3)
+    text = render_report(both, events, info)
+    assert "nearest first" in text
+
+
+# --------------------------------------------------------------------------- a real run
+
+
+def test_report_and_figure_of_a_real_run_read_back_from_disk(tmp_path):
+    """Harvested logistic stock N' = N (1 - N) - h: the equilibria N = (1 +- sqrt(1 - 4h))/2
+    meet in a fold at h = 1/4, N = 1/2 (Strogatz, Nonlinear Dynamics and Chaos, exercise on
+    logistic growth with constant harvesting, section 3.7 -- recalled from memory; the
+    closed form itself is elementary). The report must quote the located value and the
+    margin from the operating value h = 0.1, computed from the saved tables only."""
+    from branchline.plotting import bifurcation_figure
+    from branchline.runner import run_scan
+    from branchline.scan import scan_from_dict
+    from branchline.writers import read_results, write_results
+
+    scan = scan_from_dict(
+        {
+            "title": "Harvested stock",
+            "model": {"parameters": {"h": 0.1}, "equations": {"N": "N*(1 - N) - h"}},
+            "trace": [{"name": "stock", "vary": "h", "interval": [0.0, 0.4], "start": {"N": 0.9}}],
+        }
+    )
+    folder = write_results(run_scan(scan), tmp_path / "run")
+    saved = read_results(folder)
+    (fold,) = [e for e in saved.events if e["kind"] == "fold"]
+    assert fold["value"] == pytest.approx(0.25, rel=1e-10)
+    text = render_report(saved.points, saved.events, saved.info)
+    assert f"h = {fold['value']:.10g}" in text
+    (margin,) = operating_margins(saved.points, saved.events, saved.info)
+    assert margin.stable and margin.start_value == 0.1
+    assert margin.increasing.absolute == pytest.approx(0.15, rel=1e-10)
+    assert margin.increasing.relative == pytest.approx(1.5, rel=1e-10)
+    # in trace order: the upper (stable) branch from h = 0 up to the fold, then the lower
+    # (unstable) branch from the fold back to h = 0
+    upper, lower = stability_intervals(saved.points, saved.events, saved.info, "stock")
+    assert (upper.stable, lower.stable) == (True, False)
+    assert upper.end_value == lower.start_value == fold["value"]
+    assert upper.start_value == pytest.approx(0.0, abs=1e-12)
+    assert lower.end_value == pytest.approx(0.0, abs=1e-12)
+    assert (folder / "report.md").read_text(encoding="utf-8") == text
+    fig = bifurcation_figure(saved.points, saved.events, saved.info)
+    assert fig.axes[0].get_ylabel() == "N"

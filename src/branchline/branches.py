@@ -8,7 +8,6 @@ start equilibrium, follows the branch to one or both sides and assembles the
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable
 
 import numpy as np
@@ -66,43 +65,39 @@ class EquilibriumBranch:
         self._tests = events.equilibrium_tests
 
     def _parameters(self, u: Array) -> Array:
-        p = self.p.copy()
+        # One buffer, updated in place: the model functions read p and keep no
+        # reference to it (the compiled ones convert it to a list at once).
+        p = self.p
         p[self.vary_index] = u[-1]
         return p
 
     def residual(self, u: Array) -> Array:
         return np.asarray(self._rhs(u[:-1], self._parameters(u)), dtype=float)
 
-    def _state_jacobians(self, x: Array, p: Array):
+    def _stacked(self, x: Array, p: Array):
+        """[f_x, f_p] as an (n, n + 1) array, or a sparse matrix for sparse models."""
         if self._derivatives is not None:
             fx, fp_all = self._derivatives(x, p)
         else:
             fx, fp_all = self._jacobian_x(x, p), self._jacobian_p(x, p)
-        fp = np.asarray(fp_all, dtype=float)[:, self.vary_index]
-        return fx, fp
-
-    def _stack(self, fx, fp: Array):
         if linalg.is_sparse(fx):
             import scipy.sparse as sp
 
+            fp = np.asarray(fp_all, dtype=float)[:, self.vary_index]
             return sp.hstack([fx, sp.csc_matrix(fp.reshape(-1, 1))], format="csc")
         n = self.size
         jac = np.empty((n, n + 1))
         jac[:, :n] = fx
-        jac[:, n] = fp
+        jac[:, n] = fp_all[:, self.vary_index]
         return jac
 
     def jacobian(self, u: Array):
-        x = u[:-1]
-        fx, fp = self._state_jacobians(x, self._parameters(u))
-        return self._stack(fx, fp)
+        return self._stacked(u[:-1], self._parameters(u))
 
     def evaluate(self, u: Array):
         x = u[:-1]
         p = self._parameters(u)
-        g = np.asarray(self._rhs(x, p), dtype=float)
-        fx, fp = self._state_jacobians(x, p)
-        return g, self._stack(fx, fp)
+        return np.asarray(self._rhs(x, p), dtype=float), self._stacked(x, p)
 
     def observe(self, u: Array, tangent: Array, jacobian) -> tuple[Array, Array]:
         """Eigenvalues of f_x (sorted by decreasing real part) and the test functions."""
@@ -125,8 +120,9 @@ class EquilibriumBranch:
     def describe(self, u: Array) -> str:
         model = self.model
         vary = model.parameters[self.vary_index]
-        states = ", ".join(f"{name}={value:.6g}" for name, value in
-                           zip(model.states[:6], u[:-1][:6]))
+        states = ", ".join(
+            f"{name}={value:.6g}" for name, value in zip(model.states[:6], u[:-1][:6], strict=True)
+        )
         if self.size > 6:
             states += f", ... (|x|={linalg.norm(u[:-1]):.6g})"
         return f"at {vary}={u[-1]:.10g} ({states})"
@@ -198,19 +194,23 @@ def trace_branch(
         raise ValueError(f"unknown parameter {vary!r}; the model has {model.parameters}")
     vary_index = model.parameters.index(vary)
     parameters = np.array(parameters, dtype=float)
-    lo, hi = float(interval[0]), float(interval[1])
+    lo, hi = sorted((float(interval[0]), float(interval[1])))
     start_value = float(parameters[vary_index])
     n = len(model.states)
     counts = dict.fromkeys(continuation.COUNT_KEYS, 0)
 
-    def record(curves, status, message, extra_counts=None):
-        return _assemble(model, name, vary, parameters, (lo, hi), curves, status, message,
-                         counts, parent)
+    def record(curves, status, message):
+        return _assemble(
+            model, name, vary, parameters, (lo, hi), curves, status, message, counts, parent
+        )
 
     if not lo <= start_value <= hi:
-        return record([], STATUS_FAILED,
-                      f"the start value {vary}={start_value:.10g} lies outside the interval "
-                      f"[{lo:.10g}, {hi:.10g}]")
+        return record(
+            [],
+            STATUS_FAILED,
+            f"the start value {vary}={start_value:.10g} lies outside the interval "
+            f"[{lo:.10g}, {hi:.10g}]",
+        )
 
     x_start = np.array(x_start, dtype=float).reshape(-1)
     start_ok = False
@@ -225,9 +225,11 @@ def trace_branch(
         counts["jacobian_evaluations"] += solution.iterations
         counts["newton_iterations"] += solution.iterations
         if not solution.converged:
-            return record([], STATUS_FAILED,
-                          f"no equilibrium found at the start {vary}={start_value:.10g}: "
-                          f"{solution.message}")
+            return record(
+                [],
+                STATUS_FAILED,
+                f"no equilibrium found at the start {vary}={start_value:.10g}: {solution.message}",
+            )
         x_start = solution.state
     u0 = np.append(x_start, start_value)
     sides = _sides(direction, start_tangent, n)
@@ -236,19 +238,30 @@ def trace_branch(
     for orientation, tangent0, exact in sides:
         problem = EquilibriumBranch(model, vary_index, parameters, orientation)
         if tangent0 is None:
-            tangent0 = _initial_direction(problem, u0, orientation)
-            if isinstance(tangent0, str):
-                curves.append((orientation, _failed_curve(u0, tangent0)))
+            # One tangent for both sides, reversed for the decreasing one, so that
+            # the two sides leave in opposite directions even at a turning point.
+            base = _initial_direction(problem, u0)
+            if isinstance(base, str):
+                curves.append((orientation, _failed_curve(u0, base)))
                 continue
+            tangent0 = orientation * base
 
-        offset = done_points
+        offset = max(done_points - 1, 0)  # the second side's start row is the first's
 
         def report(count, offset=offset):
             if progress is not None:
                 progress(offset + count)
 
-        curve = continuation.follow_curve(problem, u0, tangent0, steps, (lo, hi), newton=newton,
-                                          progress=report, start_tangent_exact=exact)
+        curve = continuation.follow_curve(
+            problem,
+            u0,
+            tangent0,
+            steps,
+            (lo, hi),
+            newton=newton,
+            progress=report,
+            start_tangent_exact=exact,
+        )
         curves.append((orientation, curve))
         done_points += len(curve)
         if curve.status == continuation.STATUS_CLOSED:
@@ -274,23 +287,30 @@ def _sides(direction, start_tangent, n):
     return [(1, None, False)]
 
 
-def _initial_direction(problem, u0, orientation):
-    """A start tangent with parameter component of sign ``orientation``, or a message."""
+def _initial_direction(problem, u0):
+    """The unit tangent at the start with non-negative parameter component, or a message."""
     with np.errstate(all="ignore"):
         jac = problem.jacobian(u0)
     try:
-        return linalg.initial_tangent(jac, float(orientation))
+        return linalg.initial_tangent(jac, 1.0)
     except linalg.SingularMatrixError:
-        return (f"the branch direction is undefined at the start {problem.describe(u0)}: "
-                "the Jacobian [f_x, f_p] has rank below n (a branch point?)")
+        return (
+            f"the branch direction is undefined at the start {problem.describe(u0)}: "
+            "the Jacobian [f_x, f_p] has rank below n (a branch point?)"
+        )
 
 
 def _failed_curve(u0, message):
     size = u0.shape[0]
     return continuation.Curve(
-        points=np.empty((0, size)), tangents=np.empty((0, size)), arclength=np.empty(0),
-        newton_iterations=np.empty(0, dtype=int), residual_norms=np.empty(0),
-        test_values=np.empty((0, 0)), payloads=(), status=continuation.STATUS_FAILED,
+        points=np.empty((0, size)),
+        tangents=np.empty((0, size)),
+        arclength=np.empty(0),
+        newton_iterations=np.empty(0, dtype=int),
+        residual_norms=np.empty(0),
+        test_values=np.empty((0, 0)),
+        payloads=(),
+        status=continuation.STATUS_FAILED,
         message=message,
     )
 
@@ -305,8 +325,10 @@ def _summarize(curves, vary):
     status = max((curve.status for _, curve in curves), key=lambda s: _STATUS_ORDER.get(s, 3))
     if len(curves) == 1:
         return status, curves[0][1].message
-    parts = [f"{_SIDE_NAMES[orientation]}: {curve.message or curve.status}"
-             for orientation, curve in curves]
+    parts = [
+        f"{_SIDE_NAMES[orientation]}: {curve.message or curve.status}"
+        for orientation, curve in curves
+    ]
     return status, "; ".join(parts)
 
 
@@ -320,16 +342,36 @@ def _assemble(model, name, vary, parameters, interval, curves, status, message, 
         pieces.append((orientation, curve))
     if not pieces:
         return Branch(
-            name=name, vary=vary, parameters=parameters, parameter_values=np.empty(0),
-            states=np.empty((0, n)), arclength=np.empty(0), tangents=np.empty((0, n + 1)),
-            eigenvalues=np.empty((0, n), dtype=complex), unstable_count=np.empty(0, dtype=int),
+            name=name,
+            vary=vary,
+            parameters=parameters,
+            parameter_values=np.empty(0),
+            states=np.empty((0, n)),
+            arclength=np.empty(0),
+            tangents=np.empty((0, n + 1)),
+            eigenvalues=np.empty((0, n), dtype=complex),
+            unstable_count=np.empty(0, dtype=int),
             test_values=np.empty((0, len(events.TEST_FUNCTIONS))),
-            newton_iterations=np.empty(0, dtype=int), residual_norms=np.empty(0),
-            status=status, message=message, interval=interval, counts=dict(counts),
+            newton_iterations=np.empty(0, dtype=int),
+            residual_norms=np.empty(0),
+            status=status,
+            message=message,
+            interval=interval,
+            counts=dict(counts),
             parent=parent,
         )
-    columns = {key: [] for key in ("points", "tangents", "arclength", "iterations",
-                                   "residuals", "tests", "eigenvalues")}
+    columns = {
+        key: []
+        for key in (
+            "points",
+            "tangents",
+            "arclength",
+            "iterations",
+            "residuals",
+            "tests",
+            "eigenvalues",
+        )
+    }
     for index, (orientation, curve) in enumerate(pieces):
         rows = slice(None)
         if orientation < 0:
@@ -394,5 +436,3 @@ def unstable_counts(eigenvalues: Array) -> Array:
 
 
 __all__ = ["EquilibriumBranch", "trace_branch", "unstable_counts"]
-
-_ = math  # math kept for future tolerance helpers

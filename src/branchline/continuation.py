@@ -9,9 +9,16 @@ bordered system
 
     G(u) = 0,   t . (u - u_predicted) = 0,
 
-whose Jacobian is [G_u; t^T], then the tangent at the new point from the same
-bordered matrix, oriented so that t_new . t_old > 0 (which keeps the direction
-of travel through turning points).
+whose Jacobian is [G_u; t^T], then the tangent at the new point from
+[G_u(u_new); t_old^T] z = e_{N+1}, t_new = z / |z|. Since t_old . z = 1 > 0
+the orientation is kept through turning points.
+
+Full Newton (the Jacobian at every iterate) is the default corrector; the
+chord method (the bordered matrix factorized once per step) is available.
+Measured on a 2-state model (tests/benchmarks/bench_trace.py), full Newton
+is faster: it needs fewer iterations and a small dense factorization costs
+about as much as the bookkeeping around it. The chord method pays off when
+factorizations dominate (large sparse models).
 
 The problem protocol
 --------------------
@@ -37,10 +44,10 @@ Optional members:
     A short text naming the point for messages ("at D=0.3, S=1.2").
 
 Rules a problem must follow: ``u``'s last component is the curve's parameter
-(the one the ``bounds`` apply to); the functions must not keep references
-to ``u`` (the engine reuses nothing, but callers may); they must not print or
-write files; they raise no exception for numerical trouble (return NaN
-instead).
+(the one the ``bounds`` apply to); the functions must not modify ``u``, print
+or write files; for numerical trouble they return NaN rather than raise
+(ArithmeticError and ValueError are caught anyway and count as a failed step).
+The engine runs under ``np.errstate(all="ignore")``.
 
 Step control (all factors are named constants below)
 ----------------------------------------------------
@@ -76,6 +83,7 @@ from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
+import scipy.sparse.linalg as spla
 
 from branchline import linalg
 
@@ -107,8 +115,14 @@ SHRINK_FACTOR = 0.5
 # predictor error well inside Newton's convergence region (common practice).
 MAX_TANGENT_ANGLE = 0.3
 _MIN_TANGENT_COSINE = math.cos(MAX_TANGENT_ANGLE)
+# Test-function rule (module docstring): a deviation from the linear prediction
+# of half the function's local size means the step does not resolve it.
 TEST_CHANGE_LIMIT = 0.5
+# Part of the largest magnitude seen that counts as "size" where the function
+# is near zero, so that roundoff around a zero does not shrink the step.
 TEST_SCALE_FLOOR = 1e-3
+# The rule stops shrinking at this fraction of the largest step: it resolves
+# events, it must not stall a trace on a test function that is not smooth.
 TEST_STEP_FLOOR = 1e-4
 # A point closer to the start than this fraction of the step (measured from the
 # chord of the step) counts as the start point again (closing an isola).
@@ -121,8 +135,13 @@ STATUS_MAX_POINTS = "max_points"
 STATUS_CLOSED = "closed"
 STATUS_FAILED = "failed"
 
-COUNT_KEYS = ("rhs_evaluations", "jacobian_evaluations", "factorizations", "rejected_steps",
-              "newton_iterations")
+COUNT_KEYS = (
+    "rhs_evaluations",
+    "jacobian_evaluations",
+    "factorizations",
+    "rejected_steps",
+    "newton_iterations",
+)
 
 
 class CurveProblem(Protocol):
@@ -274,8 +293,8 @@ def _correct_full(evaluate, u, border, border_value, counter, max_iterations=Non
         try:
             g, jac = evaluate(u)
         except (ArithmeticError, ValueError) as exc:
-            return u, None, None, iteration, math.nan, (
-                f"evaluating the model raised {type(exc).__name__}: {exc}")
+            reason = f"evaluating the model raised {type(exc).__name__}: {exc}"
+            return u, None, None, iteration, math.nan, reason
         counter.rhs += 1
         counter.jacobian += 1
         residual = sqrt(g @ g)
@@ -288,14 +307,22 @@ def _correct_full(evaluate, u, border, border_value, counter, max_iterations=Non
             ):
                 return u, g, jac, iteration, residual, ""
             if iteration >= max_iterations:
-                return u, None, None, iteration, residual, (
-                    f"no convergence in {max_iterations} Newton iterations "
-                    f"(residual {residual:.3g})")
+                return (
+                    u,
+                    None,
+                    None,
+                    iteration,
+                    residual,
+                    (
+                        f"no convergence in {max_iterations} Newton iterations "
+                        f"(residual {residual:.3g})"
+                    ),
+                )
         rhs[:-1] = g
         if border_value is not None:
             rhs[-1] = float(border @ u) - border_value
         counter.factorizations += 1
-        if linalg.is_sparse(jac):
+        if type(jac) is not np.ndarray:
             try:
                 step = linalg.bordered_solve(jac, border, rhs)
             except linalg.SingularMatrixError:
@@ -308,8 +335,14 @@ def _correct_full(evaluate, u, border, border_value, counter, max_iterations=Non
             step = solve(square, rhs)
         previous_update, update = update, sqrt(step @ step)
         if not update < math.inf:
-            return u, None, None, iteration, residual, (
-                "the bordered Jacobian is singular or not finite")
+            return (
+                u,
+                None,
+                None,
+                iteration,
+                residual,
+                ("the bordered Jacobian is singular or not finite"),
+            )
         if iteration and update > DIVERGENCE_RATIO * previous_update:
             return u, None, None, iteration, residual, "Newton's method diverges"
         u = u - step
@@ -328,8 +361,6 @@ def _correct_chord(evaluate, residual_fn, jacobian_fn, u, border, counter):
     counter.factorizations += 1
     try:
         if linalg.is_sparse(square):
-            import scipy.sparse.linalg as spla
-
             solve = spla.splu(square).solve
         else:
             inverse = np.linalg.inv(square)
@@ -353,8 +384,8 @@ def _correct_chord(evaluate, residual_fn, jacobian_fn, u, border, counter):
         try:
             g = residual_fn(u)
         except (ArithmeticError, ValueError) as exc:
-            return u, None, None, iteration, math.nan, (
-                f"evaluating the model raised {type(exc).__name__}: {exc}")
+            reason = f"evaluating the model raised {type(exc).__name__}: {exc}"
+            return u, None, None, iteration, math.nan, reason
         counter.rhs += 1
         residual = linalg.norm(g)
         if not residual < math.inf:
@@ -363,7 +394,17 @@ def _correct_chord(evaluate, residual_fn, jacobian_fn, u, border, counter):
         if (residual <= RESIDUAL_TOL and update <= UPDATE_RTOL * scale) or (
             update <= STAGNATION_RTOL * scale
         ):
-            jac = jacobian_fn(u)
+            try:
+                jac = jacobian_fn(u)
+            except (ArithmeticError, ValueError) as exc:
+                return (
+                    u,
+                    None,
+                    None,
+                    iteration,
+                    residual,
+                    (f"evaluating the Jacobian raised {type(exc).__name__}: {exc}"),
+                )
             counter.jacobian += 1
             return u, g, jac, iteration, residual, ""
     return u, None, None, MAX_CHORD_ITERATIONS, math.nan, "no convergence of the chord iteration"
@@ -435,8 +476,16 @@ def follow_curve(
     if newton not in ("full", "chord"):
         raise ValueError(f"newton must be 'full' or 'chord', not {newton!r}")
     with np.errstate(all="ignore"):
-        return _follow(problem, np.array(u0, dtype=float), np.array(tangent0, dtype=float),
-                       settings, bounds, newton, progress, start_tangent_exact)
+        return _follow(
+            problem,
+            np.array(u0, dtype=float),
+            np.array(tangent0, dtype=float),
+            settings,
+            bounds,
+            newton,
+            progress,
+            start_tangent_exact,
+        )
 
 
 def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exact) -> Curve:
@@ -462,9 +511,12 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
             counter.factorizations += 1
             t = _tangent(jac, t, linalg.is_sparse(jac))
         except linalg.SingularMatrixError:
-            return _empty_curve(u, f"cannot start {describe_point(problem, u)}: the tangent is "
-                                "undefined there (singular bordered Jacobian; a branch point?)",
-                                counter)
+            return _empty_curve(
+                u,
+                f"cannot start {describe_point(problem, u)}: the tangent is "
+                "undefined there (singular bordered Jacobian; a branch point?)",
+                counter,
+            )
     payload, tests = observe(u, t, jac)
     tests = np.asarray(tests, dtype=float)
     points, tangents, arcs, iterations = [u], [t], [0.0], [0]
@@ -481,34 +533,43 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
     sqrt = math.sqrt
     if not lo <= u[-1] <= hi:
         status = STATUS_FAILED
-        message = (f"the start point {describe_point(problem, u)} lies outside the parameter "
-                   f"interval [{lo:.10g}, {hi:.10g}]")
+        message = (
+            f"the start point {describe_point(problem, u)} lies outside the parameter "
+            f"interval [{lo:.10g}, {hi:.10g}]"
+        )
 
     while not status:
         if len(points) >= max_points:
             status = STATUS_MAX_POINTS
-            message = (f"stopped after {max_points} points (steps.max_points) "
-                       f"{describe_point(problem, u)}")
+            message = (
+                f"stopped after {max_points} points (steps.max_points) {describe_point(problem, u)}"
+            )
             break
         predicted = u + step * t
         if use_chord:
-            u_new, g_new, jac_new, its, residual, reason = _correct_chord(
-                evaluate, residual_fn, jacobian_fn, predicted, t, counter)
+            u_new, _, jac_new, its, residual, reason = _correct_chord(
+                evaluate, residual_fn, jacobian_fn, predicted, t, counter
+            )
         else:
-            u_new, g_new, jac_new, its, residual, reason = _correct_full(
-                evaluate, predicted, t, None, counter)
+            u_new, _, jac_new, its, residual, reason = _correct_full(
+                evaluate, predicted, t, None, counter
+            )
         counter.newton += its
         if not reason:
             try:
                 counter.factorizations += 1
                 t_new = _tangent(jac_new, t, sparse)
             except linalg.SingularMatrixError:
-                reason = "the tangent is undefined at the corrected point (singular bordered matrix)"
+                reason = (
+                    "the tangent is undefined at the corrected point (singular bordered matrix)"
+                )
         if reason:
             if step <= smallest:
                 status = STATUS_FAILED
-                message = (f"the corrector failed at the smallest step ({smallest:g}) after the "
-                           f"point {describe_point(problem, u)}: {reason}")
+                message = (
+                    f"the corrector failed at the smallest step ({smallest:g}) after the "
+                    f"point {describe_point(problem, u)}: {reason}"
+                )
                 break
             counter.rejected += 1
             step = max(step * SHRINK_FACTOR, smallest)
@@ -520,32 +581,57 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
         p_new = u_new[-1]
         if p_new < lo or p_new > hi:
             status, message = _finish_on_edge(
-                evaluate, problem, observe, u, u_new, t, lo if p_new < lo else hi, counter,
-                sparse, arclength, (points, tangents, arcs, iterations, residuals, test_rows,
-                                    payloads))
+                evaluate,
+                problem,
+                observe,
+                u,
+                u_new,
+                t,
+                lo if p_new < lo else hi,
+                counter,
+                sparse,
+                arclength,
+                (points, tangents, arcs, iterations, residuals, test_rows, payloads),
+            )
             break
         payload, tests = observe(u_new, t_new, jac_new)
         tests = np.asarray(tests, dtype=float)
         chord = u_new - u
         chord_length = sqrt(chord @ chord)
         values = tests.tolist()
-        if test_slope is not None and step > test_floor and _test_functions_jump(
-            previous_tests, values, test_slope, test_max, chord_length
+        if (
+            test_slope is not None
+            and step > test_floor
+            and _test_functions_jump(previous_tests, values, test_slope, test_max, chord_length)
         ):
             counter.rejected += 1
             step = max(step * SHRINK_FACTOR, test_floor)
             continue
-        if len(points) > 2 and _passes_start(u_start, t_start, u, chord, chord_length, t):
+        if (
+            abs(u[-1] - u_start[-1]) <= chord_length
+            and len(points) > 2
+            and _passes_start(u_start, t_start, u, chord, chord_length, t)
+        ):
             arclength += linalg.norm(u_start - u)
-            _append((points, tangents, arcs, iterations, residuals, test_rows, payloads),
-                    u_start, t_start, arclength, 0, residuals[0], test_rows[0], payloads[0])
+            _append(
+                (points, tangents, arcs, iterations, residuals, test_rows, payloads),
+                u_start,
+                t_start,
+                arclength,
+                0,
+                residuals[0],
+                test_rows[0],
+                payloads[0],
+            )
             status = STATUS_CLOSED
             message = "the branch closed on itself (an isola) back at its start point"
             break
         # Accept.
         if chord_length > 0.0:
-            test_slope = [(new - old) / chord_length for new, old in zip(values, previous_tests)]
-        test_max = [max(top, abs(value)) for top, value in zip(test_max, values)]
+            test_slope = [
+                (new - old) / chord_length for new, old in zip(values, previous_tests, strict=True)
+            ]
+        test_max = [max(top, abs(value)) for top, value in zip(test_max, values, strict=True)]
         previous_tests = values
         arclength += chord_length
         u, t = u_new, t_new
@@ -577,13 +663,15 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
 
 
 def _append(columns, u, t, arclength, iterations, residual, tests, payload) -> None:
-    for column, value in zip(columns, (u, t, arclength, iterations, residual, tests, payload)):
+    for column, value in zip(
+        columns, (u, t, arclength, iterations, residual, tests, payload), strict=True
+    ):
         column.append(value)
 
 
 def _test_functions_jump(previous, values, slope, largest, chord_length) -> bool:
     """The test-function rule of the module docstring: True means shrink the step."""
-    for old, new, rate, top in zip(previous, values, slope, largest):
+    for old, new, rate, top in zip(previous, values, slope, largest, strict=True):
         predicted = old + chord_length * rate
         local = max(abs(old), abs(new)) + TEST_SCALE_FLOOR * top
         if abs(new - predicted) > TEST_CHANGE_LIMIT * local:
@@ -591,8 +679,9 @@ def _test_functions_jump(previous, values, slope, largest, chord_length) -> bool
     return False
 
 
-def _finish_on_edge(evaluate, problem, observe, u, u_out, t, edge, counter, sparse, arclength,
-                    columns) -> tuple[str, str]:
+def _finish_on_edge(
+    evaluate, problem, observe, u, u_out, t, edge, counter, sparse, arclength, columns
+) -> tuple[str, str]:
     """Append the point exactly on the interval edge; returns (status, message)."""
     if u[-1] == edge:
         return STATUS_DONE, f"reached the edge {edge:.10g} of the parameter interval"
@@ -602,14 +691,22 @@ def _finish_on_edge(evaluate, problem, observe, u, u_out, t, edge, counter, spar
     u_edge, g_edge, jac_edge, its_edge, t_edge = edge_row
     payload, tests = observe(u_edge, t_edge, jac_edge)
     arclength += linalg.norm(u_edge - u)
-    _append(columns, u_edge, t_edge, arclength, its_edge, linalg.norm(g_edge),
-            np.asarray(tests, dtype=float), payload)
+    _append(
+        columns,
+        u_edge,
+        t_edge,
+        arclength,
+        its_edge,
+        linalg.norm(g_edge),
+        np.asarray(tests, dtype=float),
+        payload,
+    )
     return STATUS_DONE, f"reached the edge {edge:.10g} of the parameter interval"
 
 
 def _tangent(jac, previous, sparse):
     """Unit tangent at a point with Jacobian ``jac``, oriented like ``previous``."""
-    if sparse or linalg.is_sparse(jac):
+    if sparse or type(jac) is not np.ndarray:
         return linalg.tangent(jac, previous)
     size = previous.shape[0]
     square = np.empty((size, size))
@@ -646,8 +743,9 @@ def _land_on_edge(evaluate, problem, u_in, u_out, t, edge, counter, sparse):
     guess[-1] = edge
     border = np.zeros(u_in.shape[0])
     border[-1] = 1.0
-    u, g, jac, its, _, reason = _correct_full(evaluate, guess, border, edge, counter,
-                                              max_iterations=2 * MAX_CORRECTOR_ITERATIONS)
+    u, g, jac, its, _, reason = _correct_full(
+        evaluate, guess, border, edge, counter, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
+    )
     counter.newton += its
     if not reason:
         if u[-1] != edge:  # the bordered solve may leave roundoff in the fixed component
@@ -662,8 +760,10 @@ def _land_on_edge(evaluate, problem, u_in, u_out, t, edge, counter, sparse):
             return u, g, jac, its, _tangent(jac, t, sparse)
         except linalg.SingularMatrixError:
             reason = "the tangent is undefined there"
-    return (f"could not put the last point on the interval edge {edge:.10g} (after the point "
-            f"{describe_point(problem, u_in)}): {reason}")
+    return (
+        f"could not put the last point on the interval edge {edge:.10g} (after the point "
+        f"{describe_point(problem, u_in)}): {reason}"
+    )
 
 
 def _stack(payloads: list) -> Any:

@@ -115,7 +115,8 @@ class Linearization:
         False when some eigenvalue has (near-)zero real part; then the
         linearization does not decide the local behaviour.
     positive, zero, negative : int
-        Eigenvalues with positive, (near-)zero and negative real part.
+        Eigenvalues with positive, (near-)zero and negative real part (for a
+        large sparse model: among the r leading eigenvalues that were computed).
     leading : ndarray complex
         Up to ``LEADING_COUNT`` eigenvalues with the largest real parts.
     description : str
@@ -168,7 +169,7 @@ def _jacobian_dense_or_sparse(model, x: Array, p: Array):
 def _where(x: Array, p: Array, model) -> str:
     """Short text naming a point: the first states and the parameters."""
     names = getattr(model, "states", ()) or tuple(f"x{i}" for i in range(len(x)))
-    shown = ", ".join(f"{name}={value:.6g}" for name, value in zip(names[:6], x[:6]))
+    shown = ", ".join(f"{name}={value:.6g}" for name, value in zip(names[:6], x[:6], strict=False))
     if len(x) > 6:
         shown += f", ... ({len(x)} states, |x|={linalg.norm(x):.6g})"
     return f"at {shown}"
@@ -176,7 +177,7 @@ def _where(x: Array, p: Array, model) -> str:
 
 def _singular(jac) -> bool:
     """True when a dense Jacobian is numerically singular (sparse: left to the LU)."""
-    if linalg.is_sparse(jac) or jac.shape[0] > linalg.DENSE_EIGEN_LIMIT:
+    if linalg.is_sparse(jac) or jac.shape[0] > linalg.CONDITION_CHECK_LIMIT:
         return False
     with np.errstate(all="ignore"):
         condition = np.linalg.cond(jac)
@@ -232,44 +233,60 @@ def solve_equilibrium(
 def _newton(model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
     f = _evaluate(model.rhs, x, p)
     if f is None:
-        return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE,
-                       f"f is not finite {_where(x, p, model)} (start guess)")
+        message = f"f is not finite {_where(x, p, model)} (start guess)"
+        return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE, message)
     residual = linalg.norm(f)
     history = [residual]
     if residual == 0.0:
         return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), STATUS_CONVERGED)
     for iteration in range(1, max_iterations + 1):
-        jac = _jacobian_dense_or_sparse(model, x, p)
-        if jac is None:
-            return _failed(x, p, iteration - 1, residual, history, STATUS_NONFINITE,
-                           f"the Jacobian is not finite {_where(x, p, model)}")
-        if _singular(jac):
-            return _failed(x, p, iteration - 1, residual, history, STATUS_SINGULAR,
-                           _singular_message(x, p, residual, model))
-        try:
-            step = -linalg.solve_square(jac, f)
-        except linalg.SingularMatrixError:
-            return _failed(x, p, iteration - 1, residual, history, STATUS_SINGULAR,
-                           _singular_message(x, p, residual, model))
-        damping, trial, f_trial, residual_trial = _backtrack(model, x, p, step, residual)
-        if trial is None:
-            return _failed(x, p, iteration - 1, residual, history, STATUS_NOT_CONVERGED,
-                           f"Newton's method stalled {_where(x, p, model)} with residual "
-                           f"{residual:.3g}: no step along the Newton direction reduces |f|; "
-                           "there may be no equilibrium near the guess, try another guess")
+        status, message, step = _newton_direction(model, x, p, f, residual)
+        damping = 1.0
+        if not status:
+            damping, trial, f_trial, residual_trial = _backtrack(model, x, p, step, residual)
+            if trial is None:
+                status = STATUS_NOT_CONVERGED
+                message = (
+                    f"Newton's method stalled {_where(x, p, model)} with residual "
+                    f"{residual:.3g}: no step along the Newton direction reduces |f|; "
+                    "there may be no equilibrium near the guess, try another guess"
+                )
+        if status:
+            if residual <= residual_tol and status != STATUS_NONFINITE:
+                # Already a solution to roundoff; Newton cannot polish it further here
+                # (for instance at a turning point, where df/dx is singular).
+                return EquilibriumSolution(
+                    x, p, True, iteration - 1, residual, tuple(history), STATUS_CONVERGED
+                )
+            return _failed(x, p, iteration - 1, residual, history, status, message)
         x, f, residual = trial, f_trial, residual_trial
         history.append(residual)
         update = damping * linalg.norm(step)
         scale = 1.0 + linalg.norm(x)
-        if residual <= residual_tol and update <= update_rtol * scale:
-            return EquilibriumSolution(x, p, True, iteration, residual, tuple(history),
-                                       STATUS_CONVERGED)
-        if update <= STAGNATION_RTOL * scale and damping == 1.0:
-            return EquilibriumSolution(x, p, True, iteration, residual, tuple(history),
-                                       STATUS_CONVERGED)
-    return _failed(x, p, max_iterations, residual, history, STATUS_NOT_CONVERGED,
-                   f"no convergence in {max_iterations} Newton iterations; last iterate "
-                   f"{_where(x, p, model)} with residual {residual:.3g}")
+        if (residual <= residual_tol and update <= update_rtol * scale) or (
+            update <= STAGNATION_RTOL * scale and damping == 1.0
+        ):
+            return EquilibriumSolution(
+                x, p, True, iteration, residual, tuple(history), STATUS_CONVERGED
+            )
+    message = (
+        f"no convergence in {max_iterations} Newton iterations; last iterate "
+        f"{_where(x, p, model)} with residual {residual:.3g}"
+    )
+    return _failed(x, p, max_iterations, residual, history, STATUS_NOT_CONVERGED, message)
+
+
+def _newton_direction(model, x, p, f, residual):
+    """(status, message, step): status "" and the Newton step, or why there is none."""
+    jac = _jacobian_dense_or_sparse(model, x, p)
+    if jac is None:
+        return STATUS_NONFINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
+    if _singular(jac):
+        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+    try:
+        return "", "", -linalg.solve_square(jac, f)
+    except linalg.SingularMatrixError:
+        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
 
 
 def _backtrack(model, x, p, step, residual):
@@ -287,14 +304,17 @@ def _backtrack(model, x, p, step, residual):
 
 
 def _singular_message(x, p, residual, model) -> str:
-    return (f"the Jacobian df/dx is singular {_where(x, p, model)} (residual {residual:.3g}); "
-            "the guess may sit at a turning point or there may be no isolated equilibrium "
-            "nearby, try another guess or parameter value")
+    return (
+        f"the Jacobian df/dx is singular {_where(x, p, model)} (residual {residual:.3g}); "
+        "the guess may sit at a turning point or there may be no isolated equilibrium "
+        "nearby, try another guess or parameter value"
+    )
 
 
 def _failed(x, p, iterations, residual, history, status, message) -> EquilibriumSolution:
-    return EquilibriumSolution(x, p, False, iterations, float(residual), tuple(history),
-                               status, message)
+    return EquilibriumSolution(
+        x, p, False, iterations, float(residual), tuple(history), status, message
+    )
 
 
 # ---------------------------------------------------------------------------
@@ -320,7 +340,7 @@ def linearize(model, x: Array, p: Array) -> Linearization:
     p = np.asarray(p, dtype=float)
     with np.errstate(all="ignore"):
         jac = model.jacobian(x, p)
-    if linalg.is_sparse(jac) and jac.shape[0] > linalg.DENSE_EIGEN_LIMIT:
+    if linalg.is_sparse(jac) and jac.shape[0] > linalg.SPARSE_DENSE_LIMIT:
         eigenvalues = linalg.leading_eigenvalues(jac)
         jac_dense = None
     else:
@@ -424,8 +444,7 @@ _KIND_TEXT = {
     "decide stability",
     "stable_star": "stable star: equal eigenvalues, every direction approaches at the same rate",
     "unstable_star": "unstable star: equal eigenvalues, every direction leaves at the same rate",
-    "stable_degenerate_node": "stable degenerate node: a repeated eigenvalue with one "
-    "eigenvector",
+    "stable_degenerate_node": "stable degenerate node: a repeated eigenvalue with one eigenvector",
     "unstable_degenerate_node": "unstable degenerate node: a repeated eigenvalue with one "
     "eigenvector",
     "zero_eigenvalue": "zero eigenvalue: the linearization has a line of equilibria (not "
@@ -437,10 +456,15 @@ _KIND_TEXT = {
 
 
 def _describe(kind, eigenvalues, positive, zero, negative, hyperbolic) -> str:
-    counts = (f"{positive} eigenvalue(s) with positive real part, {zero} on the imaginary axis, "
-              f"{negative} with negative real part")
-    verdict = ("hyperbolic: the linearization decides the local behaviour" if hyperbolic
-               else "not hyperbolic: the linearization does not decide the local behaviour")
+    counts = (
+        f"{positive} eigenvalue(s) with positive real part, {zero} on the imaginary axis, "
+        f"{negative} with negative real part"
+    )
+    verdict = (
+        "hyperbolic: the linearization decides the local behaviour"
+        if hyperbolic
+        else "not hyperbolic: the linearization does not decide the local behaviour"
+    )
     lead = ", ".join(_format_complex(value) for value in eigenvalues[:LEADING_COUNT])
     return f"{_KIND_TEXT[kind]}. {counts}; leading eigenvalues {lead}; {verdict}."
 

@@ -40,14 +40,23 @@ from dataclasses import dataclass, field
 from functools import lru_cache
 
 import numpy as np
+import scipy.sparse as sps
+import scipy.sparse.linalg as spla
 
 from branchline.normal_forms import (
     branch_point_normal_form,
+    branch_tangent,
     dense,
     directional_jacobian,
+    eigenvector_near,
     fold_normal_form,
     hopf_normal_form,
+    is_large,
+    leading_eigenvalues,
+    null_vectors,
     parameter_second_derivative,
+    solve,
+    state_jacobian,
 )
 from branchline.results import Branch, Event
 
@@ -82,12 +91,22 @@ COMPLEX_RTOL = 1e-8
 # is a Bogdanov-Takens-like degenerate point, not reported as Hopf.
 SMALLEST_RELATIVE_FREQUENCY = 1e-6
 
+# An eigenvalue this small relative to the spectral radius counts as zero
+# (A is then too close to singular for A^-1 in the Lyapunov coefficient).
+ZERO_EIGENVALUE_RTOL = 1e-8
+
 # Bisection fallback: stop at this relative bracket width in arclength.
 BISECTION_RTOL = 1e-14
 BISECTION_MAX_ITERATIONS = 200
+# If the branch cannot be corrected at a bisection point, a bracket already
+# shorter than this fraction of the step is still reported (with its width).
+BISECTION_GIVE_UP_WIDTH = 1e-6
 
 # Two located events of one kind closer than this (relative) are one event.
 SAME_EVENT_RTOL = 1e-7
+# A fold located at a branch point solves a singular system: the state is then
+# only good to about the square root of rounding, so a looser match.
+FOLD_AT_BRANCH_POINT_RTOL = 1e-5
 
 
 # ----------------------------------------------------------------------------
@@ -214,18 +233,15 @@ def bordered_determinant(jac_x: object, jac_p: Array, tangent: Array) -> float:
 
 
 def _sparse_bordered_determinant(jac_x, jac_p: Array, tangent: Array) -> float:
-    import scipy.sparse as sp
-    import scipy.sparse.linalg as spla
-
-    matrix = sp.bmat(
-        [[jac_x, sp.csc_matrix(np.asarray(jac_p).reshape(-1, 1))], [sp.csr_matrix(tangent)]],
-        format="csc",
-    )
+    sp = sps
+    column = sp.csc_matrix(np.asarray(jac_p, dtype=float).reshape(-1, 1))
+    row = sp.csr_matrix(np.asarray(tangent, dtype=float).reshape(1, -1))
+    matrix = sp.vstack([sp.hstack([jac_x, column]), row], format="csc")
     try:
         lu = spla.splu(matrix)
     except RuntimeError:
         return 0.0
-    diagonal = np.concatenate([lu.U.diagonal()])
+    diagonal = lu.U.diagonal()
     if np.any(diagonal == 0.0):
         return 0.0
     sign = float(np.prod(np.sign(diagonal)))
@@ -283,8 +299,10 @@ def newton(
         history.append(size)
         if not np.isfinite(size):
             return NewtonOutcome(False, z, history, "the residual is not finite")
+        if size == 0.0:
+            return NewtonOutcome(True, z, history)
         try:
-            step = np.linalg.solve(jacobian, -residual)
+            step = solve(jacobian, -residual)
         except np.linalg.LinAlgError:
             return NewtonOutcome(False, z, history, "singular Jacobian of the defining system")
         if not np.all(np.isfinite(step)):
@@ -327,6 +345,28 @@ def _interpolate_fraction(a: float, b: float) -> float:
     return float(np.clip(a / (a - b), 0.0, 1.0))
 
 
+def _bordered(a_matrix: object, column: Array, row: Array, corner: float = 0.0) -> object:
+    """[[A, column], [row^T, corner]], dense or sparse like A."""
+    n = a_matrix.shape[0]
+    if sps.issparse(a_matrix):
+        return sps.bmat(
+            [
+                [a_matrix, sps.csc_matrix(np.reshape(column, (n, 1)))],
+                [
+                    sps.csr_matrix(np.reshape(row[:n], (1, n))),
+                    np.array([[row[n] if row.shape[0] > n else corner]]),
+                ],
+            ],
+            format="csc",
+        )
+    out = np.empty((n + 1, n + 1))
+    out[:n, :n] = a_matrix
+    out[:n, n] = column
+    out[n, :n] = row[:n]
+    out[n, n] = row[n] if row.shape[0] > n else corner
+    return out
+
+
 def correct_on_branch(
     model, params: Array, k: int, guess: Array, direction: Array
 ) -> NewtonOutcome:
@@ -336,15 +376,9 @@ def correct_on_branch(
         full = _with_value(params, k, u[-1])
         x = u[:-1]
         residual = np.append(model.rhs(x, full), direction @ (u - guess))
-        jacobian = np.vstack(
-            [
-                np.column_stack(
-                    [dense(model.jacobian(x, full)), model.parameter_jacobian(x, full)[:, k]]
-                ),
-                direction,
-            ]
-        )
-        return residual, jacobian
+        a_matrix = state_jacobian(model, x, full)
+        fp = model.parameter_jacobian(x, full)[:, k]
+        return residual, _bordered(a_matrix, fp, direction)
 
     return newton(system, guess)
 
@@ -387,6 +421,18 @@ def _hopf_crossings(before: Array, after: Array) -> list[tuple[float, float]]:
     return crossings
 
 
+def _complex_count_changes(eigenvalues: Array) -> list[int]:
+    """Rows after which the number of upper-half-plane eigenvalues with Re > 0 changes."""
+    if eigenvalues.shape[0] < 2 or eigenvalues.shape[1] == 0:
+        return []
+    with np.errstate(invalid="ignore"):
+        size = np.abs(eigenvalues)
+        scale = np.nanmax(np.where(np.isfinite(size), size, np.nan), axis=1, initial=0.0)
+        upper = eigenvalues.imag > COMPLEX_RTOL * scale[:, None]
+        count = np.count_nonzero(upper & (eigenvalues.real > 0.0), axis=1)
+    return [int(row) for row in np.flatnonzero(np.diff(count))]
+
+
 def _nearest_pair(row: Array) -> tuple[complex, complex]:
     """The pair (lambda_i, lambda_j), i < j, with the smallest |lambda_i + lambda_j|."""
     lam = row[np.isfinite(row)]
@@ -404,7 +450,8 @@ def find_brackets(branch: Branch) -> list[_Bracket]:
             fraction = _interpolate_fraction(tests[row, column], tests[row + 1, column])
             brackets.append(_Bracket(kind, row, fraction))
     hopf_rows = set(_sign_changes(tests[:, 1]))
-    for row in range(len(branch) - 1):
+    candidates = sorted(hopf_rows | set(_complex_count_changes(branch.eigenvalues)))
+    for row in candidates:
         crossings = _hopf_crossings(branch.eigenvalues[row], branch.eigenvalues[row + 1])
         for fraction, omega in crossings:
             brackets.append(_Bracket("hopf", row, fraction, {"omega": omega}))
@@ -431,22 +478,18 @@ def _fold_system(model, params: Array, k: int, border_b: Array, border_c: Array)
 
     def system(u: Array) -> tuple[Array, Array]:
         x, full = u[:-1], _with_value(params, k, u[-1])
-        a_matrix = dense(model.jacobian(x, full))
+        a_matrix = state_jacobian(model, x, full)
         fp = model.parameter_jacobian(x, full)[:, k]
-        bordered = np.zeros((n + 1, n + 1))
-        bordered[:n, :n] = a_matrix
-        bordered[:n, n] = border_b
-        bordered[n, :n] = border_c
+        bordered = _bordered(a_matrix, border_b, border_c)
         rhs = np.zeros(n + 1)
         rhs[n] = 1.0
-        vg = np.linalg.solve(bordered, rhs)
-        wg = np.linalg.solve(bordered.T, rhs)
+        vg = solve(bordered, rhs)
+        wg = solve(bordered.T, rhs)
         v, g, w = vg[:n], vg[n], wg[:n]
-        g_x = -(w @ directional_jacobian(model, x, full, v))
+        g_x = -(directional_jacobian(model, x, full, v).T @ w)
         g_p = -float(w @ model.jacobian_parameter_derivative(x, full, v)[:, k])
         residual = np.append(model.rhs(x, full), g)
-        jacobian = np.vstack([np.column_stack([a_matrix, fp]), np.append(g_x, g_p)])
-        return residual, jacobian
+        return residual, _bordered(a_matrix, fp, np.append(g_x, g_p))
 
     return system
 
@@ -461,7 +504,7 @@ def _hopf_system(model, params: Array, k: int, c: Array):
         qr, qi = z[n + 2 : 2 * n + 2], z[2 * n + 2 :]
         q = qr + 1j * qi
         full = _with_value(params, k, p)
-        a_matrix = dense(model.jacobian(x, full))
+        a_matrix = state_jacobian(model, x, full)
         fp = model.parameter_jacobian(x, full)[:, k]
         eigen_residual = a_matrix @ q - 1j * omega * q
         normal = np.vdot(c, q) - 1.0
@@ -475,6 +518,8 @@ def _hopf_system(model, params: Array, k: int, c: Array):
         )
         bq = directional_jacobian(model, x, full, q)
         apq = model.jacobian_parameter_derivative(x, full, q)[:, k]
+        if sps.issparse(a_matrix):
+            return residual, _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c)
         size = 3 * n + 2
         jac = np.zeros((size, size))
         jac[:n, :n], jac[:n, n] = a_matrix, fp
@@ -491,6 +536,36 @@ def _hopf_system(model, params: Array, k: int, c: Array):
         return residual, jac
 
     return system
+
+
+def _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c):
+    """The extended Hopf system's Jacobian as one sparse matrix (large models)."""
+    n = a_matrix.shape[0]
+    eye = sps.identity(n, format="csc")
+
+    def column(v):
+        return sps.csc_matrix(np.reshape(v, (n, 1)))
+
+    def row(v):
+        return sps.csr_matrix(np.reshape(v, (1, n)))
+
+    bq = sps.csc_matrix(bq)
+    return sps.bmat(
+        [
+            [a_matrix, column(fp), None, None, None],
+            [bq.real, column(apq.real), column(q.imag), a_matrix, omega * eye],
+            [bq.imag, column(apq.imag), column(-q.real), -omega * eye, a_matrix],
+            [
+                sps.csr_matrix((1, n)),
+                sps.csr_matrix((1, 1)),
+                sps.csr_matrix((1, 1)),
+                row(c.real),
+                row(c.imag),
+            ],
+            [None, None, None, row(-c.imag), row(c.real)],
+        ],
+        format="csc",
+    )
 
 
 def _branch_point_system(model, params: Array, k: int):
@@ -533,15 +608,8 @@ def _json_complex(values: Array) -> list[list[float]]:
     return [[float(v.real), float(v.imag)] for v in np.asarray(values, dtype=complex).ravel()]
 
 
-def _sorted_eigenvalues(a_matrix: Array) -> Array:
-    values = np.linalg.eigvals(a_matrix).astype(complex)
-    return values[np.lexsort((-values.imag, -values.real))]
-
-
 def _event_tangent(model, x: Array, full: Array, k: int, chord: Array) -> Array:
-    g_u = np.column_stack([dense(model.jacobian(x, full)), model.parameter_jacobian(x, full)[:, k]])
-    t = np.linalg.svd(g_u)[2][-1]
-    return t if t @ chord >= 0 else -t
+    return branch_tangent(model, x, full, k, chord)
 
 
 def _arclength_at(branch: Branch, row: int, u: Array) -> float:
@@ -581,7 +649,10 @@ def _bisect_on_branch(
         outcome = correct_on_branch(model, branch.parameters, k, guess, chord)
         if not outcome.converged:
             return math.nan, None
-        return test(outcome.solution, chord), outcome.solution
+        try:
+            return test(outcome.solution, chord), outcome.solution
+        except np.linalg.LinAlgError:
+            return 0.0, outcome.solution  # exactly singular there: the test's zero
 
     lo, hi = 0.0, 1.0
     f_lo, point = value_at(lo)
@@ -593,7 +664,9 @@ def _bisect_on_branch(
         middle = 0.5 * (lo + hi)
         f_mid, candidate = value_at(middle)
         if candidate is None:
-            return None, widths
+            # the branch cannot be corrected there (singular, e.g. at a branch point
+            # that coincides): keep the best point found, if the bracket is short
+            return (point if widths and widths[-1] <= BISECTION_GIVE_UP_WIDTH else None), widths
         point = candidate
         if np.sign(f_mid) == np.sign(f_lo):
             lo, f_lo = middle, f_mid
@@ -614,7 +687,7 @@ def _base_details(branch: Branch, bracket: _Bracket, a_matrix: Array, method: st
             "after": [float(v) for v in branch.test_values[bracket.row + 1]],
             "order": list(TEST_FUNCTIONS),
         },
-        "eigenvalues": _json_complex(_sorted_eigenvalues(a_matrix)),
+        "eigenvalues": _json_complex(leading_eigenvalues(a_matrix)),
     }
 
 
@@ -624,7 +697,8 @@ def _make_event(
     x = np.array(u[:-1], dtype=float)
     full = _with_value(branch.parameters, k, float(u[-1]))
     chord = _curve_point(branch, bracket.row + 1) - _curve_point(branch, bracket.row)
-    details.setdefault("tangent", [float(t) for t in _event_tangent(model, x, full, k, chord)])
+    if "tangent" not in details:
+        details["tangent"] = [float(t) for t in _event_tangent(model, x, full, k, chord)]
     details["residual_norm"] = float(np.linalg.norm(model.rhs(x, full)))
     return Event(
         trace=branch.name,
@@ -646,8 +720,8 @@ def _format_value(value: float) -> str:
 def _locate_fold(model, branch: Branch, k: int, bracket: _Bracket) -> Event | None:
     u0 = _seed(branch, bracket)
     full0 = _with_value(branch.parameters, k, u0[-1])
-    left, _, right = np.linalg.svd(dense(model.jacobian(u0[:-1], full0)))
-    system = _fold_system(model, branch.parameters, k, left[:, -1], right[-1])
+    left, right = null_vectors(state_jacobian(model, u0[:-1], full0))
+    system = _fold_system(model, branch.parameters, k, left.real, right.real)
     outcome = newton(system, u0)
     note = ""
     method = "Newton on the minimally augmented fold system (Govaerts)"
@@ -662,10 +736,8 @@ def _locate_fold(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
         method = "bisection on the tangent's parameter component"
         note = f"located by bisection (Newton on the fold system failed: {outcome.message or 'left the bracket'})"
     x, full = u[:-1], _with_value(branch.parameters, k, u[-1])
-    a_matrix = dense(model.jacobian(x, full))
+    a_matrix = state_jacobian(model, x, full)
     form = fold_normal_form(model, x, full, k)
-    if form.degenerate == "branch point":
-        return None  # a branch point where the traced branch turns: reported as branch_point
     details = _base_details(branch, bracket, a_matrix, method)
     details["newton_residual_norms"] = [float(r) for r in outcome.residual_norms]
     details["eigenvectors"] = {
@@ -677,7 +749,12 @@ def _locate_fold(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
         "parameter_sensitivity": form.parameter_sensitivity,
     }
     side_note = ""
-    if form.degenerate == "cusp":
+    if form.degenerate == "branch point":
+        side_note = (
+            "f_p lies in the range of f_x: a branch point where the traced branch turns "
+            "(the branch-point location failed)"
+        )
+    elif form.degenerate == "cusp":
         side_note = "close to a cusp point (quadratic coefficient near zero)"
     else:
         relation = "<" if form.two_equilibria_side == "below" else ">"
@@ -702,24 +779,21 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
     u0 = _seed(branch, bracket)
     n = u0.shape[0] - 1
     full0 = _with_value(branch.parameters, k, u0[-1])
-    a0 = dense(model.jacobian(u0[:-1], full0))
-    values, vectors = np.linalg.eig(a0)
+    a0 = state_jacobian(model, u0[:-1], full0)
     omega_guess = float(bracket.hint.get("omega", 0.0))
-    index = int(np.argmin(np.abs(values - 1j * omega_guess)))
-    if abs(values[index].imag) <= 0.0:
+    value, q0 = eigenvector_near(a0, 1j * omega_guess)
+    if abs(value.imag) <= 0.0:
         return None  # the nearest eigenvalue is real: a neutral saddle, not a Hopf point
-    q0 = vectors[:, index]
-    if values[index].imag < 0:
+    if value.imag < 0:
         q0 = q0.conj()
-    q0 = q0 / np.linalg.norm(q0)
-    z0 = np.concatenate([u0, [abs(values[index].imag)], q0.real, q0.imag])
+    z0 = np.concatenate([u0, [abs(value.imag)], q0.real, q0.imag])
     outcome = newton(_hopf_system(model, branch.parameters, k, q0), z0)
     z = outcome.solution
     u, omega = z[: n + 1], float(z[n + 1])
     method = "Newton on the extended Hopf system (A q = i omega q, <c, q> = 1)"
     note = ""
     q = z[n + 2 : 2 * n + 2] + 1j * z[2 * n + 2 :]
-    scale = max(float(np.max(np.abs(values))), 1e-300)
+    scale = max(abs(value), abs(omega_guess), 1e-300)
     if not (outcome.converged and _within_bracket(branch, bracket.row, u)):
         point, _ = _bisect_on_branch(
             model,
@@ -732,7 +806,7 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
             return None
         u = point
         full = _with_value(branch.parameters, k, u[-1])
-        omega = _crossing_frequency(dense(model.jacobian(u[:-1], full)), omega_guess)
+        omega = _crossing_eigenvalue(model, u, full, omega_guess).imag
         q = None
         method = "bisection on the real part of the crossing pair"
         note = f"located by bisection (Newton on the Hopf system failed: {outcome.message or 'left the bracket'})"
@@ -740,22 +814,32 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
         return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
     omega = abs(omega)
     x, full = u[:-1], _with_value(branch.parameters, k, u[-1])
-    form = hopf_normal_form(model, x, full, omega, q if q is not None and z[n + 1] > 0 else None)
-    a_matrix = dense(model.jacobian(x, full))
+    a_matrix = state_jacobian(model, x, full)
     details = _base_details(branch, bracket, a_matrix, method)
     details["newton_residual_norms"] = [float(r) for r in outcome.residual_norms]
-    details["eigenvectors"] = {
-        "right": _json_complex(form.right_vector),
-        "left": _json_complex(form.left_vector),
-        "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
-    }
-    details["normal_form"] = {
-        "c1": [form.c1.real, form.c1.imag],
-        "terms": [[t.real, t.imag] for t in form.terms],
-    }
     notes = []
-    if form.near_bautin:
-        notes.append("close to a Bautin point; criticality uncertain")
+    lyapunov, criticality = None, None
+    if _has_zero_eigenvalue(a_matrix, omega):
+        notes.append(
+            "a zero eigenvalue at the same point (zero-Hopf): "
+            "the first Lyapunov coefficient is not defined here"
+        )
+    else:
+        form = hopf_normal_form(
+            model, x, full, omega, q if q is not None and z[n + 1] > 0 else None
+        )
+        lyapunov, criticality = form.lyapunov, form.criticality
+        details["eigenvectors"] = {
+            "right": _json_complex(form.right_vector),
+            "left": _json_complex(form.left_vector),
+            "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
+        }
+        details["normal_form"] = {
+            "c1": [form.c1.real, form.c1.imag],
+            "terms": [[t.real, t.imag] for t in form.terms],
+        }
+        if form.near_bautin:
+            notes.append("close to a Bautin point; criticality uncertain")
     if note:
         notes.append(note)
     return _make_event(
@@ -767,42 +851,63 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
         "hopf",
         details,
         frequency=omega,
-        lyapunov=form.lyapunov,
-        criticality=form.criticality,
+        lyapunov=lyapunov,
+        criticality=criticality,
         note="; ".join(notes),
     )
 
 
-def _crossing_frequency(a_matrix: Array, omega_guess: float) -> float:
-    """Imaginary part of the upper-half-plane eigenvalue nearest i * omega_guess."""
+def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
+    """True when, besides +-i omega, the Jacobian has an eigenvalue within rounding of 0."""
+    if sps.issparse(a_matrix):
+        scale = max(float(abs(a_matrix).max()), 1e-300)
+        try:
+            value, _ = eigenvector_near(a_matrix, 0.0)
+        except np.linalg.LinAlgError:
+            return True
+        return abs(value) <= ZERO_EIGENVALUE_RTOL * scale and abs(abs(value.imag) - omega) > 0
+    values = np.linalg.eigvals(a_matrix)
+    scale = max(float(np.max(np.abs(values))), 1e-300)
+    others = values[np.abs(np.abs(values.imag) - omega) > ZERO_EIGENVALUE_RTOL * scale]
+    return bool(others.shape[0] and np.min(np.abs(others)) <= ZERO_EIGENVALUE_RTOL * scale)
+
+
+def _crossing_eigenvalue(model, u: Array, full: Array, omega_guess: float) -> complex:
+    """The upper-half-plane eigenvalue nearest i * omega_guess at u (NaN if none)."""
+    a_matrix = state_jacobian(model, u[:-1], full)
+    if sps.issparse(a_matrix):
+        value, _ = eigenvector_near(a_matrix, 1j * omega_guess)
+        return complex(value.real, abs(value.imag)) if value.imag != 0 else complex(math.nan)
     values = np.linalg.eigvals(a_matrix)
     upper = values[values.imag > 0]
     if upper.shape[0] == 0:
-        return 0.0
-    return float(upper[int(np.argmin(np.abs(upper - 1j * omega_guess)))].imag)
+        return complex(math.nan, 0.0)
+    return complex(upper[int(np.argmin(np.abs(upper - 1j * omega_guess)))])
 
 
 def _hopf_pair_real(model, branch: Branch, k: int, u: Array, omega_guess: float) -> float:
     full = _with_value(branch.parameters, k, u[-1])
-    values = np.linalg.eigvals(dense(model.jacobian(u[:-1], full)))
-    upper = values[values.imag > 0]
-    if upper.shape[0] == 0:
-        return math.nan
-    return float(upper[int(np.argmin(np.abs(upper - 1j * omega_guess)))].real)
+    return _crossing_eigenvalue(model, u, full, omega_guess).real
 
 
 def _locate_branch_point(model, branch: Branch, k: int, bracket: _Bracket) -> Event | None:
     u0 = _seed(branch, bracket)
     n = u0.shape[0] - 1
     full0 = _with_value(branch.parameters, k, u0[-1])
-    g_u = np.column_stack(
-        [dense(model.jacobian(u0[:-1], full0)), model.parameter_jacobian(u0[:-1], full0)[:, k]]
-    )
-    psi0 = np.linalg.svd(g_u)[0][:, -1]
-    z0 = np.concatenate([u0, psi0, [0.0]])
-    outcome = newton(_branch_point_system(model, branch.parameters, k), z0)
+    chord = _curve_point(branch, bracket.row + 1) - _curve_point(branch, bracket.row)
+    large = is_large(n)
+    if large:
+        # Moore's system needs the dense (n+1)^2 Hessian of psi^T f: too costly
+        outcome = NewtonOutcome(False, u0, [], "not used for large models")
+    else:
+        g_u = np.column_stack(
+            [dense(model.jacobian(u0[:-1], full0)), model.parameter_jacobian(u0[:-1], full0)[:, k]]
+        )
+        psi0 = np.linalg.svd(g_u)[0][:, -1]
+        z0 = np.concatenate([u0, psi0, [0.0]])
+        outcome = newton(_branch_point_system(model, branch.parameters, k), z0)
     z = outcome.solution
-    u, psi = z[: n + 1], z[n + 1 : 2 * n + 1]
+    u, psi = z[: n + 1], (None if large else z[n + 1 : 2 * n + 1])
     method = "Newton on Moore's extended branch-point system"
     note = ""
     if not (outcome.converged and _within_bracket(branch, bracket.row, u)):
@@ -817,13 +922,14 @@ def _locate_branch_point(model, branch: Branch, k: int, bracket: _Bracket) -> Ev
             return None
         u, psi = point, None
         method = "bisection on the bordered determinant"
-        note = f"located by bisection (Newton on the branch-point system failed: {outcome.message or 'left the bracket'})"
+        if not large:
+            note = f"located by bisection (Newton on the branch-point system failed: {outcome.message or 'left the bracket'})"
     x, full = u[:-1], _with_value(branch.parameters, k, u[-1])
-    form = branch_point_normal_form(model, x, full, k, psi)
-    chord = _curve_point(branch, bracket.row + 1) - _curve_point(branch, bracket.row)
+    traced_guess = branch.tangents[bracket.row] + branch.tangents[bracket.row + 1]
+    form = branch_point_normal_form(model, x, full, k, psi, traced_tangent=traced_guess)
     overlap = np.abs(form.tangents @ chord)
     traced = int(np.argmax(overlap))
-    details = _base_details(branch, bracket, dense(model.jacobian(x, full)), method)
+    details = _base_details(branch, bracket, state_jacobian(model, x, full), method)
     details["newton_residual_norms"] = [float(r) for r in outcome.residual_norms]
     details["eigenvectors"] = {"left": [float(v) for v in form.left_vector]}
     details["tangents"] = [[float(v) for v in t] for t in form.tangents]
@@ -855,7 +961,7 @@ def _locate_branch_point(model, branch: Branch, k: int, bracket: _Bracket) -> Ev
 
 def _branch_point_test(model, branch: Branch, k: int, u: Array, chord: Array) -> float:
     full = _with_value(branch.parameters, k, u[-1])
-    a_matrix = dense(model.jacobian(u[:-1], full))
+    a_matrix = state_jacobian(model, u[:-1], full)
     fp = model.parameter_jacobian(u[:-1], full)[:, k]
     t = _event_tangent(model, u[:-1], full, k, chord)
     return bordered_determinant(a_matrix, fp, t)
@@ -864,10 +970,20 @@ def _branch_point_test(model, branch: Branch, k: int, u: Array, chord: Array) ->
 _LOCATORS = {"fold": _locate_fold, "hopf": _locate_hopf, "branch_point": _locate_branch_point}
 
 
-def _same_point(a: Event, b: Event) -> bool:
+def _same_point(a: Event, b: Event, rtol: float = SAME_EVENT_RTOL) -> bool:
     scale = 1.0 + abs(a.value) + float(np.linalg.norm(a.state))
     gap = abs(a.value - b.value) + float(np.linalg.norm(a.state - b.state))
-    return gap <= SAME_EVENT_RTOL * scale
+    return gap <= rtol * scale
+
+
+def _duplicates(event: Event, other: Event) -> bool:
+    """The same event met twice, or a fold at a branch point already reported."""
+    if event.kind == other.kind:
+        return _same_point(event, other)
+    if event.kind == "fold" and other.kind == "branch_point":
+        same_bracket = event.details["bracket_rows"] == other.details["bracket_rows"]
+        return same_bracket or _same_point(event, other, FOLD_AT_BRANCH_POINT_RTOL)
+    return False
 
 
 def locate_events(model, branch: Branch) -> list[Event]:
@@ -902,13 +1018,7 @@ def locate_events(model, branch: Branch) -> list[Event]:
             event = None
         if event is None:
             continue
-        duplicate = any(
-            _same_point(event, other)
-            and (
-                other.kind == event.kind or (event.kind == "fold" and other.kind == "branch_point")
-            )
-            for other in events
-        )
+        duplicate = any(_duplicates(event, other) for other in events)
         if not duplicate:
             events.append(event)
     events.sort(

@@ -19,6 +19,8 @@ missing derivatives come from finite differences (:mod:`branchline.differences`)
 from __future__ import annotations
 
 import importlib
+import itertools
+import math
 import os
 import sys
 from collections.abc import Callable, Sequence
@@ -27,7 +29,6 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse
-import scipy.special
 import sympy as sp
 
 from branchline.differences import (
@@ -63,9 +64,6 @@ JACOBIAN_CHECK_DIRECTIONS = 8
 # returns a complex number, which the float conversion refuses), and inputs
 # that are not 1-D float arrays.
 _FAST_PATH_FAILURES = (ArithmeticError, ValueError, TypeError, AttributeError)
-
-# Functions that numpy lacks under their sympy printer names.
-_NUMPY_EXTRAS = {"erf": scipy.special.erf, "erfc": scipy.special.erfc, "gamma": scipy.special.gamma}
 
 
 @dataclass(frozen=True)
@@ -207,7 +205,10 @@ def _build_expression_model(spec: ExpressionModelSpec, source: str) -> Model:
     known: dict[str, sp.Expr] = dict(zip(states, x, strict=True))
     known.update(zip(parameters, p, strict=True))
     for name, text in spec.definitions.items():
-        known[name] = _translate(text, known, f"model.definitions.{name}", source)
+        key = f"model.definitions.{name}"
+        if name in known:
+            raise ScanError(source, key, f"'{name}' is already a state, parameter or definition")
+        known[name] = _translate(text, known, key, source)
     f = [
         _translate(text, known, f"model.equations.{name}", source)
         for name, text in spec.equations.items()
@@ -255,55 +256,95 @@ def _translate(text: str, known: dict[str, sp.Expr], key: str, source: str) -> s
                 f"unknown name '{symbol.name}': not a state, a parameter or an earlier definition",
             )
         replacements[symbol] = known[symbol.name]
-    # Kinks (abs, sign, step) differentiate to Dirac deltas; off the kink they are zero.
     return expression.xreplace(replacements)
 
 
 class _SymbolicDerivatives:
-    """Exact derivatives of f in sympy; the higher ones built and compiled on demand."""
+    """Exact derivatives of f in sympy; the higher ones built and compiled on demand.
+
+    The second and third derivative tensors are built entry by entry over
+    sorted index tuples only (they are symmetric), skipping every entry whose
+    parent does not depend on the variable, so sparse models stay cheap. The
+    forms B(v, w) and C(u, v, w) are then sums of those entries times
+    products of vector-component symbols, compiled with shared subexpressions.
+    """
 
     def __init__(self, f: list[sp.Expr], x: list[sp.Symbol], p: list[sp.Symbol]) -> None:
         self.f, self.x, self.p = f, x, p
-        self.jacobian = [[sp.diff(fi, xj) for xj in x] for fi in f]
+        self.jacobian = [[_derivative(fi, xj) for xj in x] for fi in f]
         self.jacobian_entries = [entry for row in self.jacobian for entry in row]
-        self.parameter_entries = [sp.diff(fi, pk) for fi in f for pk in p]
+        self.parameter_entries = [_derivative(fi, pk) for fi in f for pk in p]
         n = len(x)
         self.u = [sp.Symbol(f"_u{i}") for i in range(n)]
         self.v = [sp.Symbol(f"_v{i}") for i in range(n)]
         self.w = [sp.Symbol(f"_w{i}") for i in range(n)]
-        self._second: list[sp.Expr] | None = None
+        self._hessian: list[dict[tuple[int, ...], sp.Expr]] | None = None
 
-    def _action(self, vector: list[sp.Symbol]) -> list[sp.Expr]:
-        """(df/dx) vector, symbolically."""
-        return [
-            sp.Add(*[entry * vj for entry, vj in zip(row, vector, strict=True) if entry != 0])
-            for row in self.jacobian
-        ]
-
-    def _directional(self, expressions: list[sp.Expr], vector: list[sp.Symbol]) -> list[sp.Expr]:
-        """sum_j d(expression)/dx_j vector_j for each expression."""
-        return [
-            sp.Add(*[sp.diff(e, xj) * vj for xj, vj in zip(self.x, vector, strict=True)])
-            for e in expressions
-        ]
-
-    def second_entries(self) -> list[sp.Expr]:
-        if self._second is None:
-            self._second = self._directional(self._action(self.w), self.v)
-        return self._second
+    def hessian(self) -> list[dict[tuple[int, ...], sp.Expr]]:
+        """Per equation, {(j, k): d2f/dx_j dx_k} for j <= k, nonzero entries only."""
+        if self._hessian is None:
+            self._hessian = [
+                _raise_order({(j,): entry for j, entry in enumerate(row) if entry != 0}, self.x)
+                for row in self.jacobian
+            ]
+        return self._hessian
 
     def compile_second(self) -> Callable:
-        return _complex_function(self.second_entries(), [self.x, self.p, self.v, self.w])
+        second = [_contract(entries, (self.v, self.w)) for entries in self.hessian()]
+        return _complex_function(second, [self.x, self.p, self.v, self.w])
 
     def compile_third(self) -> Callable:
-        third = self._directional(self.second_entries(), self.u)
+        third = [
+            _contract(_raise_order(entries, self.x), (self.u, self.v, self.w))
+            for entries in self.hessian()
+        ]
         return _complex_function(third, [self.x, self.p, self.u, self.v, self.w])
 
     def compile_parameter_derivative(self) -> Callable:
-        action = self._action(self.v)
-        entries = [sp.diff(a, pk) for a in action for pk in self.p]
+        entries = [
+            sp.Add(*[_derivative(entry, pk) * vj for entry, vj in zip(row, self.v, strict=True)])
+            for row in self.jacobian
+            for pk in self.p
+        ]
         shape = (len(self.x), len(self.p))
         return _complex_function(entries, [self.x, self.p, self.v], shape)
+
+
+def _derivative(expression: sp.Expr, variable: sp.Symbol) -> sp.Expr:
+    """d expression / d variable, skipping sympy entirely when it cannot depend on it."""
+    if variable not in expression.free_symbols:
+        return sp.S.Zero
+    return sp.diff(expression, variable)
+
+
+def _raise_order(
+    entries: dict[tuple[int, ...], sp.Expr], x: list[sp.Symbol]
+) -> dict[tuple[int, ...], sp.Expr]:
+    """From {sorted index tuple: derivative} to the next order, sorted tuples only."""
+    higher = {}
+    for index, entry in entries.items():
+        for k in range(index[-1], len(x)):
+            derivative = _derivative(entry, x[k])
+            if derivative != 0:
+                higher[(*index, k)] = derivative
+    return higher
+
+
+def _contract(entries: dict[tuple[int, ...], sp.Expr], vectors: tuple) -> sp.Expr:
+    """sum over all index tuples of T[indices] * prod_r vectors[r][index_r], T symmetric."""
+    terms = []
+    for index, entry in entries.items():
+        products = {
+            tuple(index[a] for a in order) for order in itertools.permutations(range(len(index)))
+        }
+        weight = sp.Add(
+            *[
+                sp.Mul(*[vector[i] for vector, i in zip(vectors, order, strict=True)])
+                for order in products
+            ]
+        )
+        terms.append(entry * weight)
+    return sp.Add(*terms)
 
 
 class _Lazy:
@@ -325,14 +366,13 @@ def _zero(*_: object) -> sp.Expr:
     return sp.S.Zero
 
 
-def _printer_settings(extra_names: Sequence[str] = ()) -> dict[str, Any]:
+def _printer_settings() -> dict[str, Any]:
     # As lambdify's own defaults, but terms are printed in sympy's internal
     # order instead of being sorted (sorting dominates compile time).
     return {
         "fully_qualified_modules": False,
         "inline": True,
         "allow_unknown_functions": True,
-        "user_functions": {name: name for name in extra_names},
         "order": "none",
     }
 
@@ -363,10 +403,18 @@ class _Compiled:
         from sympy.printing.pycode import PythonCodePrinter
 
         try:
-            printer = PythonCodePrinter(_printer_settings() | {"strict": True})
+            settings = _printer_settings() | {"strict": True, "allow_unknown_functions": False}
+            printer = PythonCodePrinter(settings)
             return sp.lambdify(
-                self.arguments, self.cse[1], modules="math", cse=self._reuse,
-                printer=printer, docstring_limit=0,
+                self.arguments,
+                self.cse[1],
+                # math.fabs, unlike abs, refuses a complex number (from a
+                # fractional power of a negative number), so such values take
+                # the numpy path and become nan there.
+                modules=[{"abs": math.fabs}, "math"],
+                cse=self._reuse,
+                printer=printer,
+                docstring_limit=0,
             )
         except Exception:  # the printer refuses a function: numpy code only
             return None
@@ -376,10 +424,14 @@ class _Compiled:
         if self._safe is None:
             from sympy.printing.numpy import NumPyPrinter
 
-            printer = NumPyPrinter(_printer_settings(tuple(_NUMPY_EXTRAS)))
+            printer = NumPyPrinter(_printer_settings())
             self._safe = sp.lambdify(
-                self.arguments, self.cse[1], modules=[_NUMPY_EXTRAS, "numpy"], cse=self._reuse,
-                printer=printer, docstring_limit=0,
+                self.arguments,
+                self.cse[1],
+                modules="numpy",
+                cse=self._reuse,
+                printer=printer,
+                docstring_limit=0,
             )
         return self._safe
 
@@ -470,7 +522,7 @@ def _complex_function(expressions: list[sp.Expr], arguments: list, shape: tuple 
 def _observable_function(names: tuple[str, ...], expressions: list[sp.Expr], arguments: list):
     """Compile observables into (x, p) -> {name: value}."""
     if not names:
-        return lambda x, p: {}
+        return _no_observables
     values = _real_function(expressions, arguments, (len(names),))
 
     def evaluate(x: Array, p: Array) -> dict[str, Any]:
@@ -514,7 +566,9 @@ def resolve_callable(reference: str, source: str, key: str) -> Callable:
             )
         target = getattr(target, attribute)
     if not callable(target):
-        raise ScanError(source, key, f"'{reference}' is not a function (it is {type(target).__name__})")
+        raise ScanError(
+            source, key, f"'{reference}' is not a function (it is {type(target).__name__})"
+        )
     return target
 
 
@@ -542,36 +596,21 @@ def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
     n = int(spec.size)
     states = tuple(spec.states) if spec.states else tuple(f"x{i}" for i in range(n))
     if len(states) != n:
-        raise ScanError(
-            source, "model.python.states", f"lists {len(states)} names but size is {n}"
-        )
+        raise ScanError(source, "model.python.states", f"lists {len(states)} names but size is {n}")
     parameters = tuple(spec.parameters)
     defaults = np.array([float(v) for v in spec.parameters.values()], dtype=float)
-    rhs = _wrap_python_rhs(resolve_callable(spec.rhs, source, "model.python.rhs"), parameters, n, spec.rhs, source)
+    user_rhs = resolve_callable(spec.rhs, source, "model.python.rhs")
+    rhs = _wrap_python_rhs(user_rhs, parameters, n, spec.rhs, source)
     probe = np.ones(n)
     _probe(rhs, probe, defaults)
-
     if spec.jacobian is not None:
-        user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
-        sample = _probe(lambda x, p: user_jacobian(x, dict(zip(parameters, p.tolist()))), probe, defaults)
-        sparse = scipy.sparse.issparse(sample) if sample is not None else n > DENSE_STATE_LIMIT
-        jacobian = _wrap_python_jacobian(user_jacobian, parameters, n, sparse, spec.jacobian, source)
-        _probe(jacobian, probe, defaults)
-        levels = 0  # the Jacobian action is exact
+        jacobian, sparse = _user_jacobian(spec, parameters, probe, defaults, source)
+        derivatives = _DifferenceDerivatives(rhs, jacobian, levels=0)
     else:
         sparse = n > DENSE_STATE_LIMIT
         jacobian = _difference_jacobian(rhs, sparse)
-        levels = 1
-    derivatives = _DifferenceDerivatives(rhs, jacobian if spec.jacobian else None, levels)
-
-    names: tuple[str, ...] = ()
-    observables: Callable = lambda x, p: {}  # noqa: E731
-    if spec.observables:
-        user_observables = resolve_callable(spec.observables, source, "model.python.observables")
-        observables = _wrap_python_observables(user_observables, parameters)
-        sample = _probe(observables, probe, defaults)
-        names = tuple(sample) if sample else ()
-
+        derivatives = _DifferenceDerivatives(rhs, None, levels=1)
+    observables, names = _user_observables(spec, parameters, probe, defaults, source)
     return Model(
         states=states,
         parameters=parameters,
@@ -593,6 +632,39 @@ def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
     )
 
 
+def _user_jacobian(
+    spec: PythonModelSpec, parameters: tuple, probe: Array, defaults: Array, source: str
+) -> tuple[Callable, bool]:
+    """The user's Jacobian, wrapped; sparse if it returns scipy.sparse at the probe point."""
+    n = int(spec.size)
+    user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
+    sample = _probe(
+        lambda x, p: user_jacobian(x, dict(zip(parameters, p.tolist(), strict=True))),
+        probe,
+        defaults,
+    )
+    sparse = scipy.sparse.issparse(sample) if sample is not None else n > DENSE_STATE_LIMIT
+    jacobian = _wrap_python_jacobian(user_jacobian, parameters, n, sparse, spec.jacobian, source)
+    _probe(jacobian, probe, defaults)
+    return jacobian, sparse
+
+
+def _user_observables(
+    spec: PythonModelSpec, parameters: tuple, probe: Array, defaults: Array, source: str
+) -> tuple[Callable, tuple[str, ...]]:
+    """The user's observables function, wrapped, and its names (read at the probe point)."""
+    if not spec.observables:
+        return _no_observables, ()
+    user_observables = resolve_callable(spec.observables, source, "model.python.observables")
+    observables = _wrap_python_observables(user_observables, parameters)
+    sample = _probe(observables, probe, defaults)
+    return observables, tuple(sample) if sample else ()
+
+
+def _no_observables(x: Array, p: Array) -> dict[str, float]:
+    return {}
+
+
 def _probe(function: Callable, x: Array, p: Array) -> Any:
     """Call a user function once at build time; shape errors surface, other failures wait.
 
@@ -612,13 +684,15 @@ def _wrap_python_rhs(user_rhs: Callable, parameters: tuple, n: int, reference: s
     expected = (n,)
 
     def rhs(x: Array, p: Array) -> Array:
-        values = np.asarray(user_rhs(x, dict(zip(parameters, p.tolist()))), dtype=float)
+        values = np.asarray(
+            user_rhs(x, dict(zip(parameters, p.tolist(), strict=True))), dtype=float
+        )
         if values.shape != expected:
             raise ScanError(
                 source,
                 "model.python.rhs",
-                f"'{reference}' returned an array of shape {values.shape}; expected ({n},) "
-                "(one derivative per state, size = {n})".replace("{n}", str(n)),
+                f"'{reference}' returned an array of shape {values.shape}; expected ({n},), "
+                f"one derivative per state (size = {n})",
             )
         return values
 
@@ -631,7 +705,7 @@ def _wrap_python_jacobian(
     expected = (n, n)
 
     def jacobian(x: Array, p: Array):
-        matrix = user_jacobian(x, dict(zip(parameters, p.tolist())))
+        matrix = user_jacobian(x, dict(zip(parameters, p.tolist(), strict=True)))
         if scipy.sparse.issparse(matrix):
             matrix = matrix.tocsr() if sparse else matrix.toarray()
         else:
@@ -661,7 +735,7 @@ def _difference_jacobian(rhs: Callable, sparse: bool):
 
 def _wrap_python_observables(user_observables: Callable, parameters: tuple):
     def observables(x: Array, p: Array) -> dict[str, float]:
-        values = user_observables(x, dict(zip(parameters, p.tolist())))
+        values = user_observables(x, dict(zip(parameters, p.tolist(), strict=True)))
         return {str(name): float(value) for name, value in dict(values).items()}
 
     return observables
@@ -705,7 +779,9 @@ class _DifferenceDerivatives:
             direction = np.zeros_like(p)
             direction[k] = 1.0
             columns.append(
-                directional_derivative(lambda q: self._action(x, q, v, levels), p, direction, levels)
+                directional_derivative(
+                    lambda q: self._action(x, q, v, levels), p, direction, levels
+                )
             )
         if not columns:
             return np.zeros((np.asarray(x).shape[0], 0))
@@ -743,10 +819,7 @@ def check_jacobian(model: Model, x: Array, p: Array) -> JacobianCheck:
         matrix = model.jacobian(x, p)
         given = np.asarray(matrix @ directions)
         differences = np.column_stack(
-            [
-                directional_derivative(lambda z: model.rhs(z, p), x, d, 1)
-                for d in directions.T
-            ]
+            [directional_derivative(lambda z: model.rhs(z, p), x, d, 1) for d in directions.T]
         )
         what = f"products with {JACOBIAN_CHECK_DIRECTIONS} random directions"
     return _compare(given, differences, model, what)
@@ -765,7 +838,9 @@ def _compare(given: Array, differences: Array, model: Model, what: str) -> Jacob
     source = model.jacobian_source or "the compiled Jacobian"
     if worst <= JACOBIAN_CHECK_TOLERANCE:
         return JacobianCheck(
-            worst, True, f"{source} agrees with finite differences ({what}; worst relative error {worst:.1e})"
+            worst,
+            True,
+            f"{source} agrees with finite differences ({what}; worst relative error {worst:.1e})",
         )
     i, j = np.unravel_index(int(np.argmax(errors)), errors.shape)
     if what == "every entry":

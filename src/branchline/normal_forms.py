@@ -24,6 +24,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse as sp
+import scipy.sparse.linalg as spla
 
 Array = np.ndarray
 
@@ -31,6 +32,14 @@ Array = np.ndarray
 # model's exact bilinear form, one column per call; above it a central
 # difference of the Jacobian along v costs two Jacobian calls instead of n.
 EXACT_SECOND_MAX_SIZE = 60
+
+# Above this many states the location and normal-form linear algebra is sparse
+# (SuperLU, shift-invert Arnoldi); below it dense LAPACK, which is faster there.
+LARGE_MODEL_SIZE = 300
+
+# Shift-invert Arnoldi at an exactly singular shift fails to factorize; retry
+# this far (relative to the matrix's largest entry) from it.
+SHIFT_OFFSET = 1e-10
 
 # Relative step of the central difference used for d2f/dp2 (the model has no
 # exact form for it) and for large-model directional Jacobians: eps**(1/3)
@@ -60,7 +69,107 @@ def dense(matrix: object) -> Array:
     return matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix)
 
 
-def directional_jacobian(model, x: Array, params: Array, v: Array) -> Array:
+def is_large(size: int) -> bool:
+    """Whether a model of ``size`` states is handled with sparse linear algebra here."""
+    return size > LARGE_MODEL_SIZE
+
+
+def state_jacobian(model, x: Array, params: Array) -> object:
+    """df/dx: a dense ndarray, or scipy.sparse CSC for more than ``LARGE_MODEL_SIZE`` states."""
+    matrix = model.jacobian(x, params)
+    if is_large(x.shape[0]):
+        return sp.csc_matrix(matrix)
+    return dense(matrix)
+
+
+def solve(matrix: object, rhs: Array) -> Array:
+    """matrix^-1 rhs for a dense or sparse square matrix; ``rhs`` may be complex.
+
+    Raises ``np.linalg.LinAlgError`` when the matrix is singular.
+    """
+    if not sp.issparse(matrix):
+        return np.linalg.solve(matrix, rhs)
+    matrix = sp.csc_matrix(matrix)
+    try:
+        factor = spla.splu(matrix)
+    except RuntimeError as exc:  # SuperLU: "Factor is exactly singular"
+        raise np.linalg.LinAlgError(str(exc)) from exc
+    if np.iscomplexobj(rhs) and not np.iscomplexobj(matrix.data):
+        return factor.solve(np.ascontiguousarray(rhs.real)) + 1j * factor.solve(
+            np.ascontiguousarray(rhs.imag)
+        )
+    return factor.solve(rhs)
+
+
+def identity(size: int, like: object) -> object:
+    """The identity, sparse when ``like`` is."""
+    return sp.identity(size, format="csc") if sp.issparse(like) else np.eye(size)
+
+
+def eigenvector_near(matrix: object, shift: complex) -> tuple[complex, Array]:
+    """The eigenvalue of ``matrix`` nearest ``shift`` and a unit eigenvector (dense LAPACK or
+    shift-invert Arnoldi, ``scipy.sparse.linalg.eigs``)."""
+    if sp.issparse(matrix):
+        scale = max(float(abs(matrix).max()), 1.0)
+        for offset in (0.0, SHIFT_OFFSET * scale):
+            try:
+                values, vectors = spla.eigs(matrix, k=1, sigma=shift + offset)
+            except (RuntimeError, spla.ArpackNoConvergence, spla.ArpackError):
+                continue
+            return complex(values[0]), vectors[:, 0] / np.linalg.norm(vectors[:, 0])
+        raise np.linalg.LinAlgError(f"no eigenvalue found near {shift}")
+    values, vectors = np.linalg.eig(matrix)
+    index = int(np.argmin(np.abs(values - shift)))
+    return complex(values[index]), vectors[:, index] / np.linalg.norm(vectors[:, index])
+
+
+def null_vectors(matrix: object) -> tuple[Array, Array]:
+    """Unit (left, right) vectors of the smallest singular value of a square matrix.
+
+    Dense: SVD. Sparse: shift-invert Arnoldi near 0 for the matrix and its
+    transpose (the eigenvectors of the eigenvalue nearest zero, which for a
+    nearly singular matrix span the same near-null spaces).
+    """
+    if sp.issparse(matrix):
+        _, right = eigenvector_near(matrix, 0.0)
+        _, left = eigenvector_near(sp.csc_matrix(matrix.T), 0.0)
+        return left, right
+    u, _, vh = np.linalg.svd(matrix)
+    return u[:, -1], vh[-1].conj()
+
+
+def leading_eigenvalues(matrix: object) -> Array:
+    """Eigenvalues sorted by decreasing real part (all of them for dense matrices; the
+    leading few, as the engine computes them, for sparse ones)."""
+    if sp.issparse(matrix):
+        from branchline.linalg import leading_eigenvalues as sparse_leading
+
+        values = sparse_leading(matrix)
+        return values[np.isfinite(values)]
+    values = np.linalg.eigvals(matrix).astype(complex)
+    return values[np.lexsort((-values.imag, -values.real))]
+
+
+def branch_tangent(model, x: Array, params: Array, k: int, like: Array) -> Array:
+    """Unit null vector of [f_x, f_p] oriented along ``like`` (dense SVD, or for large
+    models the bordered solve [f_x, f_p; like^T] t = e_(n+1))."""
+    a_matrix = state_jacobian(model, x, params)
+    fp = model.parameter_jacobian(x, params)[:, k]
+    if sp.issparse(a_matrix):
+        bordered = sp.vstack(
+            [sp.hstack([a_matrix, sp.csc_matrix(fp.reshape(-1, 1))]), sp.csr_matrix(like)],
+            format="csc",
+        )
+        rhs = np.zeros(x.shape[0] + 1)
+        rhs[-1] = 1.0
+        t = solve(bordered, rhs)
+        t = t / np.linalg.norm(t)
+    else:
+        t = np.linalg.svd(np.column_stack([a_matrix, fp]))[2][-1]
+    return t if t @ like >= 0 else -t
+
+
+def directional_jacobian(model, x: Array, params: Array, v: Array) -> object:
     """The matrix M(v) = d/de f_x(x + e v, p) at e = 0, i.e. M(v) w = B(v, w).
 
     Parameters
@@ -72,7 +181,8 @@ def directional_jacobian(model, x: Array, params: Array, v: Array) -> Array:
 
     Returns
     -------
-    ndarray (n, n), complex when ``v`` is.
+    ndarray (n, n), complex when ``v`` is; scipy.sparse for large models
+    (a central difference of the Jacobian along v).
     """
     n = x.shape[0]
     if n <= EXACT_SECOND_MAX_SIZE:
@@ -83,11 +193,11 @@ def directional_jacobian(model, x: Array, params: Array, v: Array) -> Array:
             model, x, params, v.imag
         )
     size = float(np.linalg.norm(v))
+    h = CENTRAL_STEP * max(1.0, float(np.linalg.norm(x))) / max(size, 1e-300)
+    plus = state_jacobian(model, x + h * v, params)
+    minus = state_jacobian(model, x - h * v, params)
     if size == 0.0:
-        return np.zeros((n, n))
-    h = CENTRAL_STEP * max(1.0, float(np.linalg.norm(x))) / size
-    plus = dense(model.jacobian(x + h * v, params))
-    minus = dense(model.jacobian(x - h * v, params))
+        return plus * 0.0
     return (plus - minus) / (2.0 * h)
 
 
@@ -180,9 +290,8 @@ def fold_normal_form(model, x: Array, params: Array, k: int) -> FoldNormalForm:
     k : int
         Index of the varied parameter.
     """
-    a_matrix = dense(model.jacobian(x, params))
-    left, right, _ = _smallest_singular_vectors(a_matrix)
-    q = _orient(right.real / np.linalg.norm(right))
+    left, right = null_vectors(state_jacobian(model, x, params))
+    q = _orient(right.real / np.linalg.norm(right.real))
     p = left.real / float(left.real @ q)
     bqq = np.asarray(model.second(x, params, q, q), dtype=float)
     a = 0.5 * float(p @ bqq)
@@ -263,20 +372,22 @@ def hopf_normal_form(
         A right eigenvector for i omega (computed from the Jacobian if omitted).
     """
     omega = abs(float(omega))
-    a_matrix = dense(model.jacobian(x, params))
-    n = a_matrix.shape[0]
-    eye = np.eye(n)
+    a_matrix = state_jacobian(model, x, params)
+    eye = identity(a_matrix.shape[0], a_matrix)
     if q is None:
-        _, q, _ = _smallest_singular_vectors(a_matrix - 1j * omega * eye)
-    _, p, _ = _smallest_singular_vectors(a_matrix.T + 1j * omega * eye)
+        _, q = eigenvector_near(a_matrix, 1j * omega)
+    if sp.issparse(a_matrix):
+        _, p = eigenvector_near(sp.csc_matrix(a_matrix.T), -1j * omega)
+    else:
+        _, p, _ = _smallest_singular_vectors(a_matrix.T + 1j * omega * eye)
     q = _orient(np.asarray(q, dtype=complex))
     q = q / np.sqrt(2.0 * _inner(q, q).real)
     p = p / np.conj(_inner(p, q))
     qbar = q.conj()
     bqqbar = model.second(x, params, q, qbar)
     bqq = model.second(x, params, q, q)
-    h11 = np.linalg.solve(a_matrix, bqqbar)
-    h20 = np.linalg.solve(2j * omega * eye - a_matrix, bqq)
+    h11 = solve(a_matrix, bqqbar)
+    h20 = solve(2j * omega * eye - a_matrix, bqq)
     terms = (
         _inner(p, model.third(x, params, q, q, qbar)),
         -2.0 * _inner(p, model.second(x, params, q, h11)),
@@ -327,7 +438,12 @@ class BranchPointNormalForm:
 
 
 def branch_point_normal_form(
-    model, x: Array, params: Array, k: int, psi: Array | None = None
+    model,
+    x: Array,
+    params: Array,
+    k: int,
+    psi: Array | None = None,
+    traced_tangent: Array | None = None,
 ) -> BranchPointNormalForm:
     """Tangents of the branches crossing at a simple branch point (algebraic branching equation).
 
@@ -340,14 +456,50 @@ def branch_point_normal_form(
     k : int
     psi : ndarray (n,), optional
         Left null vector of [f_x, f_p] (computed by SVD if omitted).
+    traced_tangent : ndarray (n + 1,), optional
+        The traced branch's tangent; required for large (sparse) models, where the
+        null space is found from the bordered matrix [f_x, f_p; t^T] (singular
+        exactly at the branch point) by shift-invert Arnoldi instead of an SVD.
     """
-    a_matrix = dense(model.jacobian(x, params))
+    a_matrix = state_jacobian(model, x, params)
     fp = model.parameter_jacobian(x, params)[:, k]
-    g_u = np.column_stack([a_matrix, fp])
-    u, _, vh = np.linalg.svd(g_u)
-    basis = vh[-2:]
-    if psi is None:
-        psi = u[:, -1]
+    if sp.issparse(a_matrix):
+        if traced_tangent is None:
+            raise ValueError("a large model's branch point needs the traced tangent")
+        t = np.asarray(traced_tangent, dtype=float) / np.linalg.norm(traced_tangent)
+        bordered = sp.vstack(
+            [sp.hstack([a_matrix, sp.csc_matrix(fp.reshape(-1, 1))]), sp.csr_matrix(t)],
+            format="csc",
+        )
+        left, right = null_vectors(bordered)
+        if psi is None:
+            psi = left.real[:-1]
+        # the null space of [f_x, f_p] from the nonsingular bordering
+        # [[f_x, f_p, psi], [t^T, 0], [phi^T, 0]] z = e_(n+1), e_(n+2)
+        n = a_matrix.shape[0]
+        phi = right.real / np.linalg.norm(right.real)
+        square = sp.bmat(
+            [
+                [
+                    a_matrix,
+                    sp.csc_matrix(fp.reshape(-1, 1)),
+                    sp.csc_matrix(np.reshape(psi, (n, 1))),
+                ],
+                [sp.csr_matrix(t[:n]), np.array([[t[n]]]), None],
+                [sp.csr_matrix(phi[:n]), np.array([[phi[n]]]), None],
+            ],
+            format="csc",
+        )
+        first = solve(square, np.eye(n + 2)[n + 1])[: n + 1]
+        second = solve(square, np.eye(n + 2)[n])[: n + 1]
+        first = first / np.linalg.norm(first)
+        second = second - (second @ first) * first
+        basis = np.array([first, second / np.linalg.norm(second)])
+    else:
+        u, _, vh = np.linalg.svd(np.column_stack([a_matrix, fp]))
+        basis = vh[-2:]
+        if psi is None:
+            psi = u[:, -1]
     psi = np.asarray(psi, dtype=float) / np.linalg.norm(psi)
     c11 = float(psi @ augmented_second(model, x, params, k, basis[0], basis[0]))
     c12 = float(psi @ augmented_second(model, x, params, k, basis[0], basis[1]))

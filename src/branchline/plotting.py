@@ -22,14 +22,15 @@ import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
+from matplotlib.patches import Patch
 
 from branchline.report import (
     BOOKKEEPING_COLUMNS,
-    _crossing_event,
-    _event_value_at,
-    _matching_event,
+    event_at_change,
     event_label,
+    event_value,
     fmt,
+    hysteresis_windows,
     origin_event,
     state_names,
     trace_events,
@@ -66,6 +67,16 @@ LABEL_OFFSETS = (
 FORMATS = ("png", "svg", "pdf")
 # Panel heights: the diagram gets most of the room.
 HEIGHT_RATIOS = (2.3, 1.0)
+# The eigenvalue panel goes to a symmetric log scale, linear up to the largest
+# positive real part, when the whole range exceeds that part this many times
+# (stiff models would otherwise flatten every crossing of zero into the axis).
+SYMLOG_RATIO = 30.0
+# The operating value given in the scan: a thin dotted vertical line.
+START_COLOUR = "#666666"
+START_STYLE = (0, (1.0, 2.0))
+# Hysteresis windows: a light grey band behind the curves.
+WINDOW_COLOUR = "#888888"
+WINDOW_ALPHA = 0.13
 # Spacing (display pixels) at which curves are sampled when labels look for room.
 LINE_SAMPLE_SPACING = 3.0
 
@@ -117,14 +128,17 @@ def _event_coordinate(
     event: Mapping[str, Any], name: str, rows: pd.DataFrame, states: Sequence[str]
 ) -> float:
     """An event's coordinate: from its own record, else interpolated along its trace."""
-    value = _event_value_at(event, name)
+    value = event_value(event, name)
     if value is not None:
         return value
     state = event.get("state") or {}
     if name == "norm" and state:
         return float(np.sqrt(sum(float(v) ** 2 for v in state.values())))
     column = _column(rows, name, states)
-    return float(np.interp(float(event["arclength"]), rows["arclength"].to_numpy(float), column))
+    position = event.get("arclength")
+    if position is None or rows.empty:
+        return float("nan")  # not placed along a branch: not drawn
+    return float(np.interp(float(position), rows["arclength"].to_numpy(float), column))
 
 
 # --------------------------------------------------------------------------- drawing pieces
@@ -148,18 +162,13 @@ def _runs(
     ys = _column(rows, names[1], states)
     lead = rows["leading_real"].to_numpy(dtype=float)
     stable = rows["stable"].to_numpy(dtype=bool)
-    s = rows["arclength"].to_numpy(dtype=float)
-    p = rows[vary].to_numpy(dtype=float) if vary in rows.columns else None
-    located = trace_events(events, trace)
+    has_vary = vary in rows.columns
 
     def row(i: int) -> tuple[float, float, float, float]:
         return xs[i], ys[i], xs[i], lead[i]
 
     def joint(i: int) -> tuple[float, float, float, float]:
-        event = None
-        if p is not None:
-            event = _matching_event(located, s[i - 1], s[i], p[i - 1], p[i])
-            event = event or _crossing_event(events, rows, i - 1, vary, trace)
+        event = event_at_change(events, rows, i - 1, vary, trace) if has_vary else None
         if event is None:
             return row(i)
         ex = _event_coordinate(event, names[0], rows, states)
@@ -215,9 +224,10 @@ def _drawn_traces(points: pd.DataFrame, info: Mapping[str, Any], x: str) -> list
 
 def _trace_legend_label(name: str, info: Mapping[str, Any]) -> str:
     entry = next((t for t in info.get("traces") or [] if t.get("name") == name), {})
+    label = name if name.lower().startswith("trace") else f"trace {name}"
     if entry.get("parent"):
-        return f"trace {name} (branches off {entry['parent']})"
-    return f"trace {name}"
+        return f"{label} (branches off {entry['parent']})"
+    return label
 
 
 def _boxes_overlap(a, b, pad: float = 2.0) -> bool:
@@ -232,7 +242,7 @@ def _line_vertices(ax) -> np.ndarray:
         xy = line.get_xydata()
         if len(xy) < 2:
             continue
-        shown = ax.transData.transform(xy)
+        shown = line.get_transform().transform(xy)  # axvline: blended data/axes coords
         gaps = np.hypot(*np.diff(shown, axis=0).T)
         pieces = np.maximum(1, np.ceil(gaps / LINE_SAMPLE_SPACING).astype(int))
         for a, b, n in zip(shown[:-1], shown[1:], pieces, strict=True):
@@ -366,6 +376,8 @@ def bifurcation_figure(
     ValueError
         If ``x`` or ``y`` is not a quantity of the results (the message lists those that are).
     """
+    if points.empty or "trace" not in points.columns:
+        return _empty_figure(info)
     default_x, default_y = _default_names(points, info)
     x = x or default_x
     y = y or default_y
@@ -381,13 +393,49 @@ def bifurcation_figure(
         marks = _draw(fig, top, bottom, points, events, info, (x, y), states)
         top.set_ylabel(_axis_label(y, info))
         bottom.set_ylabel("leading eigenvalue,\nreal part (> 0: unstable)")
+        drawn = points[points["trace"].astype(str).isin(_drawn_traces(points, info, x))]
+        _eigenvalue_scale(bottom, drawn["leading_real"].to_numpy(dtype=float))
+        _shade_unstable(bottom)
         bottom.set_xlabel(_axis_label(x, info))
         title = info.get("title")
         if title:
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
-        _legend(fig, top, points, events, info, x)
+        _legend(fig, points, events, info, x)
+        _note_hidden_traces(top, points, info, x)
         _place_labels(fig, top, marks)
     return fig
+
+
+def _empty_figure(info: Mapping[str, Any]) -> Figure:
+    """A figure that says no point was computed (so that a results folder is still whole)."""
+    with mpl.rc_context(_STYLE):
+        fig = Figure(figsize=FIGURE_SIZE, layout="constrained")
+        FigureCanvasAgg(fig)
+        ax = fig.subplots()
+        ax.set_axis_off()
+        message = "No equilibrium was computed"
+        if info.get("message"):
+            message += f":\n{info['message']}"
+        ax.text(0.5, 0.5, message, ha="center", va="center", wrap=True, transform=ax.transAxes)
+        if info.get("title"):
+            fig.suptitle(str(info["title"]), fontsize=FONT_SIZE + 2)
+    return fig
+
+
+def _note_hidden_traces(ax, points: pd.DataFrame, info: Mapping[str, Any], x: str) -> None:
+    """Say which traces are not drawn because they vary another parameter."""
+    drawn = set(_drawn_traces(points, info, x))
+    hidden = [t for t in info.get("traces") or [] if t.get("name") not in drawn]
+    if not hidden:
+        return
+    names = ", ".join(str(t.get("name")) for t in hidden)
+    others = ", ".join(dict.fromkeys(str(t.get("vary")) for t in hidden))
+    ax.set_title(
+        f"Not shown: {names} (varying {others}; draw them with x = {others.split(', ')[0]})",
+        loc="left",
+        fontsize=LABEL_FONT_SIZE,
+        color="#555555",
+    )
 
 
 _STYLE = {
@@ -407,6 +455,8 @@ _STYLE = {
 
 
 def _draw(fig, top, bottom, points, events, info, names, states):
+    """Draw every trace (runs and event markers) in both panels; return the
+    event marks still to be labelled: (x, y, text, colour)."""
     vary_of = {str(t.get("name")): str(t.get("vary")) for t in info.get("traces") or []}
     marks = []
     bottom.axhline(0.0, color="#333333", lw=0.9, zorder=1)
@@ -418,10 +468,13 @@ def _draw(fig, top, bottom, points, events, info, names, states):
         vary = vary_of.get(name) or names[0]
         runs = _runs(rows, events, name, vary, names, states)
         _join_to_origin(runs, rows, origin_event(events, info, name), names, states)
-        for stable, tx, ty, bx, by in runs:
+        for j, (stable, tx, ty, bx, by) in enumerate(runs):
             style = STABLE_STYLE if stable else UNSTABLE_STYLE
-            top.plot(tx, ty, color=colour, ls=style, lw=LINE_WIDTH, zorder=3)
-            bottom.plot(bx, by, color=colour, ls=style, lw=LINE_WIDTH * 0.8, zorder=3)
+            gid = f"branch-{name}-{j}"  # element ids in SVG, for people who edit the file
+            top.plot(tx, ty, color=colour, ls=style, lw=LINE_WIDTH, zorder=3, gid=gid)
+            bottom.plot(
+                bx, by, color=colour, ls=style, lw=LINE_WIDTH * 0.8, zorder=3, gid=gid + "-eig"
+            )
         for event in trace_events(events, name):
             ex = _event_coordinate(event, names[0], rows, states)
             ey = _event_coordinate(event, names[1], rows, states)
@@ -438,14 +491,58 @@ def _draw(fig, top, bottom, points, events, info, names, states):
                     ls="none",
                     zorder=5,
                 )
-            value = _event_value_at(event, names[0])
+            value = event_value(event, names[0])
             text = event_label(event)
             if value is not None:
                 text += f"\n{names[0]} = {fmt(value, 5)}"
             marks.append((ex, ey, text, colour))
     top.margins(x=0.03, y=0.08)
-    _shade_unstable(bottom)
+    _draw_context(top, bottom, points, events, info, names[0])
     return marks
+
+
+def _context(points, events, info, x) -> tuple[list[float], list[tuple[float, float]]]:
+    """Start values of the scanned traces drawn against ``x``, and their hysteresis windows."""
+    drawn = set(_drawn_traces(points, info, x))
+    starts = [
+        float(t["start_value"])
+        for t in info.get("traces") or []
+        if t.get("name") in drawn
+        and not t.get("parent")
+        and t.get("vary") == x
+        and t.get("start_value") is not None
+    ]
+    windows = [
+        (w.low, w.high)
+        for w in hysteresis_windows(points, events, info)
+        if w.bistable and w.trace in drawn and w.vary == x
+    ]
+    return list(dict.fromkeys(starts)), list(dict.fromkeys(windows))
+
+
+def _draw_context(top, bottom, points, events, info, x) -> None:
+    """Mark the operating (start) values and shade the hysteresis windows."""
+    starts, windows = _context(points, events, info, x)
+    for value in starts:
+        for ax in (top, bottom):
+            ax.axvline(value, color=START_COLOUR, ls=START_STYLE, lw=1.0, zorder=2)
+    for low, high in windows:
+        top.axvspan(low, high, color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, zorder=0)
+
+
+def _eigenvalue_scale(ax, values: np.ndarray) -> None:
+    """Switch the eigenvalue panel to a symmetric log scale when strongly damped
+    parts (large negative real parts, stiff models) would squash the unstable
+    side into a sliver: the crossings of zero must stay visible."""
+    finite = values[np.isfinite(values)]
+    positive = finite[finite > 0]
+    if positive.size == 0:
+        return
+    span = float(finite.max() - finite.min())
+    if float(positive.max()) * SYMLOG_RATIO >= span:
+        return
+    ax.set_yscale("symlog", linthresh=float(positive.max()))
+    ax.set_ylabel(ax.get_ylabel() + "\n(linear near 0, log beyond)")
 
 
 def _shade_unstable(ax) -> None:
@@ -456,37 +553,64 @@ def _shade_unstable(ax) -> None:
     ax.set_ylim(lo, hi)
 
 
-def _legend(fig, top, points, events, info, x) -> None:
-    handles = []
-    for k, name in enumerate(_drawn_traces(points, info, x)):
-        colour = TRACE_COLOURS[k % len(TRACE_COLOURS)]
-        handles.append(
-            Line2D([], [], color=colour, lw=LINE_WIDTH, label=_trace_legend_label(name, info))
+def _legend(fig, points, events, info, x) -> None:
+    """One legend under the figure, in three columns: traces, line styles, event kinds."""
+    drawn = _drawn_traces(points, info, x)
+    traces = [
+        Line2D(
+            [],
+            [],
+            color=TRACE_COLOURS[k % len(TRACE_COLOURS)],
+            lw=LINE_WIDTH,
+            label=_trace_legend_label(name, info),
         )
+        for k, name in enumerate(drawn)
+    ]
     grey = "#555555"
-    handles.append(Line2D([], [], color=grey, lw=LINE_WIDTH, ls=STABLE_STYLE, label="stable"))
-    handles.append(Line2D([], [], color=grey, lw=LINE_WIDTH, ls=UNSTABLE_STYLE, label="unstable"))
-    seen = []
+    styles = [
+        Line2D([], [], color=grey, lw=LINE_WIDTH, ls=STABLE_STYLE, label="stable"),
+        Line2D([], [], color=grey, lw=LINE_WIDTH, ls=UNSTABLE_STYLE, label="unstable"),
+    ]
+    starts, windows = _context(points, events, info, x)
+    if starts:
+        styles.append(
+            Line2D([], [], color=START_COLOUR, ls=START_STYLE, lw=1.0, label="start value (scan)")
+        )
+    if windows:
+        styles.append(
+            Patch(color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="hysteresis window")
+        )
+    kinds: dict[str, Line2D] = {}
     for event in events:
         label = event_label(event)
-        if label in seen:
+        if event.get("trace") not in drawn or label in kinds:
             continue
-        seen.append(label)
         marker = EVENT_MARKERS.get(str(event.get("kind")), DEFAULT_MARKER)
-        handles.append(
-            Line2D(
-                [],
-                [],
-                marker=marker,
-                ms=MARKER_SIZE - 1,
-                mfc="white",
-                mec=grey,
-                mew=1.3,
-                ls="none",
-                label=label,
-            )
+        kinds[label] = Line2D(
+            [],
+            [],
+            marker=marker,
+            ms=MARKER_SIZE - 1,
+            mfc="white",
+            mec=grey,
+            mew=1.3,
+            ls="none",
+            label=label,
         )
-    top.legend(handles=handles, loc="best", framealpha=0.92, edgecolor="#BBBBBB")
+    groups = [g for g in (traces, styles, list(kinds.values())) if g]
+    rows = max(len(g) for g in groups)
+    handles = []
+    for group in groups:  # legends fill column by column: pad each group to a full column
+        handles += group + [Line2D([], [], alpha=0.0, label=" ")] * (rows - len(group))
+    # Outside the axes, under the figure: it never hides a curve or a label.
+    fig.legend(
+        handles=handles,
+        loc="outside lower center",
+        ncols=len(groups),
+        frameon=False,
+        handlelength=2.6,
+        columnspacing=2.0,
+    )
 
 
 def save_figure(fig: Figure, path: str | Path) -> Path:

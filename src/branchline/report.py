@@ -109,6 +109,14 @@ class SideMargin:
 
 
 @dataclass(frozen=True)
+class JumpTarget:
+    """A stable equilibrium on a traced branch at a given parameter value."""
+
+    trace: str
+    state: Mapping[str, float]  # interpolated between computed points
+
+
+@dataclass(frozen=True)
 class OperatingMargin:
     """Stability at a trace's start value and the margins to the nearest changes."""
 
@@ -119,6 +127,8 @@ class OperatingMargin:
     unstable_count: int
     decreasing: SideMargin
     increasing: SideMargin
+    # other stable equilibria traced at the start value (a second state to fall into)
+    coexisting: tuple[JumpTarget, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -131,14 +141,6 @@ class HysteresisWindow:
     high: float
     width: float
     bistable: bool  # outer parts stable and the middle unstable: a true hysteresis loop
-
-
-@dataclass(frozen=True)
-class JumpTarget:
-    """A stable equilibrium on a traced branch at a given parameter value."""
-
-    trace: str
-    state: Mapping[str, float]  # interpolated between computed points
 
 
 # --------------------------------------------------------------------------- formatting
@@ -213,16 +215,26 @@ def _trace_info(info: Mapping[str, Any], name: str) -> Mapping[str, Any]:
 
 def trace_rows(points: pd.DataFrame, trace: str) -> pd.DataFrame:
     """The rows of one trace in trace order, index reset."""
-    rows = points[points["trace"] == trace]
+    rows = points[points["trace"].astype(str) == trace]
     if "step" in rows.columns:
         rows = rows.sort_values("step", kind="stable")
-    return rows.reset_index(drop=True)
+    rows = rows.reset_index(drop=True)
+    if "stable" in rows.columns and rows["stable"].dtype != bool:
+        # read from CSV without conversion: "true"/"false" text
+        rows["stable"] = rows["stable"].astype(str).str.strip().str.lower().eq("true")
+    return rows
+
+
+def _arclength(event: Mapping[str, Any]) -> float:
+    """An event's position along its branch (NaN when it has none)."""
+    value = event.get("arclength")
+    return np.nan if value is None else float(value)
 
 
 def trace_events(events: Sequence[Mapping[str, Any]], trace: str) -> list[Mapping[str, Any]]:
     """The events of one trace, ordered by arclength."""
     found = [e for e in events if e.get("trace") == trace]
-    return sorted(found, key=lambda e: float(e.get("arclength") or 0.0))
+    return sorted(found, key=lambda e: (np.isnan(_arclength(e)), _arclength(e)))
 
 
 def _vary_of(info: Mapping[str, Any], events: Sequence[Mapping[str, Any]], trace: str) -> str:
@@ -240,7 +252,7 @@ def state_names(points: pd.DataFrame, info: Mapping[str, Any]) -> list[str]:
     return names
 
 
-def _event_value_at(event: Mapping[str, Any], name: str) -> float | None:
+def event_value(event: Mapping[str, Any], name: str) -> float | None:
     for key in ("parameters", "state"):
         table = event.get(key) or {}
         if name in table:
@@ -259,7 +271,7 @@ def _matching_event(
     """The located event at a stability change between two rows, if any."""
     slack = ARCLENGTH_SLACK * max(1.0, abs(s0), abs(s1))
     lo, hi = min(s0, s1) - slack, max(s0, s1) + slack
-    candidates = [e for e in events if lo <= float(e.get("arclength", np.nan)) <= hi]
+    candidates = [e for e in events if lo <= _arclength(e) <= hi]
     if not candidates:
         plo, phi = min(p0, p1), max(p0, p1)
         pslack = ARCLENGTH_SLACK * max(1.0, abs(plo), abs(phi))
@@ -267,7 +279,7 @@ def _matching_event(
     if not candidates:
         return None
     middle = 0.5 * (s0 + s1)
-    return min(candidates, key=lambda e: abs(float(e.get("arclength", middle)) - middle))
+    return min(candidates, key=lambda e: abs(_arclength(e) - middle))
 
 
 def _crossing_event(
@@ -283,7 +295,12 @@ def _crossing_event(
     for event in events:
         if event.get("trace") == trace or event.get("vary") != vary:
             continue
-        columns = {vary: float(event["value"]), **(event.get("state") or {})}
+        state = event.get("state") or {}
+        columns = {vary: float(event["value"]), **state}
+        if "norm" in pair.columns and "norm" not in state and state:
+            columns["norm"] = float(np.sqrt(sum(float(v) ** 2 for v in state.values())))
+        if not any(name in pair.columns for name in columns if name != vary):
+            continue  # a parameter value alone does not place the event on this branch
         inside = True
         for name, value in columns.items():
             if name not in pair.columns:
@@ -294,6 +311,23 @@ def _crossing_event(
         if inside:
             return {**event, "arclength": float(pair["arclength"].mean())}
     return None
+
+
+def event_at_change(
+    events: Sequence[Mapping[str, Any]], rows: pd.DataFrame, i: int, vary: str, trace: str
+) -> Mapping[str, Any] | None:
+    """The located event between rows ``i`` and ``i + 1`` of a trace, if any.
+
+    First an event of the trace itself (by arclength, then by parameter value),
+    else one of another trace passing through the same point (a switched branch
+    meets its parent's branch point).
+    """
+    s = rows["arclength"].to_numpy(dtype=float)
+    p = rows[vary].to_numpy(dtype=float)
+    own = trace_events(events, trace)
+    return _matching_event(own, s[i], s[i + 1], p[i], p[i + 1]) or _crossing_event(
+        events, rows, i, vary, trace
+    )
 
 
 def _estimated_crossing(rows: pd.DataFrame, i: int, vary: str) -> float:
@@ -338,11 +372,9 @@ def stability_intervals(
     changes = [i for i in range(len(rows) - 1) if stable[i] != stable[i + 1]]
     edges: list[tuple[float, bool, str | None, float]] = []  # value, exact, kind, arclength
     for i in changes:
-        event = _matching_event(located, arclength[i], arclength[i + 1], values[i], values[i + 1])
-        if event is None:
-            event = _crossing_event(events, rows, i, vary, trace)
+        event = event_at_change(events, rows, i, vary, trace)
         if event is not None:
-            edges.append((float(event["value"]), True, event["kind"], float(event["arclength"])))
+            edges.append((float(event["value"]), True, event["kind"], _arclength(event)))
         else:
             mid = 0.5 * (arclength[i] + arclength[i + 1])
             edges.append((_estimated_crossing(rows, i, vary), False, None, mid))
@@ -356,7 +388,7 @@ def stability_intervals(
         folds = tuple(
             float(e["value"])
             for e in located
-            if e["kind"] == "fold" and start[3] < float(e["arclength"]) < end[3]
+            if e["kind"] == "fold" and start[3] < _arclength(e) < end[3]
         )
         intervals.append(
             StabilityInterval(
@@ -398,13 +430,13 @@ def _side_margin(
     s0 = arclength[start]
     if side == "decreasing":
         traced = start > 0
-        ahead = [e for e in located if float(e["arclength"]) <= s0]
-        event = max(ahead, key=lambda e: float(e["arclength"])) if ahead else None
+        ahead = [e for e in located if _arclength(e) <= s0]
+        event = max(ahead, key=lambda e: _arclength(e)) if ahead else None
         reach = float(rows[vary].iloc[0])
     else:
         traced = start < len(rows) - 1
-        ahead = [e for e in located if float(e["arclength"]) >= s0]
-        event = min(ahead, key=lambda e: float(e["arclength"])) if ahead else None
+        ahead = [e for e in located if _arclength(e) >= s0]
+        event = min(ahead, key=lambda e: _arclength(e)) if ahead else None
         reach = float(rows[vary].iloc[-1])
     reached_edge = False
     if interval is not None and len(interval) == 2:
@@ -453,9 +485,22 @@ def operating_margins(
                 unstable_count=count,
                 decreasing=_side_margin("decreasing", rows, located, vary, start_value, interval),
                 increasing=_side_margin("increasing", rows, located, vary, start_value, interval),
+                coexisting=_coexisting(points, rows, start, name, vary, start_value, info),
             )
         )
     return margins
+
+
+def _coexisting(points, rows, start, name, vary, start_value, info) -> tuple[JumpTarget, ...]:
+    """Stable equilibria at the start value other than the start point itself."""
+    here = {
+        "trace": name,
+        "vary": vary,
+        "value": start_value,
+        "arclength": float(rows["arclength"].iloc[start]),
+        "state": {c: float(rows[c].iloc[start]) for c in state_names(points, info)},
+    }
+    return tuple(jump_targets(points, here, info))
 
 
 # --------------------------------------------------------------------------- folds and jumps
@@ -494,7 +539,7 @@ def _is_bistable(rows: pd.DataFrame, first: Mapping[str, Any], second: Mapping[s
         return False
     s = rows["arclength"].to_numpy(dtype=float)
     stable = rows["stable"].to_numpy(dtype=bool)
-    s1, s2 = float(first["arclength"]), float(second["arclength"])
+    s1, s2 = _arclength(first), _arclength(second)
     middle = stable[(s > s1) & (s < s2)]
     before, after = stable[s < s1], stable[s > s2]
     return (
@@ -510,7 +555,7 @@ def _is_bistable(rows: pd.DataFrame, first: Mapping[str, Any], second: Mapping[s
 def _neighbours(rows: pd.DataFrame, event: Mapping[str, Any]) -> tuple[int | None, int | None]:
     """Indices of the last row before and the first row after the event (by arclength)."""
     s = rows["arclength"].to_numpy(dtype=float)
-    se = float(event.get("arclength", np.nan))
+    se = _arclength(event)
     before = np.nonzero(s < se)[0]
     after = np.nonzero(s > se)[0]
     return (int(before[-1]) if before.size else None, int(after[0]) if after.size else None)
@@ -542,7 +587,7 @@ def jump_targets(
         p = rows[vary].to_numpy(dtype=float)
         s = rows["arclength"].to_numpy(dtype=float)
         stable = rows["stable"].to_numpy(dtype=bool)
-        se = float(event.get("arclength", np.nan))
+        se = _arclength(event)
         slack = ARCLENGTH_SLACK * max(1.0, abs(se)) if np.isfinite(se) else 0.0
         for i in range(len(rows) - 1):
             if not (stable[i] and stable[i + 1]):
@@ -558,7 +603,13 @@ def jump_targets(
             }
             if not any(_same_state(state, t.state) for t in targets):
                 targets.append(JumpTarget(name, state))
-    return targets
+    origin = event.get("state") or {}
+
+    def distance(target: JumpTarget) -> float:
+        shared = [k for k in target.state if k in origin]
+        return float(np.hypot.reduce([target.state[k] - float(origin[k]) for k in shared] or [0.0]))
+
+    return sorted(targets, key=distance)
 
 
 def _varies(rows: pd.DataFrame, column: str) -> bool:
@@ -615,12 +666,23 @@ def _read_fold(points, event, info) -> str:
         "must then jump to another state."
     )
     targets = jump_targets(points, event, info)
-    if targets:
-        where = "; or ".join(
-            f"the stable branch of trace {t.trace} near {_state_text(t.state, APPROX_DIGITS)}"
-            for t in targets
+    if len(targets) == 1:
+        (target,) = targets
+        text += (
+            " The only other stable equilibrium traced at this value is on trace "
+            f"{target.trace}, near {_state_text(target.state, APPROX_DIGITS)} (read off the "
+            "computed points): the state will most likely settle there, unless it starts to "
+            "oscillate or heads for something not traced."
         )
-        text += f" Among the traced branches it lands on {where} (read off the computed points)."
+    elif targets:
+        where = "; ".join(
+            f"trace {t.trace} near {_state_text(t.state, APPROX_DIGITS)}" for t in targets
+        )
+        text += (
+            f" Stable equilibria traced at this value, nearest first: {where} (read off the "
+            "computed points). Which one the state reaches depends on the dynamics, which "
+            "this report does not simulate."
+        )
     else:
         text += (
             " No other stable equilibrium was traced at this value, so where it goes is not "
@@ -690,7 +752,16 @@ def _read_branch_point(points, event, info) -> str:
     vary, value = str(event["vary"]), float(event["value"])
     head = f"**Branch point at {vary} = {fmt(value)}** (trace {event['trace']})"
     branching = event.get("branching")
-    if branching == "transcritical":
+    rows = trace_rows(points, str(event["trace"]))
+    before, after = _neighbours(rows, event) if not rows.empty else (None, None)
+    flags = [bool(rows["stable"].iloc[i]) for i in (before, after) if i is not None]
+    if flags and not any(flags):
+        kind = f" ({branching})" if branching else ""
+        text = (
+            head + f": two branches of equilibria cross{kind} on a part of this branch that "
+            "is unstable on both sides; no stable state changes here."
+        )
+    elif branching == "transcritical":
         text = (
             head + ": an exchange of stability (transcritical). Two branches of equilibria "
             "cross here and swap stability: the one that was stable becomes unstable and the "
@@ -699,8 +770,8 @@ def _read_branch_point(points, event, info) -> str:
     elif branching == "pitchfork":
         text = (
             head + ": symmetry-breaking (pitchfork). A pair of new branches splits off on one "
-            "side; which of them the state follows is decided by small asymmetries of the "
-            "real system."
+            "side of this value; which of them the state follows is decided by small "
+            "asymmetries of the real system."
         )
     else:
         text = head + ": two branches of equilibria cross here (type not determined)."
@@ -935,6 +1006,10 @@ def _margin_side_text(margin: OperatingMargin, side: SideMargin) -> str:
     )
 
 
+def _targets_text(targets: Sequence[JumpTarget]) -> str:
+    return "; ".join(f"trace {t.trace} near {_state_text(t.state, APPROX_DIGITS)}" for t in targets)
+
+
 def _margins_section(points, events, info) -> list[str]:
     margins = operating_margins(points, events, info)
     if not margins:
@@ -951,6 +1026,8 @@ def _margins_section(points, events, info) -> list[str]:
         out.append(f"- Trace **{m.trace}** at {m.vary} = {fmt(m.start_value)}: {state}.")
         out.append(f"  - lowering {m.vary}: {_margin_side_text(m, m.decreasing)}")
         out.append(f"  - raising {m.vary}: {_margin_side_text(m, m.increasing)}")
+        if m.coexisting:
+            out.append(f"  - other stable states at this value: {_targets_text(m.coexisting)}")
     out.append("")
     return out
 
@@ -961,8 +1038,12 @@ def _readings_section(points, events, info) -> list[str]:
     out = ["## What the stability changes mean", ""]
     for event in events:
         out += [f"- {read_event(points, event, info)}"]
-    for window in hysteresis_windows(points, events, info):
+    windows = hysteresis_windows(points, events, info)
+    loops = {w.trace for w in windows if w.bistable}
+    for window in windows:
         v = window.vary
+        if window.trace in loops and not window.bistable:
+            continue  # the overlap of two hysteresis loops says nothing new
         if window.bistable:
             out.append(
                 f"- **Hysteresis window** on trace {window.trace}: between {v} = "
@@ -1012,6 +1093,56 @@ def _failure_section(points: pd.DataFrame, info: Mapping[str, Any]) -> list[str]
     return out
 
 
+def _count_words(events: Sequence[Mapping[str, Any]]) -> str:
+    counts: dict[str, int] = {}
+    for event in events:
+        label = event_label(event)
+        counts[label] = counts.get(label, 0) + 1
+    return ", ".join(f"{n} × {label}" for label, n in counts.items())
+
+
+def _brief_section(points, events, info) -> list[str]:
+    """The findings at a glance: what was found, and each operating point's margin."""
+    out = ["## In brief", ""]
+    if events:
+        out.append(f"- Stability changes located: {_count_words(events)}.")
+    else:
+        out.append("- No stability change was located on any trace.")
+    for m in operating_margins(points, events, info):
+        sides = [s for s in (m.decreasing, m.increasing) if s.event is not None]
+        state = "stable" if m.stable else "**unstable**"
+        line = f"- At {m.vary} = {fmt(m.start_value)} (trace {m.trace}) the equilibrium is {state}"
+        if sides:
+            near = min(sides, key=lambda s: s.absolute)
+            relative = (
+                f", {fmt(100.0 * near.relative, 3)} % of the start value"
+                if near.relative is not None
+                else ""
+            )
+            line += (
+                f"; the nearest change along the branch is a {event_label(near.event)} at "
+                f"{m.vary} = {fmt(near.event['value'])} ({fmt(near.absolute, 4)} away{relative})"
+            )
+        else:
+            line += "; no stability change was found along its traced branch"
+        out.append(line + ".")
+        if m.coexisting:
+            out.append(
+                f"- At that value another stable state exists ({_targets_text(m.coexisting)}): "
+                "a disturbance or a past excursion can leave the system there."
+            )
+    for window in hysteresis_windows(points, events, info):
+        if window.bistable:
+            out.append(
+                f"- Hysteresis between {window.vary} = {fmt(window.low)} and {fmt(window.high)} "
+                f"(trace {window.trace}): two stable states coexist there."
+            )
+    if info.get("status") == "failed":
+        out.append("- **The run stopped early**; see the next section for where and why.")
+    out.append("")
+    return out
+
+
 def render_report(
     points: pd.DataFrame, events: Sequence[Mapping[str, Any]], info: Mapping[str, Any]
 ) -> str:
@@ -1041,6 +1172,7 @@ def render_report(
         + (f" from `{info['scan']}`." if info.get("scan") else ".")
     )
     out.append("")
+    out += _brief_section(points, events, info)
     out += _failure_section(points, info)
     out += _model_section(info)
     out += _scan_section(info)

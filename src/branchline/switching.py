@@ -18,7 +18,7 @@ from collections.abc import Callable
 import numpy as np
 
 from branchline.events import correct_on_branch
-from branchline.normal_forms import branch_point_normal_form, dense
+from branchline.normal_forms import branch_point_normal_form, branch_tangent
 from branchline.results import Branch, Event
 
 Array = np.ndarray
@@ -56,12 +56,6 @@ def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
     if tangents.shape[0] != 2:
         return None
     return tangents[1 - int(traced)]
-
-
-def _branch_tangent(model, x: Array, full: Array, k: int, like: Array) -> Array:
-    g_u = np.column_stack([dense(model.jacobian(x, full)), model.parameter_jacobian(x, full)[:, k]])
-    t = np.linalg.svd(g_u)[2][-1]
-    return t if t @ like >= 0 else -t
 
 
 def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, float, Array]]:
@@ -103,7 +97,7 @@ def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, floa
         if not lo <= u[-1] <= hi:
             continue
         full = _with_value(event.parameters, k, u[-1])
-        t = _branch_tangent(model, u[:-1], full, k, tangent)
+        t = branch_tangent(model, u[:-1], full, k, tangent)
         if float(t @ tangent) < SMALLEST_TANGENT_COSINE:
             continue
         starts.append((u[:-1].copy(), float(u[-1]), t))
