@@ -490,8 +490,10 @@ def branch_point_normal_form(
             ],
             format="csc",
         )
-        first = solve(square, np.eye(n + 2)[n + 1])[: n + 1]
-        second = solve(square, np.eye(n + 2)[n])[: n + 1]
+        unit_t, unit_phi = np.zeros(n + 2), np.zeros(n + 2)
+        unit_t[n + 1], unit_phi[n] = 1.0, 1.0
+        first = solve(square, unit_t)[: n + 1]
+        second = solve(square, unit_phi)[: n + 1]
         first = first / np.linalg.norm(first)
         second = second - (second @ first) * first
         basis = np.array([first, second / np.linalg.norm(second)])

@@ -87,7 +87,7 @@ def write_results(result: RunResult, folder: str | Path, *, figures: bool = True
 
 
 def _read_points(path: Path) -> pd.DataFrame:
-    frame = pd.read_csv(path, float_precision="round_trip")
+    frame = pd.read_csv(path)
     if "stable" in frame.columns:
         frame["stable"] = frame["stable"].astype(str).str.lower().eq("true")
     return frame
