@@ -217,4 +217,11 @@ def main(argv: list[str] | None = None) -> int:
 
     matplotlib.use("Agg")
     args = build_parser().parse_args(argv)
-    return args.handler(args)
+    try:
+        return args.handler(args)
+    except BrokenPipeError:
+        # The reader (e.g. `| head`) closed the pipe; that is not an error of ours.
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
