@@ -1,11 +1,14 @@
 """The bifurcation diagram, drawn from synthetic tables with known events.
 
-The tables are the closed-form cases of tests/test_report.py (S-shaped branch
+The tables are the closed-form cases of tests/tables_for_tests.py (S-shaped branch
 of x' = p + x - x^3, Hopf normal form, transcritical exchange); see there for
 the sources.
 """
 
 from __future__ import annotations
+
+import subprocess
+import sys
 
 import matplotlib.image as mpimg
 import numpy as np
@@ -21,7 +24,13 @@ from branchline.plotting import (
     bifurcation_figure,
     save_figure,
 )
-from test_report import hopf_tables, s_curve_tables, transcritical_tables
+from tables_for_tests import (
+    FOLD_P,
+    hopf_tables,
+    s_curve_tables,
+    s_curve_with_hopf_tables,
+    transcritical_tables,
+)
 
 
 def _curves(ax) -> list:
@@ -94,6 +103,52 @@ def test_hopf_and_switched_trace_in_the_legend():
     assert colours == {TRACE_COLOURS[0], TRACE_COLOURS[1]}
 
 
+def test_hysteresis_band_covers_where_two_stable_states_coexist():
+    # lower branch unstable from a Hopf point at p = 0.2 to its fold: the band runs
+    # from the upper branch's fold (-FOLD_P) to the Hopf point, not to the other fold
+    points, events, info = s_curve_with_hopf_tables(hopf_p=0.2)
+    fig = bifurcation_figure(points, events, info)
+    top = fig.axes[0]
+    (band,) = top.patches
+    xs = top.transData.inverted().transform(band.get_verts())[:, 0]
+    assert (xs.min(), xs.max()) == pytest.approx((-FOLD_P, 0.2), abs=1e-9)
+    assert "hysteresis window" in [t.get_text() for t in fig.legends[0].get_texts()]
+    # no fold pair, no band
+    points, events, info = hopf_tables()
+    fig = bifurcation_figure(points, events, info)
+    assert not fig.axes[0].patches
+    assert "hysteresis window" not in [t.get_text() for t in fig.legends[0].get_texts()]
+
+
+def test_layout_is_settled_once_and_each_file_is_drawn_once(tmp_path, monkeypatch):
+    points, events, info = s_curve_tables()
+    fig = bifurcation_figure(points, events, info)
+    # the labels were placed against this layout, so it must not be redone
+    assert fig.get_layout_engine() is None
+    placed = [ax.get_position().bounds for ax in fig.axes]
+    draws = []
+    draw = Figure.draw
+
+    def counted(self, renderer):
+        draws.append(type(renderer).__name__)
+        return draw(self, renderer)
+
+    monkeypatch.setattr(Figure, "draw", counted)
+    save_figure(fig, tmp_path / "diagram.png")
+    save_figure(fig, tmp_path / "diagram.svg")
+    assert len(draws) == 2
+    assert [ax.get_position().bounds for ax in fig.axes] == placed
+
+
+def test_importing_report_and_diagram_modules_leaves_pyplot_alone():
+    code = (
+        "import sys, branchline.plotting, branchline.report; "
+        "print(sorted(m for m in ('matplotlib.pyplot', 'sympy', 'scipy') if m in sys.modules))"
+    )
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert done.stdout.strip() == "[]"
+
+
 def test_labels_do_not_overlap():
     points, events, info = s_curve_tables()
     fig = bifurcation_figure(points, events, info)
@@ -129,9 +184,7 @@ def test_saves_png_and_svg(tmp_path):
     assert png.stat().st_size > 20_000
     pixels = mpimg.imread(png)
     height, width = pixels.shape[:2]
-    # bbox "tight" trims the margins a little, never below 85 % of the nominal size
-    assert 0.85 * FIGURE_SIZE[0] * PNG_DPI <= width <= 1.02 * FIGURE_SIZE[0] * PNG_DPI
-    assert 0.85 * FIGURE_SIZE[1] * PNG_DPI <= height <= 1.02 * FIGURE_SIZE[1] * PNG_DPI
+    assert (width, height) == (round(FIGURE_SIZE[0] * PNG_DPI), round(FIGURE_SIZE[1] * PNG_DPI))
     assert pixels[..., :3].std() > 0.01  # not a blank image
     text = svg.read_text(encoding="utf-8")
     assert text.lstrip().startswith("<?xml") and "<svg" in text

@@ -42,6 +42,7 @@ from functools import lru_cache
 import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
+from scipy.optimize import linear_sum_assignment
 
 from branchline.normal_forms import (
     branch_point_normal_form,
@@ -407,17 +408,37 @@ def _upper_eigenvalues(row: Array) -> Array:
 
 
 def _hopf_crossings(before: Array, after: Array) -> list[tuple[float, float]]:
-    """Complex pairs whose real part changes sign between two rows: (fraction, omega guess)."""
+    """Complex pairs whose real part changes sign between two rows: (fraction, omega guess).
+
+    Upper-half-plane eigenvalues of the two rows are matched by the assignment
+    that minimizes the sum of squared distances (``linear_sum_assignment``),
+    which keeps the order of a cluster of eigenvalues moving together, where
+    nearest-neighbour matching would mix them up. If the count of unstable
+    pairs changes by more than the matched crossings, the remaining crossings
+    are seeded from the pairs nearest the imaginary axis.
+    """
     upper_a, upper_b = _upper_eigenvalues(before), _upper_eigenvalues(after)
+    if upper_a.shape[0] == 0 or upper_b.shape[0] == 0:
+        return []
+    cost = np.abs(upper_a[:, None] - upper_b[None, :]) ** 2
+    rows, cols = linear_sum_assignment(cost)
     crossings = []
-    for value in upper_a:
-        if upper_b.shape[0] == 0:
-            break
-        match = upper_b[int(np.argmin(np.abs(upper_b - value)))]
-        if np.sign(value.real) != np.sign(match.real) and (value.real != 0 or match.real != 0):
+    for i, j in zip(rows, cols, strict=True):
+        value, match = upper_a[i], upper_b[j]
+        if (value.real > 0.0) != (match.real > 0.0):
             fraction = _interpolate_fraction(value.real, match.real)
             omega = float(value.imag + fraction * (match.imag - value.imag))
             crossings.append((fraction, omega))
+    change = abs(
+        int(np.count_nonzero(upper_a.real > 0.0)) - int(np.count_nonzero(upper_b.real > 0.0))
+    )
+    if change > len(crossings):
+        used = {round(omega, 12) for _, omega in crossings}
+        for value in upper_b[np.argsort(np.abs(upper_b.real))]:
+            if len(crossings) >= change:
+                break
+            if round(float(value.imag), 12) not in used:
+                crossings.append((0.5, float(value.imag)))
     return crossings
 
 
@@ -436,6 +457,8 @@ def _complex_count_changes(eigenvalues: Array) -> list[int]:
 def _nearest_pair(row: Array) -> tuple[complex, complex]:
     """The pair (lambda_i, lambda_j), i < j, with the smallest |lambda_i + lambda_j|."""
     lam = row[np.isfinite(row)]
+    if lam.shape[0] < 2:
+        return complex(math.nan), complex(math.nan)
     i, j = _pair_indices(lam.shape[0])
     best = int(np.argmin(np.abs(lam[i] + lam[j])))
     return complex(lam[i[best]]), complex(lam[j[best]])
@@ -860,12 +883,16 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
 def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
     """True when, besides +-i omega, the Jacobian has an eigenvalue within rounding of 0."""
     if sps.issparse(a_matrix):
+        # large model: |A^-1 r| for a random r estimates 1/(smallest |eigenvalue|)
+        # well enough to see a near-singular A (common practice of condition estimators)
         scale = max(float(abs(a_matrix).max()), 1e-300)
         try:
-            value, _ = eigenvector_near(a_matrix, 0.0)
-        except np.linalg.LinAlgError:
-            return True
-        return abs(value) <= ZERO_EIGENVALUE_RTOL * scale and abs(abs(value.imag) - omega) > 0
+            factor = spla.splu(sps.csc_matrix(a_matrix))
+        except RuntimeError:
+            return True  # exactly singular
+        probe = np.random.default_rng(0).standard_normal(a_matrix.shape[0])
+        growth = float(np.linalg.norm(factor.solve(probe))) / float(np.linalg.norm(probe))
+        return growth * scale >= 1.0 / ZERO_EIGENVALUE_RTOL
     values = np.linalg.eigvals(a_matrix)
     scale = max(float(np.max(np.abs(values))), 1e-300)
     others = values[np.abs(np.abs(values.imag) - omega) > ZERO_EIGENVALUE_RTOL * scale]

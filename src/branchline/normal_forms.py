@@ -37,6 +37,10 @@ EXACT_SECOND_MAX_SIZE = 60
 # (SuperLU, shift-invert Arnoldi); below it dense LAPACK, which is faster there.
 LARGE_MODEL_SIZE = 300
 
+# Eigenvalues asked of shift-invert Arnoldi around a shift: more than one, so
+# that a conjugate pair at equal distance from a real shift does not stall it.
+ARNOLDI_COUNT = 4
+
 # Shift-invert Arnoldi at an exactly singular shift fails to factorize; retry
 # this far (relative to the matrix's largest entry) from it.
 SHIFT_OFFSET = 1e-10
@@ -111,12 +115,14 @@ def eigenvector_near(matrix: object, shift: complex) -> tuple[complex, Array]:
     shift-invert Arnoldi, ``scipy.sparse.linalg.eigs``)."""
     if sp.issparse(matrix):
         scale = max(float(abs(matrix).max()), 1.0)
+        count = max(1, min(ARNOLDI_COUNT, matrix.shape[0] - 2))
         for offset in (0.0, SHIFT_OFFSET * scale):
             try:
-                values, vectors = spla.eigs(matrix, k=1, sigma=shift + offset)
+                values, vectors = spla.eigs(matrix, k=count, sigma=shift + offset)
             except (RuntimeError, spla.ArpackNoConvergence, spla.ArpackError):
                 continue
-            return complex(values[0]), vectors[:, 0] / np.linalg.norm(vectors[:, 0])
+            index = int(np.argmin(np.abs(values - shift)))
+            return complex(values[index]), vectors[:, index] / np.linalg.norm(vectors[:, index])
         raise np.linalg.LinAlgError(f"no eigenvalue found near {shift}")
     values, vectors = np.linalg.eig(matrix)
     index = int(np.argmin(np.abs(values - shift)))

@@ -19,13 +19,15 @@ from typing import Any
 import matplotlib as mpl
 import numpy as np
 import pandas as pd
+from matplotlib.backend_bases import RendererBase
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-from branchline.report import (
+from branchline.reading import (
     BOOKKEEPING_COLUMNS,
+    bistable_ranges,
     event_at_change,
     event_label,
     event_value,
@@ -33,7 +35,11 @@ from branchline.report import (
     hysteresis_windows,
     origin_event,
     state_names,
+    state_norm,
+    trace_entries,
+    trace_entry,
     trace_events,
+    trace_names,
     trace_rows,
 )
 
@@ -74,9 +80,13 @@ SYMLOG_RATIO = 30.0
 # The operating value given in the scan: a thin dotted vertical line.
 START_COLOUR = "#666666"
 START_STYLE = (0, (1.0, 2.0))
-# Hysteresis windows: a light grey band behind the curves.
-WINDOW_COLOUR = "#888888"
-WINDOW_ALPHA = 0.13
+# Hysteresis windows: a grey band behind the curves, a shade darker than the
+# grid lines (#DDDDDD) so that it reads as an area, light enough to keep every
+# curve, label and dotted guide in front of it legible.
+WINDOW_COLOUR = "#7F7F7F"
+WINDOW_ALPHA = 0.2
+# Element id of the dotted start-value guides: a label may cross one sooner than a curve.
+GUIDE_GID = "start-value"
 # Spacing (display pixels) at which curves are sampled when labels look for room.
 LINE_SAMPLE_SPACING = 3.0
 
@@ -106,7 +116,7 @@ def _check_name(points: pd.DataFrame, name: str, axis: str) -> None:
 
 
 def _default_names(points: pd.DataFrame, info: Mapping[str, Any]) -> tuple[str, str]:
-    traces = info.get("traces") or []
+    traces = trace_entries(info)
     x = traces[0].get("vary") if traces else None
     if not x:
         parameters = (info.get("model") or {}).get("parameters") or {}
@@ -133,7 +143,7 @@ def _event_coordinate(
         return value
     state = event.get("state") or {}
     if name == "norm" and state:
-        return float(np.sqrt(sum(float(v) ** 2 for v in state.values())))
+        return state_norm(state)
     column = _column(rows, name, states)
     position = event.get("arclength")
     if position is None or rows.empty:
@@ -216,14 +226,14 @@ def _join_to_origin(runs, rows, origin, names, states) -> None:
 
 def _drawn_traces(points: pd.DataFrame, info: Mapping[str, Any], x: str) -> list[str]:
     """Traces to draw against ``x``: those varying ``x`` if any does, else all."""
-    names = list(dict.fromkeys(points["trace"].astype(str)))
-    varies = {str(t.get("name")): t.get("vary") for t in info.get("traces") or []}
+    names = trace_names(points, [])
+    varies = {str(t.get("name")): t.get("vary") for t in trace_entries(info)}
     matching = [n for n in names if varies.get(n) == x]
     return matching or names
 
 
 def _trace_legend_label(name: str, info: Mapping[str, Any]) -> str:
-    entry = next((t for t in info.get("traces") or [] if t.get("name") == name), {})
+    entry = trace_entry(info, name)
     label = name if name.lower().startswith("trace") else f"trace {name}"
     if entry.get("parent"):
         return f"{label} (branches off {entry['parent']})"
@@ -234,14 +244,14 @@ def _boxes_overlap(a, b, pad: float = 2.0) -> bool:
     return not (a.x1 + pad < b.x0 or b.x1 + pad < a.x0 or a.y1 + pad < b.y0 or b.y1 + pad < a.y0)
 
 
-def _line_vertices(ax) -> np.ndarray:
-    """Display coordinates of the drawn curves, densified so that a label box
-    lying across a long straight segment still contains vertices of it."""
+def _line_vertices(lines) -> np.ndarray:
+    """Display coordinates of drawn lines, densified so that a label box lying
+    across a long straight segment still contains vertices of it."""
     chunks = []
-    for line in ax.get_lines():
+    for line in lines:
         xy = line.get_xydata()
         if len(xy) < 2:
-            continue
+            continue  # an event marker: kept clear through its own box
         shown = line.get_transform().transform(xy)  # axvline: blended data/axes coords
         gaps = np.hypot(*np.diff(shown, axis=0).T)
         pieces = np.maximum(1, np.ceil(gaps / LINE_SAMPLE_SPACING).astype(int))
@@ -251,19 +261,55 @@ def _line_vertices(ax) -> np.ndarray:
     return np.vstack(chunks) if chunks else np.empty((0, 2))
 
 
-def _place_labels(fig: Figure, ax, marks: list[tuple[float, float, str, str]]) -> None:
+def _crosses(vertices: np.ndarray, box) -> bool:
+    return bool(
+        np.any(
+            (vertices[:, 0] >= box.x0)
+            & (vertices[:, 0] <= box.x1)
+            & (vertices[:, 1] >= box.y0)
+            & (vertices[:, 1] <= box.y1)
+        )
+    )
+
+
+def _fix_layout(fig: Figure) -> RendererBase:
+    """Run the constrained layout once, then keep it: return the renderer it used.
+
+    Labels are placed against this layout (so it must not move afterwards),
+    and saving then draws each file once instead of laying the figure out
+    again first. Positions are fractions of the figure, so the layout holds at
+    any resolution. No pixels are rendered here.
+    """
+    renderer = fig.canvas.get_renderer()
+    engine = fig.get_layout_engine()
+    if engine is not None:
+        engine.execute(fig)
+    for ax in fig.axes:
+        ax.viewLim  # noqa: B018 (reading it applies pending autoscaling, as a draw would)
+    # No engine at all (a placeholder engine would still make savefig lay out again);
+    # None means "from rcParams", so pin those off.
+    with mpl.rc_context({"figure.autolayout": False, "figure.constrained_layout.use": False}):
+        fig.set_layout_engine(None)
+    return renderer
+
+
+def _place_labels(
+    fig: Figure, ax, marks: list[tuple[float, float, str, str]], renderer: RendererBase
+) -> None:
     """Annotate event marks, trying offsets in turn.
 
-    A label goes at the first offset where it stays inside the axes and clear
-    of other labels, the event markers and the curves; failing that, at the
-    first offset clear of labels and markers (it may then lie across a curve,
-    on its white box); a label that fits nowhere is left out (the marker and
-    the legend still show the event).
+    A label must stay inside the axes, clear of other labels and of the event
+    markers. Among the offsets that allow this it goes at the first one clear
+    of every line; failing that, at the first one that only crosses a dotted
+    guide (start value); failing that, at the first one at all (lying across a
+    curve, on its white box). A label that fits nowhere is left out (the marker
+    and the legend still show the event). Extents come from ``renderer`` (text
+    measurement only): nothing is drawn.
     """
-    fig.canvas.draw()  # settles the layout, so positions below are final
-    renderer = fig.canvas.get_renderer()
     frame = ax.get_window_extent(renderer)
-    curves = _line_vertices(ax)
+    lines = ax.get_lines()
+    guides = _line_vertices([line for line in lines if line.get_gid() == GUIDE_GID])
+    curves = _line_vertices([line for line in lines if line.get_gid() != GUIDE_GID])
     taken = []
     for x, y, _, _ in marks:
         cx, cy = ax.transData.transform((x, y))
@@ -271,34 +317,9 @@ def _place_labels(fig: Figure, ax, marks: list[tuple[float, float, str, str]]) -
         taken.append(mpl.transforms.Bbox.from_bounds(cx - size / 2, cy - size / 2, size, size))
     for index, (x, y, text, colour) in enumerate(marks):
         others = [box for k, box in enumerate(taken) if k != index]
-        chosen = fallback = None
+        best = None  # (rank, annotation, box): rank 0 clear, 1 across a guide, 2 across a curve
         for dx, dy in LABEL_OFFSETS:
-            note = ax.annotate(
-                text,
-                (x, y),
-                xytext=(dx, dy),
-                textcoords="offset points",
-                ha="left" if dx >= 0 else "right",
-                va="bottom" if dy >= 0 else "top",
-                fontsize=LABEL_FONT_SIZE,
-                multialignment="left",
-                color="#222222",
-                bbox={
-                    "boxstyle": "round,pad=0.25",
-                    "fc": "white",
-                    "ec": colour,
-                    "lw": 0.6,
-                    "alpha": 0.92,
-                },
-                arrowprops={
-                    "arrowstyle": "-",
-                    "color": colour,
-                    "lw": 0.6,
-                    "shrinkA": 0,
-                    "shrinkB": 4,
-                },
-                zorder=6,
-            )
+            note = _event_label(ax, x, y, text, colour, (dx, dy))
             # the text's own box (the annotation's extent would include the arrow)
             note.update_positions(renderer)
             box = mpl.text.Text.get_window_extent(note, renderer).padded(3.0)
@@ -311,24 +332,36 @@ def _place_labels(fig: Figure, ax, marks: list[tuple[float, float, str, str]]) -
             if not inside or any(_boxes_overlap(box, other) for other in others):
                 note.remove()
                 continue
-            crossed = np.any(
-                (curves[:, 0] >= box.x0)
-                & (curves[:, 0] <= box.x1)
-                & (curves[:, 1] >= box.y0)
-                & (curves[:, 1] <= box.y1)
-            )
-            if not crossed:
-                chosen = (note, box)
-                break
-            if fallback is None:
-                fallback = (note, box)
-            else:
+            rank = 2 if _crosses(curves, box) else 1 if _crosses(guides, box) else 0
+            if best is not None and rank >= best[0]:
                 note.remove()
-        if chosen is not None and fallback is not None:
-            fallback[0].remove()
-        chosen = chosen or fallback
-        if chosen is not None:
-            taken.append(chosen[1])
+                continue
+            if best is not None:
+                best[1].remove()
+            best = (rank, note, box)
+            if rank == 0:
+                break
+        if best is not None:
+            taken.append(best[2])
+
+
+def _event_label(ax, x: float, y: float, text: str, colour: str, offset: tuple[float, float]):
+    """A boxed label ``offset`` points away from an event mark, joined to it by a thin line."""
+    dx, dy = offset
+    return ax.annotate(
+        text,
+        (x, y),
+        xytext=(dx, dy),
+        textcoords="offset points",
+        ha="left" if dx >= 0 else "right",
+        va="bottom" if dy >= 0 else "top",
+        fontsize=LABEL_FONT_SIZE,
+        multialignment="left",
+        color="#222222",
+        bbox={"boxstyle": "round,pad=0.25", "fc": "white", "ec": colour, "lw": 0.6, "alpha": 0.92},
+        arrowprops={"arrowstyle": "-", "color": colour, "lw": 0.6, "shrinkA": 0, "shrinkB": 4},
+        zorder=6,
+    )
 
 
 # --------------------------------------------------------------------------- the figure
@@ -375,6 +408,12 @@ def bifurcation_figure(
     ------
     ValueError
         If ``x`` or ``y`` is not a quantity of the results (the message lists those that are).
+
+    Notes
+    -----
+    The layout is settled once, when the figure is built: the event labels are
+    placed against it, so it is kept as it is (no layout engine is left on the
+    figure). Draw another figure rather than resizing this one.
     """
     if points.empty or "trace" not in points.columns:
         return _empty_figure(info)
@@ -390,7 +429,9 @@ def bifurcation_figure(
         fig = Figure(figsize=FIGURE_SIZE, layout="constrained")
         FigureCanvasAgg(fig)
         top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=HEIGHT_RATIOS)
-        marks = _draw(fig, top, bottom, points, events, info, (x, y), states)
+        context = _context(points, events, info, x)
+        marks = _draw(top, bottom, points, events, info, (x, y), states)
+        _draw_context(top, bottom, *context)
         top.set_ylabel(_axis_label(y, info))
         bottom.set_ylabel("leading eigenvalue,\nreal part (> 0: unstable)")
         drawn = points[points["trace"].astype(str).isin(_drawn_traces(points, info, x))]
@@ -400,9 +441,9 @@ def bifurcation_figure(
         title = info.get("title")
         if title:
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
-        _legend(fig, points, events, info, x)
+        _legend(fig, points, events, info, x, context)
         _note_hidden_traces(top, points, info, x)
-        _place_labels(fig, top, marks)
+        _place_labels(fig, top, marks, _fix_layout(fig))
     return fig
 
 
@@ -419,13 +460,14 @@ def _empty_figure(info: Mapping[str, Any]) -> Figure:
         ax.text(0.5, 0.5, message, ha="center", va="center", wrap=True, transform=ax.transAxes)
         if info.get("title"):
             fig.suptitle(str(info["title"]), fontsize=FONT_SIZE + 2)
+        _fix_layout(fig)
     return fig
 
 
 def _note_hidden_traces(ax, points: pd.DataFrame, info: Mapping[str, Any], x: str) -> None:
     """Say which traces are not drawn because they vary another parameter."""
     drawn = set(_drawn_traces(points, info, x))
-    hidden = [t for t in info.get("traces") or [] if t.get("name") not in drawn]
+    hidden = [t for t in trace_entries(info) if t.get("name") not in drawn]
     if not hidden:
         return
     names = ", ".join(str(t.get("name")) for t in hidden)
@@ -454,10 +496,10 @@ _STYLE = {
 }
 
 
-def _draw(fig, top, bottom, points, events, info, names, states):
+def _draw(top, bottom, points, events, info, names, states):
     """Draw every trace (runs and event markers) in both panels; return the
     event marks still to be labelled: (x, y, text, colour)."""
-    vary_of = {str(t.get("name")): str(t.get("vary")) for t in info.get("traces") or []}
+    vary_of = {str(t.get("name")): str(t.get("vary")) for t in trace_entries(info)}
     marks = []
     bottom.axhline(0.0, color="#333333", lw=0.9, zorder=1)
     for k, name in enumerate(_drawn_traces(points, info, names[0])):
@@ -497,36 +539,37 @@ def _draw(fig, top, bottom, points, events, info, names, states):
                 text += f"\n{names[0]} = {fmt(value, 5)}"
             marks.append((ex, ey, text, colour))
     top.margins(x=0.03, y=0.08)
-    _draw_context(top, bottom, points, events, info, names[0])
+    bottom.margins(x=0.03)  # shared x: both panels must ask for the same room
     return marks
 
 
 def _context(points, events, info, x) -> tuple[list[float], list[tuple[float, float]]]:
-    """Start values of the scanned traces drawn against ``x``, and their hysteresis windows."""
+    """Start values of the scanned traces drawn against ``x``, and the parameter ranges
+    where their hysteresis lets two stable states coexist (:func:`bistable_ranges`)."""
     drawn = set(_drawn_traces(points, info, x))
     starts = [
         float(t["start_value"])
-        for t in info.get("traces") or []
+        for t in trace_entries(info)
         if t.get("name") in drawn
         and not t.get("parent")
         and t.get("vary") == x
         and t.get("start_value") is not None
     ]
-    windows = [
-        (w.low, w.high)
-        for w in hysteresis_windows(points, events, info)
-        if w.bistable and w.trace in drawn and w.vary == x
+    bands = [
+        band
+        for window in hysteresis_windows(points, events, info)
+        if window.trace in drawn and window.vary == x
+        for band in bistable_ranges(points, events, info, window)
     ]
-    return list(dict.fromkeys(starts)), list(dict.fromkeys(windows))
+    return list(dict.fromkeys(starts)), list(dict.fromkeys(bands))
 
 
-def _draw_context(top, bottom, points, events, info, x) -> None:
+def _draw_context(top, bottom, starts: Sequence[float], bands: Sequence[tuple[float, float]]):
     """Mark the operating (start) values and shade the hysteresis windows."""
-    starts, windows = _context(points, events, info, x)
     for value in starts:
         for ax in (top, bottom):
-            ax.axvline(value, color=START_COLOUR, ls=START_STYLE, lw=1.0, zorder=2)
-    for low, high in windows:
+            ax.axvline(value, color=START_COLOUR, ls=START_STYLE, lw=1.0, zorder=2, gid=GUIDE_GID)
+    for low, high in bands:
         top.axvspan(low, high, color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, zorder=0)
 
 
@@ -553,7 +596,7 @@ def _shade_unstable(ax) -> None:
     ax.set_ylim(lo, hi)
 
 
-def _legend(fig, points, events, info, x) -> None:
+def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
     """One legend under the figure, in three columns: traces, line styles, event kinds."""
     drawn = _drawn_traces(points, info, x)
     traces = [
@@ -571,7 +614,7 @@ def _legend(fig, points, events, info, x) -> None:
         Line2D([], [], color=grey, lw=LINE_WIDTH, ls=STABLE_STYLE, label="stable"),
         Line2D([], [], color=grey, lw=LINE_WIDTH, ls=UNSTABLE_STYLE, label="unstable"),
     ]
-    starts, windows = _context(points, events, info, x)
+    starts, windows = context
     if starts:
         styles.append(
             Line2D([], [], color=START_COLOUR, ls=START_STYLE, lw=1.0, label="start value (scan)")
