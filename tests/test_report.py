@@ -19,6 +19,7 @@ import pytest
 from branchline.reading import (
     bistable_ranges,
     event_label,
+    fmt,
     hysteresis_windows,
     jump_targets,
     operating_margins,
@@ -74,7 +75,9 @@ def test_a_hopf_point_beside_a_fold_narrows_the_bistable_range():
     ((low, high),) = bistable_ranges(points, events, info, window)
     assert low == pytest.approx(-FOLD_P, rel=1e-15)
     assert high == 0.2
-    assert "Fold pair" in render_report(points, events, info)
+    report = render_report(points, events, info)
+    assert f"(width {fmt(window.width)})" in report
+    assert f"two stable states coexist for {fmt(low)} < p < {fmt(high)}" in report
 
 
 def test_stability_intervals_end_on_the_located_folds():

@@ -115,6 +115,10 @@ def eigenvector_near(matrix: object, shift: complex) -> tuple[complex, Array]:
     shift-invert Arnoldi, ``scipy.sparse.linalg.eigs``)."""
     if sp.issparse(matrix):
         scale = max(float(abs(matrix).max()), 1.0)
+        if complex(shift).imag != 0.0:
+            # scipy's eigs returns zeros for a real matrix with a complex shift
+            # (observed with scipy 1.17): factorize in complex arithmetic instead
+            matrix = sp.csc_matrix(matrix, dtype=complex)
         count = max(1, min(ARNOLDI_COUNT, matrix.shape[0] - 2))
         for offset in (0.0, SHIFT_OFFSET * scale):
             try:

@@ -20,6 +20,7 @@ from branchline.reading import (
     OperatingMargin,
     SideMargin,
     StabilityInterval,
+    bistable_ranges,
     event_label,
     event_period,
     fmt,
@@ -451,10 +452,19 @@ def _readings_section(points, events, info, windows: Sequence[HysteresisWindow])
                 "the lower fold."
             )
         else:
+            ranges = bistable_ranges(points, events, info, window)
+            coexist = (
+                "; two stable states coexist for "
+                + ", ".join(f"{fmt(lo)} < {v} < {fmt(hi)}" for lo, hi in ranges)
+                + " (another stability change sits beside a fold, so the loop is not clean)"
+                if ranges
+                else "; no two stable states coexist inside it (other stability changes "
+                "sit between the folds)"
+            )
             out.append(
-                f"- **Fold pair** on trace {window.trace}: between {v} = {fmt(window.low)} and "
-                f"{v} = {fmt(window.high)} (width {fmt(window.width)}) the branch folds twice, "
-                "so several equilibria coexist there."
+                f"- **Hysteresis window** on trace {window.trace}: the branch folds twice, "
+                f"between {v} = {fmt(window.low)} and {v} = {fmt(window.high)} "
+                f"(width {fmt(window.width)}), so several equilibria coexist there{coexist}."
             )
     out.append("")
     return out
