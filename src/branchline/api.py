@@ -38,8 +38,10 @@ def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None)
     >>> result = branchline.run({
     ...     "model": {"parameters": {"mu": -1.0}, "equations": {"x": "mu*x - x^3"}},
     ...     "trace": [{"vary": "mu", "interval": [-1, 1], "start": {"x": 0.0}}]})
-    >>> [(e.kind, round(e.value, 12)) for e in result.events]
-    [('branch_point', 0.0)]
+    >>> [(e.kind, e.branching, abs(e.value) < 1e-12) for e in result.events]
+    [('branch_point', 'pitchfork', True)]
+    >>> sorted(b.name for b in result.branches)
+    ['trace1', 'trace1.1', 'trace1.2']
     """
     if isinstance(scan, dict):
         scan = scan_from_dict(scan)

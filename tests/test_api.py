@@ -1,0 +1,58 @@
+"""The Python API: scans from files and dicts, tables, records, figures, and
+the runnable examples in the public docstrings."""
+
+from __future__ import annotations
+
+import doctest
+import math
+from pathlib import Path
+
+import matplotlib.figure
+import pandas as pd
+import pytest
+
+import branchline
+import branchline.api
+import branchline.runner
+
+SCANS = Path(__file__).resolve().parents[1] / "scans"
+
+
+@pytest.mark.parametrize("module", [branchline.api, branchline.runner])
+def test_docstring_examples_run(module):
+    failures, tried = doctest.testmod(module, optionflags=doctest.NORMALIZE_WHITESPACE)
+    assert tried > 0
+    assert failures == 0
+
+
+def test_run_from_file_gives_tables_records_and_figure(tmp_path):
+    result = branchline.run(SCANS / "harvested_stock.toml", out=tmp_path / "stock")
+    points = result.points_frame()
+    assert isinstance(points, pd.DataFrame)
+    assert {"trace", "step", "arclength", "F", "B", "catch", "stable"} <= set(points.columns)
+    assert all(isinstance(e, branchline.Event) for e in result.events)
+    assert isinstance(result.figure(), matplotlib.figure.Figure)
+    saved = branchline.read_results(tmp_path / "stock")
+    pd.testing.assert_frame_equal(saved.points, points, check_dtype=False)
+    assert [e["kind"] for e in saved.events] == [e.kind for e in result.events]
+
+
+def test_run_from_dict_logistic_harvest_fold():
+    # N' = N (1 - N) - h has a fold at h = 1/4, N = 1/2 (elementary calculus:
+    # the maximum of N (1 - N); e.g. Strogatz, Nonlinear Dynamics and Chaos, ex. 3.7.2).
+    result = branchline.run(
+        {
+            "model": {"parameters": {"h": 0.1}, "equations": {"N": "N*(1 - N) - h"}},
+            "trace": [{"vary": "h", "interval": [0.0, 0.4], "start": {"N": 0.9}}],
+        }
+    )
+    (fold,) = result.events
+    assert fold.kind == "fold"
+    assert math.isclose(fold.value, 0.25, rel_tol=1e-12)
+    assert math.isclose(fold.state[0], 0.5, rel_tol=1e-7)
+    assert result.scan.source == "<dict>"
+
+
+def test_invalid_dict_raises_scan_error():
+    with pytest.raises(branchline.ScanError, match="trace"):
+        branchline.run({"model": {"parameters": {"h": 0.1}, "equations": {"N": "N - h"}}})
