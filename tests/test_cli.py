@@ -183,3 +183,34 @@ def test_plot_and_report_from_saved_folder(tmp_path, capsys):
     assert main(["report", str(out)]) == 0
     assert CAUTION in capsys.readouterr().out
     assert main(["report", str(tmp_path)]) == 2
+
+
+PYTHON_SCAN = """
+title = "three-state python model"
+[model.parameters]
+a = 1.2
+b = 2.5
+c = 0.3
+[model.python]
+rhs = "models_for_tests:rhs"
+jacobian = "models_for_tests:{jacobian}"
+size = 3
+observables = "models_for_tests:observables"
+[[trace]]
+vary = "b"
+interval = [2.0, 3.0]
+start = "models_for_tests:start"
+"""
+
+
+@pytest.mark.parametrize("jacobian, warned", [("jacobian", False), ("wrong_jacobian", True)])
+def test_python_model_notice_and_jacobian_check(tmp_path, capsys, jacobian, warned):
+    scan = tmp_path / "py.toml"
+    scan.write_text(PYTHON_SCAN.format(jacobian=jacobian))
+    out = tmp_path / "out"
+    main(["run", str(scan), "--out", str(out)])
+    err = capsys.readouterr().err
+    assert "imports models_for_tests" in err and "runs its code" in err
+    assert ("warning:" in err) is warned
+    points = pd.read_csv(out / "points.csv")
+    assert {"total", "scaled", "x0", "x1", "x2"} <= set(points.columns)
