@@ -14,6 +14,7 @@ import math
 import numpy as np
 import pytest
 import scipy.sparse as sps
+import scipy.sparse.linalg as spla
 import sympy as sp
 
 from branchline import events
@@ -165,6 +166,7 @@ def test_fold_of_logistic_harvesting():
     assert fold.fold_coefficient == pytest.approx(-1.0, rel=1e-6)
     history = fold.details["newton_residual_norms"]
     assert history[-1] < 1e-15
+    assert len(history) <= 6  # quadratic convergence: a handful of iterations
     assert fold.details["method"].startswith("Newton")
     assert branch.arclength[0] <= fold.arclength <= branch.arclength[-1]
     json.dumps(fold.details)
@@ -204,7 +206,9 @@ def test_brusselator_hopf(a):
     assert event.frequency == pytest.approx(a, rel=1e-13)
     np.testing.assert_allclose(event.state, [a, (1 + a * a) / a], rtol=1e-14)
     assert event.criticality == "supercritical" and event.lyapunov < 0
+    assert f"small stable cycles for b > {1 + a * a:.6g}" in event.note
     assert event.details["newton_residual_norms"][-1] < 1e-14
+    assert len(event.details["newton_residual_norms"]) <= 6
     assert math.isclose(event.parameters[0], a) and event.parameters[1] == event.value
     json.dumps(event.details)
 
@@ -246,6 +250,7 @@ def test_lorenz_pitchfork_and_subcritical_hopf():
     assert hopf[0].value == pytest.approx(float(r_h), rel=PARAMETER_RTOL)
     assert hopf[0].frequency == pytest.approx(math.sqrt(float(omega_squared)), rel=PARAMETER_RTOL)
     assert hopf[0].criticality == "subcritical" and hopf[0].lyapunov > 0
+    assert len(hopf[0].details["newton_residual_norms"]) <= 6
 
 
 def fitzhugh_nagumo_hopf_reference(a_value, b_value, eps_value):
@@ -292,6 +297,19 @@ def test_neutral_saddle_gives_no_hopf():
     branch = trace(model, "p", [0.0, 0.0], (-1.0, 1.0))
     hopf_column = branch.test_values[:, TEST_FUNCTIONS.index("hopf")]
     assert np.any(np.sign(hopf_column[:-1]) != np.sign(hopf_column[1:]))  # the test did fire
+    assert locate_events(model, branch) == []
+
+
+@pytest.mark.parametrize("sign", [1, -1])
+def test_node_turning_into_a_focus_gives_no_hopf(sign):
+    # Jacobian [[s, 1], [-p, s]] at the origin: eigenvalues s +- sqrt(-p), two real
+    # ones meeting at p = 0 and leaving as a complex pair with real part s != 0 (an
+    # unstable or stable node turning into a focus; Strogatz, section 5.2). The count
+    # of complex unstable eigenvalues changes, but nothing crosses the imaginary axis.
+    model = expression_model(
+        {"x": f"{sign}*x + y - x^3", "y": f"-p*x + {sign}*y - y^3"}, {"p": -0.5}
+    )
+    branch = trace(model, "p", [0.0, 0.0], (-0.5, 0.5))
     assert locate_events(model, branch) == []
 
 
@@ -453,3 +471,130 @@ def test_sparse_location_agrees_with_dense(case, monkeypatch):
                 np.sort(np.abs(d.details["tangents"]), axis=0),
                 atol=1e-9,
             )
+
+
+SPARSE_MODULE = """
+import numpy as np
+import scipy.sparse as sp
+
+
+def _laplacian(cells):
+    main = -2.0 * np.ones(cells)
+    off = np.ones(cells - 1)
+    lap = sp.diags([off, main, off], [-1, 0, 1], format="lil")
+    lap[0, 1] = 2.0
+    lap[cells - 1, cells - 2] = 2.0
+    return lap.tocsr()
+
+
+def rhs(x, p):
+    cells = x.shape[0] // 2
+    lap = _laplacian(cells)
+    u, v = x[:cells], x[cells:]
+    a, b, d = p["a"], p["b"], p["D"]
+    return np.concatenate(
+        [a - (b + 1) * u + u * u * v + d * (lap @ u), b * u - u * u * v + d * (lap @ v)]
+    )
+
+
+def jac(x, p):
+    cells = x.shape[0] // 2
+    lap = _laplacian(cells)
+    u, v = x[:cells], x[cells:]
+    b, d = p["b"], p["D"]
+    return sp.bmat(
+        [
+            [sp.diags(-(b + 1) + 2 * u * v) + d * lap, sp.diags(u * u)],
+            [sp.diags(b - 2 * u * v), sp.diags(-u * u) + d * lap],
+        ],
+        format="csc",
+    )
+"""
+
+
+def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
+    # 200 diffusively coupled Brusselator cells (400 states, sparse Jacobian, second
+    # and third derivatives by finite differences): the uniform state (a, b/a)
+    # oscillates first, at b = 1 + a^2 with omega = a (Prigogine & Lefever 1968), and
+    # its l1 is the single cell's divided by the number of cells (uniform
+    # oscillations solve the single-cell equations; l1 scales as 1/|x|^2 under the
+    # contract's normalization <q, q> = 1/2 over all states).
+    from branchline.linalg import sort_by_real_part
+    from branchline.normal_forms import LARGE_MODEL_SIZE, hopf_normal_form
+    from branchline.results import Branch
+    from branchline.scan import PythonModelSpec
+
+    (tmp_path / "coupled_cells.py").write_text(SPARSE_MODULE)
+    monkeypatch.syspath_prepend(str(tmp_path))
+    cells, a = 200, 1.0
+    model = build_model(
+        PythonModelSpec(
+            parameters={"a": a, "b": 1.9, "D": 0.3 * (cells / 20) ** 2},
+            rhs="coupled_cells:rhs",
+            jacobian="coupled_cells:jac",
+            size=2 * cells,
+        )
+    )
+    assert model.size > LARGE_MODEL_SIZE and model.sparse
+    # a two-row branch bracketing the Hopf point; rows as the engine records them
+    values = np.array([1.995, 2.004])
+    states, tangents, eigenvalues, tests = [], [], [], []
+    for b in values:
+        params = model.parameter_vector({"b": b})
+        x = np.concatenate([np.full(cells, a), np.full(cells, b / a)])
+        t = np.concatenate([np.zeros(cells), np.full(cells, 1.0 / a), [1.0]])
+        t /= np.linalg.norm(t)
+        jac = model.jacobian(x, params)
+        lam = sort_by_real_part(
+            spla.eigs(sps.csc_matrix(jac, dtype=complex), k=6, sigma=1j, return_eigenvectors=False)
+        )
+        fp = model.parameter_jacobian(x, params)[:, 1]
+        states.append(x)
+        tangents.append(t)
+        eigenvalues.append(lam)
+        tests.append(equilibrium_tests(jac, fp, t, lam))
+    branch = Branch(
+        name="cells",
+        vary="b",
+        parameters=model.defaults,
+        parameter_values=values,
+        states=np.array(states),
+        arclength=np.array([0.0, 1.0]),
+        tangents=np.array(tangents),
+        eigenvalues=np.array(eigenvalues),
+        unstable_count=np.array([0, 2]),
+        test_values=np.array(tests),
+        newton_iterations=np.zeros(2, int),
+        residual_norms=np.zeros(2),
+        status="done",
+        message="",
+        interval=(1.9, 2.1),
+    )
+    (hopf,) = locate_events(model, branch)
+    assert hopf.value == pytest.approx(1.0 + a * a, rel=1e-12)
+    assert hopf.frequency == pytest.approx(a, rel=1e-12)
+    single = expression_model(BRUSSELATOR, {"a": a, "b": 1.0 + a * a})
+    l1_single = hopf_normal_form(
+        single, np.array([a, (1 + a * a) / a]), single.defaults, a
+    ).lyapunov
+    # the large model's derivatives are finite differences: 1e-6 relative
+    assert hopf.lyapunov == pytest.approx(l1_single / cells, rel=1e-6)
+
+
+def test_an_event_that_cannot_be_refined_is_still_reported(monkeypatch):
+    # Newton and bisection both forced to fail: the fold is kept, placed by
+    # interpolation between its two rows, and the note says why.
+    model = expression_model({"N": "N*(1 - N) - h"}, {"h": 0.1})
+    branch = trace(model, "h", [0.9], (0.0, 0.4))
+
+    def failing(system, z0, scale=1.0):
+        return events.NewtonOutcome(False, z0, [], "forced failure")
+
+    monkeypatch.setattr(events, "newton", failing)
+    (fold,) = locate_events(model, branch)
+    assert fold.kind == "fold"
+    assert "not refined" in fold.note and "forced failure" in fold.note
+    row = fold.details["bracket_rows"][0]
+    low, high = sorted(branch.parameter_values[row : row + 2])
+    assert low <= fold.value <= high
+    json.dumps(fold.details)

@@ -183,10 +183,15 @@ def test_brusselator_cycle_amplitude_matches_the_normal_form():
     a = 1.0
     b_c = 1.0 + a * a
     model = expression_model({"x": "a - (b + 1)*x + x^2*y", "y": "b*x - x^2*y"}, {"a": a, "b": b_c})
-    form = hopf_normal_form(model, np.array([a, b_c / a]), model.defaults, a)
+    form = hopf_normal_form(model, np.array([a, b_c / a]), model.defaults, a, k=1)
+    assert form.growth_rate == pytest.approx(0.5, rel=1e-12)  # d/db (b - 1 - a^2)/2
+    assert form.cycle_side == "above"  # supercritical, unstable equilibrium for b > b_c
     distance = 1e-3
     params = model.parameter_vector({"b": b_c + distance})
     predicted = predicted_half_ranges(form, 0.5, distance)
+    assert form.amplitude_coefficient * math.sqrt(distance) == pytest.approx(
+        math.sqrt(-0.5 * distance / (form.frequency * form.lyapunov)), rel=1e-12
+    )
     start = np.array([a + predicted[0], (b_c + distance) / a])
     measured = settled_half_ranges(model, start, params, 20000, 60)
     # the next order is O(distance) relative (measured: 5e-4); allow 1 %
@@ -204,8 +209,9 @@ def test_three_state_cycle_amplitude_includes_the_stable_direction():
         "z": "-2*z - 0.5*(x^2 + y^2) + 0.3*x*y",
     }
     model = expression_model(equations, {"mu": 0.0})
-    form = hopf_normal_form(model, np.zeros(3), model.defaults, 1.0)
+    form = hopf_normal_form(model, np.zeros(3), model.defaults, 1.0, k=0)
     assert form.lyapunov < 0
+    assert form.growth_rate == pytest.approx(1.0, rel=1e-12)  # eigenvalues mu +- i, -2
     distance = 1e-3
     params = model.parameter_vector({"mu": distance})
     predicted = predicted_half_ranges(form, 1.0, distance)
@@ -225,9 +231,11 @@ def test_lorenz_hopf_is_subcritical_and_trajectories_leave():
     c = math.sqrt(b * (r_h - 1))
     model = expression_model(LORENZ, {"sigma": sigma, "r": r_h, "b": b})
     omega = math.sqrt(b * (r_h + sigma))  # from the characteristic polynomial at r_H
-    form = hopf_normal_form(model, np.array([c, c, r_h - 1]), model.defaults, omega)
+    form = hopf_normal_form(model, np.array([c, c, r_h - 1]), model.defaults, omega, k=1)
     assert form.criticality == "subcritical"
     assert form.lyapunov > 0
+    assert form.growth_rate > 0  # C+ loses stability as r grows (Strogatz, section 9.2)
+    assert form.cycle_side == "below"  # the unstable cycles exist for r < r_H
     # past r_H the equilibrium is unstable with no small cycle around it (the
     # unstable cycle exists below r_H): a trajectory started 1e-4 away leaves its
     # neighbourhood (distance > 1). Growth rate there ~0.03, so 1000 time units.

@@ -20,7 +20,7 @@ Newton's method on the event's defining system:
 
 - fold: the minimally augmented system f = 0, g = 0 with g from a bordered
   system (Govaerts, Numerical Methods for Bifurcations of Dynamical Equilibria,
-  section 4.4; Kuznetsov, section 10.2.1);
+  SIAM 2000, chapter 4; Kuznetsov, section 10.2.1; section numbers from memory);
 - Hopf: the standard extended system f = 0, A q = i omega q, <c, q> = 1
   (Kuznetsov, section 10.2.2; Griewank & Reddien 1983);
 - branch point: the extended system f + mu psi = 0, [f_x, f_p]^T psi = 0,
@@ -28,7 +28,28 @@ Newton's method on the event's defining system:
   points", Numer. Funct. Anal. Optim. 2 (1980); Allgower & Georg, section 8.1).
 
 Only when Newton fails is the event placed by bisection on the test function
-along the branch (the event's ``note`` says so).
+along the branch (the event's ``note`` says so); if that fails too, the event
+is still reported, placed by interpolation, with the reason in ``note``.
+
+Besides sign changes of the Hopf test, complex eigenvalues are matched between
+consecutive rows, so that two pairs crossing within one step (which leave the
+product's sign unchanged) are both found. Models with more than
+``normal_forms.LARGE_MODEL_SIZE`` states are located with sparse linear
+algebra (SuperLU, shift-invert Arnoldi); their branch points by bisection on
+the sparse bordered determinant (Moore's system needs a dense Hessian).
+
+Example
+-------
+>>> import numpy as np
+>>> from branchline.branches import trace_branch
+>>> from branchline.model import build_model
+>>> from branchline.scan import ExpressionModelSpec, StepSettings
+>>> model = build_model(ExpressionModelSpec(parameters={"h": 0.1},
+...                                         equations={"N": "N*(1 - N) - h"}))
+>>> branch = trace_branch(model, "t", "h", model.defaults, np.array([0.9]),
+...                       (0.0, 0.4), "both", StepSettings())
+>>> [(e.kind, e.value) for e in locate_events(model, branch)]
+[('fold', 0.25)]
 """
 
 from __future__ import annotations
@@ -407,8 +428,11 @@ def _upper_eigenvalues(row: Array) -> Array:
     return lam[lam.imag > COMPLEX_RTOL * scale]
 
 
-def _hopf_crossings(before: Array, after: Array) -> list[tuple[float, float]]:
-    """Complex pairs whose real part changes sign between two rows: (fraction, omega guess).
+def _hopf_crossings(before: Array, after: Array) -> list[tuple[float, float, bool]]:
+    """Complex pairs whose real part changes sign between two rows.
+
+    Returns (fraction, omega guess, tentative) for each crossing; ``tentative`` marks
+    crossings inferred from counts only, which location may reject.
 
     Upper-half-plane eigenvalues of the two rows are matched by the assignment
     that minimizes the sum of squared distances (``linear_sum_assignment``),
@@ -428,17 +452,17 @@ def _hopf_crossings(before: Array, after: Array) -> list[tuple[float, float]]:
         if (value.real > 0.0) != (match.real > 0.0):
             fraction = _interpolate_fraction(value.real, match.real)
             omega = float(value.imag + fraction * (match.imag - value.imag))
-            crossings.append((fraction, omega))
+            crossings.append((fraction, omega, False))
     change = abs(
         int(np.count_nonzero(upper_a.real > 0.0)) - int(np.count_nonzero(upper_b.real > 0.0))
     )
-    if change > len(crossings):
-        used = {round(omega, 12) for _, omega in crossings}
+    if change > len(crossings) and upper_a.shape[0] == upper_b.shape[0]:
+        used = {round(omega, 12) for _, omega, _ in crossings}
         for value in upper_b[np.argsort(np.abs(upper_b.real))]:
             if len(crossings) >= change:
                 break
             if round(float(value.imag), 12) not in used:
-                crossings.append((0.5, float(value.imag)))
+                crossings.append((0.5, float(value.imag), True))
     return crossings
 
 
@@ -476,8 +500,9 @@ def find_brackets(branch: Branch) -> list[_Bracket]:
     candidates = sorted(hopf_rows | set(_complex_count_changes(branch.eigenvalues)))
     for row in candidates:
         crossings = _hopf_crossings(branch.eigenvalues[row], branch.eigenvalues[row + 1])
-        for fraction, omega in crossings:
-            brackets.append(_Bracket("hopf", row, fraction, {"omega": omega}))
+        for fraction, omega, tentative in crossings:
+            hint = {"omega": omega, "tentative": tentative}
+            brackets.append(_Bracket("hopf", row, fraction, hint))
         if row in hopf_rows and not crossings:
             # the test changed sign but no tracked complex pair crossed: a neutral
             # saddle (kappa < 0) unless a pair turned complex within the step
@@ -485,7 +510,7 @@ def find_brackets(branch: Branch) -> list[_Bracket]:
                 first, second = _nearest_pair(branch.eigenvalues[end])
                 kappa = (first * second).real
                 if kappa > 0.0 and abs(first.imag) > 0.0:
-                    hint = {"omega": math.sqrt(kappa)}
+                    hint = {"omega": math.sqrt(kappa), "tentative": True}
                     brackets.append(_Bracket("hopf", row, 0.5, hint))
                     break
     return brackets
@@ -754,7 +779,9 @@ def _locate_fold(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
             model, branch, k, bracket.row, lambda u, c: _fold_test(model, branch, k, u, c)
         )
         if point is None:
-            return None
+            raise _LocationFailed(
+                f"Newton: {outcome.message or 'left the bracket'}; bisection failed"
+            )
         u = point
         method = "bisection on the tangent's parameter component"
         note = f"located by bisection (Newton on the fold system failed: {outcome.message or 'left the bracket'})"
@@ -825,8 +852,12 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
             bracket.row,
             lambda u, c: _hopf_pair_real(model, branch, k, u, omega_guess),
         )
+        if point is None and bracket.hint.get("tentative"):
+            return None  # inferred from counts only, and not confirmed: no Hopf point
         if point is None:
-            return None
+            raise _LocationFailed(
+                f"Newton: {outcome.message or 'left the bracket'}; bisection failed"
+            )
         u = point
         full = _with_value(branch.parameters, k, u[-1])
         omega = _crossing_eigenvalue(model, u, full, omega_guess).imag
@@ -849,7 +880,7 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
         )
     else:
         form = hopf_normal_form(
-            model, x, full, omega, q if q is not None and z[n + 1] > 0 else None
+            model, x, full, omega, q if q is not None and z[n + 1] > 0 else None, k=k
         )
         lyapunov, criticality = form.lyapunov, form.criticality
         details["eigenvectors"] = {
@@ -860,9 +891,18 @@ def _locate_hopf(model, branch: Branch, k: int, bracket: _Bracket) -> Event | No
         details["normal_form"] = {
             "c1": [form.c1.real, form.c1.imag],
             "terms": [[t.real, t.imag] for t in form.terms],
+            "growth_rate": form.growth_rate,
+            "amplitude_coefficient": form.amplitude_coefficient,
         }
         if form.near_bautin:
             notes.append("close to a Bautin point; criticality uncertain")
+        elif form.cycle_side:
+            relation = "<" if form.cycle_side == "below" else ">"
+            stability = "stable" if form.criticality == "supercritical" else "unstable"
+            notes.append(
+                f"small {stability} cycles for {branch.vary} {relation} "
+                f"{_format_value(float(u[-1]))}"
+            )
     if note:
         notes.append(note)
     return _make_event(
@@ -946,7 +986,9 @@ def _locate_branch_point(model, branch: Branch, k: int, bracket: _Bracket) -> Ev
             lambda u, c: _branch_point_test(model, branch, k, u, c),
         )
         if point is None:
-            return None
+            raise _LocationFailed(
+                f"Newton: {outcome.message or 'left the bracket'}; bisection failed"
+            )
         u, psi = point, None
         method = "bisection on the bordered determinant"
         if not large:
@@ -992,6 +1034,44 @@ def _branch_point_test(model, branch: Branch, k: int, u: Array, chord: Array) ->
     fp = model.parameter_jacobian(u[:-1], full)[:, k]
     t = _event_tangent(model, u[:-1], full, k, chord)
     return bordered_determinant(a_matrix, fp, t)
+
+
+class _LocationFailed(Exception):
+    """Neither Newton on the defining system nor bisection placed the event."""
+
+
+def _unrefined_event(model, branch: Branch, k: int, bracket: _Bracket, reason: str) -> Event:
+    """An event whose location could not be refined: placed by linear interpolation
+    between its two rows, and says so (a stability change is never dropped silently)."""
+    u = _seed(branch, bracket)
+    details = {
+        "method": "linear interpolation between rows (not refined)",
+        "bracket_rows": [int(bracket.row), int(bracket.row + 1)],
+        "test_values": {
+            "before": [float(v) for v in branch.test_values[bracket.row]],
+            "after": [float(v) for v in branch.test_values[bracket.row + 1]],
+            "order": list(TEST_FUNCTIONS),
+        },
+        "failure": reason,
+        "tangent": [float(v) for v in branch.tangents[bracket.row]],
+        "eigenvalues": _json_complex(branch.eigenvalues[bracket.row]),
+    }
+    omega = bracket.hint.get("omega") if bracket.kind == "hopf" else None
+    return Event(
+        trace=branch.name,
+        kind=bracket.kind,
+        vary=branch.vary,
+        value=float(u[-1]),
+        state=np.array(u[:-1]),
+        parameters=_with_value(branch.parameters, k, float(u[-1])),
+        arclength=_arclength_at(branch, bracket.row, u),
+        frequency=float(omega) if omega else None,
+        note=(
+            f"not refined ({reason}): placed by linear interpolation between "
+            f"computed points {bracket.row} and {bracket.row + 1}"
+        ),
+        details=details,
+    )
 
 
 _LOCATORS = {"fold": _locate_fold, "hopf": _locate_hopf, "branch_point": _locate_branch_point}
@@ -1041,8 +1121,10 @@ def locate_events(model, branch: Branch) -> list[Event]:
     for bracket in brackets:
         try:
             event = _LOCATORS[bracket.kind](model, branch, k, bracket)
-        except (ArithmeticError, ValueError, np.linalg.LinAlgError):
-            event = None
+        except _LocationFailed as failure:
+            event = _unrefined_event(model, branch, k, bracket, str(failure))
+        except (ArithmeticError, ValueError, RuntimeError, np.linalg.LinAlgError) as exc:
+            event = _unrefined_event(model, branch, k, bracket, f"{type(exc).__name__}: {exc}")
         if event is None:
             continue
         duplicate = any(_duplicates(event, other) for other in events)

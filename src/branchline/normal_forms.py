@@ -54,9 +54,16 @@ CENTRAL_STEP = float(np.finfo(float).eps) ** (1.0 / 3.0)
 # |l1| below this fraction of the size of the terms it is summed from: the
 # sign is decided by rounding and the Hopf point is close to a Bautin point.
 BAUTIN_RELATIVE = 1e-7
+# The same for models whose B and C are nested finite differences (Python
+# models): those are good to about 1e-6 relative (see branchline.differences).
+BAUTIN_RELATIVE_DIFFERENCES = 1e-5
 
 # |a| below this fraction of ||B(q, q)||: the fold is close to a cusp point.
 CUSP_RELATIVE = 1e-7
+
+# The branching equation's quadratic form must be indefinite (eigenvalues of both
+# signs, each above this fraction of the larger) for two real crossing branches.
+INDEFINITE_RTOL = 1e-12
 
 # A crossing branch's unit tangent whose parameter component is below this
 # (relative) is taken as turning back in the parameter: a pitchfork. Symmetric
@@ -266,7 +273,8 @@ class FoldNormalForm:
     ----------
     coefficient : float
         a = (1/2) p^T B(q, q) with A q = 0, A^T p = 0, ||q|| = 1, p^T q = 1
-        (Kuznetsov, Elements of Applied Bifurcation Theory, section 3.2 and eq. (5.8));
+        (Kuznetsov, Elements of Applied Bifurcation Theory, sections 3.2 and 5.4;
+        from memory);
         q is oriented so that its largest component is positive.
     parameter_sensitivity : float
         beta = p^T df/dp for the varied parameter.
@@ -342,6 +350,16 @@ class HopfNormalForm:
         ``"supercritical"`` (l1 < 0) or ``"subcritical"`` (l1 > 0).
     near_bautin : bool
         |l1| is within rounding of zero relative to its terms: the sign is not trusted.
+    growth_rate : float or None
+        alpha'(p0) = d Re(lambda)/dp of the critical pair along the branch,
+        Re <p, (A_p + B(q, x_p)) q> with x_p = -A^-1 f_p (Kuznetsov, section 3.5;
+        from memory); None unless the varied parameter's index was given.
+    cycle_side : str
+        Where the small cycles exist: ``"below"`` or ``"above"`` the Hopf value of
+        the varied parameter (r^2 = -alpha' (p - p0) / (omega l1) > 0), or ``""``.
+    amplitude_coefficient : float or None
+        C in r ~ C sqrt(|p - p0|), C = sqrt(|alpha' / (omega l1)|): the leading-order
+        amplitude |z| of the cycles (each state j oscillates with half-range 2 r |q_j|).
     """
 
     frequency: float
@@ -352,6 +370,9 @@ class HopfNormalForm:
     terms: tuple[complex, complex, complex]
     criticality: str
     near_bautin: bool
+    growth_rate: float | None = None
+    cycle_side: str = ""
+    amplitude_coefficient: float | None = None
 
 
 def _inner(a: Array, b: Array) -> complex:
@@ -360,15 +381,16 @@ def _inner(a: Array, b: Array) -> complex:
 
 
 def hopf_normal_form(
-    model, x: Array, params: Array, omega: float, q: Array | None = None
+    model, x: Array, params: Array, omega: float, q: Array | None = None, k: int | None = None
 ) -> HopfNormalForm:
     """First Lyapunov coefficient of a Hopf point by the invariant formula.
 
     l1 = Re(c1)/omega, c1 = (1/2) [ <p, C(q, q, qbar)> - 2 <p, B(q, A^-1 B(q, qbar))>
     + <p, B(qbar, (2 i omega I - A)^-1 B(q, q))> ] (Kuznetsov, Elements of Applied
-    Bifurcation Theory, 3rd ed., eq. (5.39)), evaluated with <q, q> = 1/2 so that
-    l1 is the cubic coefficient of the amplitude equation r' = alpha r + l1 omega r^3
-    ... in the units of the states (the contract's normalization; Kuznetsov's
+    Bifurcation Theory, 3rd ed., section 5.4, the invariant formula for l1(0); equation
+    number from memory), evaluated with <q, q> = 1/2: with x = x0 + 2 Re(z q) + ...,
+    |z| = r is the oscillation's amplitude in the states' units and
+    r' = r (alpha + omega l1 r^2) + ... (the contract's normalization; Kuznetsov's
     <q, q> = 1 doubles every value, the sign is invariant).
 
     Parameters
@@ -380,6 +402,9 @@ def hopf_normal_form(
         The located frequency (> 0).
     q : ndarray (n,) complex, optional
         A right eigenvector for i omega (computed from the Jacobian if omitted).
+    k : int, optional
+        Index of the varied parameter: also compute the crossing speed alpha' and
+        on which side the cycles are.
     """
     omega = abs(float(omega))
     a_matrix = state_jacobian(model, x, params)
@@ -406,9 +431,23 @@ def hopf_normal_form(
     c1 = 0.5 * sum(terms)
     lyapunov = c1.real / omega
     size = 0.5 * sum(abs(t) for t in terms) / omega
-    near_bautin = abs(lyapunov) <= BAUTIN_RELATIVE * size
+    exact = getattr(model, "exact_derivatives", True)
+    threshold = BAUTIN_RELATIVE if exact else BAUTIN_RELATIVE_DIFFERENCES
+    near_bautin = abs(lyapunov) <= threshold * size
     criticality = "supercritical" if lyapunov < 0 else "subcritical"
-    return HopfNormalForm(omega, lyapunov, c1, q, p, terms, criticality, near_bautin)
+    growth, side, coefficient = None, "", None
+    if k is not None:
+        x_p = -solve(a_matrix, model.parameter_jacobian(x, params)[:, k])
+        moved = model.jacobian_parameter_derivative(x, params, q)[:, k] + model.second(
+            x, params, q, x_p
+        )
+        growth = _inner(p, moved).real
+        if growth != 0.0 and lyapunov != 0.0:
+            side = "below" if growth * lyapunov > 0 else "above"
+            coefficient = float(np.sqrt(abs(growth / (omega * lyapunov))))
+    return HopfNormalForm(
+        omega, lyapunov, c1, q, p, terms, criticality, near_bautin, growth, side, coefficient
+    )
 
 
 # ----------------------------------------------------------------------------
@@ -519,7 +558,7 @@ def branch_point_normal_form(
     discriminant = c12 * c12 - c11 * c22
     values, vectors = np.linalg.eigh(np.array([[c11, c12], [c12, c22]]))
     scale = max(abs(values).max(), 1e-300)
-    if values[0] < -1e-12 * scale and values[1] > 1e-12 * scale:
+    if values[0] < -INDEFINITE_RTOL * scale and values[1] > INDEFINITE_RTOL * scale:
         # in eigen-coordinates: values[0] y1^2 + values[1] y2^2 = 0
         directions = [
             np.array([np.sqrt(values[1]), sign * np.sqrt(-values[0])]) for sign in (1.0, -1.0)

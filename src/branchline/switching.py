@@ -7,7 +7,8 @@ tangent found from the algebraic branching equation (stored by
 :mod:`branchline.events` in ``event.details["tangents"]``), corrected onto the
 new branch by Newton on f = 0, t . (u - u_0) = 0 (Keller's method of branch
 switching; Allgower & Georg, Introduction to Numerical Continuation Methods,
-section 8.3; Kuznetsov, Elements of Applied Bifurcation Theory, section 10.2.4).
+section 8.3; Kuznetsov, Elements of Applied Bifurcation Theory, section 10.2;
+section numbers from memory).
 :func:`trace_switched` follows each half-branch with the continuation engine.
 """
 
@@ -46,7 +47,10 @@ def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
     tangents = event.details.get("tangents")
     traced = event.details.get("traced_tangent_index")
     if tangents is None or traced is None:
-        form = branch_point_normal_form(model, event.state, event.parameters, k)
+        traced_tangent = event.details.get("tangent")
+        form = branch_point_normal_form(
+            model, event.state, event.parameters, k, traced_tangent=traced_tangent
+        )
         if not form.branching:
             return None
         tangents = form.tangents
@@ -80,7 +84,10 @@ def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, floa
     if event.kind != "branch_point" or not event.branching:
         return []
     k = model.parameter_index(branch.vary)
-    direction = _new_tangent(model, branch, event, k)
+    try:
+        direction = _new_tangent(model, branch, event, k)
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError):
+        return []  # no usable crossing direction: nothing to switch to
     if direction is None:
         return []
     u_event = np.append(event.state, event.value)

@@ -43,7 +43,7 @@ from branchline.branches import trace_branch
 from branchline.model import build_model
 from branchline.scan import ExpressionModelSpec, StepSettings
 
-REPEATS = 3
+REPEATS = 5
 
 
 def _fhn_hopf(a=0.7, b=0.8, eps=0.08):
@@ -192,7 +192,7 @@ def best(function, *args):
 
 def main() -> None:
     header = (
-        f"{'case':28s} {'pts':>5s} {'total ms':>9s} {'detect %':>9s} {'locate %':>9s} "
+        f"{'case':28s} {'pts':>5s} {'total ms':>9s} {'detect %':>9s} {'us/pt':>6s} {'locate %':>9s} "
         f"{'error':>9s} | {'grid ms':>8s} {'grid error':>10s} {'error ratio':>11s}"
     )
     print(header)
@@ -210,14 +210,16 @@ def main() -> None:
             ratio = f"{'exact hit':>11s}"
         print(
             f"{case['name']:28s} {ours['points']:5d} {1e3 * ours['total']:9.2f} "
-            f"{100 * ours['detect'] / ours['total']:9.1f} {100 * ours['locate'] / ours['total']:9.1f} "
+            f"{100 * ours['detect'] / ours['total']:9.1f} {1e6 * ours['detect'] / ours['points']:6.1f} "
+            f"{100 * ours['locate'] / ours['total']:9.1f} "
             f"{ours['error'] / scale:9.1e} | {1e3 * grid['total']:8.2f} "
             f"{grid['error'] / scale:10.1e} {ratio}"
         )
     print(
         "\nerrors are relative to max(|exact|, 1); 'error ratio' = grid error / branchline "
         "error ('exact hit': branchline's value equals the exact one in floating point);\n"
-        "detect % and locate %: shares of branchline's total run time (tracing included)."
+        "detect % and locate %: shares of branchline's total run time (tracing included);\n"
+        "us/pt: test-function time per computed point (equilibrium_tests)."
     )
 
 
