@@ -61,7 +61,7 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
     if model.size <= MAX_PRINTED_JACOBIAN:
         lines += ["", "Jacobian df/dx:", _matrix_text(np.asarray(lin.jacobian), model.states)]
     lines += ["", "eigenvalues (by decreasing real part):", _eigen_text(lin.eigenvalues)]
-    lines += ["", f"type: {lin.kind}"]
+    lines += ["", f"type: {lin.kind.replace('_', ' ')}"]
     if lin.hyperbolic:
         lines.append("hyperbolic: yes - the linearization decides the local behaviour "
                      "(Hartman-Grobman theorem)")
