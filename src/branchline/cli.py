@@ -31,7 +31,7 @@ class _Progress:
         self.shown = False
 
     def __call__(self, trace: str, points: int) -> None:
-        if self.enabled and points % 50 == 0:
+        if self.enabled:
             sys.stderr.write(f"\r  tracing {trace}: {points} points   ")
             sys.stderr.flush()
             self.shown = True
