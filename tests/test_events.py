@@ -17,16 +17,17 @@ import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 import sympy as sp
 
-from branchline import events
+from branchline import location
 from branchline.branches import trace_branch
-from branchline.events import (
+from branchline.defining_systems import NewtonOutcome
+from branchline.detection import (
     TEST_FUNCTIONS,
     bordered_determinant,
     equilibrium_tests,
     find_brackets,
     hopf_test,
-    locate_events,
 )
+from branchline.events import locate_events
 from branchline.model import build_model
 from branchline.scan import ExpressionModelSpec, StepSettings
 
@@ -385,14 +386,14 @@ def test_bisection_fallback_is_announced(monkeypatch):
     # bisection on the test function along the branch, and the note says so.
     model = expression_model(BRUSSELATOR, {"a": 1.0, "b": 1.0})
     branch = trace(model, "b", [1.0, 1.0], (0.5, 3.0))
-    real_newton = events.newton
+    real_newton = location.newton
 
     def failing_on_large_systems(system, z0, scale=1.0):
         if z0.shape[0] > 3:
-            return events.NewtonOutcome(False, z0, [], "forced failure")
+            return NewtonOutcome(False, z0, [], "forced failure")
         return real_newton(system, z0, scale)
 
-    monkeypatch.setattr(events, "newton", failing_on_large_systems)
+    monkeypatch.setattr(location, "newton", failing_on_large_systems)
     hopf = of_kind(locate_events(model, branch), "hopf")
     assert len(hopf) == 1
     assert "bisection" in hopf[0].note and "forced failure" in hopf[0].note
@@ -588,9 +589,9 @@ def test_an_event_that_cannot_be_refined_is_still_reported(monkeypatch):
     branch = trace(model, "h", [0.9], (0.0, 0.4))
 
     def failing(system, z0, scale=1.0):
-        return events.NewtonOutcome(False, z0, [], "forced failure")
+        return NewtonOutcome(False, z0, [], "forced failure")
 
-    monkeypatch.setattr(events, "newton", failing)
+    monkeypatch.setattr(location, "newton", failing)
     (fold,) = locate_events(model, branch)
     assert fold.kind == "fold"
     assert "not refined" in fold.note and "forced failure" in fold.note

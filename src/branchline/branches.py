@@ -242,7 +242,7 @@ def trace_branch(
             # the two sides leave in opposite directions even at a turning point.
             base = _initial_direction(problem, u0)
             if isinstance(base, str):
-                curves.append((orientation, _failed_curve(u0, base)))
+                curves.append((orientation, continuation.failed_curve(u0, base)))
                 continue
             tangent0 = orientation * base
 
@@ -298,21 +298,6 @@ def _initial_direction(problem, u0):
             f"the branch direction is undefined at the start {problem.describe(u0)}: "
             "the Jacobian [f_x, f_p] has rank below n (a branch point?)"
         )
-
-
-def _failed_curve(u0, message):
-    size = u0.shape[0]
-    return continuation.Curve(
-        points=np.empty((0, size)),
-        tangents=np.empty((0, size)),
-        arclength=np.empty(0),
-        newton_iterations=np.empty(0, dtype=int),
-        residual_norms=np.empty(0),
-        test_values=np.empty((0, 0)),
-        payloads=(),
-        status=continuation.STATUS_FAILED,
-        message=message,
-    )
 
 
 _STATUS_ORDER = {STATUS_FAILED: 3, STATUS_MAX_POINTS: 2, STATUS_CLOSED: 1, STATUS_DONE: 0}

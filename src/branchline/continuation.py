@@ -13,12 +13,11 @@ whose Jacobian is [G_u; t^T], then the tangent at the new point from
 [G_u(u_new); t_old^T] z = e_{N+1}, t_new = z / |z|. Since t_old . z = 1 > 0
 the orientation is kept through turning points.
 
-Full Newton (the Jacobian at every iterate) is the default corrector; the
-chord method (the bordered matrix factorized once per step) is available.
-Measured on a 2-state model (tests/benchmarks/bench_trace.py), full Newton
-is faster: it needs fewer iterations and a small dense factorization costs
-about as much as the bookkeeping around it. The chord method pays off when
-factorizations dominate (large sparse models).
+The pieces: :mod:`branchline.correctors` (full Newton and chord correctors
+on the bordered system, the tangent), :mod:`branchline.step_control` (step
+lengths, the tangent-angle and test-function rules, the interval edge, closing
+an isola); this module holds the problem protocol, the :class:`Curve` record
+and the loop that ties them together.
 
 The problem protocol
 --------------------
@@ -49,30 +48,14 @@ or write files; for numerical trouble they return NaN rather than raise
 (ArithmeticError and ValueError are caught anyway and count as a failed step).
 The engine runs under ``np.errstate(all="ignore")``.
 
-Step control (all factors are named constants below)
-----------------------------------------------------
-- Grow the step by ``GROW_FACTOR`` after a corrector that converged in at most
-  ``EASY_ITERATIONS`` iterations; shrink it by ``SHRINK_FACTOR`` and retry
-  when the corrector fails (no convergence, divergence, singular bordered
-  matrix, non-finite residual). At the smallest step a failure stops the
-  curve with status ``failed``.
-- Shrink and retry when the tangent turns by more than ``MAX_TANGENT_ANGLE``
-  in one step (the predictor would be poor, and a sharp turn may hide a fold
-  pair).
-- Test-function rule, so that two events close together are not stepped
-  over: with the slope of each test function from the last step, the value
-  at the new point is predicted linearly. If a test function deviates from
-  that prediction by more than ``TEST_CHANGE_LIMIT`` times its local size
-  (the larger of its magnitudes at the two ends of the step, plus
-  ``TEST_SCALE_FLOOR`` times the largest magnitude seen on the curve), the
-  step is rejected and shrunk. A test function that dips through zero and
-  back within one step must curve strongly relative to its size, which this
-  rule catches. The rule never shrinks below ``TEST_STEP_FLOOR`` times the
-  largest step (nor below the smallest step).
-- Leaving the parameter bounds: the last point is put exactly on the edge by
-  solving G(u) = 0 with the parameter fixed at the edge value; status ``done``.
-- Passing by the start point again with the same orientation closes the curve
-  (an isola): the start point is appended as the last point; status ``closed``.
+How a curve ends
+----------------
+``done``: it left the parameter bounds and its last point lies exactly on the
+edge. ``closed``: it passed by the start point again with the same orientation
+(an isola); the start point is appended as the last point. ``max_points``:
+``settings.max_points`` reached. ``failed``: the corrector failed at the
+smallest step, or the edge point could not be found; the message says where
+and why.
 """
 
 from __future__ import annotations
@@ -83,50 +66,31 @@ from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
-import scipy.sparse.linalg as spla
 
-from branchline import linalg
+from branchline import correctors, linalg, step_control
+from branchline.correctors import (  # noqa: F401  (re-exported: tuning values of the engine)
+    CHORD_CONTRACTION,
+    COUNT_KEYS,
+    DIVERGENCE_RATIO,
+    MAX_CHORD_ITERATIONS,
+    MAX_CORRECTOR_ITERATIONS,
+    RESIDUAL_TOL,
+    STAGNATION_RTOL,
+    UPDATE_RTOL,
+)
+from branchline.step_control import (  # noqa: F401  (re-exported; TEST_CHANGE_LIMIT also used)
+    EASY_ITERATIONS,
+    GROW_FACTOR,
+    LOOP_DISTANCE_FRACTION,
+    MAX_TANGENT_ANGLE,
+    SHRINK_FACTOR,
+    TEST_CHANGE_LIMIT,
+    TEST_SCALE_FLOOR,
+    TEST_STEP_FLOOR,
+)
 
 Array = np.ndarray
 
-# --- Corrector -------------------------------------------------------------
-# Residual norm accepted as zero (Euclidean); see equilibrium.RESIDUAL_TOL.
-RESIDUAL_TOL = 1e-10
-# Newton update accepted as converged, relative to 1 + |u|. Quadratic
-# convergence makes the error after an update of size d about C d^2, so
-# 1e-6 leaves ~1e-12; together with the residual test it stops after two
-# iterations on a well-predicted step instead of three.
-UPDATE_RTOL = 1e-6
-# Updates this small (relative) are roundoff: the residual cannot drop further.
-STAGNATION_RTOL = 16 * np.finfo(float).eps
-MAX_CORRECTOR_ITERATIONS = 6
-# A Newton update larger than this times the previous one means divergence.
-DIVERGENCE_RATIO = 1.0
-# The chord method (Jacobian frozen at the predicted point) converges linearly;
-# it is abandoned when an update does not shrink at least by this factor.
-CHORD_CONTRACTION = 0.5
-MAX_CHORD_ITERATIONS = 10
-
-# --- Step control ----------------------------------------------------------
-EASY_ITERATIONS = 2  # converged this fast: the step may grow
-GROW_FACTOR = 1.5
-SHRINK_FACTOR = 0.5
-# Largest angle between successive tangents (radians); ~17 degrees keeps the
-# predictor error well inside Newton's convergence region (common practice).
-MAX_TANGENT_ANGLE = 0.3
-_MIN_TANGENT_COSINE = math.cos(MAX_TANGENT_ANGLE)
-# Test-function rule (module docstring): a deviation from the linear prediction
-# of half the function's local size means the step does not resolve it.
-TEST_CHANGE_LIMIT = 0.5
-# Part of the largest magnitude seen that counts as "size" where the function
-# is near zero, so that roundoff around a zero does not shrink the step.
-TEST_SCALE_FLOOR = 1e-3
-# The rule stops shrinking at this fraction of the largest step: it resolves
-# events, it must not stall a trace on a test function that is not smooth.
-TEST_STEP_FLOOR = 1e-4
-# A point closer to the start than this fraction of the step (measured from the
-# chord of the step) counts as the start point again (closing an isola).
-LOOP_DISTANCE_FRACTION = 0.25
 # The progress callback is called every this many accepted points.
 PROGRESS_INTERVAL = 50
 
@@ -134,14 +98,6 @@ STATUS_DONE = "done"
 STATUS_MAX_POINTS = "max_points"
 STATUS_CLOSED = "closed"
 STATUS_FAILED = "failed"
-
-COUNT_KEYS = (
-    "rhs_evaluations",
-    "jacobian_evaluations",
-    "factorizations",
-    "rejected_steps",
-    "newton_iterations",
-)
 
 
 class CurveProblem(Protocol):
@@ -212,32 +168,21 @@ class Curve:
         return self.points.shape[0]
 
 
-class _Counter:
-    __slots__ = ("factorizations", "jacobian", "newton", "rejected", "rhs")
-
-    def __init__(self) -> None:
-        self.rhs = self.jacobian = self.factorizations = self.rejected = self.newton = 0
-
-    def as_dict(self) -> dict[str, int]:
-        return {
-            "rhs_evaluations": self.rhs,
-            "jacobian_evaluations": self.jacobian,
-            "factorizations": self.factorizations,
-            "rejected_steps": self.rejected,
-            "newton_iterations": self.newton,
-        }
-
-
-def _evaluator(problem) -> Callable[[Array], tuple[Array, Any]]:
-    evaluate = getattr(problem, "evaluate", None)
-    if evaluate is not None:
-        return evaluate
-    residual, jacobian = problem.residual, problem.jacobian
-
-    def both(u: Array) -> tuple[Array, Any]:
-        return residual(u), jacobian(u)
-
-    return both
+def failed_curve(u: Array, message: str, counts: dict[str, int] | None = None) -> Curve:
+    """A curve with no points and status ``failed`` (it could not start at ``u``)."""
+    size = u.shape[0]
+    return Curve(
+        points=np.empty((0, size)),
+        tangents=np.empty((0, size)),
+        arclength=np.empty(0),
+        newton_iterations=np.empty(0, dtype=int),
+        residual_norms=np.empty(0),
+        test_values=np.empty((0, 0)),
+        payloads=(),
+        status=STATUS_FAILED,
+        message=message,
+        counts={} if counts is None else counts,
+    )
 
 
 def describe_point(problem, u: Array) -> str:
@@ -248,171 +193,6 @@ def describe_point(problem, u: Array) -> str:
     head = ", ".join(f"{value:.6g}" for value in u[:-1][:6])
     more = ", ..." if u.shape[0] > 7 else ""
     return f"at parameter {u[-1]:.10g}, state ({head}{more})"
-
-
-# ---------------------------------------------------------------------------
-# Correctors: each returns (u, G, J, iterations, residual_norm, reason);
-# reason is "" on success, else why it failed.
-# ---------------------------------------------------------------------------
-
-
-def _safe_evaluate(evaluate, u):
-    """(G, G_u, reason): reason is "" or why the evaluation failed.
-
-    Runs inside the engine's ``np.errstate(all="ignore")``; a non-finite
-    residual is caught here, a non-finite Jacobian by the update it produces.
-    """
-    try:
-        g, jac = evaluate(u)
-    except (ArithmeticError, ValueError) as exc:
-        return None, None, f"evaluating the model raised {type(exc).__name__}: {exc}"
-    return g, jac, ""
-
-
-_NOT_FINITE = "the right-hand side, its Jacobian or the Newton update is not finite (NaN/overflow)"
-
-
-def _correct_full(evaluate, u, border, border_value, counter, max_iterations=None):
-    """Newton's method on [G(u); border . u - border_value] = 0 (full Newton).
-
-    ``border_value`` None means the pseudo-arclength condition through the
-    predicted point (the start ``u``), whose residual stays zero since each
-    update is orthogonal to ``border``. Returns (u, G, G_u, iterations,
-    |G|, reason), reason "" on success.
-    """
-    max_iterations = MAX_CORRECTOR_ITERATIONS if max_iterations is None else max_iterations
-    size = u.shape[0]
-    solve = linalg.solve_unchecked
-    sqrt = math.sqrt
-    square = None
-    rhs = np.zeros(size)
-    update = previous_update = math.inf
-    residual = math.nan
-    iteration = 0
-    while True:
-        try:
-            g, jac = evaluate(u)
-        except (ArithmeticError, ValueError) as exc:
-            reason = f"evaluating the model raised {type(exc).__name__}: {exc}"
-            return u, None, None, iteration, math.nan, reason
-        counter.rhs += 1
-        counter.jacobian += 1
-        residual = sqrt(g @ g)
-        if not residual < math.inf:
-            return u, None, None, iteration, residual, _NOT_FINITE
-        if iteration:
-            scale = 1.0 + sqrt(u @ u)
-            if (residual <= RESIDUAL_TOL and update <= UPDATE_RTOL * scale) or (
-                update <= STAGNATION_RTOL * scale
-            ):
-                return u, g, jac, iteration, residual, ""
-            if iteration >= max_iterations:
-                return (
-                    u,
-                    None,
-                    None,
-                    iteration,
-                    residual,
-                    (
-                        f"no convergence in {max_iterations} Newton iterations "
-                        f"(residual {residual:.3g})"
-                    ),
-                )
-        rhs[:-1] = g
-        if border_value is not None:
-            rhs[-1] = float(border @ u) - border_value
-        counter.factorizations += 1
-        if type(jac) is not np.ndarray:
-            try:
-                step = linalg.bordered_solve(jac, border, rhs)
-            except linalg.SingularMatrixError:
-                return u, None, None, iteration, residual, "the bordered Jacobian is singular"
-        else:
-            if square is None:
-                square = np.empty((size, size))
-                square[-1] = border
-            square[:-1] = jac
-            step = solve(square, rhs)
-        previous_update, update = update, sqrt(step @ step)
-        if not update < math.inf:
-            return (
-                u,
-                None,
-                None,
-                iteration,
-                residual,
-                ("the bordered Jacobian is singular or not finite"),
-            )
-        if iteration and update > DIVERGENCE_RATIO * previous_update:
-            return u, None, None, iteration, residual, "Newton's method diverges"
-        u = u - step
-        iteration += 1
-
-
-def _correct_chord(evaluate, residual_fn, jacobian_fn, u, border, counter):
-    """Chord method: the bordered matrix is factorized once at the predicted point."""
-    size = u.shape[0]
-    g, jac, reason = _safe_evaluate(evaluate, u)
-    counter.rhs += 1
-    counter.jacobian += 1
-    if reason:
-        return u, None, None, 0, math.nan, reason
-    square = linalg.bordered_matrix(jac, border)
-    counter.factorizations += 1
-    try:
-        if linalg.is_sparse(square):
-            solve = spla.splu(square).solve
-        else:
-            inverse = np.linalg.inv(square)
-            if not np.all(np.isfinite(inverse)):
-                raise np.linalg.LinAlgError("not finite")
-            solve = inverse.__matmul__
-    except (np.linalg.LinAlgError, RuntimeError):
-        return u, None, None, 0, math.nan, "the bordered Jacobian is singular"
-    previous_update = math.inf
-    rhs = np.zeros(size)
-    if not linalg.norm(g) < math.inf:
-        return u, None, None, 0, math.nan, _NOT_FINITE
-    for iteration in range(1, MAX_CHORD_ITERATIONS + 1):
-        rhs[:-1] = -g
-        step = solve(rhs)
-        update = linalg.norm(step)
-        if not update < math.inf or update > CHORD_CONTRACTION * previous_update:
-            return u, None, None, iteration, math.nan, "the chord iteration does not contract"
-        previous_update = update
-        u = u + step
-        try:
-            g = residual_fn(u)
-        except (ArithmeticError, ValueError) as exc:
-            reason = f"evaluating the model raised {type(exc).__name__}: {exc}"
-            return u, None, None, iteration, math.nan, reason
-        counter.rhs += 1
-        residual = linalg.norm(g)
-        if not residual < math.inf:
-            return u, None, None, iteration, math.nan, _NOT_FINITE
-        scale = 1.0 + linalg.norm(u)
-        if (residual <= RESIDUAL_TOL and update <= UPDATE_RTOL * scale) or (
-            update <= STAGNATION_RTOL * scale
-        ):
-            try:
-                jac = jacobian_fn(u)
-            except (ArithmeticError, ValueError) as exc:
-                return (
-                    u,
-                    None,
-                    None,
-                    iteration,
-                    residual,
-                    (f"evaluating the Jacobian raised {type(exc).__name__}: {exc}"),
-                )
-            counter.jacobian += 1
-            return u, g, jac, iteration, residual, ""
-    return u, None, None, MAX_CHORD_ITERATIONS, math.nan, "no convergence of the chord iteration"
-
-
-# ---------------------------------------------------------------------------
-# The engine
-# ---------------------------------------------------------------------------
 
 
 def follow_curve(
@@ -493,44 +273,25 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
     lo, hi = float(bounds[0]), float(bounds[1])
     smallest, largest = float(settings.smallest), float(settings.largest)
     max_points = int(settings.max_points)
-    step = min(max(float(settings.initial), smallest), largest)
-    test_floor = max(smallest, TEST_STEP_FLOOR * largest)
-    evaluate = _evaluator(problem)
-    residual_fn, jacobian_fn = problem.residual, problem.jacobian
-    observe = problem.observe
-    counter = _Counter()
+    step = step_control.first_step(float(settings.initial), smallest, largest)
+    tests_floor = step_control.tests_step_floor(smallest, largest)
+    evaluate = correctors.evaluator(problem)
+    residual_fn, jacobian_fn, observe = problem.residual, problem.jacobian, problem.observe
+    counts = correctors.EvaluationCounts()
 
-    g0, jac, reason = _safe_evaluate(evaluate, u)
-    counter.rhs += 1
-    counter.jacobian += 1
-    if reason:
-        return _empty_curve(u, f"cannot start {describe_point(problem, u)}: {reason}", counter)
-    t = t / linalg.norm(t)
-    if not start_tangent_exact:
-        try:
-            counter.factorizations += 1
-            t = _tangent(jac, t, linalg.is_sparse(jac))
-        except linalg.SingularMatrixError:
-            return _empty_curve(
-                u,
-                f"cannot start {describe_point(problem, u)}: the tangent is "
-                "undefined there (singular bordered Jacobian; a branch point?)",
-                counter,
-            )
+    start = _start(problem, evaluate, u, t, start_tangent_exact, counts)
+    if isinstance(start, str):
+        return failed_curve(u, start, counts.as_dict())
+    g0, jac, t = start
+    sparse = linalg.is_sparse(jac)
     payload, tests = observe(u, t, jac)
     tests = np.asarray(tests, dtype=float)
-    points, tangents, arcs, iterations = [u], [t], [0.0], [0]
-    residuals, test_rows, payloads = [linalg.norm(g0)], [tests], [payload]
+    # One tuple per accepted point, in the order of Curve's columns (one append per point).
+    rows = [(u, t, 0.0, 0, linalg.norm(g0), tests, payload)]
+    tracked = step_control.track_tests(tests.tolist())
     u_start, t_start = u, t
     arclength = 0.0
-    # The test-function rule works on plain floats: cheaper than numpy for a few values.
-    previous_tests = tests.tolist()
-    test_slope: list[float] | None = None
-    test_max = [abs(value) for value in previous_tests]
     status, message = "", ""
-    sparse = linalg.is_sparse(jac)
-    use_chord = newton == "chord"
-    sqrt = math.sqrt
     if not lo <= u[-1] <= hi:
         status = STATUS_FAILED
         message = (
@@ -539,230 +300,165 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
         )
 
     while not status:
-        if len(points) >= max_points:
+        if len(rows) >= max_points:
             status = STATUS_MAX_POINTS
             message = (
                 f"stopped after {max_points} points (steps.max_points) {describe_point(problem, u)}"
             )
             break
+        # Predict and correct.
         predicted = u + step * t
-        if use_chord:
-            u_new, _, jac_new, its, residual, reason = _correct_chord(
-                evaluate, residual_fn, jacobian_fn, predicted, t, counter
+        if newton == "chord":
+            correction = correctors.correct_chord(
+                evaluate, residual_fn, jacobian_fn, predicted, t, counts
             )
         else:
-            u_new, _, jac_new, its, residual, reason = _correct_full(
-                evaluate, predicted, t, None, counter
+            correction = correctors.correct_newton(evaluate, predicted, t, None, counts)
+        converged, iterations, u_new, residual, _, jac_new, failure = correction
+        counts.newton += iterations
+        if converged:
+            t_new, failure = _tangent_at(
+                jac_new,
+                t,
+                sparse,
+                counts,
+                "the tangent is undefined at the corrected point (singular bordered matrix)",
             )
-        counter.newton += its
-        if not reason:
-            try:
-                counter.factorizations += 1
-                t_new = _tangent(jac_new, t, sparse)
-            except linalg.SingularMatrixError:
-                reason = (
-                    "the tangent is undefined at the corrected point (singular bordered matrix)"
-                )
-        if reason:
+        # Accept or shrink.
+        if failure:
             if step <= smallest:
                 status = STATUS_FAILED
                 message = (
                     f"the corrector failed at the smallest step ({smallest:g}) after the "
-                    f"point {describe_point(problem, u)}: {reason}"
+                    f"point {describe_point(problem, u)}: {failure}"
                 )
                 break
-            counter.rejected += 1
-            step = max(step * SHRINK_FACTOR, smallest)
+            counts.rejected += 1
+            step = step_control.shrunk(step, smallest)
             continue
-        if float(t_new @ t) < _MIN_TANGENT_COSINE and step > smallest:
-            counter.rejected += 1
-            step = max(step * SHRINK_FACTOR, smallest)
+        if step_control.tangent_turns_too_far(t_new, t, step, smallest):
+            counts.rejected += 1
+            step = step_control.shrunk(step, smallest)
             continue
-        p_new = u_new[-1]
-        if p_new < lo or p_new > hi:
+        edge = step_control.crossed_edge(u_new[-1], lo, hi)
+        if edge is not None:
             status, message = _finish_on_edge(
-                evaluate,
-                problem,
-                observe,
-                u,
-                u_new,
-                t,
-                lo if p_new < lo else hi,
-                counter,
-                sparse,
-                arclength,
-                (points, tangents, arcs, iterations, residuals, test_rows, payloads),
+                problem, evaluate, rows, u, u_new, t, edge, arclength, counts, sparse
             )
             break
+        # Test events.
         payload, tests = observe(u_new, t_new, jac_new)
         tests = np.asarray(tests, dtype=float)
         chord = u_new - u
-        chord_length = sqrt(chord @ chord)
+        chord_length = math.sqrt(chord.dot(chord))  # .dot: see correctors
         values = tests.tolist()
-        if (
-            test_slope is not None
-            and step > test_floor
-            and _test_functions_jump(previous_tests, values, test_slope, test_max, chord_length)
+        # The limit is read from this module at run time, so that it can be tuned (or switched
+        # off, as tests/test_continuation.py does) in one place: continuation.TEST_CHANGE_LIMIT.
+        if step_control.tests_unresolved(
+            tracked, values, chord_length, step, tests_floor, TEST_CHANGE_LIMIT
         ):
-            counter.rejected += 1
-            step = max(step * SHRINK_FACTOR, test_floor)
+            counts.rejected += 1
+            step = step_control.shrunk(step, tests_floor)
             continue
-        if (
-            abs(u[-1] - u_start[-1]) <= chord_length
-            and len(points) > 2
-            and _passes_start(u_start, t_start, u, chord, chord_length, t)
-        ):
+        if step_control.closes_loop(u_start, t_start, u, t, chord, chord_length, len(rows)):
             arclength += linalg.norm(u_start - u)
-            _append(
-                (points, tangents, arcs, iterations, residuals, test_rows, payloads),
-                u_start,
-                t_start,
-                arclength,
-                0,
-                residuals[0],
-                test_rows[0],
-                payloads[0],
-            )
+            rows.append(_start_again(rows[0], arclength))
             status = STATUS_CLOSED
             message = "the branch closed on itself (an isola) back at its start point"
             break
-        # Accept.
-        if chord_length > 0.0:
-            test_slope = [
-                (new - old) / chord_length for new, old in zip(values, previous_tests, strict=True)
-            ]
-        test_max = [max(top, abs(value)) for top, value in zip(test_max, values, strict=True)]
-        previous_tests = values
+        # Record.
+        tracked = step_control.tracked_after(tracked, values, chord_length)
         arclength += chord_length
         u, t = u_new, t_new
-        points.append(u)
-        tangents.append(t)
-        arcs.append(arclength)
-        iterations.append(its)
-        residuals.append(residual)
-        test_rows.append(tests)
-        payloads.append(payload)
-        if progress is not None and len(points) % PROGRESS_INTERVAL == 0:
-            progress(len(points))
-        if its <= EASY_ITERATIONS:
-            step = min(step * GROW_FACTOR, largest)
+        rows.append((u, t, arclength, iterations, residual, tests, payload))
+        if progress is not None and len(rows) % PROGRESS_INTERVAL == 0:
+            progress(len(rows))
+        step = step_control.grown(step, iterations, largest)
     if progress is not None:
-        progress(len(points))
+        progress(len(rows))
+    return _curve_from_rows(rows, status, message, counts.as_dict())
+
+
+def _tangent_at(jac, previous, sparse, counts, singular_message):
+    """(unit tangent, "") at a corrected point with Jacobian ``jac``, or (None, why not)."""
+    try:
+        counts.factorizations += 1
+        return correctors.unit_tangent(jac, previous, sparse), ""
+    except linalg.SingularMatrixError:
+        return None, singular_message
+
+
+def _start(problem, evaluate, u, t, start_tangent_exact, counts):
+    """(G, G_u, unit tangent) at the start point, or why the curve cannot start there."""
+    g0, jac, reason = correctors.safe_evaluate(evaluate, u)
+    counts.rhs += 1
+    counts.jacobian += 1
+    if reason:
+        return f"cannot start {describe_point(problem, u)}: {reason}"
+    t = t / linalg.norm(t)
+    if not start_tangent_exact:
+        t, reason = _tangent_at(
+            jac,
+            t,
+            linalg.is_sparse(jac),
+            counts,
+            "the tangent is undefined there (singular bordered Jacobian; a branch point?)",
+        )
+        if reason:
+            return f"cannot start {describe_point(problem, u)}: {reason}"
+    return g0, jac, t
+
+
+def _finish_on_edge(
+    problem, evaluate, rows, u, u_out, t, edge, arclength, counts, sparse
+) -> tuple[str, str]:
+    """Append the point exactly on the interval edge to ``rows``; returns (status, message).
+
+    ``u`` is the last accepted point, ``u_out`` the corrected point beyond ``edge``.
+    """
+    reached = STATUS_DONE, f"reached the edge {edge:.10g} of the parameter interval"
+    if u[-1] == edge:
+        return reached
+    guess = step_control.edge_guess(u, u_out, edge)
+    converged, iterations, u_edge, _, g_edge, jac_edge, failure = correctors.correct_on_edge(
+        evaluate, guess, edge, counts
+    )
+    counts.newton += iterations
+    if converged:
+        t_edge, failure = _tangent_at(jac_edge, t, sparse, counts, "the tangent is undefined there")
+    if failure:
+        return STATUS_FAILED, (
+            f"could not put the last point on the interval edge {edge:.10g} (after the point "
+            f"{describe_point(problem, u)}): {failure}"
+        )
+    payload, tests = problem.observe(u_edge, t_edge, jac_edge)
+    arclength += linalg.norm(u_edge - u)
+    residual = linalg.norm(g_edge)
+    rows.append(
+        (u_edge, t_edge, arclength, iterations, residual, np.asarray(tests, float), payload)
+    )
+    return reached
+
+
+def _start_again(first_row: tuple, arclength: float) -> tuple:
+    """The start point's row again, at ``arclength`` and with no iterations (a closed curve)."""
+    u, t, _, _, residual, tests, payload = first_row
+    return u, t, arclength, 0, residual, tests, payload
+
+
+def _curve_from_rows(rows: list[tuple], status: str, message: str, counts: dict) -> Curve:
+    points, tangents, arcs, iterations, residuals, tests, payloads = zip(*rows, strict=True)
     return Curve(
         points=np.array(points),
         tangents=np.array(tangents),
         arclength=np.array(arcs),
         newton_iterations=np.array(iterations, dtype=int),
         residual_norms=np.array(residuals),
-        test_values=np.array(test_rows),
-        payloads=_stack(payloads),
+        test_values=np.array(tests),
+        payloads=_stack(list(payloads)),
         status=status,
         message=message,
-        counts=counter.as_dict(),
-    )
-
-
-def _append(columns, u, t, arclength, iterations, residual, tests, payload) -> None:
-    for column, value in zip(
-        columns, (u, t, arclength, iterations, residual, tests, payload), strict=True
-    ):
-        column.append(value)
-
-
-def _test_functions_jump(previous, values, slope, largest, chord_length) -> bool:
-    """The test-function rule of the module docstring: True means shrink the step."""
-    for old, new, rate, top in zip(previous, values, slope, largest, strict=True):
-        predicted = old + chord_length * rate
-        local = max(abs(old), abs(new)) + TEST_SCALE_FLOOR * top
-        if abs(new - predicted) > TEST_CHANGE_LIMIT * local:
-            return True
-    return False
-
-
-def _finish_on_edge(
-    evaluate, problem, observe, u, u_out, t, edge, counter, sparse, arclength, columns
-) -> tuple[str, str]:
-    """Append the point exactly on the interval edge; returns (status, message)."""
-    if u[-1] == edge:
-        return STATUS_DONE, f"reached the edge {edge:.10g} of the parameter interval"
-    edge_row = _land_on_edge(evaluate, problem, u, u_out, t, edge, counter, sparse)
-    if isinstance(edge_row, str):
-        return STATUS_FAILED, edge_row
-    u_edge, g_edge, jac_edge, its_edge, t_edge = edge_row
-    payload, tests = observe(u_edge, t_edge, jac_edge)
-    arclength += linalg.norm(u_edge - u)
-    _append(
-        columns,
-        u_edge,
-        t_edge,
-        arclength,
-        its_edge,
-        linalg.norm(g_edge),
-        np.asarray(tests, dtype=float),
-        payload,
-    )
-    return STATUS_DONE, f"reached the edge {edge:.10g} of the parameter interval"
-
-
-def _tangent(jac, previous, sparse):
-    """Unit tangent at a point with Jacobian ``jac``, oriented like ``previous``."""
-    if sparse or type(jac) is not np.ndarray:
-        return linalg.tangent(jac, previous)
-    size = previous.shape[0]
-    square = np.empty((size, size))
-    square[:-1] = jac
-    square[-1] = previous
-    rhs = np.zeros(size)
-    rhs[-1] = 1.0
-    z = linalg.solve_unchecked(square, rhs)
-    length = math.sqrt(z @ z)
-    if not 0.0 < length < math.inf:
-        raise linalg.SingularMatrixError("the tangent is not finite")
-    return z / length
-
-
-def _passes_start(u_start, t_start, u, chord, chord_length, t) -> bool:
-    """True when the step u -> u + chord passes by the start point in its direction."""
-    if chord_length == 0.0 or float(t_start @ t) <= 0.0:
-        return False
-    offset = u_start - u
-    along = float(offset @ chord) / (chord_length * chord_length)
-    if not 0.0 < along <= 1.0:
-        return False
-    distance = linalg.norm(offset - along * chord)
-    return distance <= LOOP_DISTANCE_FRACTION * chord_length
-
-
-def _land_on_edge(evaluate, problem, u_in, u_out, t, edge, counter, sparse):
-    """Solve G(u) = 0 with u[-1] = edge, starting between u_in and u_out.
-
-    Returns (u, G, J, iterations, tangent) or a failure message.
-    """
-    fraction = (edge - u_in[-1]) / (u_out[-1] - u_in[-1])
-    guess = u_in + fraction * (u_out - u_in)
-    guess[-1] = edge
-    border = np.zeros(u_in.shape[0])
-    border[-1] = 1.0
-    u, g, jac, its, _, reason = _correct_full(
-        evaluate, guess, border, edge, counter, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
-    )
-    counter.newton += its
-    if not reason:
-        if u[-1] != edge:  # the bordered solve may leave roundoff in the fixed component
-            u = u.copy()
-            u[-1] = edge
-            g, jac, reason = _safe_evaluate(evaluate, u)
-            counter.rhs += 1
-            counter.jacobian += 1
-    if not reason:
-        try:
-            counter.factorizations += 1
-            return u, g, jac, its, _tangent(jac, t, sparse)
-        except linalg.SingularMatrixError:
-            reason = "the tangent is undefined there"
-    return (
-        f"could not put the last point on the interval edge {edge:.10g} (after the point "
-        f"{describe_point(problem, u_in)}): {reason}"
+        counts=counts,
     )
 
 
@@ -771,19 +467,3 @@ def _stack(payloads: list) -> Any:
         return np.array(payloads)
     except (ValueError, TypeError):
         return tuple(payloads)
-
-
-def _empty_curve(u: Array, message: str, counter: _Counter) -> Curve:
-    size = u.shape[0]
-    return Curve(
-        points=np.empty((0, size)),
-        tangents=np.empty((0, size)),
-        arclength=np.empty(0),
-        newton_iterations=np.empty(0, dtype=int),
-        residual_norms=np.empty(0),
-        test_values=np.empty((0, 0)),
-        payloads=(),
-        status=STATUS_FAILED,
-        message=message,
-        counts=counter.as_dict(),
-    )

@@ -340,3 +340,106 @@ def count_by_half_plane(eigenvalues: Array, zero_tolerance: float) -> tuple[int,
     positive = int(np.count_nonzero(real > zero_tolerance))
     negative = int(np.count_nonzero(real < -zero_tolerance))
     return positive, real.shape[0] - positive - negative, negative
+
+
+# ----------------------------------------------------------------------------
+# bordered squares, signs of determinants and long products without overflow
+
+# Determinants and long products are returned as sign * exp(log|value|) with the
+# logarithm clipped here, so that they never overflow to inf or underflow to 0
+# (which would hide the sign, the only part test functions use).
+LOG_CLIP = 600.0
+
+
+def bordered_square(matrix: object, column: Array, row: Array, corner: float = 0.0) -> object:
+    """The square matrix [[A, column], [row^T, corner]], dense or sparse like A.
+
+    Parameters
+    ----------
+    matrix : ndarray or scipy.sparse matrix, shape (n, n)
+    column : ndarray, shape (n,)
+    row : ndarray, shape (n,) or (n + 1,)
+        With n + 1 entries its last one is the corner (``corner`` is then unused).
+    corner : float
+
+    Returns
+    -------
+    ndarray or scipy.sparse.csc_matrix, shape (n + 1, n + 1)
+    """
+    n = matrix.shape[0]
+    last = row[n] if row.shape[0] > n else corner
+    if sp.issparse(matrix):
+        return sp.bmat(
+            [
+                [matrix, sp.csc_matrix(np.reshape(column, (n, 1)))],
+                [sp.csr_matrix(np.reshape(row[:n], (1, n))), np.array([[last]])],
+            ],
+            format="csc",
+        )
+    out = np.empty((n + 1, n + 1))
+    out[:n, :n] = matrix
+    out[:n, n] = column
+    out[n, :n] = row[:n]
+    out[n, n] = last
+    return out
+
+
+def from_signed_log(sign: float, log_magnitude: float) -> float:
+    """sign * exp(log_magnitude), the exponent clipped to [-LOG_CLIP, LOG_CLIP]."""
+    return sign * math.exp(min(max(log_magnitude, -LOG_CLIP), LOG_CLIP))
+
+
+def signed_product(factors: Array) -> float:
+    """The sign of prod(factors).real times exp(sum log|factors|), clipped; 0 if a factor is.
+
+    For products of many complex factors (such as the bialternate product's
+    determinant) whose plain product overflows or underflows.
+    """
+    magnitudes = np.abs(factors)
+    if not np.all(magnitudes > 0.0):
+        return 0.0
+    phase = np.prod(factors / magnitudes)
+    sign = 1.0 if phase.real >= 0.0 else -1.0
+    return from_signed_log(sign, float(np.sum(np.log(magnitudes))))
+
+
+def sparse_slogdet(matrix: object) -> tuple[float, float]:
+    """(sign, log|det|) of a square scipy.sparse CSC matrix, from its SuperLU factors.
+
+    Like ``np.linalg.slogdet``: (0.0, -inf) when the matrix is exactly singular.
+    """
+    try:
+        lu = spla.splu(matrix)
+    except RuntimeError:
+        return 0.0, -math.inf
+    diagonal = lu.U.diagonal()
+    if np.any(diagonal == 0.0):
+        return 0.0, -math.inf
+    sign = float(np.prod(np.sign(diagonal)))
+    sign *= _permutation_sign(lu.perm_r) * _permutation_sign(lu.perm_c)
+    return sign, float(np.sum(np.log(np.abs(diagonal))))
+
+
+def _permutation_sign(permutation: Array) -> float:
+    """+1 or -1: the parity of a permutation given as an index array (cycle count)."""
+    seen = np.zeros(permutation.shape[0], dtype=bool)
+    sign = 1.0
+    for start in range(permutation.shape[0]):
+        if seen[start]:
+            continue
+        length = 0
+        index = start
+        while not seen[index]:
+            seen[index] = True
+            index = permutation[index]
+            length += 1
+        if length % 2 == 0:
+            sign = -sign
+    return sign
+
+
+def zero_crossing_fraction(before: float, after: float) -> float:
+    """Where in [0, 1] the straight line from ``before`` to ``after`` crosses zero (0.5 if flat)."""
+    if before == after:
+        return 0.5
+    return float(np.clip(before / (before - after), 0.0, 1.0))

@@ -13,7 +13,7 @@ Pure functions of a model and a located point:
   bifurcation and nonlinear eigenvalue problems", 1977; Allgower & Georg,
   Introduction to Numerical Continuation Methods, section 8.3).
 
-Also the derivative helpers the defining systems in :mod:`branchline.events`
+Also the derivative helpers the defining systems in :mod:`branchline.defining_systems`
 share (directional Jacobians, the second derivative of the (n, n + 1)
 equilibrium map).
 """

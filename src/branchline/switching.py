@@ -18,6 +18,7 @@ from collections.abc import Callable
 
 import numpy as np
 
+from branchline.defining_systems import with_value
 from branchline.events import correct_on_branch
 from branchline.normal_forms import branch_point_normal_form, branch_tangent
 from branchline.results import Branch, Event
@@ -34,12 +35,6 @@ SWITCH_OFFSET = 1e-3
 # The corrected start must keep this cosine with the predicted tangent;
 # otherwise Newton slid back onto the traced branch and the start is dropped.
 SMALLEST_TANGENT_COSINE = 0.9
-
-
-def _with_value(params: Array, k: int, value: float) -> Array:
-    full = np.array(params, dtype=float)
-    full[k] = value
-    return full
 
 
 def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
@@ -103,7 +98,7 @@ def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, floa
         u = outcome.solution
         if not lo <= u[-1] <= hi:
             continue
-        full = _with_value(event.parameters, k, u[-1])
+        full = with_value(event.parameters, k, u[-1])
         t = branch_tangent(model, u[:-1], full, k, tangent)
         if float(t @ tangent) < SMALLEST_TANGENT_COSINE:
             continue
@@ -150,7 +145,7 @@ def trace_switched(
                 model,
                 name,
                 parent_branch.vary,
-                _with_value(event.parameters, k, p0),
+                with_value(event.parameters, k, p0),
                 x0,
                 interval,
                 "increasing" if tangent[-1] >= 0 else "decreasing",

@@ -1,0 +1,312 @@
+"""Code generation for expression models: sympy expressions -> fast numeric functions.
+
+The exact derivatives of f are taken in sympy (:class:`SymbolicDerivatives`),
+then each group of entries is compiled with ``sympy.lambdify`` after one
+common-subexpression elimination (``sympy.cse``) into plain Python functions
+that return flat tuples. Two versions come from the same elimination: a fast
+one on Python floats and the math module (about a microsecond per call for
+small models) and a numpy one that turns domain errors into nan/inf and
+broadcasts over arrays (generated on first need). The normal-form derivatives
+(B, C, d/dp (f_x v)) are built and compiled only on first use (:class:`Lazy`).
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Callable, Sequence
+from typing import Any
+
+import numpy as np
+import sympy as sp
+
+Array = np.ndarray
+
+# Failures of the fast pure-Python evaluation (math module, Python floats) that
+# the numpy evaluation turns into inf/nan instead: log of a negative number,
+# division by zero, overflow, a fractional power of a negative number (Python
+# returns a complex number, which the float conversion refuses), and inputs
+# that are not 1-D float arrays.
+_FAST_PATH_FAILURES = (ArithmeticError, ValueError, TypeError, AttributeError)
+
+
+class SymbolicDerivatives:
+    """Exact derivatives of f in sympy; the higher ones built and compiled on demand.
+
+    The second and third derivative tensors are built entry by entry over
+    sorted index tuples only (they are symmetric), skipping every entry whose
+    parent does not depend on the variable, so sparse models stay cheap. The
+    forms B(v, w) and C(u, v, w) are then sums of those entries times
+    products of vector-component symbols, compiled with shared subexpressions.
+    """
+
+    def __init__(self, f: list[sp.Expr], x: list[sp.Symbol], p: list[sp.Symbol]) -> None:
+        self.f, self.x, self.p = f, x, p
+        self.jacobian = [[_derivative(fi, xj) for xj in x] for fi in f]
+        self.jacobian_entries = [entry for row in self.jacobian for entry in row]
+        self.parameter_entries = [_derivative(fi, pk) for fi in f for pk in p]
+        n = len(x)
+        self.u = [sp.Symbol(f"_u{i}") for i in range(n)]
+        self.v = [sp.Symbol(f"_v{i}") for i in range(n)]
+        self.w = [sp.Symbol(f"_w{i}") for i in range(n)]
+        self._hessian: list[dict[tuple[int, ...], sp.Expr]] | None = None
+
+    def hessian(self) -> list[dict[tuple[int, ...], sp.Expr]]:
+        """Per equation, {(j, k): d2f/dx_j dx_k} for j <= k, nonzero entries only."""
+        if self._hessian is None:
+            self._hessian = [
+                _raise_order({(j,): entry for j, entry in enumerate(row) if entry != 0}, self.x)
+                for row in self.jacobian
+            ]
+        return self._hessian
+
+    def compile_second(self) -> Callable:
+        second = [_contract(entries, (self.v, self.w)) for entries in self.hessian()]
+        return _complex_function(second, [self.x, self.p, self.v, self.w])
+
+    def compile_third(self) -> Callable:
+        third = [
+            _contract(_raise_order(entries, self.x), (self.u, self.v, self.w))
+            for entries in self.hessian()
+        ]
+        return _complex_function(third, [self.x, self.p, self.u, self.v, self.w])
+
+    def compile_parameter_derivative(self) -> Callable:
+        entries = [
+            sp.Add(*[_derivative(entry, pk) * vj for entry, vj in zip(row, self.v, strict=True)])
+            for row in self.jacobian
+            for pk in self.p
+        ]
+        shape = (len(self.x), len(self.p))
+        return _complex_function(entries, [self.x, self.p, self.v], shape)
+
+
+def _derivative(expression: sp.Expr, variable: sp.Symbol) -> sp.Expr:
+    """d expression / d variable, skipping sympy entirely when it cannot depend on it."""
+    if variable not in expression.free_symbols:
+        return sp.S.Zero
+    return sp.diff(expression, variable)
+
+
+def _raise_order(
+    entries: dict[tuple[int, ...], sp.Expr], x: list[sp.Symbol]
+) -> dict[tuple[int, ...], sp.Expr]:
+    """From {sorted index tuple: derivative} to the next order, sorted tuples only."""
+    higher = {}
+    for index, entry in entries.items():
+        for k in range(index[-1], len(x)):
+            derivative = _derivative(entry, x[k])
+            if derivative != 0:
+                higher[(*index, k)] = derivative
+    return higher
+
+
+def _contract(entries: dict[tuple[int, ...], sp.Expr], vectors: tuple) -> sp.Expr:
+    """sum over all index tuples of T[indices] * prod_r vectors[r][index_r], T symmetric."""
+    terms = []
+    for index, entry in entries.items():
+        products = {
+            tuple(index[a] for a in order) for order in itertools.permutations(range(len(index)))
+        }
+        weight = sp.Add(
+            *[
+                sp.Mul(*[vector[i] for vector, i in zip(vectors, order, strict=True)])
+                for order in products
+            ]
+        )
+        terms.append(entry * weight)
+    return sp.Add(*terms)
+
+
+class Lazy:
+    """A callable compiled on its first call (keeps start-up short)."""
+
+    __slots__ = ("_build", "_function")
+
+    def __init__(self, build: Callable[[], Callable]) -> None:
+        self._build = build
+        self._function: Callable | None = None
+
+    def __call__(self, *args: Any) -> Any:
+        if self._function is None:
+            self._function = self._build()
+        return self._function(*args)
+
+
+def _zero(*_: object) -> sp.Expr:
+    return sp.S.Zero
+
+
+def _printer_settings() -> dict[str, Any]:
+    # As lambdify's own defaults, but terms are printed in sympy's internal
+    # order instead of being sorted (sorting dominates compile time).
+    return {
+        "fully_qualified_modules": False,
+        "inline": True,
+        "allow_unknown_functions": True,
+        "order": "none",
+    }
+
+
+class _Compiled:
+    """Entries compiled twice from one common-subexpression elimination.
+
+    ``fast`` works on Python floats with the math module (None when some
+    function has no math counterpart); ``safe`` is numpy code, which turns
+    domain errors into nan/inf and broadcasts over arrays. ``safe`` is only
+    generated when first needed.
+    """
+
+    def __init__(self, arguments: list, expressions: list[sp.Expr], fast: bool = True) -> None:
+        # Kinks (abs, sign) differentiate to Dirac deltas; off the kink they are zero.
+        expressions = [
+            e.replace(sp.DiracDelta, _zero) if e.has(sp.DiracDelta) else e for e in expressions
+        ]
+        self.arguments = arguments
+        self.cse = sp.cse(expressions, order="none")
+        self._safe: Callable | None = None
+        self.fast = self._lambdify_fast() if fast else None
+
+    def _reuse(self, _: object) -> tuple:
+        return self.cse
+
+    def _lambdify_fast(self) -> Callable | None:
+        from sympy.printing.pycode import PythonCodePrinter
+
+        try:
+            settings = _printer_settings() | {"strict": True, "allow_unknown_functions": False}
+            printer = PythonCodePrinter(settings)
+            return sp.lambdify(
+                self.arguments,
+                self.cse[1],
+                # math.fabs, unlike abs, refuses a complex number (from a
+                # fractional power of a negative number), so such values take
+                # the numpy path and become nan there.
+                modules=[{"abs": math.fabs}, "math"],
+                cse=self._reuse,
+                printer=printer,
+                docstring_limit=0,
+            )
+        except Exception:  # the printer refuses a function: numpy code only
+            return None
+
+    @property
+    def safe(self) -> Callable:
+        if self._safe is None:
+            from sympy.printing.numpy import NumPyPrinter
+
+            printer = NumPyPrinter(_printer_settings())
+            self._safe = sp.lambdify(
+                self.arguments,
+                self.cse[1],
+                modules="numpy",
+                cse=self._reuse,
+                printer=printer,
+                docstring_limit=0,
+            )
+        return self._safe
+
+
+def _safe_values(safe: Callable, arrays: Sequence[Array], count: int, dtype: Any) -> Array:
+    """Evaluate the numpy version; entries broadcast over trailing axes of the inputs."""
+    trailing = np.broadcast_shapes(*(a.shape[1:] for a in arrays))
+    out = np.empty((count, *trailing), dtype=dtype)
+    with np.errstate(all="ignore"):
+        values = safe(*arrays)
+    for i, value in enumerate(values):
+        out[i] = value
+    return out
+
+
+def real_function(expressions: list[sp.Expr], arguments: list, shape: tuple[int, ...]):
+    """Compile real-valued entries into (x, p) -> ndarray of ``shape``."""
+    compiled = _Compiled(arguments, expressions)
+    fast = compiled.fast
+    count = len(expressions)
+
+    def evaluate_safe(x: Array, p: Array) -> Array:
+        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
+        values = _safe_values(compiled.safe, arrays, count, float)
+        return values.reshape(shape + values.shape[1:])
+
+    if fast is None:
+        return evaluate_safe
+
+    def evaluate(x: Array, p: Array) -> Array:
+        try:
+            if x.ndim == 1:
+                return np.array(fast(x.tolist(), p.tolist()), dtype=float).reshape(shape)
+        except _FAST_PATH_FAILURES:
+            pass
+        return evaluate_safe(x, p)
+
+    return evaluate
+
+
+def split_function(expressions: list[sp.Expr], arguments: list, shapes: tuple):
+    """Compile the entries of two blocks at once into (x, p) -> (block1, block2)."""
+    first_shape, second_shape = shapes
+    cut = first_shape[0] * first_shape[1]
+    compiled = _Compiled(arguments, expressions)
+    fast = compiled.fast
+    count = len(expressions)
+
+    def evaluate_safe(x: Array, p: Array) -> tuple[Array, Array]:
+        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
+        flat = _safe_values(compiled.safe, arrays, count, float)
+        trailing = flat.shape[1:]
+        return (
+            flat[:cut].reshape(first_shape + trailing),
+            flat[cut:].reshape(second_shape + trailing),
+        )
+
+    if fast is None:
+        return evaluate_safe
+
+    def evaluate(x: Array, p: Array) -> tuple[Array, Array]:
+        try:
+            if x.ndim == 1:
+                flat = np.array(fast(x.tolist(), p.tolist()), dtype=float)
+                return flat[:cut].reshape(first_shape), flat[cut:].reshape(second_shape)
+        except _FAST_PATH_FAILURES:
+            pass
+        return evaluate_safe(x, p)
+
+    return evaluate
+
+
+def _complex_function(expressions: list[sp.Expr], arguments: list, shape: tuple | None = None):
+    """Compile entries that may be complex (vector arguments) into numpy code."""
+    compiled = _Compiled(arguments, expressions, fast=False)
+    count = len(expressions)
+    shape = shape or (count,)
+
+    def evaluate(*inputs: Array) -> Array:
+        arrays = [np.asarray(a) for a in inputs]
+        dtype = np.result_type(float, *arrays)
+        values = _safe_values(compiled.safe, arrays, count, dtype)
+        return values.reshape(shape + values.shape[1:])
+
+    return evaluate
+
+
+def observable_function(names: tuple[str, ...], expressions: list[sp.Expr], arguments: list):
+    """Compile observables into (x, p) -> {name: value}."""
+    values = real_function(expressions, arguments, (len(names),))
+
+    def evaluate(x: Array, p: Array) -> dict[str, Any]:
+        result = values(x, p)
+        if result.ndim == 1:
+            return dict(zip(names, result.tolist(), strict=True))
+        return dict(zip(names, result, strict=True))
+
+    return evaluate
+
+
+__all__ = [
+    "Lazy",
+    "SymbolicDerivatives",
+    "observable_function",
+    "real_function",
+    "split_function",
+]
