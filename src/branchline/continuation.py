@@ -425,7 +425,12 @@ def _finish_on_edge(
     )
     counts.newton += iterations
     if converged:
-        t_edge, failure = _tangent_at(jac_edge, t, sparse, counts, "the tangent is undefined there")
+        t_edge, singular = _tangent_at(jac_edge, t, sparse, counts, "undefined")
+        if singular:
+            # The edge point is a solution but a singular one (a branch point or a
+            # line of equilibria lies on the edge): keep the last tangent for its row.
+            t_edge = t
+            reached = STATUS_DONE, reached[1] + " (a singular point: the tangent there is undefined)"
     if failure:
         return STATUS_FAILED, (
             f"could not put the last point on the interval edge {edge:.10g} (after the point "

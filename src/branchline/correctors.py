@@ -298,6 +298,14 @@ def correct_on_edge(evaluate, guess: Array, edge: float, counts: EvaluationCount
         evaluate, guess, border, edge, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
     )
     converged, iterations, u = correction[:3]
+    if not converged and not linalg.is_sparse(correction[5]):
+        # At an edge where df/dx is singular (a line of equilibria at a zero
+        # dilution rate, say) Newton's square solve fails although the point
+        # exists; Gauss-Newton with least-squares steps still converges there.
+        fallback = _least_squares_on_edge(evaluate, guess, edge, counts)
+        if fallback[0]:
+            correction = fallback
+            converged, iterations, u = correction[:3]
     if not converged or u[-1] == edge:
         return correction
     u = u.copy()
@@ -308,6 +316,31 @@ def correct_on_edge(evaluate, guess: Array, edge: float, counts: EvaluationCount
     if message:
         return _failed(u, iterations, math.nan, message)
     return True, iterations, u, linalg.norm(g), g, jac, ""
+
+
+def _least_squares_on_edge(
+    evaluate, guess: Array, edge: float, counts: EvaluationCounts
+) -> Correction:
+    """Gauss-Newton on G(x, edge) = 0 with minimum-norm least-squares steps (dense only)."""
+    u = np.array(guess, dtype=float)
+    u[-1] = edge
+    residual = math.nan
+    for iteration in range(1, 2 * MAX_CORRECTOR_ITERATIONS + 1):
+        g, jac, message = safe_evaluate(evaluate, u)
+        counts.rhs += 1
+        counts.jacobian += 1
+        if message or linalg.is_sparse(jac):
+            return _failed(u, iteration, math.nan, message or "sparse Jacobian")
+        residual = linalg.norm(g)
+        step = np.linalg.lstsq(np.asarray(jac)[:, :-1], -g, rcond=None)[0]
+        counts.factorizations += 1
+        u[:-1] += step
+        if _converged(residual, linalg.norm(step), 1.0 + linalg.norm(u)):
+            g, jac, message = safe_evaluate(evaluate, u)
+            if message:
+                return _failed(u, iteration, math.nan, message)
+            return True, iteration, u, linalg.norm(g), g, jac, ""
+    return _failed(u, iteration, residual, "least-squares Newton did not converge on the edge")
 
 
 def unit_tangent(jac, previous: Array, sparse: bool) -> Array:

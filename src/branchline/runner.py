@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -25,6 +25,9 @@ from branchline.switching import trace_switched
 SAME_POINT_TOLERANCE = 1e-6
 # Child branches may meet further branch points; stop switching this deep.
 MAX_SWITCH_DEPTH = 3
+# A branch point this close to an interval edge (relative to the interval's
+# width) has its crossing branches outside the window: they are not followed.
+EDGE_TOLERANCE = 1e-9
 
 Progress = Callable[[str, int], None]
 
@@ -59,6 +62,23 @@ def _seen(event: Event, visited: list[Event]) -> bool:
     return False
 
 
+def _on_edge(event: Event, interval: tuple[float, float]) -> bool:
+    """True for a branch point on the interval's edge: nothing to follow inside."""
+    width = interval[1] - interval[0]
+    return min(abs(event.value - edge) for edge in interval) <= EDGE_TOLERANCE * width
+
+
+def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
+    """Say so in the note of every branch point on the interval's edge."""
+    marked = []
+    for event in events:
+        if event.kind == "branch_point" and _on_edge(event, interval):
+            words = "on the edge of the parameter interval; the crossing branches were not followed"
+            event = replace(event, note=f"{event.note}; {words}" if event.note else words)
+        marked.append(event)
+    return marked
+
+
 def _follow(model: Model, spec: TraceSpec, source: str, progress: Progress | None) -> _TraceOutcome:
     parameters = model.parameter_vector(spec.set)
     x0 = start_vector(model, spec, parameters, source)
@@ -74,23 +94,31 @@ def _follow(model: Model, spec: TraceSpec, source: str, progress: Progress | Non
         spec.steps,
         progress=callback,
     )
-    branches, events = [root], list(locate_events(model, root))
+    branches, events = [root], _mark_edge_events(locate_events(model, root), spec.interval)
     if not spec.switch_branches:
         return _TraceOutcome(branches, events)
     visited: list[Event] = []
+    started: dict[str, int] = {}  # parent name -> children started so far
     queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
     while queue:
         parent, event, depth = queue.pop(0)
-        if _seen(event, visited) or depth > MAX_SWITCH_DEPTH:
+        if _seen(event, visited) or depth > MAX_SWITCH_DEPTH or _on_edge(event, spec.interval):
             continue
         visited.append(event)
         child_progress = (lambda count, n=parent.name: progress(n, count)) if progress else None
         children = trace_switched(
-            model, parent, event, spec.steps, spec.interval, progress=child_progress
+            model,
+            parent,
+            event,
+            spec.steps,
+            spec.interval,
+            progress=child_progress,
+            first_number=started.get(parent.name, 0) + 1,
         )
+        started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
             branches.append(child)
-            found = list(locate_events(model, child))
+            found = _mark_edge_events(locate_events(model, child), spec.interval)
             events.extend(found)
             queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
     return _TraceOutcome(branches, events)

@@ -113,6 +113,7 @@ def trace_switched(
     steps,
     interval: tuple[float, float],
     progress: Callable[[int], None] | None = None,
+    first_number: int = 1,
 ) -> list[Branch]:
     """Follow each half of the branch crossing ``parent_branch`` at ``event``.
 
@@ -127,11 +128,14 @@ def trace_switched(
         Window of the varied parameter.
     progress : callable(int), optional
         Passed on to :func:`branchline.branches.trace_branch`.
+    first_number : int
+        Number of the first child: a parent with several branch points numbers
+        its children on from the ones already started.
 
     Returns
     -------
     list of Branch
-        Named ``<parent>.1``, ``<parent>.2`` ... in the order started, each
+        Named ``<parent>.<first_number>``, ... in the order started, each
         traced from its start point away from the branch point only.
     """
     from branchline.branches import trace_branch  # the engine imports this module's siblings
@@ -139,7 +143,7 @@ def trace_switched(
     k = model.parameter_index(parent_branch.vary)
     children = []
     for x0, p0, tangent in branch_starts(model, parent_branch, event):
-        name = f"{parent_branch.name}.{len(children) + 1}"
+        name = f"{parent_branch.name}.{first_number + len(children)}"
         children.append(
             trace_branch(
                 model,
