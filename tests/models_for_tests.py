@@ -98,3 +98,10 @@ def wrong_chain_jacobian(x, p):
     matrix = chain_jacobian(x, p).tolil()
     matrix[150, 151] = 0.0
     return matrix.tocsr()
+
+
+def rhs_failing_past(x, p):
+    """``rhs`` whose code breaks (a KeyError) once b exceeds 2.8: a user's bug."""
+    if p["b"] > 2.8:
+        return {}["missing"]
+    return rhs(x, p)

@@ -214,3 +214,23 @@ def test_python_model_notice_and_jacobian_check(tmp_path, capsys, jacobian, warn
     assert ("warning:" in err) is warned
     points = pd.read_csv(out / "points.csv")
     assert {"total", "scaled", "x0", "x1", "x2"} <= set(points.columns)
+
+
+def test_python_model_raising_stops_gracefully_and_keeps_points(tmp_path, capsys):
+    scan = tmp_path / "py.toml"
+    scan.write_text(
+        PYTHON_SCAN.format(jacobian="jacobian").replace(
+            'rhs = "models_for_tests:rhs"', 'rhs = "models_for_tests:rhs_failing_past"'
+        )
+    )
+    out = tmp_path / "out"
+    code = main(["run", str(scan), "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == 1
+    assert "Traceback" not in err
+    assert "models_for_tests:rhs_failing_past" in err and "KeyError" in err
+    points = pd.read_csv(out / "points.csv")
+    # Points below b = 2.8 were computed and kept, including the lower edge.
+    assert points["b"].min() == 2.0
+    assert points["b"].max() <= 2.8
+    assert "KeyError" in (out / "report.md").read_text()

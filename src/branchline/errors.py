@@ -33,3 +33,12 @@ class ExpressionError(ValueError):
 
     The message points at the offending piece of the expression text.
     """
+
+
+class ModelCodeError(ValueError):
+    """A Python model's own function raised an exception during the computation.
+
+    A ValueError, so the engine treats it like other numerical trouble: the
+    trace stops there, every point computed so far is kept, and the message
+    names the function and the exception.
+    """

@@ -20,7 +20,7 @@ import numpy as np
 import scipy.sparse
 
 from branchline.differences import central_jacobian, directional_derivative
-from branchline.errors import ScanError
+from branchline.errors import ModelCodeError, ScanError
 from branchline.scan import PythonModelSpec
 
 Array = np.ndarray
@@ -87,7 +87,7 @@ def _import_module(module_name: str, source: str, key: str):
 def python_rhs(spec: PythonModelSpec, source: str) -> Callable[[Array, Array], Array]:
     """The user's rhs as (x, p) -> ndarray (n,), its shape checked on every call."""
     user_rhs = resolve_callable(spec.rhs, source, "model.python.rhs")
-    return _wrap_rhs(_with_parameter_dict(user_rhs, tuple(spec.parameters)), spec, source)
+    return _wrap_rhs(_with_parameter_dict(user_rhs, tuple(spec.parameters), spec.rhs), spec, source)
 
 
 def python_jacobian(
@@ -104,7 +104,7 @@ def python_jacobian(
         sparse = n > DENSE_STATE_LIMIT
         return _difference_jacobian(rhs, sparse), sparse, DifferenceDerivatives(rhs, None, 1)
     user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
-    user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters))
+    user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters), spec.jacobian)
     sample = probe(user_jacobian, probe_point, defaults)
     sparse = scipy.sparse.issparse(sample) if sample is not None else n > DENSE_STATE_LIMIT
     jacobian = _wrap_jacobian(user_jacobian, spec, sparse, source)
@@ -117,7 +117,7 @@ def python_observables(
 ) -> tuple[Callable, tuple[str, ...]]:
     """The user's observables function, wrapped, and its names (read at the probe point)."""
     user_observables = resolve_callable(spec.observables, source, "model.python.observables")
-    user_observables = _with_parameter_dict(user_observables, tuple(spec.parameters))
+    user_observables = _with_parameter_dict(user_observables, tuple(spec.parameters), spec.observables)
 
     def observables(x: Array, p: Array) -> dict[str, float]:
         values = user_observables(x, p)
@@ -142,11 +142,25 @@ def probe(function: Callable, x: Array, p: Array) -> Any:
         return None
 
 
-def _with_parameter_dict(user_function: Callable, parameters: tuple[str, ...]) -> Callable:
-    """(x, params dict) -> value as (x, p) -> value, ``p`` ordered as ``parameters``."""
+def _with_parameter_dict(
+    user_function: Callable, parameters: tuple[str, ...], reference: str
+) -> Callable:
+    """(x, params dict) -> value as (x, p) -> value, ``p`` ordered as ``parameters``.
+
+    Arithmetic trouble (ArithmeticError, ValueError) passes through as it is;
+    any other exception from the user's code becomes a ModelCodeError naming
+    ``reference``, so that a run stops gracefully instead of with a traceback.
+    """
 
     def call(x: Array, p: Array) -> Any:
-        return user_function(x, dict(zip(parameters, p.tolist(), strict=True)))
+        try:
+            return user_function(x, dict(zip(parameters, p.tolist(), strict=True)))
+        except (ArithmeticError, ValueError):
+            raise
+        except Exception as error:
+            raise ModelCodeError(
+                f"'{reference}' raised {type(error).__name__}: {error}"
+            ) from None
 
     return call
 

@@ -41,8 +41,14 @@ class _TraceOutcome:
 def start_vector(model: Model, spec: TraceSpec, parameters: np.ndarray, source: str) -> np.ndarray:
     """The trace's start guess as a state vector, shape (n,)."""
     if isinstance(spec.start, str):
-        function = resolve_callable(spec.start, source, f"trace[{spec.name}].start")
-        values = np.asarray(function(dict(zip(model.parameters, parameters))), dtype=float)
+        key = f"trace[{spec.name}].start"
+        function = resolve_callable(spec.start, source, key)
+        try:
+            values = np.asarray(function(dict(zip(model.parameters, parameters))), dtype=float)
+        except Exception as error:  # the user's own code: report it, never a traceback
+            raise ScanError(
+                source, key, f"{spec.start} raised {type(error).__name__}: {error}"
+            ) from None
         if values.shape != (model.size,):
             raise ScanError(
                 source,

@@ -34,9 +34,12 @@ def _observable_rows(result: RunResult, states: np.ndarray, params: np.ndarray) 
         return {}
     columns = {name: np.empty(len(states)) for name in names}
     for row, (x, p) in enumerate(zip(states, params)):
-        values = result.model.observables(x, p)
+        try:
+            values = result.model.observables(x, p)
+        except (ArithmeticError, ValueError):  # a failing observable is a gap, not a crash
+            values = {}
         for name in names:
-            columns[name][row] = float(values[name])
+            columns[name][row] = float(values.get(name, np.nan))
     return columns
 
 
@@ -98,8 +101,13 @@ def events_frame(result: RunResult) -> pd.DataFrame:
             row[name] = float(event.parameters[result.model.parameter_index(name)])
         row.update({k: float(v[0]) for k, v in _state_columns(result, event.state[None, :]).items()})
         if result.model.observable_names:
-            values = result.model.observables(event.state, event.parameters)
-            row.update({name: float(values[name]) for name in result.model.observable_names})
+            try:
+                values = result.model.observables(event.state, event.parameters)
+            except (ArithmeticError, ValueError):
+                values = {}
+            row.update(
+                {name: float(values.get(name, np.nan)) for name in result.model.observable_names}
+            )
         row["frequency"] = _optional(event.frequency)
         row["lyapunov"] = _optional(event.lyapunov)
         row["criticality"] = event.criticality or ""
