@@ -81,8 +81,10 @@ def _command_run(args: argparse.Namespace) -> int:
             print(f"warning: {warning}", file=sys.stderr)
         points = sum(len(b) for b in result.branches)
         seconds = result.timings.get("total_seconds", float("nan"))
-        print(f"{scan.title}: {len(result.branches)} traces, {points} points, "
-              f"{len(result.events)} stability changes in {seconds:.2f} s")
+        print(
+            f"{scan.title}: {len(result.branches)} traces, {points} points, "
+            f"{len(result.events)} stability changes in {seconds:.2f} s"
+        )
         print(summary_table(result.event_records()))
         print(f"results written to {out}/")
         print(CAUTION)
@@ -185,8 +187,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     inspect = sub.add_parser("inspect", help="solve for one equilibrium and describe it")
     inspect.add_argument("scan")
-    inspect.add_argument("--set", action="append", metavar="NAME=VALUE",
-                         help="override a parameter (repeatable)")
+    inspect.add_argument(
+        "--set", action="append", metavar="NAME=VALUE", help="override a parameter (repeatable)"
+    )
     inspect.set_defaults(handler=_command_inspect)
 
     plot = sub.add_parser("plot", help="redraw the diagram of a results folder")

@@ -46,8 +46,9 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
     lines = [f"{scan.title}", ""]
     lines.append("parameters: " + ", ".join(f"{n} = {v:.10g}" for n, v in zip(model.parameters, p)))
     if not solution.converged:
-        lines.append(f"no equilibrium found from the start guess of trace {spec.name}: "
-                     f"{solution.message}")
+        lines.append(
+            f"no equilibrium found from the start guess of trace {spec.name}: {solution.message}"
+        )
         return "\n".join(lines), False
     lines.append(
         f"equilibrium (Newton: {solution.iterations} iterations, "
@@ -63,11 +64,15 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
     lines += ["", "eigenvalues (by decreasing real part):", _eigen_text(lin.eigenvalues)]
     lines += ["", f"type: {lin.kind.replace('_', ' ')}"]
     if lin.hyperbolic:
-        lines.append("hyperbolic: yes - the linearization decides the local behaviour "
-                     "(Hartman-Grobman theorem)")
+        lines.append(
+            "hyperbolic: yes - the linearization decides the local behaviour "
+            "(Hartman-Grobman theorem)"
+        )
     else:
-        lines.append("hyperbolic: no - an eigenvalue lies on the imaginary axis, so the "
-                     "linearization does not decide the local behaviour; nonlinear terms do")
+        lines.append(
+            "hyperbolic: no - an eigenvalue lies on the imaginary axis, so the "
+            "linearization does not decide the local behaviour; nonlinear terms do"
+        )
     if getattr(lin, "description", ""):
         lines += ["", lin.description]
     return "\n".join(lines), True
