@@ -8,11 +8,11 @@ start equilibrium, follows the branch to one or both sides and assembles the
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 
 import numpy as np
 
-from branchline import continuation, events, linalg
+from branchline import continuation, events, linalg, step_control
 from branchline.equilibrium import solve_equilibrium
 from branchline.results import STATUS_CLOSED, STATUS_DONE, STATUS_FAILED, STATUS_MAX_POINTS, Branch
 
@@ -142,6 +142,7 @@ def trace_branch(
     start_tangent: Array | None = None,
     progress: Callable[[int], None] | None = None,
     newton: str = "full",
+    limits: Mapping[str | int, tuple[float, float]] | None = None,
 ) -> Branch:
     """Follow the equilibrium branch through (x_start, parameters) as ``vary`` moves.
 
@@ -174,6 +175,10 @@ def trace_branch(
         Called with the number of points computed so far.
     newton : {"full", "chord"}
         Corrector of the engine.
+    limits : mapping {state: (lo, hi)}, optional
+        Windows for states (by name or index in ``model.states``): a side stops
+        when a state leaves its window, its last point exactly on the limit
+        (status ``done``). The start equilibrium must lie within them.
 
     Returns
     -------
@@ -192,6 +197,7 @@ def trace_branch(
         raise ValueError(f"direction must be one of {DIRECTIONS}, not {direction!r}")
     if vary not in model.parameters:
         raise ValueError(f"unknown parameter {vary!r}; the model has {model.parameters}")
+    state_limits = state_limits_of(model, limits)
     vary_index = model.parameters.index(vary)
     parameters = np.array(parameters, dtype=float)
     lo, hi = sorted((float(interval[0]), float(interval[1])))
@@ -232,6 +238,14 @@ def trace_branch(
             )
         x_start = solution.state
     u0 = np.append(x_start, start_value)
+    for limit in state_limits:
+        if step_control.beyond_limit(u0[limit.index], limit) is not None:
+            return record(
+                [],
+                STATUS_FAILED,
+                f"the start equilibrium has {limit.name}={u0[limit.index]:.10g}, outside "
+                f"its limits [{limit.lo:.10g}, {limit.hi:.10g}] (trace limits)",
+            )
     sides = _sides(direction, start_tangent, n)
     curves: list[tuple[int, continuation.Curve]] = []
     done_points = 0
@@ -261,6 +275,7 @@ def trace_branch(
             newton=newton,
             progress=report,
             start_tangent_exact=exact,
+            limits=state_limits,
         )
         curves.append((orientation, curve))
         done_points += len(curve)
@@ -271,6 +286,41 @@ def trace_branch(
             counts[key] = counts.get(key, 0) + value
     status, message = _summarize(curves, vary)
     return record(curves, status, message)
+
+
+def state_limits_of(
+    model, limits: Mapping[str | int, tuple[float, float]] | None
+) -> tuple[step_control.Limit, ...]:
+    """Trace limits {state name or index: (lo, hi)} as the engine's Limit records.
+
+    Raises
+    ------
+    ValueError
+        For an unknown state or bounds not ordered lo < hi (programming errors;
+        the scan validator catches them first).
+    """
+    if not limits:
+        return ()
+    states = list(model.states)
+    records = []
+    for key, (lo, hi) in limits.items():
+        if isinstance(key, str):
+            if key not in states:
+                raise ValueError(f"limits: unknown state {key!r}; the model has {states}")
+            index = states.index(key)
+        else:
+            index = int(key)
+            if not 0 <= index < len(states):
+                raise ValueError(f"limits: state index {index} out of range")
+        if not float(lo) < float(hi):
+            raise ValueError(f"limits: {states[index]} needs lo < hi, got [{lo}, {hi}]")
+        records.append(step_control.Limit(index, float(lo), float(hi), states[index]))
+    return tuple(records)
+
+
+def within_limits(state: Array, limits: tuple[step_control.Limit, ...]) -> bool:
+    """True when no state of ``state`` (n,) lies beyond its limit (up to the slack)."""
+    return all(step_control.beyond_limit(state[lim.index], lim) is None for lim in limits)
 
 
 def _sides(direction, start_tangent, n):
@@ -420,4 +470,10 @@ def unstable_counts(eigenvalues: Array) -> Array:
     return np.count_nonzero(positive, axis=1).astype(int)
 
 
-__all__ = ["EquilibriumBranch", "trace_branch", "unstable_counts"]
+__all__ = [
+    "EquilibriumBranch",
+    "state_limits_of",
+    "trace_branch",
+    "unstable_counts",
+    "within_limits",
+]

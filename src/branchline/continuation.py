@@ -43,17 +43,18 @@ Optional members:
     A short text naming the point for messages ("at D=0.3, S=1.2").
 
 Rules a problem must follow: ``u``'s last component is the curve's parameter
-(the one the ``bounds`` apply to); the functions must not modify ``u``, print
-or write files; for numerical trouble they return NaN rather than raise
-(ArithmeticError and ValueError are caught anyway and count as a failed step).
+(the one the ``bounds`` apply to; ``limits`` may bound any other component); the
+functions must not modify ``u``, print or write files; for numerical trouble they
+return NaN rather than raise (ArithmeticError and ValueError are caught anyway and
+count as a failed step).
 The engine runs under ``np.errstate(all="ignore")``.
 
 How a curve ends
 ----------------
-``done``: it left the parameter bounds and its last point lies exactly on the
-edge. ``closed``: it passed by the start point again with the same orientation
-(an isola); the start point is appended as the last point. ``max_points``:
-``settings.max_points`` reached. ``failed``: the corrector failed at the
+``done``: it left the parameter bounds, or a component left its ``limits``, and
+its last point lies exactly on that edge or limit. ``closed``: it passed by the
+start point again with the same orientation (an isola); the start point is
+appended as the last point. ``max_points``: ``settings.max_points`` reached. ``failed``: the corrector failed at the
 smallest step, or the edge point could not be found; the message says where
 and why.
 """
@@ -61,7 +62,7 @@ and why.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -81,12 +82,14 @@ from branchline.correctors import (  # noqa: F401  (re-exported: tuning values o
 from branchline.step_control import (  # noqa: F401  (re-exported; TEST_CHANGE_LIMIT also used)
     EASY_ITERATIONS,
     GROW_FACTOR,
+    LIMIT_SLACK,
     LOOP_DISTANCE_FRACTION,
     MAX_TANGENT_ANGLE,
     SHRINK_FACTOR,
     TEST_CHANGE_LIMIT,
     TEST_SCALE_FLOOR,
     TEST_STEP_FLOOR,
+    Limit,
 )
 
 Array = np.ndarray
@@ -205,6 +208,7 @@ def follow_curve(
     newton: str = "full",
     progress: Callable[[int], None] | None = None,
     start_tangent_exact: bool = False,
+    limits: Mapping[int, tuple[float, float]] | Sequence[Limit] = (),
 ) -> Curve:
     """Follow the solution curve of ``problem`` from ``u0`` along ``tangent0``.
 
@@ -234,6 +238,12 @@ def follow_curve(
     start_tangent_exact : bool
         Use ``tangent0`` itself as the start tangent (branch switching at a
         branch point, where the bordered system is singular).
+    limits : mapping {index: (lo, hi)} or sequence of Limit, optional
+        Windows for other components of u (states): the curve stops when one
+        leaves its window, its last point exactly on the limit (G = 0 solved
+        with that component fixed there). A :class:`Limit` carries the name
+        used in messages; a mapping's entries are named ``u[index]``. With no
+        limits the engine's loop does no extra work.
 
     Returns
     -------
@@ -265,10 +275,31 @@ def follow_curve(
             newton,
             progress,
             start_tangent_exact,
+            _as_limits(limits, np.shape(u0)[0]),
         )
 
 
-def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exact) -> Curve:
+def _as_limits(limits, size: int) -> tuple[Limit, ...]:
+    """``limits`` as a tuple of Limit with indices in 0 .. size - 2 (states only)."""
+    if isinstance(limits, Mapping):
+        limits = [
+            Limit(int(index), float(lo), float(hi), f"u[{int(index)}]")
+            for index, (lo, hi) in limits.items()
+        ]
+    normalized = []
+    for limit in limits:
+        index = limit.index % size
+        if index == size - 1:
+            raise ValueError("limits apply to states; bound the parameter with bounds")
+        if not limit.lo < limit.hi:
+            raise ValueError(f"limit {limit.name} needs lo < hi, got [{limit.lo}, {limit.hi}]")
+        normalized.append(Limit(index, float(limit.lo), float(limit.hi), limit.name))
+    return tuple(normalized)
+
+
+def _follow(
+    problem, u, t, settings, bounds, newton, progress, start_tangent_exact, limits
+) -> Curve:
     """The engine loop: predict, correct, accept or shrink, record, test (under errstate)."""
     lo, hi = float(bounds[0]), float(bounds[1])
     smallest, largest = float(settings.smallest), float(settings.largest)
@@ -297,6 +328,14 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
         message = (
             f"the start point {describe_point(problem, u)} lies outside the parameter "
             f"interval [{lo:.10g}, {hi:.10g}]"
+        )
+    outside = [limit for limit in limits if step_control.beyond_limit(u[limit.index], limit)]
+    if outside and not status:
+        limit = outside[0]
+        status = STATUS_FAILED
+        message = (
+            f"the start point {describe_point(problem, u)} lies outside the limit "
+            f"{limit.name} in [{limit.lo:.10g}, {limit.hi:.10g}]"
         )
 
     while not status:
@@ -341,6 +380,26 @@ def _follow(problem, u, t, settings, bounds, newton, progress, start_tangent_exa
             step = step_control.shrunk(step, smallest)
             continue
         edge = step_control.crossed_edge(u_new[-1], lo, hi)
+        if limits:
+            hit = step_control.first_limit(u, u_new, limits)
+            if hit is not None and (
+                edge is None or hit[2] <= step_control.edge_fraction(u, u_new, edge)
+            ):
+                limit, bound, _ = hit
+                status, message = _finish_on_edge(
+                    problem,
+                    evaluate,
+                    rows,
+                    u,
+                    u_new,
+                    t,
+                    bound,
+                    arclength,
+                    counts,
+                    sparse,
+                    limit,
+                )
+                break
         if edge is not None:
             status, message = _finish_on_edge(
                 problem, evaluate, rows, u, u_new, t, edge, arclength, counts, sparse
@@ -410,19 +469,28 @@ def _start(problem, evaluate, u, t, start_tangent_exact, counts):
 
 
 def _finish_on_edge(
-    problem, evaluate, rows, u, u_out, t, edge, arclength, counts, sparse
+    problem, evaluate, rows, u, u_out, t, edge, arclength, counts, sparse, limit=None
 ) -> tuple[str, str]:
     """Append the point exactly on the interval edge to ``rows``; returns (status, message).
 
     ``u`` is the last accepted point, ``u_out`` the corrected point beyond ``edge``.
+    With a ``limit`` (a :class:`Limit`), ``edge`` is its bound and the point is put
+    exactly on that limit of the state instead.
     """
-    reached = STATUS_DONE, f"reached the edge {edge:.10g} of the parameter interval"
-    if u[-1] == edge:
+    if limit is None:
+        index, where = -1, f"the edge {edge:.10g} of the parameter interval"
+    else:
+        index, where = limit.index, f"the limit {limit.name} = {edge:.10g} of trace limits"
+    reached = STATUS_DONE, f"reached {where}"
+    if u[index] == edge:
         return reached
-    guess = step_control.edge_guess(u, u_out, edge)
-    converged, iterations, u_edge, _, g_edge, jac_edge, failure = correctors.correct_on_edge(
-        evaluate, guess, edge, counts
-    )
+    if limit is None:
+        correction = correctors.correct_on_edge(
+            evaluate, step_control.edge_guess(u, u_out, edge), edge, counts
+        )
+    else:
+        correction = correctors.correct_on_limit(evaluate, u, u_out, t, edge, index, counts)
+    converged, iterations, u_edge, _, g_edge, jac_edge, failure = correction
     counts.newton += iterations
     if converged:
         t_edge, singular = _tangent_at(jac_edge, t, sparse, counts, "undefined")
@@ -430,10 +498,13 @@ def _finish_on_edge(
             # The edge point is a solution but a singular one (a branch point or a
             # line of equilibria lies on the edge): keep the last tangent for its row.
             t_edge = t
-            reached = STATUS_DONE, reached[1] + " (a singular point: the tangent there is undefined)"
+            reached = (
+                STATUS_DONE,
+                reached[1] + " (a singular point: the tangent there is undefined)",
+            )
     if failure:
         return STATUS_FAILED, (
-            f"could not put the last point on the interval edge {edge:.10g} (after the point "
+            f"could not put the last point on {where} (after the point "
             f"{describe_point(problem, u)}): {failure}"
         )
     payload, tests = problem.observe(u_edge, t_edge, jac_edge)

@@ -32,8 +32,10 @@ The correctors are:
 - :func:`correct_chord`, the chord method: the bordered matrix factorized once
   at the predicted point. Pays off when factorizations dominate (large sparse
   models).
-- :func:`correct_on_edge`, full Newton with the parameter fixed (the last
-  point of a curve put exactly on the edge of its parameter interval).
+- :func:`correct_on_edge`, full Newton with one component of u fixed (the last
+  point of a curve put exactly on the edge of its parameter interval, or on a
+  limit of one of its states); :func:`correct_on_limit` for a state limit, with a
+  fallback along the curve where fixing the state leaves a singular system.
 
 :func:`unit_tangent` gives the tangent at a corrected point from the same
 bordered matrix with the previous tangent as border.
@@ -51,6 +53,7 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse.linalg as spla
+from scipy.interpolate import BarycentricInterpolator
 
 from branchline import linalg
 
@@ -74,6 +77,10 @@ DIVERGENCE_RATIO = 1.0
 # it is abandoned when an update does not shrink at least by this factor.
 CHORD_CONTRACTION = 0.5
 MAX_CHORD_ITERATIONS = 10
+# A point on a state limit interpolated from points either side of it (correct_on_limit,
+# singular case) is accepted when its residual is this small: Newton's points carry
+# residuals below RESIDUAL_TOL, interpolation adds at most about as much.
+INTERPOLATED_RESIDUAL = 10 * RESIDUAL_TOL
 
 COUNT_KEYS = (
     "rhs_evaluations",
@@ -285,31 +292,39 @@ def correct_chord(
     return _failed(u, MAX_CHORD_ITERATIONS, math.nan, "no convergence of the chord iteration")
 
 
-def correct_on_edge(evaluate, guess: Array, edge: float, counts: EvaluationCounts) -> Correction:
-    """Solve G(u) = 0 with the parameter u[-1] fixed at ``edge`` (full Newton).
+def correct_on_edge(
+    evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+) -> Correction:
+    """Solve G(u) = 0 with the component u[index] fixed at ``edge`` (full Newton).
 
-    The bordered solve may leave roundoff in the fixed component; the
-    solution's parameter is then set to ``edge`` exactly and G, G_u are
-    evaluated there again. ``iterations`` counts the Newton updates only.
+    ``index`` -1 (the default) fixes the parameter (the edge of the parameter
+    interval); a state's index fixes that state (a trace's state limit). The
+    bordered matrix is [G_u; e_index^T]. The bordered solve may leave roundoff in
+    the fixed component; the solution's component is then set to ``edge`` exactly
+    and G, G_u are evaluated there again. ``iterations`` counts the Newton updates only.
     """
     border = np.zeros(guess.shape[0])
-    border[-1] = 1.0
+    border[index] = 1.0
     correction = correct_newton(
         evaluate, guess, border, edge, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
     )
-    converged, iterations, u = correction[:3]
-    if not converged and not linalg.is_sparse(correction[5]):
-        # At an edge where df/dx is singular (a line of equilibria at a zero
-        # dilution rate, say) Newton's square solve fails although the point
-        # exists; Gauss-Newton with least-squares steps still converges there.
-        fallback = _least_squares_on_edge(evaluate, guess, edge, counts)
+    if not correction[0] and not linalg.is_sparse(correction[5]):
+        # At an edge where the Jacobian without the fixed column is singular (a line of
+        # equilibria at a zero dilution rate, say) Newton's square solve fails although
+        # the point exists; Gauss-Newton with least-squares steps still converges there.
+        fallback = _least_squares_on_edge(evaluate, guess, edge, counts, index)
         if fallback[0]:
             correction = fallback
-            converged, iterations, u = correction[:3]
-    if not converged or u[-1] == edge:
+    return _exactly_on(evaluate, correction, edge, index, counts)
+
+
+def _exactly_on(evaluate, correction: Correction, edge: float, index: int, counts) -> Correction:
+    """A converged correction with u[index] set to ``edge`` exactly (G, G_u evaluated again)."""
+    converged, iterations, u = correction[:3]
+    if not converged or u[index] == edge:
         return correction
     u = u.copy()
-    u[-1] = edge
+    u[index] = edge
     g, jac, message = safe_evaluate(evaluate, u)
     counts.rhs += 1
     counts.jacobian += 1
@@ -318,12 +333,91 @@ def correct_on_edge(evaluate, guess: Array, edge: float, counts: EvaluationCount
     return True, iterations, u, linalg.norm(g), g, jac, ""
 
 
-def _least_squares_on_edge(
-    evaluate, guess: Array, edge: float, counts: EvaluationCounts
+def correct_on_limit(
+    evaluate,
+    u_in: Array,
+    u_out: Array,
+    tangent: Array,
+    bound: float,
+    index: int,
+    counts: EvaluationCounts,
 ) -> Correction:
-    """Gauss-Newton on G(x, edge) = 0 with minimum-norm least-squares steps (dense only)."""
+    """The point of the curve through ``u_in`` where the state u[index] equals ``bound``.
+
+    ``u_in`` is the last point inside the limit, ``u_out`` the corrected point beyond
+    it, ``tangent`` the unit tangent at ``u_in``. First Newton on G(u) = 0,
+    u[index] = bound (bordered with e_index, as :func:`correct_on_edge`) from the
+    chord cut at the bound. Where that system is singular (another branch lies in
+    the limit's plane: a washout branch with zero biomass crossing the traced one
+    exactly on the limit X = 0, so that every point of it solves the system) the
+    point is interpolated from points of the traced curve on both sides of the
+    limit, where the system is regular (:func:`_limit_by_interpolation`). Either
+    way u[index] is then set to ``bound`` exactly. ``tangent`` is kept for callers
+    that follow the curve (unused by these two methods).
+    """
+    fraction = (bound - u_in[index]) / (u_out[index] - u_in[index])
+    guess = u_in + fraction * (u_out - u_in)
+    guess[index] = bound
+    border = np.zeros(guess.shape[0])
+    border[index] = 1.0
+    correction = correct_newton(
+        evaluate, guess, border, bound, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
+    )
+    if not correction[0]:
+        interpolated = _limit_by_interpolation(evaluate, u_in, u_out, bound, index, counts)
+        if interpolated[0]:
+            correction = interpolated
+    return _exactly_on(evaluate, correction, bound, index, counts)
+
+
+def _limit_by_interpolation(
+    evaluate, u_in: Array, u_out: Array, bound: float, index: int, counts: EvaluationCounts
+) -> Correction:
+    """The curve's point at u[index] = bound, interpolated from points on either side.
+
+    Points of the curve at u[index] = bound + d (d = the offsets of ``u_in`` and ``u_out``
+    from the bound, times 1, 2/3 and 1/3) are isolated solutions of the bordered system
+    even when the one at d = 0 is not; each component is interpolated as a polynomial in
+    u[index] through these six points (barycentric Lagrange) and evaluated at the bound.
+    Error ~ d^6 times the sixth derivative; Newton's own accuracy (~1e-12) dominates.
+    """
+    border = np.zeros(u_in.shape[0])
+    border[index] = 1.0
+    nodes, points, total = [], [], 0
+    for end, fractions in ((u_in, (1.0, 2 / 3, 1 / 3)), (u_out, (1 / 3, 2 / 3, 1.0))):
+        for fraction in fractions:
+            value = bound + fraction * (end[index] - bound)
+            if fraction == 1.0:
+                point = end
+            else:
+                guess = u_in + (value - u_in[index]) / (u_out[index] - u_in[index]) * (u_out - u_in)
+                correction = correct_newton(evaluate, guess, border, value, counts)
+                total += correction[1]
+                if not correction[0]:
+                    return _failed(correction[2], total, correction[3], correction[6])
+                point = correction[2]
+            nodes.append(value)
+            points.append(point)
+    u = BarycentricInterpolator(nodes, np.array(points))(bound)
+    u = np.asarray(u, dtype=float).reshape(-1)
+    u[index] = bound
+    g, jac, message = safe_evaluate(evaluate, u)
+    counts.rhs += 1
+    counts.jacobian += 1
+    residual = linalg.norm(g) if g is not None else math.nan
+    if message or not residual <= INTERPOLATED_RESIDUAL:
+        return _failed(u, total, residual, message or f"interpolated residual {residual:.3g}")
+    return True, total, u, residual, g, jac, ""
+
+
+def _least_squares_on_edge(
+    evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+) -> Correction:
+    """Gauss-Newton on G = 0 with u[index] = edge, minimum-norm least-squares steps (dense)."""
     u = np.array(guess, dtype=float)
-    u[-1] = edge
+    u[index] = edge
+    free = np.ones(u.shape[0], dtype=bool)
+    free[index] = False
     residual = math.nan
     for iteration in range(1, 2 * MAX_CORRECTOR_ITERATIONS + 1):
         g, jac, message = safe_evaluate(evaluate, u)
@@ -332,9 +426,9 @@ def _least_squares_on_edge(
         if message or linalg.is_sparse(jac):
             return _failed(u, iteration, math.nan, message or "sparse Jacobian")
         residual = linalg.norm(g)
-        step = np.linalg.lstsq(np.asarray(jac)[:, :-1], -g, rcond=None)[0]
+        step = np.linalg.lstsq(np.asarray(jac)[:, free], -g, rcond=None)[0]
         counts.factorizations += 1
-        u[:-1] += step
+        u[free] += step
         if _converged(residual, linalg.norm(step), 1.0 + linalg.norm(u)):
             g, jac, message = safe_evaluate(evaluate, u)
             if message:

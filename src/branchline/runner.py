@@ -99,6 +99,7 @@ def _follow(model: Model, spec: TraceSpec, source: str, progress: Progress | Non
         spec.direction,
         spec.steps,
         progress=callback,
+        limits=spec.limits,
     )
     branches, events = [root], _mark_edge_events(locate_events(model, root), spec.interval)
     if not spec.switch_branches:
@@ -120,6 +121,7 @@ def _follow(model: Model, spec: TraceSpec, source: str, progress: Progress | Non
             spec.interval,
             progress=child_progress,
             first_number=started.get(parent.name, 0) + 1,
+            limits=spec.limits,
         )
         started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
@@ -167,7 +169,9 @@ def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
     for spec in scan.traces:
         if model.python_source and getattr(model, "jacobian_source", None):
             parameters = model.parameter_vector(spec.set)
-            check = check_jacobian(model, start_vector(model, spec, parameters, scan.source), parameters)
+            check = check_jacobian(
+                model, start_vector(model, spec, parameters, scan.source), parameters
+            )
             if not check.ok:
                 warnings.append(check.message)
         outcome = _follow(model, spec, scan.source, progress)

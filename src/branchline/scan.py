@@ -27,6 +27,13 @@ Rules beyond the layout in ``interface.md``:
   started at branch points: ``<trace>.1``, ...).
 - ``switch_branches = false`` in a trace turns off following the crossing
   branches at its branch points (default true).
+- ``limits = { X = [0.0, 100.0] }`` in a trace gives states a window [lo, hi]
+  (two numbers, lo < hi; a very large number stands for "no bound" on that
+  side): a side of the trace stops when a state leaves its window, its last
+  point exactly on the limit. The start guess of each limited state must lie in
+  its window (checked here for a start table; a start function's result is
+  checked when the trace starts). Branches started at branch points inherit
+  the limits.
 - The ``interval`` must contain the start value: ``set.<vary>`` if given,
   else the parameter's default.
 - ``[model.python]`` functions are only checked for the ``"module:function"``
@@ -88,6 +95,8 @@ class TraceSpec:
     direction: str = "both"  # "both", "increasing", "decreasing"
     steps: StepSettings = field(default_factory=StepSettings)
     switch_branches: bool = True  # follow branches crossing at branch points
+    # state -> (lo, hi): the trace stops on a limit (inherited by switched branches)
+    limits: dict[str, tuple[float, float]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
@@ -196,7 +205,17 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
 
 
 TOP_KEYS = ("title", "model", "trace", "steps")
-TRACE_KEYS = ("name", "vary", "interval", "start", "set", "direction", "steps", "switch_branches")
+TRACE_KEYS = (
+    "name",
+    "vary",
+    "interval",
+    "start",
+    "set",
+    "direction",
+    "steps",
+    "switch_branches",
+    "limits",
+)
 STEP_KEYS = ("initial", "smallest", "largest", "max_points")
 DIRECTIONS = ("both", "increasing", "decreasing")
 
@@ -289,6 +308,7 @@ def _trace(
         check, table["interval"], f"{path}.interval", vary, start_value, from_set=vary in overrides
     )
     start = _start(check, table["start"], f"{path}.start", model)
+    limits = _limits(check, table.get("limits", {}), f"{path}.limits", model, start)
     direction = table.get("direction", "both")
     if direction not in DIRECTIONS:
         check.fail(
@@ -310,6 +330,7 @@ def _trace(
         direction=direction,
         steps=trace_steps,
         switch_branches=switch,
+        limits=limits,
     )
 
 
@@ -395,6 +416,50 @@ def _start(
     if missing:
         check.fail(path, f"missing start values for {listed(missing)}")
     return {name: check.number(table[name], key_path(path, name)) for name in states}
+
+
+def _limits(
+    check: Checker,
+    value: object,
+    path: str,
+    model: ExpressionModelSpec | PythonModelSpec,
+    start: dict[str, float] | str,
+) -> dict[str, tuple[float, float]]:
+    """The trace's state limits {state: (lo, hi)}, validated (start guess inside them)."""
+    table = check.table(value, path, "a table of state windows, e.g. { X = [0.0, 100.0] }")
+    states = model_states(model)
+    state_set = set(states)
+    limits: dict[str, tuple[float, float]] = {}
+    for name, bounds in table.items():
+        key = key_path(path, name)
+        if name not in state_set:
+            if name in model.parameters:
+                check.fail(key, f"'{name}' is a parameter: its window is the trace's interval")
+            check.fail(
+                key,
+                f"'{name}' is not a state{suggestion(str(name), states)} "
+                f"(states: {listed(states)})",
+            )
+        if not isinstance(bounds, list) or len(bounds) != 2:
+            check.fail(
+                key,
+                f"must be two numbers [low, high] (a very large number for no bound), "
+                f"got {shown(bounds)}",
+            )
+        low = check.number(bounds[0], f"{key}[1]")
+        high = check.number(bounds[1], f"{key}[2]")
+        if low > high:
+            check.fail(key, f"is reversed: write [{high:g}, {low:g}] (low first)")
+        if low == high:
+            check.fail(key, f"is empty: both ends are {low:g}")
+        if isinstance(start, dict) and not low <= start[name] <= high:
+            check.fail(
+                key,
+                f"[{low:g}, {high:g}] does not contain the start guess {name} = {start[name]:g} "
+                f"(trace start)",
+            )
+        limits[name] = (low, high)
+    return limits
 
 
 __all__ = [

@@ -25,6 +25,11 @@ applies these rules after each corrector run:
   times the largest step (nor below the smallest step).
 - Leaving the parameter bounds (:func:`crossed_edge`): the last point is put
   exactly on the edge, starting from :func:`edge_guess`; status ``done``.
+- Leaving the limits of a state component (:class:`Limit`, :func:`first_limit`,
+  only when limits are given): the same, with that component fixed at the
+  limit. A value beyond a limit by less than ``LIMIT_SLACK`` (relative) is
+  roundoff, not a crossing, so that a branch lying on a limit (a washout
+  branch with zero biomass and the limit ``X >= 0``, say) is followed.
 - Passing by the start point again with the same orientation closes the curve
   (an isola, :func:`closes_loop`); status ``closed``.
 
@@ -35,6 +40,7 @@ cheaper than numpy, and these rules run at every step.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -61,6 +67,20 @@ TEST_STEP_FLOOR = 1e-4
 # A point closer to the start than this fraction of the step (measured from the
 # chord of the step) counts as the start point again (closing an isola).
 LOOP_DISTANCE_FRACTION = 0.25
+# A state within this distance (relative to 1 + |limit|) beyond one of its limits still
+# counts as inside: corrected points carry errors of about RESIDUAL_TOL (1e-10), and a
+# branch lying on a limit (zero biomass) must not stop on the sign of its roundoff.
+LIMIT_SLACK = 1e-10
+
+
+@dataclass(frozen=True)
+class Limit:
+    """The window [lo, hi] of the component ``index`` of u (a state), named ``name``."""
+
+    index: int
+    lo: float
+    hi: float
+    name: str
 
 
 def first_step(initial: float, smallest: float, largest: float) -> float:
@@ -151,12 +171,46 @@ def crossed_edge(parameter: float, lo: float, hi: float) -> float | None:
     return None
 
 
-def edge_guess(u_in: Array, u_out: Array, edge: float) -> Array:
-    """Start for the point on the edge: the chord u_in -> u_out cut at the edge."""
-    fraction = (edge - u_in[-1]) / (u_out[-1] - u_in[-1])
+def edge_guess(u_in: Array, u_out: Array, edge: float, index: int = -1) -> Array:
+    """Start for the point on the edge: the chord u_in -> u_out cut where component
+    ``index`` (the parameter by default) equals ``edge``."""
+    fraction = (edge - u_in[index]) / (u_out[index] - u_in[index])
     guess = u_in + fraction * (u_out - u_in)
-    guess[-1] = edge
+    guess[index] = edge
     return guess
+
+
+def edge_fraction(u_in: Array, u_out: Array, edge: float, index: int = -1) -> float:
+    """Where along the chord u_in -> u_out component ``index`` reaches ``edge`` (0 to 1)."""
+    return (edge - u_in[index]) / (u_out[index] - u_in[index])
+
+
+def beyond_limit(value: float, limit: Limit) -> float | None:
+    """The bound of ``limit`` that ``value`` lies beyond (by more than the slack), or None."""
+    lo, hi = limit.lo, limit.hi
+    if value < lo - LIMIT_SLACK * (1.0 + abs(lo)):
+        return lo
+    if value > hi + LIMIT_SLACK * (1.0 + abs(hi)):
+        return hi
+    return None
+
+
+def first_limit(u_in: Array, u_out: Array, limits) -> tuple[Limit, float, float] | None:
+    """(limit, bound, fraction) of the first limit the chord u_in -> u_out leaves, or None.
+
+    ``limits`` is a sequence of :class:`Limit`; ``fraction`` (0 to 1) says where
+    along the chord the component reaches ``bound``. Several limits left in one step:
+    the one reached first along the chord.
+    """
+    first = None
+    for limit in limits:
+        bound = beyond_limit(u_out[limit.index], limit)
+        if bound is None:
+            continue
+        fraction = edge_fraction(u_in, u_out, bound, limit.index)
+        if first is None or fraction < first[2]:
+            first = (limit, bound, fraction)
+    return first
 
 
 def closes_loop(

@@ -18,6 +18,7 @@ from collections.abc import Callable
 
 import numpy as np
 
+from branchline.branches import state_limits_of, within_limits
 from branchline.defining_systems import with_value
 from branchline.events import correct_on_branch
 from branchline.normal_forms import branch_point_normal_form, branch_tangent
@@ -57,7 +58,9 @@ def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
     return tangents[1 - int(traced)]
 
 
-def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, float, Array]]:
+def branch_starts(
+    model, branch: Branch, event: Event, limits=None
+) -> list[tuple[Array, float, Array]]:
     """Start points for the two halves of the branch crossing the traced one.
 
     Parameters
@@ -67,6 +70,8 @@ def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, floa
         The traced branch the event lies on.
     event : Event
         A ``branch_point`` event from :func:`branchline.events.locate_events`.
+    limits : mapping {state: (lo, hi)}, optional
+        The trace's state limits: a half-branch starting outside them is dropped.
 
     Returns
     -------
@@ -88,6 +93,7 @@ def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, floa
     u_event = np.append(event.state, event.value)
     offset = SWITCH_OFFSET * (1.0 + float(np.linalg.norm(u_event)))
     lo, hi = min(branch.interval), max(branch.interval)
+    state_limits = state_limits_of(model, limits)
     starts = []
     for sign in (1.0, -1.0):
         tangent = sign * direction
@@ -96,7 +102,7 @@ def branch_starts(model, branch: Branch, event: Event) -> list[tuple[Array, floa
         if not outcome.converged:
             continue
         u = outcome.solution
-        if not lo <= u[-1] <= hi:
+        if not lo <= u[-1] <= hi or not within_limits(u[:-1], state_limits):
             continue
         full = with_value(event.parameters, k, u[-1])
         t = branch_tangent(model, u[:-1], full, k, tangent)
@@ -114,6 +120,7 @@ def trace_switched(
     interval: tuple[float, float],
     progress: Callable[[int], None] | None = None,
     first_number: int = 1,
+    limits=None,
 ) -> list[Branch]:
     """Follow each half of the branch crossing ``parent_branch`` at ``event``.
 
@@ -131,6 +138,9 @@ def trace_switched(
     first_number : int
         Number of the first child: a parent with several branch points numbers
         its children on from the ones already started.
+    limits : mapping {state: (lo, hi)}, optional
+        The parent trace's state limits; the children inherit them (see
+        :func:`branchline.branches.trace_branch`).
 
     Returns
     -------
@@ -142,7 +152,7 @@ def trace_switched(
 
     k = model.parameter_index(parent_branch.vary)
     children = []
-    for x0, p0, tangent in branch_starts(model, parent_branch, event):
+    for x0, p0, tangent in branch_starts(model, parent_branch, event, limits):
         name = f"{parent_branch.name}.{first_number + len(children)}"
         children.append(
             trace_branch(
@@ -157,6 +167,7 @@ def trace_switched(
                 parent=parent_branch.name,
                 start_tangent=tangent,
                 progress=progress,
+                limits=limits,
             )
         )
     return children

@@ -99,7 +99,9 @@ def events_frame(result: RunResult) -> pd.DataFrame:
         row: dict[str, Any] = {"trace": event.trace, "kind": event.kind}
         for name in varying:
             row[name] = float(event.parameters[result.model.parameter_index(name)])
-        row.update({k: float(v[0]) for k, v in _state_columns(result, event.state[None, :]).items()})
+        row.update(
+            {k: float(v[0]) for k, v in _state_columns(result, event.state[None, :]).items()}
+        )
         if result.model.observable_names:
             try:
                 values = result.model.observables(event.state, event.parameters)
@@ -187,9 +189,12 @@ def _trace_entry(result: RunResult, branch: Branch) -> dict[str, Any]:
         "interval": list(branch.interval),
         "set": dict(spec.set) if spec else {},
         "direction": spec.direction if spec else "both",
-        "start": (spec.start if isinstance(spec.start, str) else dict(spec.start)) if spec else None,
+        "start": (spec.start if isinstance(spec.start, str) else dict(spec.start))
+        if spec
+        else None,
         "steps": _steps_dict(spec.steps) if spec else None,
         "switch_branches": spec.switch_branches if spec else False,
+        "limits": _limits_of(result, branch),
         "parent": branch.parent,
         "status": branch.status,
         "message": branch.message,
@@ -198,6 +203,14 @@ def _trace_entry(result: RunResult, branch: Branch) -> dict[str, Any]:
         "counts": dict(branch.counts),
     }
     return _jsonable(entry)
+
+
+def _limits_of(result: RunResult, branch: Branch) -> dict[str, list[float]]:
+    """The state limits of a branch: its trace's, inherited by branches started at branch points."""
+    root = branch.name.split(".")[0]  # trace names contain no "."; children are <trace>.k
+    spec = next((s for s in result.scan.traces if s.name == root), None)
+    limits = getattr(spec, "limits", None) or {}
+    return {name: [float(lo), float(hi)] for name, (lo, hi) in limits.items()}
 
 
 def model_info(result: RunResult) -> dict[str, Any]:
