@@ -8,6 +8,7 @@ import math
 from pathlib import Path
 
 import matplotlib.figure
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -56,3 +57,29 @@ def test_run_from_dict_logistic_harvest_fold():
 def test_invalid_dict_raises_scan_error():
     with pytest.raises(branchline.ScanError, match="trace"):
         branchline.run({"model": {"parameters": {"h": 0.1}, "equations": {"N": "N - h"}}})
+
+
+def test_models_with_many_states_put_norm_in_tables_and_states_in_npz(tmp_path):
+    # A chain of 30 first-order lags, x0' = p - x0, xi' = x(i-1) - xi: every
+    # equilibrium state equals p (elementary algebra), so |x| = sqrt(30) |p|.
+    n = 30
+    equations = {"x0": "p - x0"} | {f"x{i}": f"x{i - 1} - x{i}" for i in range(1, n)}
+    result = branchline.run(
+        {
+            "model": {
+                "parameters": {"p": 1.0},
+                "equations": equations,
+                "observables": {"last": f"x{n - 1}"},
+            },
+            "trace": [{"vary": "p", "interval": [0.5, 2.0], "start": {s: 1.0 for s in equations}}],
+        },
+        out=tmp_path / "chain",
+    )
+    points = pd.read_csv(tmp_path / "chain" / "points.csv")
+    assert "norm" in points.columns and "x0" not in points.columns
+    assert abs(points["norm"] - math.sqrt(n) * points["p"]).max() < 1e-10
+    assert abs(points["last"] - points["p"]).max() < 1e-10
+    saved = np.load(tmp_path / "chain" / "states.npz")
+    assert saved["trace1"].shape == (len(points), n)
+    assert list(saved["state_names"]) == list(equations)
+    assert result.status == "done"
