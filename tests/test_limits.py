@@ -319,3 +319,22 @@ def test_cli_run_records_limits_and_keeps_states_inside(tmp_path):
 def test_no_limits_by_default():
     scan = one_trace({"x": "p*x - x^2"}, {"p": 0.5}, {"x": 0.5}, [-1, 1])
     assert scan.traces[0].limits == {}
+
+
+def test_branch_point_where_a_trace_lands_on_its_limit_is_located_and_followed():
+    # The surviving branch lands on X = 0 exactly where the washout branch
+    # S = S_in, X = 0 crosses it, at D_c = mu_max S_in / (K_s + S_in) (Smith &
+    # Waltman, as above): the end row's test value is zero up to roundoff.
+    d_critical = 0.5 * 4.0 / (0.1 + 4.0)
+    result = run_scan(chemostat_scan({"X": [0.0, 100.0]}))
+    (event,) = [e for e in result.events if e.kind == "branch_point"]
+    assert event.value == pytest.approx(d_critical, rel=1e-12)
+    assert event.branching == "transcritical"
+    (child,) = [b for b in result.branches if b.parent == "trace1"]
+    # The washout half below D_c (the half above D_c starts beyond the interval's edge 0.49).
+    assert np.max(np.abs(child.states[:, 1])) <= LIMIT_SLACK
+    assert np.allclose(child.states[:, 0], 4.0, rtol=1e-12)
+    assert child.parameter_values[-1] == 0.05
+    # Below D_c the growth rate at S_in exceeds D: washout is unstable (one eigenvalue
+    # mu(S_in) - D > 0), the exchange of stability of a transcritical point.
+    assert (child.unstable_count == 1).all()

@@ -58,6 +58,10 @@ BIALTERNATE_MAX_SIZE = 50
 # Up to this many eigenvalues the pair product is a plain Python loop (faster
 # than numpy's per-call overhead for a handful of factors).
 PYTHON_PRODUCT_MAX_SIZE = 8
+# An end row whose branch-point test is this small relative to its neighbour's
+# sits on a zero (roundoff of either sign), e.g. a trace that landed on a state
+# limit exactly where another branch crosses.
+END_ZERO_RTOL = 1e-9
 
 
 # ----------------------------------------------------------------------------
@@ -192,6 +196,23 @@ def _sign_changes(values: Array) -> list[int]:
     return rows
 
 
+def _vanishing_ends(values: Array) -> list[tuple[int, float]]:
+    """(row, fraction) brackets for a trace that ends (or starts) on a zero of ``values``.
+
+    A trace that lands on a state limit exactly where another branch crosses
+    ends with a test value that is zero up to roundoff, of either sign: no
+    sign change between rows, yet an event sits on the end point.
+    """
+    found = []
+    if values.shape[0] < 2:
+        return found
+    for end, neighbour, row, fraction in ((-1, -2, values.shape[0] - 2, 1.0), (0, 1, 0, 0.0)):
+        a, b = values[end], values[neighbour]
+        if a != 0.0 and np.sign(a) == np.sign(b) and abs(a) <= END_ZERO_RTOL * abs(b):
+            found.append((row, fraction))
+    return found
+
+
 def find_brackets(branch: Branch) -> list[Bracket]:
     """Every sign change of a test function between consecutive rows, with seeds."""
     tests = branch.test_values
@@ -200,6 +221,8 @@ def find_brackets(branch: Branch) -> list[Bracket]:
         for row in _sign_changes(tests[:, column]):
             fraction = zero_crossing_fraction(tests[row, column], tests[row + 1, column])
             brackets.append(Bracket(kind, row, fraction))
+    for row, fraction in _vanishing_ends(tests[:, 2]):
+        brackets.append(Bracket("branch_point", row, fraction))
     hopf_rows = set(_sign_changes(tests[:, 1]))
     candidates = sorted(hopf_rows | set(complex_count_changes(branch.eigenvalues)))
     for row in candidates:
