@@ -52,6 +52,12 @@ def _load(path: str):
     return load_scan(path)
 
 
+def _python_notice(scan) -> None:
+    """Say plainly that a [model.python] scan imports (and so runs) a module."""
+    if hasattr(scan.model, "rhs"):
+        print(PYTHON_MODEL_NOTICE.format(source=scan.model.rhs.split(":")[0]), file=sys.stderr)
+
+
 def _command_run(args: argparse.Namespace) -> int:
     from branchline.errors import ScanError
     from branchline.report import CAUTION, summary_table
@@ -65,8 +71,8 @@ def _command_run(args: argparse.Namespace) -> int:
         return EXIT_INVALID
     out = Path(args.out) if args.out else Path("runs") / Path(args.scan).stem
     quiet = args.quiet
-    if hasattr(scan.model, "rhs") and not quiet:
-        print(PYTHON_MODEL_NOTICE.format(source=scan.model.rhs.split(":")[0]), file=sys.stderr)
+    if not quiet:
+        _python_notice(scan)
     progress = _Progress(enabled=not quiet and sys.stderr.isatty())
     try:
         result = run_scan(scan, progress=progress)
@@ -125,6 +131,7 @@ def _command_inspect(args: argparse.Namespace) -> int:
     try:
         scan = _load(args.scan)
         overrides = _parse_settings(args.set or [], scan)
+        _python_notice(scan)
         text, converged = describe_equilibrium(scan, overrides)
     except ScanError as err:
         _error(str(err))
@@ -133,14 +140,22 @@ def _command_inspect(args: argparse.Namespace) -> int:
     return EXIT_OK if converged else EXIT_NUMERICS
 
 
-def _command_plot(args: argparse.Namespace) -> int:
-    from branchline.plotting import bifurcation_figure, save_figure
+def _read_saved(folder: str):
+    """The saved run in ``folder``, or None after printing why it cannot be read."""
     from branchline.writers import ResultsFolderError, read_results
 
     try:
-        saved = read_results(args.folder)
+        return read_results(folder)
     except ResultsFolderError as err:
         _error(str(err))
+        return None
+
+
+def _command_plot(args: argparse.Namespace) -> int:
+    from branchline.plotting import bifurcation_figure, save_figure
+
+    saved = _read_saved(args.folder)
+    if saved is None:
         return EXIT_INVALID
     try:
         figure = bifurcation_figure(saved.points, saved.events, saved.info, x=args.x, y=args.y)
@@ -155,12 +170,9 @@ def _command_plot(args: argparse.Namespace) -> int:
 
 def _command_report(args: argparse.Namespace) -> int:
     from branchline.report import render_report
-    from branchline.writers import ResultsFolderError, read_results
 
-    try:
-        saved = read_results(args.folder)
-    except ResultsFolderError as err:
-        _error(str(err))
+    saved = _read_saved(args.folder)
+    if saved is None:
         return EXIT_INVALID
     print(render_report(saved.points, saved.events, saved.info))
     return EXIT_OK

@@ -371,17 +371,23 @@ def _overrides(
     return overrides
 
 
-def _interval(
-    check: Checker, value: object, key: str, vary: str, start: float, from_set: bool
-) -> tuple[float, float]:
+def _window(check: Checker, value: object, key: str, hint: str) -> tuple[float, float]:
+    """Two numbers [low, high] with low < high, or a ScanError naming ``key``."""
     if not isinstance(value, list) or len(value) != 2:
-        check.fail(key, f"must be two numbers [low, high], got {shown(value)}")
+        check.fail(key, f"must be two numbers [low, high]{hint}, got {shown(value)}")
     low = check.number(value[0], f"{key}[1]")
     high = check.number(value[1], f"{key}[2]")
     if low > high:
         check.fail(key, f"is reversed: write [{high:g}, {low:g}] (low first)")
     if low == high:
         check.fail(key, f"is empty: both ends are {low:g}")
+    return low, high
+
+
+def _interval(
+    check: Checker, value: object, key: str, vary: str, start: float, from_set: bool
+) -> tuple[float, float]:
+    low, high = _window(check, value, key, "")
     if not low <= start <= high:
         origin = f"set.{vary}" if from_set else "its default value"
         check.fail(
@@ -440,18 +446,7 @@ def _limits(
                 f"'{name}' is not a state{suggestion(str(name), states)} "
                 f"(states: {listed(states)})",
             )
-        if not isinstance(bounds, list) or len(bounds) != 2:
-            check.fail(
-                key,
-                f"must be two numbers [low, high] (a very large number for no bound), "
-                f"got {shown(bounds)}",
-            )
-        low = check.number(bounds[0], f"{key}[1]")
-        high = check.number(bounds[1], f"{key}[2]")
-        if low > high:
-            check.fail(key, f"is reversed: write [{high:g}, {low:g}] (low first)")
-        if low == high:
-            check.fail(key, f"is empty: both ends are {low:g}")
+        low, high = _window(check, bounds, key, " (a very large number for no bound)")
         if isinstance(start, dict) and not low <= start[name] <= high:
             check.fail(
                 key,
