@@ -22,6 +22,8 @@ Array = np.ndarray
 # the spectral radius: roundoff in LAPACK eigenvalues is about eps * |J|, so a
 # zero eigenvalue (a conserved quantity, say) never flickers into "unstable".
 UNSTABLE_RTOL = 1e-10
+# Why a point's stability is unknown, when Arnoldi cannot find the leading eigenvalues.
+EIGENVALUES_FAILED = "eigenvalues near the imaginary axis could not be computed"
 # A start point given for branch switching is accepted as is when its residual
 # is below this (it is a located branch point, where Newton in x alone is singular).
 SWITCH_START_RESIDUAL = 1e-8
@@ -100,7 +102,15 @@ class EquilibriumBranch:
         return np.asarray(self._rhs(x, p), dtype=float), self._stacked(x, p)
 
     def observe(self, u: Array, tangent: Array, jacobian) -> tuple[Array, Array]:
-        """Eigenvalues of f_x (sorted by decreasing real part) and the test functions."""
+        """Eigenvalues of f_x (sorted by decreasing real part) and the test functions.
+
+        Raises
+        ------
+        continuation.ObservationFailed
+            When a large sparse model's leading eigenvalues cannot be computed
+            (the engine then stops the branch there, status ``failed``): a row
+            of unknown stability would hide stability changes.
+        """
         n = self.size
         if linalg.is_sparse(jacobian):
             jac = jacobian.tocsc()
@@ -109,7 +119,10 @@ class EquilibriumBranch:
             if n <= linalg.SPARSE_DENSE_LIMIT:
                 eigenvalues = linalg.dense_eigenvalues(fx.toarray())
             else:
-                eigenvalues = linalg.leading_eigenvalues(fx)
+                search = linalg.search_leading_eigenvalues(fx)
+                if not search.found:
+                    raise continuation.ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
+                eigenvalues = search.values
         else:
             fx = jacobian[:, :n]
             fp = jacobian[:, n]

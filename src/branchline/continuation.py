@@ -33,7 +33,10 @@ A *problem* is any object with these members (the equilibrium branch of
     Called once at every accepted point with the converged point, its unit
     tangent (in the direction of travel) and the Jacobian there. ``payload``
     is anything to keep per point (e.g. eigenvalues); ``test_values`` is a
-    1-D float array of test functions whose sign changes mark events.
+    1-D float array of test functions whose sign changes mark events. When the
+    payload cannot be computed (eigenvalues that do not converge, say) it raises
+    :class:`ObservationFailed` with the reason: the curve then ends there with
+    status ``failed``, keeping the points before it.
 
 Optional members:
 
@@ -55,8 +58,8 @@ How a curve ends
 its last point lies exactly on that edge or limit. ``closed``: it passed by the
 start point again with the same orientation (an isola); the start point is
 appended as the last point. ``max_points``: ``settings.max_points`` reached. ``failed``: the corrector failed at the
-smallest step, or the edge point could not be found; the message says where
-and why.
+smallest step, the edge point could not be found, or ``observe`` raised
+:class:`ObservationFailed`; the message says where and why.
 """
 
 from __future__ import annotations
@@ -101,6 +104,14 @@ STATUS_DONE = "done"
 STATUS_MAX_POINTS = "max_points"
 STATUS_CLOSED = "closed"
 STATUS_FAILED = "failed"
+
+
+class ObservationFailed(ArithmeticError):
+    """Raised by a problem's ``observe``: this point's payload cannot be computed.
+
+    The engine ends the curve with status ``failed`` and a message naming the
+    point and this exception's text (the reason); the points before it are kept.
+    """
 
 
 class CurveProblem(Protocol):
@@ -315,7 +326,12 @@ def _follow(
         return failed_curve(u, start, counts.as_dict())
     g0, jac, t = start
     sparse = linalg.is_sparse(jac)
-    payload, tests = observe(u, t, jac)
+    try:
+        payload, tests = observe(u, t, jac)
+    except ObservationFailed as exc:
+        return failed_curve(
+            u, f"cannot start {describe_point(problem, u)}: {exc}", counts.as_dict()
+        )
     tests = np.asarray(tests, dtype=float)
     # One tuple per accepted point, in the order of Curve's columns (one append per point).
     rows = [(u, t, 0.0, 0, linalg.norm(g0), tests, payload)]
@@ -406,7 +422,12 @@ def _follow(
             )
             break
         # Test events.
-        payload, tests = observe(u_new, t_new, jac_new)
+        try:
+            payload, tests = observe(u_new, t_new, jac_new)
+        except ObservationFailed as exc:
+            status = STATUS_FAILED
+            message = f"stopped {describe_point(problem, u_new)}: {exc}"
+            break
         tests = np.asarray(tests, dtype=float)
         chord = u_new - u
         chord_length = math.sqrt(chord.dot(chord))  # .dot: see correctors
@@ -507,7 +528,10 @@ def _finish_on_edge(
             f"could not put the last point on {where} (after the point "
             f"{describe_point(problem, u)}): {failure}"
         )
-    payload, tests = problem.observe(u_edge, t_edge, jac_edge)
+    try:
+        payload, tests = problem.observe(u_edge, t_edge, jac_edge)
+    except ObservationFailed as exc:
+        return STATUS_FAILED, f"stopped {describe_point(problem, u_edge)}: {exc}"
     arclength += linalg.norm(u_edge - u)
     residual = linalg.norm(g_edge)
     rows.append(

@@ -117,7 +117,9 @@ def python_observables(
 ) -> tuple[Callable, tuple[str, ...]]:
     """The user's observables function, wrapped, and its names (read at the probe point)."""
     user_observables = resolve_callable(spec.observables, source, "model.python.observables")
-    user_observables = _with_parameter_dict(user_observables, tuple(spec.parameters), spec.observables)
+    user_observables = _with_parameter_dict(
+        user_observables, tuple(spec.parameters), spec.observables
+    )
 
     def observables(x: Array, p: Array) -> dict[str, float]:
         values = user_observables(x, p)
@@ -158,9 +160,7 @@ def _with_parameter_dict(
         except (ArithmeticError, ValueError):
             raise
         except Exception as error:
-            raise ModelCodeError(
-                f"'{reference}' raised {type(error).__name__}: {error}"
-            ) from None
+            raise ModelCodeError(f"'{reference}' raised {type(error).__name__}: {error}") from None
 
     return call
 
