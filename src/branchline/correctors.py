@@ -53,7 +53,6 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse.linalg as spla
-from scipy.interpolate import BarycentricInterpolator
 
 from branchline import linalg
 
@@ -398,6 +397,10 @@ def _limit_by_interpolation(
                 point = correction[2]
             nodes.append(value)
             points.append(point)
+    # Imported here: scipy.interpolate costs ~0.3 s of start-up and this
+    # fallback is rare.
+    from scipy.interpolate import BarycentricInterpolator
+
     u = BarycentricInterpolator(nodes, np.array(points))(bound)
     u = np.asarray(u, dtype=float).reshape(-1)
     u[index] = bound

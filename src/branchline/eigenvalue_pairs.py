@@ -13,7 +13,6 @@ import math
 from functools import lru_cache
 
 import numpy as np
-from scipy.optimize import linear_sum_assignment
 
 from branchline.linalg import zero_crossing_fraction
 
@@ -55,6 +54,10 @@ def hopf_crossings(before: Array, after: Array) -> list[tuple[float, float, bool
     if upper_a.shape[0] == 0 or upper_b.shape[0] == 0:
         return []
     cost = np.abs(upper_a[:, None] - upper_b[None, :]) ** 2
+    # Imported here: scipy.optimize costs ~0.2 s of start-up, and only rows
+    # with a Hopf candidate get this far.
+    from scipy.optimize import linear_sum_assignment
+
     rows, cols = linear_sum_assignment(cost)
     crossings = []
     for i, j in zip(rows, cols, strict=True):
