@@ -330,11 +330,15 @@ def test_branch_point_where_a_trace_lands_on_its_limit_is_located_and_followed()
     (event,) = [e for e in result.events if e.kind == "branch_point"]
     assert event.value == pytest.approx(d_critical, rel=1e-12)
     assert event.branching == "transcritical"
-    (child,) = [b for b in result.branches if b.parent == "trace1"]
-    # The washout half below D_c (the half above D_c starts beyond the interval's edge 0.49).
-    assert np.max(np.abs(child.states[:, 1])) <= LIMIT_SLACK
-    assert np.allclose(child.states[:, 0], 4.0, rtol=1e-12)
-    assert child.parameter_values[-1] == 0.05
+    above, below = [b for b in result.branches if b.parent == "trace1"]
+    # Both washout halves: the one above D_c starts close to the edge 0.49 (its
+    # start offset is cut to fit) and the one below runs to the edge 0.05.
+    assert above.parameter_values[-1] == 0.49 and below.parameter_values[-1] == 0.05
+    for child in (above, below):
+        assert np.max(np.abs(child.states[:, 1])) <= LIMIT_SLACK
+        assert np.allclose(child.states[:, 0], 4.0, rtol=1e-12)
     # Below D_c the growth rate at S_in exceeds D: washout is unstable (one eigenvalue
-    # mu(S_in) - D > 0), the exchange of stability of a transcritical point.
-    assert (child.unstable_count == 1).all()
+    # mu(S_in) - D > 0); above D_c it is stable: the exchange of stability of a
+    # transcritical point.
+    assert (below.unstable_count == 1).all()
+    assert (above.unstable_count == 0).all()

@@ -32,6 +32,10 @@ Array = np.ndarray
 # large enough that the bordered Jacobian there is far from singular (its
 # smallest singular value grows like d).
 SWITCH_OFFSET = 1e-3
+# Near an interval edge the offset is cut by this factor, at most OFFSET_TRIES - 1
+# times, until the start point lies inside the window.
+OFFSET_CUT = 10.0
+OFFSET_TRIES = 4
 
 # The corrected start must keep this cosine with the predicted tangent;
 # otherwise Newton slid back onto the traced branch and the start is dropped.
@@ -97,12 +101,8 @@ def branch_starts(
     starts = []
     for sign in (1.0, -1.0):
         tangent = sign * direction
-        guess = u_event + offset * tangent
-        outcome = correct_on_branch(model, event.parameters, k, guess, tangent)
-        if not outcome.converged:
-            continue
-        u = outcome.solution
-        if not lo <= u[-1] <= hi or not within_limits(u[:-1], state_limits):
+        u = _first_start_inside(model, event, k, u_event, tangent, offset, (lo, hi))
+        if u is None or not within_limits(u[:-1], state_limits):
             continue
         full = with_value(event.parameters, k, u[-1])
         t = branch_tangent(model, u[:-1], full, k, tangent)
@@ -110,6 +110,23 @@ def branch_starts(
             continue
         starts.append((u[:-1].copy(), float(u[-1]), t))
     return starts
+
+
+def _first_start_inside(model, event, k, u_event, tangent, offset, window):
+    """A corrected start point on the new half-branch inside the parameter window.
+
+    A branch point close to the window's edge may put the usual start point
+    beyond it; the offset is then cut (by OFFSET_CUT, a few times) so that the
+    half-branch is still followed to the edge.
+    """
+    lo, hi = window
+    for _ in range(OFFSET_TRIES):
+        guess = u_event + offset * tangent
+        outcome = correct_on_branch(model, event.parameters, k, guess, tangent)
+        if outcome.converged and lo <= outcome.solution[-1] <= hi:
+            return outcome.solution
+        offset /= OFFSET_CUT
+    return None
 
 
 def trace_switched(
