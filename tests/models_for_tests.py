@@ -1,8 +1,11 @@
 """Small Python models used by tests/test_model.py (``[model.python]`` references).
 
-Invented models, for tests only. ``EXPRESSIONS`` states the same three-state
-model as expression text, so that finite differences on the Python version can
-be checked against exact sympy derivatives of the expression version.
+Invented models, for plumbing checks in tests only (not data about any real system).
+The references they are checked against are independent of branchline: ``EXPRESSIONS``
+states the same three-state model as expression text, so that finite differences on
+the Python version are checked against exact sympy derivatives of the expression
+version; the chain's hand-written sparse Jacobian is checked against finite
+differences and against its elementary second derivative -2 r v w.
 """
 
 from __future__ import annotations

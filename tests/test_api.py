@@ -40,7 +40,8 @@ def test_run_from_file_gives_tables_records_and_figure(tmp_path):
 
 def test_run_from_dict_logistic_harvest_fold():
     # N' = N (1 - N) - h has a fold at h = 1/4, N = 1/2 (elementary calculus:
-    # the maximum of N (1 - N); e.g. Strogatz, Nonlinear Dynamics and Chaos, ex. 3.7.2).
+    # the maximum of N (1 - N); e.g. Strogatz, Nonlinear Dynamics and Chaos, the
+    # fishery-harvesting exercise of section 3.7, from memory).
     result = branchline.run(
         {
             "model": {"parameters": {"h": 0.1}, "equations": {"N": "N*(1 - N) - h"}},

@@ -62,9 +62,11 @@ def test_toggle_switch_pitchfork_at_a_equals_two():
 
 def test_enriched_pond_hopf_and_invasion_points():
     # Prey-predator model with a Holling type II response (Rosenzweig & MacArthur,
-    # American Naturalist 97, 1963; closed forms from memory): the coexistence state
-    # has A* = m / (a (e - m h)); grazers invade where K = A*, and the Hopf point sits
-    # where A* is the hump of the prey isocline, K = 2 A* + 1 / (a h).
+    # American Naturalist 97, 1963; closed forms from memory, re-derived by elementary
+    # algebra): the coexistence state has A* = m / (a (e - m h)); grazers invade where
+    # K = A*, and the Hopf point sits where A* is the hump of the prey isocline,
+    # K = 2 A* + 1 / (a h). Its supercriticality is the known result for this model
+    # (the "paradox of enrichment", Rosenzweig, Science 171, 1971; from memory).
     a, h, e, m = 2.0, 0.5, 0.4, 0.3
     a_star = m / (a * (e - m * h))
     result = _run("enriched_pond")
@@ -76,11 +78,58 @@ def test_enriched_pond_hopf_and_invasion_points():
     assert invasion[0].branching == "transcritical"
 
 
+def reactor_reference():
+    """Folds and Hopf points of the cooled-reactor scan, derived independently with
+    sympy and scipy.optimize.brentq (elementary calculus on the scan's equations): the
+    equilibria, parametrized by T, have C(T) from dC/dt = 0 and T_c(T) from dT/dt = 0.
+    Folds are the extrema of T_c(T); Hopf points are where the Jacobian's trace
+    vanishes with positive determinant (frequency sqrt(det))."""
+    import sympy as sp
+    import tomllib
+    from scipy.optimize import brentq
+
+    data = tomllib.loads((SCANS / "cooled_reactor.toml").read_text())
+    values = {sp.Symbol(k): v for k, v in data["model"]["parameters"].items() if k != "T_c"}
+    C, T, T_c = sp.symbols("C T T_c")
+    q, V, C_in, T_in, k0, Ea_R, heat, rho_cp, UA = sp.symbols(
+        "q V C_in T_in k0 Ea_R heat rho_cp UA"
+    )
+    k = k0 * sp.exp(-Ea_R / T)
+    f_c = q / V * (C_in - C) - k * C
+    f_t = q / V * (T_in - T) + heat / rho_cp * k * C - UA / (V * rho_cp) * (T - T_c)
+    c_of_t = sp.solve(f_c, C)[0]
+    tc_of_t = sp.solve(f_t, T_c)[0].subs(C, c_of_t)
+    jac = sp.Matrix([f_c, f_t]).jacobian([C, T]).subs(C, c_of_t).subs(T_c, tc_of_t)
+
+    def along(expr):
+        return sp.lambdify(T, expr.subs(values))
+
+    slope, coolant = along(sp.diff(tc_of_t, T)), along(tc_of_t)
+    trace, det = along(jac.trace()), along(jac.det())
+    grid = np.linspace(280.0, 500.0, 2201)
+
+    def zeros(f):
+        v = np.array([f(t) for t in grid])
+        rows = np.nonzero(np.diff(np.sign(v)))[0]
+        return [brentq(f, grid[i], grid[i + 1], xtol=1e-13) for i in rows]
+
+    folds = sorted(float(coolant(t)) for t in zeros(slope))
+    hopf = [(float(coolant(t)), math.sqrt(det(t))) for t in zeros(trace) if det(t) > 0]
+    return folds, hopf
+
+
 def test_cooled_reactor_has_a_hysteresis_window_and_a_subcritical_hopf():
+    folds_exact, hopf_exact = reactor_reference()
     result = _run("cooled_reactor")
     folds = _values(result, "fold")
     assert len(folds) == 2
+    assert folds == pytest.approx(folds_exact, rel=1e-10)
     (hopf,) = [e for e in result.events if e.kind == "hopf"]
+    ((hopf_value, hopf_frequency),) = hopf_exact
+    assert hopf.value == pytest.approx(hopf_value, rel=1e-10)
+    assert hopf.frequency == pytest.approx(hopf_frequency, rel=1e-8)
+    # The criticality has no independent reference here (the plant is invented); it is
+    # branchline's own l1 sign, checked on published models in test_normal_forms.py.
     assert hopf.criticality == "subcritical"
     assert folds[0] < hopf.value < folds[1]
     # On the located fold the Jacobian is singular: its determinant vanishes to roundoff.

@@ -94,9 +94,8 @@ PLANAR_CASES = [
 )
 def test_planar_type_by_trace_and_determinant(matrix, kind, hyperbolic, counts, coordinates):
     # Strogatz, Nonlinear Dynamics and Chaos, section 5.2.
+    # (A multiple of the identity stays one under any similarity, so stars stay stars.)
     jac = matrix if coordinates == "companion" else transformed(matrix)
-    if coordinates == "transformed" and kind.endswith("_star"):
-        pass  # a multiple of the identity stays one under any similarity
     result = classify(jac)
     assert result.kind == kind
     assert result.hyperbolic is hyperbolic
@@ -142,7 +141,11 @@ def test_planar_grid_agrees_with_discriminant(tau, delta):
 )
 def test_three_state_types_by_half_plane_counts(eigenvalues, kind, counts):
     # Block-diagonal real matrices with the given spectrum (a real 2x2 block a, -b; b, a for
-    # each complex pair a +- ib), in a fixed non-orthogonal basis.
+    # each complex pair a +- ib), in a fixed non-orthogonal basis. Expected types: counts of
+    # eigenvalues in each half-plane (elementary linear algebra), and node versus focus
+    # decided by the leading eigenvalue, the one nearest the imaginary axis (common
+    # practice; e.g. Kuznetsov, Elements of Applied Bifurcation Theory, section 6.1, from
+    # memory), so (-2 +- i, -0.5) is a node.
     blocks = []
     values = list(eigenvalues)
     while values:
@@ -208,7 +211,8 @@ def test_competition_model_fixed_points(guess, expected, kind, eigenvalues):
 
 def test_newton_converges_quadratically():
     # x^2 = 2 from x = 1: Newton's iterates 1.5, 1.41667, 1.414215686, ... (quadratic
-    # convergence: each residual is about the square of the previous one).
+    # convergence: each residual is about the square of the previous one; elementary,
+    # the iterates are x -> x/2 + 1/x computed by hand).
     model = make_model(lambda x, p: x**2 - 2.0, lambda x, p: np.diag(2.0 * x))
     solution = solve_equilibrium(model, np.array([1.0]), model.defaults)
     assert solution.converged
@@ -310,7 +314,8 @@ def test_sparse_jacobian_newton():
 def test_leading_eigenvalues_of_sparse_second_difference_matrix():
     # Eigenvalues of tridiag(1, -2, 1) / h^2 (n interior points, h = 1/(n+1)):
     # -4/h^2 sin^2(k pi h / 2), k = 1..n (LeVeque, Finite Difference Methods for
-    # Ordinary and Partial Differential Equations, section 2.10).
+    # Ordinary and Partial Differential Equations, section 2.10, from memory; re-derived
+    # with the discrete sine modes sin(j k pi h)).
     import scipy.sparse as sp
 
     n = 300

@@ -154,7 +154,8 @@ def test_equilibrium_tests_order():
 
 def test_fold_of_logistic_harvesting():
     # N' = N (1 - N) - h has a fold at h = 1/4, N = 1/2 (Strogatz, Nonlinear Dynamics
-    # and Chaos, exercise 3.7.3 (from memory); elementary algebra).
+    # and Chaos, the fishery-harvesting exercise of section 3.7 (from memory);
+    # elementary algebra).
     model = expression_model({"N": "N*(1 - N) - h"}, {"h": 0.1})
     branch = trace(model, "h", [0.9], (0.0, 0.4))
     found = locate_events(model, branch)
@@ -164,6 +165,7 @@ def test_fold_of_logistic_harvesting():
     assert fold.state[0] == pytest.approx(0.5, rel=1e-7)  # sqrt of the residual: 1e-16 -> 1e-8
     assert fold.parameters[0] == fold.value
     assert "two equilibria nearby for h < 0.25" in fold.note
+    # (1/2) f_NN with unit eigenvectors in one state: f_NN = -2 (elementary calculus).
     assert fold.fold_coefficient == pytest.approx(-1.0, rel=1e-6)
     history = fold.details["newton_residual_norms"]
     assert history[-1] < 1e-15
@@ -177,6 +179,7 @@ def test_folds_of_a_cubic_located_to_rounding():
     # x' = p + x - x^3: folds at x = +-1/sqrt(3), p = -+2/(3 sqrt(3)) (Strogatz,
     # section 3.6, the imperfect pitchfork with r = 1).
     model = expression_model({"x": "p + x - x^3"}, {"p": -1.0})
+    # start guess: the real root of x^3 - x + 1 = 0 (p = -1), minus the plastic number
     branch = trace(model, "p", [-1.3247179572447460], (-1.0, 1.0))
     folds = of_kind(locate_events(model, branch), "fold")
     assert len(folds) == 2
@@ -206,6 +209,8 @@ def test_brusselator_hopf(a):
     assert event.value == pytest.approx(1.0 + a * a, rel=1e-14)
     assert event.frequency == pytest.approx(a, rel=1e-13)
     np.testing.assert_allclose(event.state, [a, (1 + a * a) / a], rtol=1e-14)
+    # Supercritical for every a > 0 (known for the Brusselator, recalled from memory; the
+    # sign is checked against an independent sympy derivation in test_normal_forms.py).
     assert event.criticality == "supercritical" and event.lyapunov < 0
     assert f"small stable cycles for b > {1 + a * a:.6g}" in event.note
     assert event.details["newton_residual_norms"][-1] < 1e-14
@@ -236,11 +241,14 @@ def lorenz_hopf_reference(sigma_value, b_value):
 def test_lorenz_pitchfork_and_subcritical_hopf():
     sigma, b = 10.0, 8.0 / 3.0
     r_h, omega_squared = lorenz_hopf_reference(10, sp.Rational(8, 3))
-    # Strogatz's closed form sigma (sigma + b + 3)/(sigma - b - 1) = 470/19
+    # Strogatz's closed form sigma (sigma + b + 3)/(sigma - b - 1) = 470/19 (section 9.2,
+    # recalled from memory; the sympy derivation above is the reference)
     assert sp.simplify(r_h - sp.Rational(470, 19)) == 0
     model = expression_model(LORENZ, {"sigma": sigma, "r": 0.5, "b": b})
     origin = trace(model, "r", [0.0, 0.0, 0.0], (0.0, 30.0))
     found = locate_events(model, origin)
+    # The origin has eigenvalue 0 at r = 1, where C+- are born in a pitchfork (Strogatz,
+    # section 9.2; elementary: det of the Jacobian at 0 is sigma b (1 - r)).
     assert [e.kind for e in found] == ["branch_point"]
     assert found[0].value == pytest.approx(1.0, abs=1e-14)
     assert found[0].branching == "pitchfork"
@@ -250,6 +258,8 @@ def test_lorenz_pitchfork_and_subcritical_hopf():
     assert len(hopf) == 1
     assert hopf[0].value == pytest.approx(float(r_h), rel=PARAMETER_RTOL)
     assert hopf[0].frequency == pytest.approx(math.sqrt(float(omega_squared)), rel=PARAMETER_RTOL)
+    # Subcritical (Strogatz, section 9.2, from memory; confirmed by simulation in
+    # test_normal_forms.py).
     assert hopf[0].criticality == "subcritical" and hopf[0].lyapunov > 0
     assert len(hopf[0].details["newton_residual_norms"]) <= 6
 
@@ -326,7 +336,10 @@ TWO_OSCILLATORS = {
 def test_two_pairs_crossing_close_together_are_both_found(gap):
     # Two uncoupled Hopf normal forms (Kuznetsov, section 3.4): pairs 0 +- i at p = 0
     # and 0 +- 2i at p = gap. With steps much longer than the gap, the bialternate
-    # test changes sign twice within a step; both crossings are still found.
+    # test changes sign twice within a step; both crossings are still found. Each block
+    # z' = (mu + i omega) z - z|z|^2 has c1 = -1, so l1 = Re c1 / omega = -1/omega
+    # (Kuznetsov, Elements of Applied Bifurcation Theory, section 3.5; with the contract's
+    # <q, q> = 1/2 over all states, the other block's zero components leave it unchanged).
     model = expression_model(TWO_OSCILLATORS, {"p": -0.5, "d": gap})
     branch = trace(model, "p", [0, 0, 0, 0], (-0.5, 0.5), StepSettings(initial=0.05, largest=0.1))
     hopf = of_kind(locate_events(model, branch), "hopf")
@@ -397,7 +410,7 @@ def test_bisection_fallback_is_announced(monkeypatch):
     hopf = of_kind(locate_events(model, branch), "hopf")
     assert len(hopf) == 1
     assert "bisection" in hopf[0].note and "forced failure" in hopf[0].note
-    assert hopf[0].value == pytest.approx(2.0, rel=1e-12)
+    assert hopf[0].value == pytest.approx(2.0, rel=1e-12)  # b = 1 + a^2 (Prigogine & Lefever)
     assert hopf[0].details["method"].startswith("bisection")
 
 
@@ -447,6 +460,8 @@ SPARSE_CASES = {
 def test_sparse_location_agrees_with_dense(case, monkeypatch):
     # Large models (more than LARGE_MODEL_SIZE states) are located with SuperLU and
     # shift-invert Arnoldi; forcing that path on small models must give the same events.
+    # A consistency check between two code paths (no external reference): the dense path
+    # is itself checked against closed forms above.
     from branchline import normal_forms
 
     equations, start, interval = SPARSE_CASES[case]
@@ -521,7 +536,7 @@ def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
     # oscillations solve the single-cell equations; l1 scales as 1/|x|^2 under the
     # contract's normalization <q, q> = 1/2 over all states).
     from branchline.linalg import sort_by_real_part
-    from branchline.normal_forms import LARGE_MODEL_SIZE, hopf_normal_form
+    from branchline.normal_forms import LARGE_MODEL_SIZE
     from branchline.results import Branch
     from branchline.scan import PythonModelSpec
 
@@ -574,10 +589,12 @@ def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
     (hopf,) = locate_events(model, branch)
     assert hopf.value == pytest.approx(1.0 + a * a, rel=1e-12)
     assert hopf.frequency == pytest.approx(a, rel=1e-12)
-    single = expression_model(BRUSSELATOR, {"a": a, "b": 1.0 + a * a})
-    l1_single = hopf_normal_form(
-        single, np.array([a, (1 + a * a) / a]), single.defaults, a
-    ).lyapunov
+    # The single cell's l1 from an independent sympy derivation (Guckenheimer & Holmes's
+    # planar formula, see test_normal_forms.py), not from branchline.
+    from test_normal_forms import brusselator_lyapunov_by_planar_formula
+
+    l1_single, _ = brusselator_lyapunov_by_planar_formula("1")
+    assert a == 1.0
     # the large model's derivatives are finite differences: 1e-6 relative
     assert hopf.lyapunov == pytest.approx(l1_single / cells, rel=1e-6)
 

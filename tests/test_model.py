@@ -398,10 +398,37 @@ def _python_spec(**changes) -> PythonModelSpec:
     return PythonModelSpec(**fields)
 
 
-REFERENCE = build_model(
-    ExpressionModelSpec(dict(models_for_tests.PARAMETERS), dict(models_for_tests.EXPRESSIONS))
+REFERENCE_SPEC = ExpressionModelSpec(
+    dict(models_for_tests.PARAMETERS), dict(models_for_tests.EXPRESSIONS)
 )
 POINT = np.array([0.8, 1.3, -0.4])
+
+
+def _sympy_reference(x, p, u, v, w):
+    """f, f_x, f_p, B(v, w), C(u, v, w) and d/dp (f_x v) of the expression version, from
+    sympy.diff evaluated at 30 digits (no branchline model code involved)."""
+    f, xs, ps = _reference_system(REFERENCE_SPEC)
+    values = _substitution(xs, ps, x, p)
+
+    def ev(e):
+        return _evaluate(e, values).real
+
+    value = np.array([ev(fi) for fi in f])
+    fx = np.array([[ev(sp.diff(fi, a)) for a in xs] for fi in f])
+    fp = np.array([[ev(sp.diff(fi, k)) for k in ps] for fi in f])
+    hessian = np.array([[[ev(sp.diff(fi, a, b)) for b in xs] for a in xs] for fi in f])
+    third = np.array(
+        [[[[ev(sp.diff(fi, a, b, c)) for c in xs] for b in xs] for a in xs] for fi in f]
+    )
+    mixed = np.array([[[ev(sp.diff(fi, a, k)) for k in ps] for a in xs] for fi in f])
+    return (
+        value,
+        fx,
+        fp,
+        np.einsum("ijk,j,k->i", hessian, v, w),
+        np.einsum("ijkl,j,k,l->i", third, u, v, w),
+        np.einsum("ijk,j->ik", mixed, v),
+    )
 
 
 def _relative(actual, expected) -> float:
@@ -409,7 +436,9 @@ def _relative(actual, expected) -> float:
 
 
 # Accuracy expected of nested central differences with k levels, about
-# eps**(2/(k+2)) (branchline.differences), times a safety factor of about 30:
+# eps**(2/(k+2)) (truncation O(h^2) balanced against rounding eps/h^k: the usual step
+# choice, common practice; e.g. Nocedal & Wright, Numerical Optimization, section 8.1,
+# from memory), times a safety factor of about 30:
 # (jacobian, parameter_jacobian, second, third, jacobian_parameter_derivative).
 DIFFERENCE_TOLERANCES = {
     False: (1e-9, 1e-9, 1e-6, 3e-5, 1e-6),  # no Jacobian: J has 1 level, B 2, C 3
@@ -419,7 +448,7 @@ DIFFERENCE_TOLERANCES = {
 
 @pytest.mark.parametrize("with_jacobian", [False, True])
 def test_python_model_derivatives_match_exact_ones(with_jacobian):
-    """Reference: the same model as expressions, differentiated exactly by sympy."""
+    """Reference: the same model as expressions, differentiated exactly by sympy.diff."""
     spec = _python_spec(jacobian="models_for_tests:jacobian" if with_jacobian else None)
     model = build_model(spec)
     p = model.defaults
@@ -427,16 +456,14 @@ def test_python_model_derivatives_match_exact_ones(with_jacobian):
     assert not model.exact_derivatives and not model.sparse and model.derivatives is None
     rng = np.random.default_rng(11)
     u, v, w = (_complex_vector(rng, 3) for _ in range(3))
-    np.testing.assert_allclose(model.rhs(POINT, p), REFERENCE.rhs(POINT, p), rtol=1e-14)
+    value, fx, fp, second, third, mixed = _sympy_reference(POINT, p, u, v, w)
+    np.testing.assert_allclose(model.rhs(POINT, p), value, rtol=1e-14)
     pairs = (
-        (model.jacobian(POINT, p), REFERENCE.jacobian(POINT, p)),
-        (model.parameter_jacobian(POINT, p), REFERENCE.parameter_jacobian(POINT, p)),
-        (model.second(POINT, p, v, w), REFERENCE.second(POINT, p, v, w)),
-        (model.third(POINT, p, u, v, w), REFERENCE.third(POINT, p, u, v, w)),
-        (
-            model.jacobian_parameter_derivative(POINT, p, v),
-            REFERENCE.jacobian_parameter_derivative(POINT, p, v),
-        ),
+        (model.jacobian(POINT, p), fx),
+        (model.parameter_jacobian(POINT, p), fp),
+        (model.second(POINT, p, v, w), second),
+        (model.third(POINT, p, u, v, w), third),
+        (model.jacobian_parameter_derivative(POINT, p, v), mixed),
     )
     for (actual, expected), tolerance in zip(
         pairs, DIFFERENCE_TOLERANCES[with_jacobian], strict=True
@@ -488,7 +515,8 @@ def test_sparse_jacobian_model():
     assert models_for_tests.CHAIN_SIZE > DENSE_STATE_LIMIT and differences.sparse
     assert _relative(jacobian_dense(model, x, p), jacobian_dense(differences, x, p)) < 1e-8
     assert check_jacobian(model, x, p).ok
-    # Exchange and growth are at most quadratic: B(v, w) = -2 r v w componentwise.
+    # Exchange and growth are at most quadratic: B(v, w) = -2 r v w componentwise
+    # (elementary calculus on r x (1 - x)).
     rng = np.random.default_rng(3)
     v, w = _complex_vector(rng, x.size), _complex_vector(rng, x.size)
     assert _relative(model.second(x, p, v, w), -2.0 * p[1] * v * w) < 1e-7

@@ -230,7 +230,8 @@ def test_lorenz_hopf_is_subcritical_and_trajectories_leave():
     r_h = sigma * (sigma + b + 3) / (sigma - b - 1)
     c = math.sqrt(b * (r_h - 1))
     model = expression_model(LORENZ, {"sigma": sigma, "r": r_h, "b": b})
-    omega = math.sqrt(b * (r_h + sigma))  # from the characteristic polynomial at r_H
+    # from the characteristic polynomial at r_H (c1 = b (r + sigma); elementary algebra)
+    omega = math.sqrt(b * (r_h + sigma))
     form = hopf_normal_form(model, np.array([c, c, r_h - 1]), model.defaults, omega, k=1)
     assert form.criticality == "subcritical"
     assert form.lyapunov > 0
@@ -274,7 +275,8 @@ def test_fold_coefficient_of_the_fold_normal_form():
 def test_fold_side_of_logistic_harvesting():
     # N' = N (1 - N) - h: the two equilibria N = (1 +- sqrt(1 - 4h))/2 exist for
     # h < 1/4 and meet at the fold h = 1/4, N = 1/2 (Strogatz, Nonlinear Dynamics and
-    # Chaos, exercise 3.7.3 (from memory); elementary algebra).
+    # Chaos, the fishery-harvesting exercise of section 3.7 (from memory); elementary
+    # algebra).
     model = expression_model({"N": "N*(1 - N) - h"}, {"h": 0.25})
     form = fold_normal_form(model, np.array([0.5]), model.defaults, 0)
     assert form.two_equilibria_side == "below"

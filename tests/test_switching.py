@@ -81,8 +81,10 @@ def test_starts_lie_on_the_new_branch_near_the_branch_point():
 
 def test_subcritical_pitchfork_children_meet_their_folds():
     # x' = p x + x^3 - x^5: subcritical pitchfork at p = 0, the side branches
-    # p = x^4 - x^2 turn at the folds p = -1/4, x^2 = 1/2 (Strogatz, section 3.4,
-    # example 3.4.? (from memory); elementary algebra); unstable near the pitchfork.
+    # p = x^4 - x^2 turn at the folds p = -1/4, x^2 = 1/2 (the quintic-stabilized
+    # subcritical pitchfork of Strogatz, Nonlinear Dynamics and Chaos, section 3.4, from
+    # memory; the fold values by elementary algebra: dp/dx = 4x^3 - 2x = 0). Near the
+    # pitchfork they are unstable: f_x = 2x^2 - 4x^4 > 0 on them (elementary).
     model, branch, event = traced_with_branch_point("p*x + x^3 - x^5")
     assert event.branching == "pitchfork"
     children = trace_switched(model, branch, event, StepSettings(), INTERVAL)
