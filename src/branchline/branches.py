@@ -9,12 +9,17 @@ start equilibrium, follows the branch to one or both sides and assembles the
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from branchline import continuation, events, linalg, step_control
 from branchline.equilibrium import solve_equilibrium
 from branchline.results import STATUS_CLOSED, STATUS_DONE, STATUS_FAILED, STATUS_MAX_POINTS, Branch
+
+if TYPE_CHECKING:
+    from branchline.model import Model
+    from branchline.scan import StepSettings
 
 Array = np.ndarray
 
@@ -74,6 +79,7 @@ class EquilibriumBranch:
         return p
 
     def residual(self, u: Array) -> Array:
+        """f(x, p) at u = (x, p_vary), shape (n,)."""
         return np.asarray(self._rhs(u[:-1], self._parameters(u)), dtype=float)
 
     def _stacked(self, x: Array, p: Array):
@@ -93,15 +99,17 @@ class EquilibriumBranch:
         jac[:, n] = fp_all[:, self.vary_index]
         return jac
 
-    def jacobian(self, u: Array):
+    def jacobian(self, u: Array) -> Any:
+        """[f_x, f_p] at u, shape (n, n + 1): ndarray, or scipy.sparse CSC for sparse models."""
         return self._stacked(u[:-1], self._parameters(u))
 
-    def evaluate(self, u: Array):
+    def evaluate(self, u: Array) -> tuple[Array, Any]:
+        """(residual, jacobian) at u in one call, sharing the parameter vector."""
         x = u[:-1]
         p = self._parameters(u)
         return np.asarray(self._rhs(x, p), dtype=float), self._stacked(x, p)
 
-    def observe(self, u: Array, tangent: Array, jacobian) -> tuple[Array, Array]:
+    def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Array, Array]:
         """Eigenvalues of f_x (sorted by decreasing real part) and the test functions.
 
         Raises
@@ -131,6 +139,7 @@ class EquilibriumBranch:
         return eigenvalues, self._tests(fx, fp, oriented, eigenvalues)
 
     def describe(self, u: Array) -> str:
+        """The point for messages: the varied parameter and the first few states."""
         model = self.model
         vary = model.parameters[self.vary_index]
         states = ", ".join(
@@ -142,14 +151,14 @@ class EquilibriumBranch:
 
 
 def trace_branch(
-    model,
+    model: Model,
     name: str,
     vary: str,
     parameters: Array,
     x_start: Array,
     interval: tuple[float, float],
     direction: str,
-    steps,
+    steps: StepSettings,
     *,
     parent: str | None = None,
     start_tangent: Array | None = None,
@@ -302,7 +311,7 @@ def trace_branch(
 
 
 def state_limits_of(
-    model, limits: Mapping[str | int, tuple[float, float]] | None
+    model: Model, limits: Mapping[str | int, tuple[float, float]] | None
 ) -> tuple[step_control.Limit, ...]:
     """Trace limits {state name or index: (lo, hi)} as the engine's Limit records.
 
@@ -380,7 +389,9 @@ def _summarize(curves, vary):
     return status, "; ".join(parts)
 
 
-def _assemble(model, name, vary, parameters, interval, curves, status, message, counts, parent):
+def _assemble(
+    model: Model, name, vary, parameters, interval, curves, status, message, counts, parent
+):
     """Concatenate the sides in trace order into a Branch record."""
     n = len(model.states)
     pieces = []

@@ -184,6 +184,7 @@ def _command_batch(args: argparse.Namespace) -> int:
 
 
 def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``branchline`` command and its subcommands."""
     parser = argparse.ArgumentParser(
         prog="branchline",
         description="Follow equilibria of an ODE model through a parameter and report "

@@ -61,10 +61,12 @@ class SymbolicDerivatives:
         return self._hessian
 
     def compile_second(self) -> Callable:
+        """(x, p, v, w) -> B(v, w) (n,), complex-capable: the second derivative of f along v, w."""
         second = [_contract(entries, (self.v, self.w)) for entries in self.hessian()]
         return _complex_function(second, [self.x, self.p, self.v, self.w])
 
     def compile_third(self) -> Callable:
+        """(x, p, u, v, w) -> C(u, v, w) (n,), complex-capable: the third derivative of f."""
         third = [
             _contract(_raise_order(entries, self.x), (self.u, self.v, self.w))
             for entries in self.hessian()
@@ -72,6 +74,7 @@ class SymbolicDerivatives:
         return _complex_function(third, [self.x, self.p, self.u, self.v, self.w])
 
     def compile_parameter_derivative(self) -> Callable:
+        """(x, p, v) -> d/dp (f_x v), shape (n, m): one column per parameter."""
         entries = [
             sp.Add(*[_derivative(entry, pk) * vj for entry, vj in zip(row, self.v, strict=True)])
             for row in self.jacobian
@@ -218,7 +221,9 @@ def _safe_values(safe: Callable, arrays: Sequence[Array], count: int, dtype: Any
     return out
 
 
-def real_function(expressions: list[sp.Expr], arguments: list, shape: tuple[int, ...]):
+def real_function(
+    expressions: list[sp.Expr], arguments: list, shape: tuple[int, ...]
+) -> Callable[[Array, Array], Array]:
     """Compile real-valued entries into (x, p) -> ndarray of ``shape``."""
     compiled = _Compiled(arguments, expressions)
     fast = compiled.fast
@@ -243,7 +248,9 @@ def real_function(expressions: list[sp.Expr], arguments: list, shape: tuple[int,
     return evaluate
 
 
-def split_function(expressions: list[sp.Expr], arguments: list, shapes: tuple):
+def split_function(
+    expressions: list[sp.Expr], arguments: list, shapes: tuple
+) -> Callable[[Array, Array], tuple[Array, Array]]:
     """Compile the entries of two blocks at once into (x, p) -> (block1, block2)."""
     first_shape, second_shape = shapes
     cut = first_shape[0] * first_shape[1]
@@ -290,7 +297,9 @@ def _complex_function(expressions: list[sp.Expr], arguments: list, shape: tuple 
     return evaluate
 
 
-def observable_function(names: tuple[str, ...], expressions: list[sp.Expr], arguments: list):
+def observable_function(
+    names: tuple[str, ...], expressions: list[sp.Expr], arguments: list
+) -> Callable[[Array, Array], dict[str, Any]]:
     """Compile observables into (x, p) -> {name: value}."""
     values = real_function(expressions, arguments, (len(names),))
 

@@ -67,7 +67,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any, Protocol
+from typing import TYPE_CHECKING, Any, Protocol
 
 import numpy as np
 
@@ -95,6 +95,9 @@ from branchline.step_control import (  # noqa: F401  (re-exported; TEST_CHANGE_L
     Limit,
 )
 
+if TYPE_CHECKING:
+    from branchline.scan import StepSettings
+
 Array = np.ndarray
 
 # The progress callback is called every this many accepted points.
@@ -117,11 +120,17 @@ class ObservationFailed(ArithmeticError):
 class CurveProblem(Protocol):
     """The protocol a problem hands to :func:`follow_curve` (see the module docstring)."""
 
-    def residual(self, u: Array) -> Array: ...
+    def residual(self, u: Array) -> Array:
+        """G(u), shape (N,); NaN rather than an exception on numerical trouble."""
+        ...
 
-    def jacobian(self, u: Array) -> Any: ...
+    def jacobian(self, u: Array) -> Any:
+        """G_u(u), shape (N, N + 1): ndarray or scipy.sparse matrix."""
+        ...
 
-    def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Any, Array]: ...
+    def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Any, Array]:
+        """(payload, test values (K,)) at an accepted point; see the module docstring."""
+        ...
 
 
 @dataclass(frozen=True)
@@ -199,7 +208,7 @@ def failed_curve(u: Array, message: str, counts: dict[str, int] | None = None) -
     )
 
 
-def describe_point(problem, u: Array) -> str:
+def describe_point(problem: CurveProblem, u: Array) -> str:
     """Text naming a point of a curve, from ``problem.describe`` or generic."""
     describe = getattr(problem, "describe", None)
     if describe is not None:
@@ -210,10 +219,10 @@ def describe_point(problem, u: Array) -> str:
 
 
 def follow_curve(
-    problem,
+    problem: CurveProblem,
     u0: Array,
     tangent0: Array,
-    settings,
+    settings: StepControl | StepSettings,
     bounds: tuple[float, float] = (-math.inf, math.inf),
     *,
     newton: str = "full",

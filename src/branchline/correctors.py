@@ -12,7 +12,7 @@ Introduction to Numerical Continuation Methods, chapter 2), whose residual
 stays zero since every update is orthogonal to b; with a number it fixes
 b . u, e.g. the parameter on an interval edge.
 
-Two correctors, plain functions returning a *correction*, the tuple
+The correctors are plain functions returning a *correction*, the tuple
 
     (converged, iterations, u, residual_norm, g, jacobian, message)
 
@@ -40,9 +40,10 @@ The correctors are:
 :func:`unit_tangent` gives the tangent at a corrected point from the same
 bordered matrix with the previous tangent as border.
 
-Both stop early when the updates say the iteration diverges, count model
-evaluations and factorizations in an :class:`EvaluationCounts`, and report
-numerical trouble in the message instead of raising.
+The Newton and chord iterations stop early when the updates say they diverge;
+all correctors count model evaluations and factorizations in an
+:class:`EvaluationCounts` and report numerical trouble in the message instead
+of raising.
 """
 
 from __future__ import annotations
@@ -59,6 +60,8 @@ from branchline import linalg
 Array = np.ndarray
 # (converged, iterations, u, residual_norm, g, jacobian, message); see the module docstring.
 Correction = tuple[bool, int, Array, float, Any, Any, str]
+# u -> (G(u) (N,), G_u(u) (N, N + 1), dense or sparse): see :func:`evaluator`.
+Evaluate = Callable[[Array], tuple[Array, Any]]
 
 # Residual norm accepted as zero (Euclidean); see equilibrium.RESIDUAL_TOL.
 RESIDUAL_TOL = 1e-10
@@ -109,7 +112,7 @@ class EvaluationCounts:
         return dict(zip(COUNT_KEYS, values, strict=True))
 
 
-def evaluator(problem) -> Callable[[Array], tuple[Array, Any]]:
+def evaluator(problem: Any) -> Evaluate:
     """``u -> (G(u), G_u(u))``: ``problem.evaluate`` if it has one, else both calls."""
     evaluate = getattr(problem, "evaluate", None)
     if evaluate is not None:
@@ -122,7 +125,7 @@ def evaluator(problem) -> Callable[[Array], tuple[Array, Any]]:
     return both
 
 
-def safe_evaluate(evaluate, u: Array) -> tuple[Array | None, Any, str]:
+def safe_evaluate(evaluate: Evaluate, u: Array) -> tuple[Array | None, Any, str]:
     """(G, G_u, message): message is "" or why the evaluation failed.
 
     Runs inside the engine's ``np.errstate(all="ignore")``; a non-finite
@@ -152,7 +155,7 @@ def _converged(residual: float, update: float, scale: float) -> bool:
 
 
 def correct_newton(
-    evaluate,
+    evaluate: Evaluate,
     u: Array,
     border: Array,
     border_value: float | None,
@@ -233,7 +236,12 @@ def correct_newton(
 
 
 def correct_chord(
-    evaluate, residual_fn, jacobian_fn, u: Array, border: Array, counts: EvaluationCounts
+    evaluate: Evaluate,
+    residual_fn: Callable[[Array], Array],
+    jacobian_fn: Callable[[Array], Any],
+    u: Array,
+    border: Array,
+    counts: EvaluationCounts,
 ) -> Correction:
     """Chord method on [G(u); border . (u - u_start)] = 0.
 
@@ -292,7 +300,7 @@ def correct_chord(
 
 
 def correct_on_edge(
-    evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+    evaluate: Evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
 ) -> Correction:
     """Solve G(u) = 0 with the component u[index] fixed at ``edge`` (full Newton).
 
@@ -333,7 +341,7 @@ def _exactly_on(evaluate, correction: Correction, edge: float, index: int, count
 
 
 def correct_on_limit(
-    evaluate,
+    evaluate: Evaluate,
     u_in: Array,
     u_out: Array,
     tangent: Array,
@@ -414,7 +422,7 @@ def _limit_by_interpolation(
 
 
 def _least_squares_on_edge(
-    evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+    evaluate: Evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
 ) -> Correction:
     """Gauss-Newton on G = 0 with u[index] = edge, minimum-norm least-squares steps (dense)."""
     u = np.array(guess, dtype=float)
@@ -440,7 +448,7 @@ def _least_squares_on_edge(
     return _failed(u, iteration, residual, "least-squares Newton did not converge on the edge")
 
 
-def unit_tangent(jac, previous: Array, sparse: bool) -> Array:
+def unit_tangent(jac: Any, previous: Array, sparse: bool) -> Array:
     """Unit tangent at a point with Jacobian ``jac`` (N, N + 1), oriented like ``previous``.
 
     Solves [G_u; previous^T] z = e_{N+1} and normalizes z, as

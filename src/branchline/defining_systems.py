@@ -25,6 +25,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.sparse as sps
@@ -38,6 +39,9 @@ from branchline.normal_forms import (
     state_jacobian,
 )
 
+if TYPE_CHECKING:
+    from branchline.model import Model
+
 Array = np.ndarray
 System = Callable[[Array], tuple[Array, object]]
 
@@ -47,8 +51,10 @@ NEWTON_STEP_RTOL = 1e-13
 NEWTON_MAX_ITERATIONS = 30
 
 
-@dataclass
+@dataclass(frozen=True)
 class NewtonOutcome:
+    """Result of :func:`newton`: the last iterate, the residual norm per iteration, why not."""
+
     converged: bool
     solution: Array
     residual_norms: list[float] = field(default_factory=list)
@@ -96,7 +102,7 @@ def with_value(params: Array, k: int, value: float) -> Array:
     return full
 
 
-def on_branch_system(model, params: Array, k: int, guess: Array, direction: Array) -> System:
+def on_branch_system(model: Model, params: Array, k: int, guess: Array, direction: Array) -> System:
     """f(u) = 0 and direction . (u - guess) = 0: unknowns u = (x, p), n + 1 equations."""
 
     def system(u: Array) -> tuple[Array, object]:
@@ -110,7 +116,7 @@ def on_branch_system(model, params: Array, k: int, guess: Array, direction: Arra
     return system
 
 
-def fold_system(model, params: Array, k: int, border_b: Array, border_c: Array) -> System:
+def fold_system(model: Model, params: Array, k: int, border_b: Array, border_c: Array) -> System:
     """Minimally augmented fold system: unknowns u = (x, p), equations (f, g)."""
     n = border_b.shape[0]
 
@@ -132,7 +138,7 @@ def fold_system(model, params: Array, k: int, border_b: Array, border_c: Array) 
     return system
 
 
-def hopf_system(model, params: Array, k: int, c: Array) -> System:
+def hopf_system(model: Model, params: Array, k: int, c: Array) -> System:
     """Extended Hopf system: unknowns (x, p, omega, Re q, Im q), 3n + 2 equations."""
     n = c.shape[0]
     eye = np.eye(n)
@@ -206,7 +212,7 @@ def _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c):
     )
 
 
-def branch_point_system(model, params: Array, k: int) -> System:
+def branch_point_system(model: Model, params: Array, k: int) -> System:
     """Moore's extended system: unknowns (x, p, psi, mu), 2n + 2 equations."""
 
     def system(z: Array) -> tuple[Array, Array]:

@@ -57,7 +57,8 @@ def central_jacobian(func: VectorFunction, z: Array, levels: int = 1) -> Array:
         upper = np.asarray(func(z), dtype=float)
         z[j] = original - step
         lower = np.asarray(func(z), dtype=float)
-        # The step actually taken, as represented in floating point.
+        # Divide by the step as represented in floating point, not the nominal one:
+        # z +- h rounds, and the rounding would otherwise bias the quotient.
         taken = (original + step) - (original - step)
         z[j] = original
         columns.append((upper - lower) / taken)

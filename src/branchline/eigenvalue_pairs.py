@@ -20,6 +20,9 @@ Array = np.ndarray
 
 # Complex eigenvalues: |Im| above this fraction of the spectral scale.
 COMPLEX_RTOL = 1e-8
+# Frequencies are compared rounded to this many decimals, so that a pair already
+# seeded by matching is not seeded again from the counts (equal up to rounding).
+FREQUENCY_DIGITS = 12
 
 
 @lru_cache(maxsize=64)
@@ -70,11 +73,11 @@ def hopf_crossings(before: Array, after: Array) -> list[tuple[float, float, bool
         int(np.count_nonzero(upper_a.real > 0.0)) - int(np.count_nonzero(upper_b.real > 0.0))
     )
     if change > len(crossings) and upper_a.shape[0] == upper_b.shape[0]:
-        used = {round(omega, 12) for _, omega, _ in crossings}
+        used = {round(omega, FREQUENCY_DIGITS) for _, omega, _ in crossings}
         for value in upper_b[np.argsort(np.abs(upper_b.real))]:
             if len(crossings) >= change:
                 break
-            if round(float(value.imag), 12) not in used:
+            if round(float(value.imag), FREQUENCY_DIGITS) not in used:
                 crossings.append((0.5, float(value.imag), True))
     return crossings
 

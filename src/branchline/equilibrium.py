@@ -17,10 +17,14 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from branchline import linalg
+
+if TYPE_CHECKING:
+    from branchline.model import Model
 
 Array = np.ndarray
 
@@ -154,7 +158,7 @@ def _evaluate(function, x: Array, p: Array) -> Array | None:
     return value
 
 
-def _jacobian_dense_or_sparse(model, x: Array, p: Array):
+def _jacobian_dense_or_sparse(model: Model, x: Array, p: Array):
     try:
         with np.errstate(all="ignore"):
             jac = model.jacobian(x, p)
@@ -185,7 +189,7 @@ def _singular(jac) -> bool:
 
 
 def solve_equilibrium(
-    model,
+    model: Model,
     x0: Array,
     p: Array,
     *,
@@ -230,7 +234,7 @@ def solve_equilibrium(
         return _newton(model, x, p, residual_tol, update_rtol, max_iterations)
 
 
-def _newton(model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
+def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
     f = _evaluate(model.rhs, x, p)
     if f is None:
         message = f"f is not finite {_where(x, p, model)} (start guess)"
@@ -276,7 +280,7 @@ def _newton(model, x, p, residual_tol, update_rtol, max_iterations) -> Equilibri
     return _failed(x, p, max_iterations, residual, history, STATUS_NOT_CONVERGED, message)
 
 
-def _newton_direction(model, x, p, f, residual):
+def _newton_direction(model: Model, x, p, f, residual):
     """(status, message, step): status "" and the Newton step, or why there is none."""
     jac = _jacobian_dense_or_sparse(model, x, p)
     if jac is None:
@@ -289,7 +293,7 @@ def _newton_direction(model, x, p, f, residual):
         return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
 
 
-def _backtrack(model, x, p, step, residual):
+def _backtrack(model: Model, x, p, step, residual):
     """Halve the Newton step until |f| decreases sufficiently; (damping, x, f, |f|) or Nones."""
     damping = 1.0
     while damping >= SMALLEST_DAMPING:
@@ -322,7 +326,7 @@ def _failed(x, p, iterations, residual, history, status, message) -> Equilibrium
 # ---------------------------------------------------------------------------
 
 
-def linearize(model, x: Array, p: Array) -> Linearization:
+def linearize(model: Model, x: Array, p: Array) -> Linearization:
     """Jacobian, eigenvalues and equilibrium type at (x, p).
 
     Parameters
@@ -349,7 +353,7 @@ def linearize(model, x: Array, p: Array) -> Linearization:
     return classify(jac_dense if jac_dense is not None else jac, eigenvalues)
 
 
-def classify(jacobian, eigenvalues: Array | None = None) -> Linearization:
+def classify(jacobian: Any, eigenvalues: Array | None = None) -> Linearization:
     """Type of the linear system x' = J x from J (and its eigenvalues, if known).
 
     Planar systems use the trace tau and determinant Delta (Strogatz,

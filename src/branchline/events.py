@@ -33,6 +33,8 @@ Example
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
 
 from branchline.defining_systems import NewtonOutcome, newton
@@ -46,6 +48,9 @@ from branchline.detection import (
 )
 from branchline.location import LOCATORS, LocationFailed, correct_on_branch, unrefined_event
 from branchline.results import Branch, Event
+
+if TYPE_CHECKING:
+    from branchline.model import Model
 
 __all__ = [
     "TEST_FUNCTIONS",
@@ -87,7 +92,7 @@ def _duplicates(event: Event, other: Event) -> bool:
     return False
 
 
-def locate_events(model, branch: Branch) -> list[Event]:
+def locate_events(model: Model, branch: Branch) -> list[Event]:
     """Locate every stability change along a traced branch.
 
     Each sign change of a test function between consecutive rows is refined by

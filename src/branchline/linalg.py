@@ -376,6 +376,12 @@ ARNOLDI_MAX_ITERATIONS = 300
 # A run that does not converge is retried once with a Krylov space this many
 # times larger (and as many more iterations) before its partial result is used.
 ARNOLDI_RETRY_GROWTH = 3
+# Smallest Krylov space per Arnoldi run (ncv): scipy's own default for eigs,
+# max(2k + 1, 20), kept so that few wanted values still get room to converge.
+ARNOLDI_MIN_SUBSPACE = 20
+# A shift that is an eigenvalue to rounding (singular LU) is moved off it by this
+# fraction of the matrix's scale: far above rounding, far below eigenvalue gaps.
+SINGULAR_SHIFT_NUDGE = 1e-8
 # The unshifted "rightmost" cross-check: it converges only when the spectrum is not
 # stiff, so a short cap (~10 ms at 2000 states) keeps it cheaper than the
 # shift-invert runs; its values are hints for shifts (see _rightmost_hints).
@@ -510,7 +516,7 @@ def _arpack(operator, nev: int, which: str, tol: float, maxiter: int, retry: boo
     """(eigenvalues, converged): eigs(...), retried larger once; the converged part on failure."""
     size = operator.shape[0]
     k = max(1, min(nev, size - 2))
-    ncv = min(size - 1, max(2 * k + 1, 20))
+    ncv = min(size - 1, max(2 * k + 1, ARNOLDI_MIN_SUBSPACE))
     for attempt in range(2):
         try:
             values = spla.eigs(
@@ -571,7 +577,8 @@ def _shift_invert_once(matrix, sigma: complex, nev: int, scale: float) -> _Run:
     center = sigma if sigma.imag != 0.0 else sigma.real
     lu = _factor((base - center * identity).tocsc())
     if lu is None:  # sigma is an eigenvalue to rounding: move off it a little
-        center = center + 1e-8 * scale * (1.0 + (1j if shifted_dtype is complex else 0.0))
+        direction = 1.0 + (1j if shifted_dtype is complex else 0.0)
+        center = center + SINGULAR_SHIFT_NUDGE * scale * direction
         lu = _factor((base - center * identity).tocsc())
         if lu is None:
             return _Run(np.empty(0, dtype=complex), complex(center), 0.0, False)

@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 from collections.abc import Callable
 from functools import partial
+from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.sparse as sps
@@ -49,12 +50,18 @@ from branchline.normal_forms import (
 )
 from branchline.results import Branch, Event
 
+if TYPE_CHECKING:
+    from branchline.model import Model
+
 Array = np.ndarray
 BranchTest = Callable[[Array, Array], float]
 
 # A converged event must lie within this many bracket lengths of its bracket;
 # further away, Newton has found some other point.
 BRACKET_REACH = 2.0
+# Roundoff slack on that reach (relative to the bracket's start), so that a
+# zero-length bracket still accepts its own end point.
+BRACKET_REACH_SLACK = 1e-12
 
 # A located Hopf point with omega below this fraction of the Jacobian's scale
 # is a Bogdanov-Takens-like degenerate point, not reported as Hopf.
@@ -81,7 +88,7 @@ class LocationFailed(Exception):
 
 
 def correct_on_branch(
-    model, params: Array, k: int, guess: Array, direction: Array
+    model: Model, params: Array, k: int, guess: Array, direction: Array
 ) -> NewtonOutcome:
     """The branch point u = (x, p) with f(u) = 0 and direction . (u - guess) = 0 (Newton)."""
     return newton(on_branch_system(model, params, k, guess, direction), guess)
@@ -108,7 +115,8 @@ def _within_bracket(branch: Branch, row: int, u: Array) -> bool:
     ua, ub = _curve_point(branch, row), _curve_point(branch, row + 1)
     reach = BRACKET_REACH * float(np.linalg.norm(ub - ua))
     middle = 0.5 * (ua + ub)
-    return float(np.linalg.norm(u - middle)) <= reach + 1e-12 * (1.0 + float(np.linalg.norm(ua)))
+    slack = BRACKET_REACH_SLACK * (1.0 + float(np.linalg.norm(ua)))
+    return float(np.linalg.norm(u - middle)) <= reach + slack
 
 
 def _seed(branch: Branch, bracket: Bracket) -> Array:
@@ -117,7 +125,7 @@ def _seed(branch: Branch, bracket: Bracket) -> Array:
 
 
 def _bisect_on_branch(
-    model, branch: Branch, k: int, row: int, test: BranchTest
+    model: Model, branch: Branch, k: int, row: int, test: BranchTest
 ) -> tuple[Array | None, list[float]]:
     """Fallback: bisection on a test function along the branch between two rows.
 
@@ -171,7 +179,7 @@ def _newton_failure(outcome: NewtonOutcome) -> str:
 
 
 def _bisection_fallback(
-    model, branch: Branch, k: int, bracket: Bracket, outcome: NewtonOutcome, test: BranchTest
+    model: Model, branch: Branch, k: int, bracket: Bracket, outcome: NewtonOutcome, test: BranchTest
 ) -> Array:
     """The event placed by bisection on ``test`` after Newton (``outcome``) failed.
 
@@ -223,7 +231,14 @@ def _base_details(
 
 
 def _make_event(
-    model, branch: Branch, k: int, bracket: Bracket, u: Array, kind: str, details: dict, **fields
+    model: Model,
+    branch: Branch,
+    k: int,
+    bracket: Bracket,
+    u: Array,
+    kind: str,
+    details: dict,
+    **fields,
 ) -> Event:
     x = np.array(u[:-1], dtype=float)
     full = with_value(branch.parameters, k, float(u[-1]))
@@ -244,7 +259,7 @@ def _make_event(
     )
 
 
-def unrefined_event(model, branch: Branch, k: int, bracket: Bracket, reason: str) -> Event:
+def unrefined_event(model: Model, branch: Branch, k: int, bracket: Bracket, reason: str) -> Event:
     """An event whose location could not be refined: placed by linear interpolation
     between its two rows, and says so (a stability change is never dropped silently)."""
     u = _seed(branch, bracket)
@@ -277,7 +292,7 @@ def unrefined_event(model, branch: Branch, k: int, bracket: Bracket, reason: str
 # fold
 
 
-def locate_fold(model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
+def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
     """Refine a fold bracket on the minimally augmented fold system."""
     u0 = _seed(branch, bracket)
     full0 = with_value(branch.parameters, k, u0[-1])
@@ -326,7 +341,7 @@ def locate_fold(model, branch: Branch, k: int, bracket: Bracket) -> Event | None
     )
 
 
-def _fold_test(model, branch: Branch, k: int, u: Array, chord: Array) -> float:
+def _fold_test(model: Model, branch: Branch, k: int, u: Array, chord: Array) -> float:
     full = with_value(branch.parameters, k, u[-1])
     return float(branch_tangent(model, u[:-1], full, k, chord)[-1])
 
@@ -335,7 +350,7 @@ def _fold_test(model, branch: Branch, k: int, u: Array, chord: Array) -> float:
 # Hopf
 
 
-def locate_hopf(model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
+def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
     """Refine a Hopf bracket on the extended Hopf system; None for a neutral saddle."""
     u0 = _seed(branch, bracket)
     n = u0.shape[0] - 1
@@ -442,7 +457,7 @@ def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
     return bool(others.shape[0] and np.min(np.abs(others)) <= ZERO_EIGENVALUE_RTOL * scale)
 
 
-def _crossing_eigenvalue(model, u: Array, full: Array, omega_guess: float) -> complex:
+def _crossing_eigenvalue(model: Model, u: Array, full: Array, omega_guess: float) -> complex:
     """The upper-half-plane eigenvalue nearest i * omega_guess at u (NaN if none)."""
     a_matrix = state_jacobian(model, u[:-1], full)
     if sps.issparse(a_matrix):
@@ -456,7 +471,7 @@ def _crossing_eigenvalue(model, u: Array, full: Array, omega_guess: float) -> co
 
 
 def _hopf_pair_real(
-    model, branch: Branch, k: int, omega_guess: float, u: Array, chord: Array
+    model: Model, branch: Branch, k: int, omega_guess: float, u: Array, chord: Array
 ) -> float:
     """Re of the crossing pair at u (``chord`` is unused: the signature of a branch test)."""
     full = with_value(branch.parameters, k, u[-1])
@@ -467,7 +482,7 @@ def _hopf_pair_real(
 # branch point
 
 
-def locate_branch_point(model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
+def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
     """Refine a branch-point bracket on Moore's extended system (bisection for large models)."""
     u0 = _seed(branch, bracket)
     n = u0.shape[0] - 1
@@ -529,7 +544,7 @@ def locate_branch_point(model, branch: Branch, k: int, bracket: Bracket) -> Even
     )
 
 
-def _branch_point_test(model, branch: Branch, k: int, u: Array, chord: Array) -> float:
+def _branch_point_test(model: Model, branch: Branch, k: int, u: Array, chord: Array) -> float:
     full = with_value(branch.parameters, k, u[-1])
     a_matrix = state_jacobian(model, u[:-1], full)
     fp = model.parameter_jacobian(u[:-1], full)[:, k]

@@ -120,9 +120,11 @@ class Model:
 
     @property
     def size(self) -> int:
+        """Number of states n."""
         return len(self.states)
 
     def parameter_index(self, name: str) -> int:
+        """Position of parameter ``name`` in the parameter vector p."""
         return self.parameters.index(name)
 
     def parameter_vector(self, overrides: dict[str, float] | None = None) -> Array:

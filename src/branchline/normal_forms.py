@@ -21,10 +21,14 @@ equilibrium map).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
+
+if TYPE_CHECKING:
+    from branchline.model import Model
 
 Array = np.ndarray
 
@@ -85,7 +89,7 @@ def is_large(size: int) -> bool:
     return size > LARGE_MODEL_SIZE
 
 
-def state_jacobian(model, x: Array, params: Array) -> object:
+def state_jacobian(model: Model, x: Array, params: Array) -> object:
     """df/dx: a dense ndarray, or scipy.sparse CSC for more than ``LARGE_MODEL_SIZE`` states."""
     matrix = model.jacobian(x, params)
     if is_large(x.shape[0]):
@@ -167,7 +171,7 @@ def leading_eigenvalues(matrix: object) -> Array:
     return values[np.lexsort((-values.imag, -values.real))]
 
 
-def branch_tangent(model, x: Array, params: Array, k: int, like: Array) -> Array:
+def branch_tangent(model: Model, x: Array, params: Array, k: int, like: Array) -> Array:
     """Unit null vector of [f_x, f_p] oriented along ``like`` (dense SVD, or for large
     models the bordered solve [f_x, f_p; like^T] t = e_(n+1))."""
     a_matrix = state_jacobian(model, x, params)
@@ -186,7 +190,7 @@ def branch_tangent(model, x: Array, params: Array, k: int, like: Array) -> Array
     return t if t @ like >= 0 else -t
 
 
-def directional_jacobian(model, x: Array, params: Array, v: Array) -> object:
+def directional_jacobian(model: Model, x: Array, params: Array, v: Array) -> object:
     """The matrix M(v) = d/de f_x(x + e v, p) at e = 0, i.e. M(v) w = B(v, w).
 
     Parameters
@@ -218,7 +222,7 @@ def directional_jacobian(model, x: Array, params: Array, v: Array) -> object:
     return (plus - minus) / (2.0 * h)
 
 
-def parameter_second_derivative(model, x: Array, params: Array, k: int) -> Array:
+def parameter_second_derivative(model: Model, x: Array, params: Array, k: int) -> Array:
     """d2f/dp_k^2 by a central difference of df/dp_k (the model has no exact form), shape (n,)."""
     h = CENTRAL_STEP * max(1.0, abs(float(params[k])))
     up = np.array(params, dtype=float)
@@ -230,7 +234,7 @@ def parameter_second_derivative(model, x: Array, params: Array, k: int) -> Array
     )
 
 
-def augmented_second(model, x: Array, params: Array, k: int, v: Array, w: Array) -> Array:
+def augmented_second(model: Model, x: Array, params: Array, k: int, v: Array, w: Array) -> Array:
     """Second derivative of G(x, p) = f(x, p) (p = params[k]) on R^(n+1): G_uu(v, w), shape (n,).
 
     ``v`` and ``w`` have n + 1 components: states, then the varied parameter.
@@ -295,7 +299,7 @@ class FoldNormalForm:
     degenerate: str
 
 
-def fold_normal_form(model, x: Array, params: Array, k: int) -> FoldNormalForm:
+def fold_normal_form(model: Model, x: Array, params: Array, k: int) -> FoldNormalForm:
     """Quadratic normal-form coefficient of a fold point.
 
     Parameters
@@ -381,7 +385,12 @@ def _inner(a: Array, b: Array) -> complex:
 
 
 def hopf_normal_form(
-    model, x: Array, params: Array, omega: float, q: Array | None = None, k: int | None = None
+    model: Model,
+    x: Array,
+    params: Array,
+    omega: float,
+    q: Array | None = None,
+    k: int | None = None,
 ) -> HopfNormalForm:
     """First Lyapunov coefficient of a Hopf point by the invariant formula.
 
@@ -487,7 +496,7 @@ class BranchPointNormalForm:
 
 
 def branch_point_normal_form(
-    model,
+    model: Model,
     x: Array,
     params: Array,
     k: int,

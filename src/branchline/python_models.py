@@ -236,19 +236,23 @@ class DifferenceDerivatives:
         return directional_derivative(lambda z: self.rhs(z, p), x, v, levels)
 
     def parameter_jacobian(self, x: Array, p: Array) -> Array:
+        """df/dp, shape (n, m), by central differences."""
         return central_jacobian(lambda q: self.rhs(x, q), p)
 
     def second(self, x: Array, p: Array, v: Array, w: Array) -> Array:
+        """B(v, w), shape (n,): nested central differences of the Jacobian action."""
         return self._second(x, p, v, w, self.levels + 1)
 
     def _second(self, x: Array, p: Array, v: Array, w: Array, levels: int) -> Array:
         return directional_derivative(lambda z: self._action(z, p, v, levels), x, w, levels)
 
     def third(self, x: Array, p: Array, u: Array, v: Array, w: Array) -> Array:
+        """C(u, v, w), shape (n,): a central difference of B along w."""
         levels = self.levels + 2
         return directional_derivative(lambda z: self._second(z, p, u, v, levels), x, w, levels)
 
     def jacobian_parameter_derivative(self, x: Array, p: Array, v: Array) -> Array:
+        """d/dp (f_x v), shape (n, m), by central differences in each parameter."""
         levels = self.levels + 1
         p = np.asarray(p, dtype=float)
         columns = []

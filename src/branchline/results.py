@@ -1,14 +1,23 @@
-"""Result records: frozen dataclasses, and their pandas tables.
+"""Result records: frozen dataclasses.
 
 Everything numerical returns these records; writers and plots only read them.
+Their pandas tables are built by :mod:`branchline.tables` (``RunResult.points_frame``
+and ``events_frame`` delegate there).
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
+
+if TYPE_CHECKING:
+    import pandas as pd
+    from matplotlib.figure import Figure
+
+    from branchline.model import Model
+    from branchline.scan import Scan
 
 Array = np.ndarray
 
@@ -79,6 +88,7 @@ class Branch:
 
     @property
     def stable(self) -> Array:
+        """Bool per point (shape (points,)): no eigenvalue with positive real part."""
         return self.unstable_count == 0
 
     def __len__(self) -> int:
@@ -110,6 +120,7 @@ class Event:
 
     @property
     def period(self) -> float | None:
+        """2 pi / frequency (model time units) for a Hopf point, else None."""
         return None if not self.frequency else 2.0 * np.pi / self.frequency
 
 
@@ -123,8 +134,8 @@ class RunResult:
     and :mod:`branchline.writers`.
     """
 
-    scan: Any  # branchline.scan.Scan
-    model: Any  # branchline.model.Model
+    scan: Scan
+    model: Model
     branches: tuple[Branch, ...]
     events: tuple[Event, ...]
     status: str
@@ -133,18 +144,19 @@ class RunResult:
     warnings: tuple[str, ...] = ()
 
     def branch(self, name: str) -> Branch:
+        """The branch called ``name``; KeyError listing the names if there is none."""
         for branch in self.branches:
             if branch.name == name:
                 return branch
         raise KeyError(f"no trace named {name!r}; traces: {[b.name for b in self.branches]}")
 
-    def points_frame(self):
+    def points_frame(self) -> pd.DataFrame:
         """points.csv as a pandas DataFrame."""
         from branchline.tables import points_frame
 
         return points_frame(self)
 
-    def events_frame(self):
+    def events_frame(self) -> pd.DataFrame:
         """events.csv as a pandas DataFrame."""
         from branchline.tables import events_frame
 
@@ -168,7 +180,7 @@ class RunResult:
 
         return render_report(self.points_frame(), self.event_records(), self.info())
 
-    def figure(self, x: str | None = None, y: str | None = None):
+    def figure(self, x: str | None = None, y: str | None = None) -> Figure:
         """The bifurcation diagram as a matplotlib Figure."""
         from branchline.plotting import bifurcation_figure
 

@@ -112,6 +112,7 @@ class Scan:
 
     @property
     def stem(self) -> str:
+        """The scan file's name without suffix (\"scan\" for a scan given as a dict)."""
         return Path(self.source).stem if self.source != "<dict>" else "scan"
 
 

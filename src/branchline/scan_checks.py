@@ -69,9 +69,12 @@ _IMPORT_PATH = re.compile(
 )
 # How many names a message lists before it abbreviates.
 _NAMES_SHOWN = 12
+# How many characters of a bad value a message shows: one line stays readable.
+_VALUE_SHOWN = 60
 
 
 def key_path(parent: str, child: object) -> str:
+    """Dotted key path ``parent.child``, quoting a child that is not a plain name."""
     text = str(child)
     if not _NAME.match(text):
         text = json.dumps(text, ensure_ascii=False)
@@ -79,11 +82,13 @@ def key_path(parent: str, child: object) -> str:
 
 
 def shown(value: object) -> str:
+    """A value as a message shows it: its repr, shortened past ``_VALUE_SHOWN`` characters."""
     text = repr(value)
-    return text if len(text) <= 60 else text[:57] + "..."
+    return text if len(text) <= _VALUE_SHOWN else text[: _VALUE_SHOWN - 3] + "..."
 
 
 def listed(names: Iterable[str]) -> str:
+    """Names joined by commas for a message, abbreviated past ``_NAMES_SHOWN``."""
     names = list(names)
     if not names:
         return "(none)"
@@ -107,9 +112,11 @@ class Checker:
         self.source = source
 
     def fail(self, key: str, problem: str) -> NoReturn:
+        """Raise :class:`ScanError` for this source at ``key``."""
         raise ScanError(self.source, key, problem)
 
     def keys(self, table: dict, path: str, allowed: tuple[str, ...]) -> None:
+        """Refuse any key of ``table`` not in ``allowed``, suggesting the nearest one."""
         for key in table:
             if key in allowed:
                 continue
@@ -120,11 +127,13 @@ class Checker:
             self.fail(where, f"unknown key '{key}'{hint}")
 
     def table(self, value: object, key: str, what: str = "a table (name = value entries)") -> dict:
+        """``value`` if it is a table (dict), else refuse it as not ``what``."""
         if not isinstance(value, dict):
             self.fail(key, f"must be {what}, got {shown(value)}")
         return value
 
     def number(self, value: object, key: str) -> float:
+        """``value`` as a finite float (booleans and text refused)."""
         if isinstance(value, bool) or not isinstance(value, (int, float)):
             self.fail(key, f"must be a number, got {shown(value)}")
         try:
@@ -144,11 +153,13 @@ class Checker:
         return value
 
     def text(self, value: object, key: str) -> str:
+        """``value`` if it is a string."""
         if not isinstance(value, str):
             self.fail(key, f"must be text, got {shown(value)}")
         return value
 
     def import_path(self, value: object, key: str) -> str:
+        """``value`` stripped, if shaped ``\"module:function\"`` (nothing is imported)."""
         text = self.text(value, key).strip()
         if not _IMPORT_PATH.match(text):
             self.fail(
@@ -191,6 +202,7 @@ def check_clashes(check: Checker, groups: list[tuple[str, str, dict]]) -> None:
 
 
 def unknown_name(name: str, parameters: dict, states: dict, definitions: dict) -> str:
+    """The problem text for an unknown name in an expression, listing the known ones."""
     known = [*states, *parameters, *definitions]
     hint = suggestion(name, known)
     parts = [f"states: {listed(states)}", f"parameters: {listed(parameters)}"]

@@ -54,6 +54,7 @@ class PythonModelSpec:
 
 
 def read_model(check: Checker, value: object) -> ExpressionModelSpec | PythonModelSpec:
+    """The validated ``[model]`` section: an expression model or a Python model spec."""
     model = check.table(value, "model", "a table ([model.parameters], [model.equations], ...)")
     check.keys(model, "model", MODEL_KEYS)
     if "python" in model and "equations" in model:

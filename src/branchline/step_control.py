@@ -40,6 +40,7 @@ cheaper than numpy, and these rules run at every step.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -195,7 +196,9 @@ def beyond_limit(value: float, limit: Limit) -> float | None:
     return None
 
 
-def first_limit(u_in: Array, u_out: Array, limits) -> tuple[Limit, float, float] | None:
+def first_limit(
+    u_in: Array, u_out: Array, limits: Sequence[Limit]
+) -> tuple[Limit, float, float] | None:
     """(limit, bound, fraction) of the first limit the chord u_in -> u_out leaves, or None.
 
     ``limits`` is a sequence of :class:`Limit`; ``fraction`` (0 to 1) says where
@@ -231,7 +234,9 @@ def closes_loop(
     )
 
 
-def passes_start(u_start, t_start, u, chord, chord_length, t) -> bool:
+def passes_start(
+    u_start: Array, t_start: Array, u: Array, chord: Array, chord_length: float, t: Array
+) -> bool:
     """True when the step u -> u + chord passes by the start point in its direction."""
     if chord_length == 0.0 or float(t_start @ t) <= 0.0:
         return False

@@ -4,7 +4,7 @@ At a simple branch point two equilibrium branches cross. The traced one is
 already known; :func:`branch_starts` gives a start point on each half of the
 other one, a small distance ``SWITCH_OFFSET`` from the branch point along the
 tangent found from the algebraic branching equation (stored by
-:mod:`branchline.events` in ``event.details["tangents"]``), corrected onto the
+:mod:`branchline.location` in ``event.details["tangents"]``), corrected onto the
 new branch by Newton on f = 0, t . (u - u_0) = 0 (Keller's method of branch
 switching; Allgower & Georg, Introduction to Numerical Continuation Methods,
 section 8.3; Kuznetsov, Elements of Applied Bifurcation Theory, section 10.2;
@@ -14,7 +14,8 @@ section numbers from memory).
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -23,6 +24,10 @@ from branchline.defining_systems import with_value
 from branchline.events import correct_on_branch
 from branchline.normal_forms import branch_point_normal_form, branch_tangent
 from branchline.results import Branch, Event
+
+if TYPE_CHECKING:
+    from branchline.model import Model
+    from branchline.scan import StepSettings
 
 Array = np.ndarray
 
@@ -42,7 +47,7 @@ OFFSET_TRIES = 4
 SMALLEST_TANGENT_COSINE = 0.9
 
 
-def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
+def _new_tangent(model: Model, branch: Branch, event: Event, k: int) -> Array | None:
     """The unit tangent of the crossing branch that is not the traced one."""
     tangents = event.details.get("tangents")
     traced = event.details.get("traced_tangent_index")
@@ -63,7 +68,10 @@ def _new_tangent(model, branch: Branch, event: Event, k: int) -> Array | None:
 
 
 def branch_starts(
-    model, branch: Branch, event: Event, limits=None
+    model: Model,
+    branch: Branch,
+    event: Event,
+    limits: Mapping[str | int, tuple[float, float]] | None = None,
 ) -> list[tuple[Array, float, Array]]:
     """Start points for the two halves of the branch crossing the traced one.
 
@@ -112,7 +120,7 @@ def branch_starts(
     return starts
 
 
-def _first_start_inside(model, event, k, u_event, tangent, offset, window):
+def _first_start_inside(model: Model, event, k, u_event, tangent, offset, window):
     """A corrected start point on the new half-branch inside the parameter window.
 
     A branch point close to the window's edge may put the usual start point
@@ -130,14 +138,14 @@ def _first_start_inside(model, event, k, u_event, tangent, offset, window):
 
 
 def trace_switched(
-    model,
+    model: Model,
     parent_branch: Branch,
     event: Event,
-    steps,
+    steps: StepSettings,
     interval: tuple[float, float],
     progress: Callable[[int], None] | None = None,
     first_number: int = 1,
-    limits=None,
+    limits: Mapping[str | int, tuple[float, float]] | None = None,
 ) -> list[Branch]:
     """Follow each half of the branch crossing ``parent_branch`` at ``event``.
 

@@ -25,6 +25,7 @@ def varying_parameters(result: RunResult) -> list[str]:
 
 
 def wide_states(result: RunResult) -> bool:
+    """True when states go to states.npz instead of points.csv columns."""
     return result.model.size > MAX_STATE_COLUMNS
 
 
@@ -168,6 +169,7 @@ def event_record(result: RunResult, event: Event) -> dict[str, Any]:
 
 
 def event_records(result: RunResult) -> list[dict[str, Any]]:
+    """events.json entries, one JSON-ready dict per event in trace order."""
     return [event_record(result, event) for event in result.events]
 
 
@@ -214,6 +216,7 @@ def _limits_of(result: RunResult, branch: Branch) -> dict[str, list[float]]:
 
 
 def model_info(result: RunResult) -> dict[str, Any]:
+    """run.json's model entry: kind, names, defaults, equations and whether derivatives are exact."""
     model = result.model
     return _jsonable(
         {
