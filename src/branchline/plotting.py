@@ -25,14 +25,14 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from branchline.labels import GUIDE_GID, LABEL_FONT_SIZE, place_labels
+from branchline.margins import bistable_ranges, hysteresis_windows
 from branchline.reading import (
     BOOKKEEPING_COLUMNS,
-    bistable_ranges,
     event_at_change,
     event_label,
     event_value,
     fmt,
-    hysteresis_windows,
     origin_event,
     state_names,
     state_norm,
@@ -56,20 +56,6 @@ STABLE_STYLE = "-"
 UNSTABLE_STYLE = (0, (4.0, 2.5))  # dashes long enough to read on short runs
 LINE_WIDTH = 1.6
 MARKER_SIZE = 7.0
-LABEL_FONT_SIZE = 7.5
-# Offsets (points) tried in turn for an event label, so labels avoid each other.
-LABEL_OFFSETS = (
-    (10, 10),
-    (10, -20),
-    (-10, 10),
-    (-10, -20),
-    (22, 28),
-    (-22, 28),
-    (22, -38),
-    (-22, -38),
-    (34, 0),
-    (-34, 0),
-)
 FORMATS = ("png", "svg", "pdf")
 # Panel heights: the diagram gets most of the room.
 HEIGHT_RATIOS = (2.3, 1.0)
@@ -85,10 +71,6 @@ START_STYLE = (0, (1.0, 2.0))
 # curve, label and dotted guide in front of it legible.
 WINDOW_COLOUR = "#7F7F7F"
 WINDOW_ALPHA = 0.2
-# Element id of the dotted start-value guides: a label may cross one sooner than a curve.
-GUIDE_GID = "start-value"
-# Spacing (display pixels) at which curves are sampled when labels look for room.
-LINE_SAMPLE_SPACING = 3.0
 
 
 # --------------------------------------------------------------------------- names
@@ -240,38 +222,6 @@ def _trace_legend_label(name: str, info: Mapping[str, Any]) -> str:
     return label
 
 
-def _boxes_overlap(a, b, pad: float = 2.0) -> bool:
-    return not (a.x1 + pad < b.x0 or b.x1 + pad < a.x0 or a.y1 + pad < b.y0 or b.y1 + pad < a.y0)
-
-
-def _line_vertices(lines) -> np.ndarray:
-    """Display coordinates of drawn lines, densified so that a label box lying
-    across a long straight segment still contains vertices of it."""
-    chunks = []
-    for line in lines:
-        xy = line.get_xydata()
-        if len(xy) < 2:
-            continue  # an event marker: kept clear through its own box
-        shown = line.get_transform().transform(xy)  # axvline: blended data/axes coords
-        gaps = np.hypot(*np.diff(shown, axis=0).T)
-        pieces = np.maximum(1, np.ceil(gaps / LINE_SAMPLE_SPACING).astype(int))
-        for a, b, n in zip(shown[:-1], shown[1:], pieces, strict=True):
-            chunks.append(a + np.linspace(0.0, 1.0, n, endpoint=False)[:, None] * (b - a))
-        chunks.append(shown[-1:])
-    return np.vstack(chunks) if chunks else np.empty((0, 2))
-
-
-def _crosses(vertices: np.ndarray, box) -> bool:
-    return bool(
-        np.any(
-            (vertices[:, 0] >= box.x0)
-            & (vertices[:, 0] <= box.x1)
-            & (vertices[:, 1] >= box.y0)
-            & (vertices[:, 1] <= box.y1)
-        )
-    )
-
-
 def _fix_layout(fig: Figure) -> RendererBase:
     """Run the constrained layout once, then keep it: return the renderer it used.
 
@@ -291,77 +241,6 @@ def _fix_layout(fig: Figure) -> RendererBase:
     with mpl.rc_context({"figure.autolayout": False, "figure.constrained_layout.use": False}):
         fig.set_layout_engine(None)
     return renderer
-
-
-def _place_labels(
-    fig: Figure, ax, marks: list[tuple[float, float, str, str]], renderer: RendererBase
-) -> None:
-    """Annotate event marks, trying offsets in turn.
-
-    A label must stay inside the axes, clear of other labels and of the event
-    markers. Among the offsets that allow this it goes at the first one clear
-    of every line; failing that, at the first one that only crosses a dotted
-    guide (start value); failing that, at the first one at all (lying across a
-    curve, on its white box). A label that fits nowhere is left out (the marker
-    and the legend still show the event). Extents come from ``renderer`` (text
-    measurement only): nothing is drawn.
-    """
-    frame = ax.get_window_extent(renderer)
-    lines = ax.get_lines()
-    guides = _line_vertices([line for line in lines if line.get_gid() == GUIDE_GID])
-    curves = _line_vertices([line for line in lines if line.get_gid() != GUIDE_GID])
-    taken = []
-    for x, y, _, _ in marks:
-        cx, cy = ax.transData.transform((x, y))
-        size = MARKER_SIZE * fig.dpi / 72.0
-        taken.append(mpl.transforms.Bbox.from_bounds(cx - size / 2, cy - size / 2, size, size))
-    for index, (x, y, text, colour) in enumerate(marks):
-        others = [box for k, box in enumerate(taken) if k != index]
-        best = None  # (rank, annotation, box): rank 0 clear, 1 across a guide, 2 across a curve
-        for dx, dy in LABEL_OFFSETS:
-            note = _event_label(ax, x, y, text, colour, (dx, dy))
-            # the text's own box (the annotation's extent would include the arrow)
-            note.update_positions(renderer)
-            box = mpl.text.Text.get_window_extent(note, renderer).padded(3.0)
-            inside = (
-                box.x0 >= frame.x0
-                and box.x1 <= frame.x1
-                and box.y0 >= frame.y0
-                and box.y1 <= frame.y1
-            )
-            if not inside or any(_boxes_overlap(box, other) for other in others):
-                note.remove()
-                continue
-            rank = 2 if _crosses(curves, box) else 1 if _crosses(guides, box) else 0
-            if best is not None and rank >= best[0]:
-                note.remove()
-                continue
-            if best is not None:
-                best[1].remove()
-            best = (rank, note, box)
-            if rank == 0:
-                break
-        if best is not None:
-            taken.append(best[2])
-
-
-def _event_label(ax, x: float, y: float, text: str, colour: str, offset: tuple[float, float]):
-    """A boxed label ``offset`` points away from an event mark, joined to it by a thin line."""
-    dx, dy = offset
-    return ax.annotate(
-        text,
-        (x, y),
-        xytext=(dx, dy),
-        textcoords="offset points",
-        ha="left" if dx >= 0 else "right",
-        va="bottom" if dy >= 0 else "top",
-        fontsize=LABEL_FONT_SIZE,
-        multialignment="left",
-        color="#222222",
-        bbox={"boxstyle": "round,pad=0.25", "fc": "white", "ec": colour, "lw": 0.6, "alpha": 0.92},
-        arrowprops={"arrowstyle": "-", "color": colour, "lw": 0.6, "shrinkA": 0, "shrinkB": 4},
-        zorder=6,
-    )
 
 
 # --------------------------------------------------------------------------- the figure
@@ -443,7 +322,7 @@ def bifurcation_figure(
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
         _legend(fig, points, events, info, x, context)
         _note_hidden_traces(top, points, info, x)
-        _place_labels(fig, top, marks, _fix_layout(fig))
+        place_labels(fig, top, marks, _fix_layout(fig), MARKER_SIZE)
     return fig
 
 

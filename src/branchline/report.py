@@ -13,24 +13,26 @@ from typing import Any
 
 import pandas as pd
 
-from branchline.reading import (
-    VALUE_DIGITS,
+from branchline.margins import (
     HysteresisWindow,
     JumpTarget,
     OperatingMargin,
     SideMargin,
-    StabilityInterval,
     bistable_ranges,
+    hysteresis_windows,
+    jump_targets,
+    operating_margins,
+    side_of,
+    stability_beside,
+)
+from branchline.reading import (
+    VALUE_DIGITS,
+    StabilityInterval,
     event_label,
     event_period,
     fmt,
-    hysteresis_windows,
-    jump_targets,
     kind_words,
-    operating_margins,
     origin_event,
-    side_of,
-    stability_beside,
     stability_intervals,
     state_norm,
     switched_traces,
