@@ -234,3 +234,29 @@ def test_python_model_raising_stops_gracefully_and_keeps_points(tmp_path, capsys
     assert points["b"].min() == 2.0
     assert points["b"].max() <= 2.8
     assert "KeyError" in (out / "report.md").read_text()
+
+
+def test_results_are_reproducible_across_processes(tmp_path):
+    # Two processes with different string-hash seeds must write identical files:
+    # the compiled arithmetic may not depend on hash order, nor the SVG's ids.
+    import os
+
+    scan = ROOT / "scans" / "enriched_pond.toml"
+    for seed in ("1", "2"):
+        subprocess.run(
+            [
+                sys.executable,
+                "-m",
+                "branchline",
+                "run",
+                str(scan),
+                "--out",
+                str(tmp_path / seed),
+                "--quiet",
+            ],
+            check=True,
+            cwd=tmp_path,
+            env={**os.environ, "PYTHONHASHSEED": seed},
+        )
+    for name in ("points.csv", "events.csv", "events.json", "report.md", "diagram.svg"):
+        assert (tmp_path / "1" / name).read_bytes() == (tmp_path / "2" / name).read_bytes(), name

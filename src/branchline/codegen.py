@@ -166,7 +166,9 @@ class _Compiled:
             e.replace(sp.DiracDelta, _zero) if e.has(sp.DiracDelta) else e for e in expressions
         ]
         self.arguments = arguments
-        self.cse = sp.cse(expressions, order="none")
+        # Canonical order: the same model compiles to the same arithmetic in every
+        # process (order="none" follows hash order, which changes the last digits).
+        self.cse = sp.cse(expressions, order="canonical")
         self._safe: Callable | None = None
         self.fast = self._lambdify_fast() if fast else None
 

@@ -409,7 +409,10 @@ def _limit_by_interpolation(
     # fallback is rare.
     from scipy.interpolate import BarycentricInterpolator
 
-    u = BarycentricInterpolator(nodes, np.array(points))(bound)
+    # A fixed generator: scipy shuffles the nodes when computing the weights, and
+    # an unseeded shuffle would change the last digits from run to run.
+    interpolate = BarycentricInterpolator(nodes, np.array(points), rng=np.random.default_rng(0))
+    u = interpolate(bound)
     u = np.asarray(u, dtype=float).reshape(-1)
     u[index] = bound
     g, jac, message = safe_evaluate(evaluate, u)

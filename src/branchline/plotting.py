@@ -372,6 +372,7 @@ _STYLE = {
     "axes.edgecolor": "#444444",
     "axes.linewidth": 0.8,
     "svg.fonttype": "none",  # keep text as text in SVG
+    "svg.hashsalt": "branchline",  # fixed element ids: the same run gives the same SVG
 }
 
 
