@@ -16,15 +16,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from branchline.reading import (
+from branchline.margins import (
     bistable_ranges,
-    event_label,
-    fmt,
     hysteresis_windows,
     jump_targets,
     operating_margins,
-    stability_intervals,
 )
+from branchline.reading import event_label, fmt, stability_intervals
 from branchline.report import CAUTION, render_report, summary_table
 from tables_for_tests import (
     FOLD_P,

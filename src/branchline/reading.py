@@ -9,12 +9,11 @@ names of events and the way numbers are written live here too, so that the
 report (:mod:`branchline.report`) and the diagram (:mod:`branchline.plotting`)
 use the same words for the same thing. What an operator reads off those
 intervals (operating margins, jump targets, hysteresis windows) is in
-:mod:`branchline.margins`; its names are importable from here as well.
+:mod:`branchline.margins`.
 """
 
 from __future__ import annotations
 
-import importlib
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -382,31 +381,6 @@ def switched_traces(info: Mapping[str, Any], event: Mapping[str, Any]) -> list[s
 
 
 # --------------------------------------------------------------------------- moved names
-
-# Names that live in branchline.margins, still importable from here (listed in
-# margins.__all__, not here). Resolved on first use: margins builds on this
-# module, so importing it here at load time would be circular.
-_MARGIN_NAMES = frozenset(
-    (
-        "HysteresisWindow",
-        "JumpTarget",
-        "OperatingMargin",
-        "SideMargin",
-        "bistable_ranges",
-        "hysteresis_windows",
-        "jump_targets",
-        "operating_margins",
-        "side_of",
-        "stability_beside",
-    )
-)
-
-
-def __getattr__(name: str) -> Any:
-    if name in _MARGIN_NAMES:
-        return getattr(importlib.import_module("branchline.margins"), name)
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-
 
 __all__ = [
     "BOOKKEEPING_COLUMNS",

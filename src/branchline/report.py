@@ -1,9 +1,9 @@
 """The stability-change report: what a person reads.
 
-Markdown rendering only: the facts come from :mod:`branchline.reading`, which
-works from the saved tables alone (``points`` as in points.csv, ``events`` as
-in events.json, ``info`` as in run.json), so that ``branchline report DIR``
-never recomputes.
+Markdown rendering only: the facts come from :mod:`branchline.reading` and
+:mod:`branchline.margins`, which work from the saved tables alone (``points``
+as in points.csv, ``events`` as in events.json, ``info`` as in run.json), so
+that ``branchline report DIR`` never recomputes.
 """
 
 from __future__ import annotations
