@@ -150,10 +150,9 @@ def test_the_clustered_case_defeats_a_single_shift_at_the_origin():
 # a trace through the Hopf point of the uniform state
 
 
-def test_trace_through_the_hopf_point_of_the_uniform_state():
-    nodes = 200  # 400 states
-    model = brusselator_model(nodes, 1.97)
-    branch = trace_branch(
+def trace_uniform_through_hopf(model, nodes: int):
+    """The uniform state's branch for b in [1.97, 2.02] (also timed by bench_sparse.py)."""
+    return trace_branch(
         model,
         "uniform",
         "b",
@@ -163,6 +162,12 @@ def test_trace_through_the_hopf_point_of_the_uniform_state():
         "increasing",
         StepSettings(initial=0.02, largest=0.5, max_points=40),
     )
+
+
+def test_trace_through_the_hopf_point_of_the_uniform_state():
+    nodes = 200  # 400 states
+    model = brusselator_model(nodes, 1.97)
+    branch = trace_uniform_through_hopf(model, nodes)
     assert branch.status == "done", branch.message
     assert np.all(np.isfinite(branch.eigenvalues))
     # every row: the uniform state, and the exact rightmost eigenvalues

@@ -35,8 +35,6 @@ sys.path.insert(0, str(ROOT / "src"))
 sys.path.insert(0, str(ROOT / "tests"))
 
 from branchline import linalg  # noqa: E402
-from branchline.branches import trace_branch  # noqa: E402
-from branchline.scan import StepSettings  # noqa: E402
 from test_sparse_eigen import (  # noqa: E402
     D1,
     D2,
@@ -44,6 +42,7 @@ from test_sparse_eigen import (  # noqa: E402
     brusselator_jacobian,
     brusselator_model,
     exact_leading,
+    trace_uniform_through_hopf,
     uniform_state,
 )
 
@@ -94,16 +93,7 @@ def trace_cost(nodes):
     linalg.search_leading_eigenvalues = timed
     try:
         start = time.perf_counter()
-        branch = trace_branch(
-            model,
-            "uniform",
-            "b",
-            model.defaults,
-            uniform_state(nodes, 1.97),
-            (1.97, 2.02),
-            "increasing",
-            StepSettings(initial=0.02, largest=0.5, max_points=40),
-        )
+        branch = trace_uniform_through_hopf(model, nodes)
         seconds = time.perf_counter() - start
     finally:
         linalg.search_leading_eigenvalues = search
