@@ -13,6 +13,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse
 
+from branchline.model import Model
+
 # The three-state model, as scan-file expressions (parameters a, b, c).
 EXPRESSIONS = {
     "x0": "a - (b + 1)*x0 + x0^2*x1 + c*sin(x2)",
@@ -108,3 +110,20 @@ def rhs_failing_past(x, p):
     if p["b"] > 2.8:
         return {}["missing"]
     return rhs(x, p)
+
+
+def hand_model(rhs, jacobian, parameter_jacobian, states, parameters, defaults, **extra):
+    """A Model from hand-written numpy functions, no higher derivatives (engine tests)."""
+    return Model(
+        states=tuple(states),
+        parameters=tuple(parameters),
+        defaults=np.array(defaults, dtype=float),
+        rhs=rhs,
+        jacobian=jacobian,
+        parameter_jacobian=parameter_jacobian,
+        second=None,
+        third=None,
+        jacobian_parameter_derivative=None,
+        observables=lambda x, p: {},
+        **extra,
+    )

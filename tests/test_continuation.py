@@ -29,25 +29,9 @@ from scipy.optimize import brentq
 from branchline import continuation
 from branchline.branches import trace_branch
 from branchline.continuation import StepControl, follow_curve
-from branchline.model import Model, build_model
+from branchline.model import build_model
 from branchline.scan import ExpressionModelSpec, StepSettings
-
-
-def hand_model(rhs, jacobian, parameter_jacobian, states, parameters, defaults, **extra):
-    return Model(
-        states=tuple(states),
-        parameters=tuple(parameters),
-        defaults=np.array(defaults, dtype=float),
-        rhs=rhs,
-        jacobian=jacobian,
-        parameter_jacobian=parameter_jacobian,
-        second=None,
-        third=None,
-        jacobian_parameter_derivative=None,
-        observables=lambda x, p: {},
-        **extra,
-    )
-
+from models_for_tests import hand_model
 
 # ---------------------------------------------------------------------------
 # Spruce budworm (Strogatz, section 3.7)

@@ -30,23 +30,16 @@ from branchline.equilibrium import (
     linearize,
     solve_equilibrium,
 )
-from branchline.model import Model
+from models_for_tests import hand_model
 
 
 def make_model(rhs, jacobian, states=("x",), parameters=("a",), defaults=(0.0,)):
     """A Model from hand-written numpy functions (only rhs/jacobian are used here)."""
-    return Model(
-        states=tuple(states),
-        parameters=tuple(parameters),
-        defaults=np.array(defaults, dtype=float),
-        rhs=rhs,
-        jacobian=jacobian,
-        parameter_jacobian=lambda x, p: np.zeros((len(states), len(parameters))),
-        second=None,
-        third=None,
-        jacobian_parameter_derivative=None,
-        observables=lambda x, p: {},
-    )
+
+    def no_parameter_jacobian(x, p):
+        return np.zeros((len(states), len(parameters)))
+
+    return hand_model(rhs, jacobian, no_parameter_jacobian, states, parameters, defaults)
 
 
 def companion(tau: float, delta: float) -> np.ndarray:
