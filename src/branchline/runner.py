@@ -85,9 +85,13 @@ def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
     return marked
 
 
-def _follow(model: Model, spec: TraceSpec, source: str, progress: Progress | None) -> _TraceOutcome:
-    parameters = model.parameter_vector(spec.set)
-    x0 = start_vector(model, spec, parameters, source)
+def _follow(
+    model: Model,
+    spec: TraceSpec,
+    parameters: np.ndarray,
+    x0: np.ndarray,
+    progress: Progress | None,
+) -> _TraceOutcome:
     callback = (lambda count: progress(spec.name, count)) if progress else None
     root = trace_branch(
         model,
@@ -167,14 +171,13 @@ def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
     branches: list[Branch] = []
     events: list[Event] = []
     for spec in scan.traces:
-        if model.python_source and getattr(model, "jacobian_source", None):
-            parameters = model.parameter_vector(spec.set)
-            check = check_jacobian(
-                model, start_vector(model, spec, parameters, scan.source), parameters
-            )
+        parameters = model.parameter_vector(spec.set)
+        x0 = start_vector(model, spec, parameters, scan.source)
+        if model.jacobian_source:
+            check = check_jacobian(model, x0, parameters)
             if not check.ok:
                 warnings.append(check.message)
-        outcome = _follow(model, spec, scan.source, progress)
+        outcome = _follow(model, spec, parameters, x0, progress)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
     failed = [b for b in branches if b.status == STATUS_FAILED]
