@@ -519,7 +519,7 @@ def _finish_on_edge(
             evaluate, step_control.edge_guess(u, u_out, edge), edge, counts
         )
     else:
-        correction = correctors.correct_on_limit(evaluate, u, u_out, t, edge, index, counts)
+        correction = correctors.correct_on_limit(evaluate, u, u_out, edge, index, counts)
     converged, iterations, u_edge, _, g_edge, jac_edge, failure = correction
     counts.newton += iterations
     if converged:

@@ -310,11 +310,7 @@ def correct_on_edge(
     the fixed component; the solution's component is then set to ``edge`` exactly
     and G, G_u are evaluated there again. ``iterations`` counts the Newton updates only.
     """
-    border = np.zeros(guess.shape[0])
-    border[index] = 1.0
-    correction = correct_newton(
-        evaluate, guess, border, edge, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
-    )
+    correction = _newton_with_fixed(evaluate, guess, edge, index, counts)
     if not correction[0] and not linalg.is_sparse(correction[5]):
         # At an edge where the Jacobian without the fixed column is singular (a line of
         # equilibria at a zero dilution rate, say) Newton's square solve fails although
@@ -323,6 +319,17 @@ def correct_on_edge(
         if fallback[0]:
             correction = fallback
     return _exactly_on(evaluate, correction, edge, index, counts)
+
+
+def _newton_with_fixed(
+    evaluate: Evaluate, guess: Array, value: float, index: int, counts: EvaluationCounts
+) -> Correction:
+    """Full Newton on G(u) = 0, u[index] = value (bordered with e_index)."""
+    border = np.zeros(guess.shape[0])
+    border[index] = 1.0
+    return correct_newton(
+        evaluate, guess, border, value, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
+    )
 
 
 def _exactly_on(evaluate, correction: Correction, edge: float, index: int, counts) -> Correction:
@@ -344,7 +351,6 @@ def correct_on_limit(
     evaluate: Evaluate,
     u_in: Array,
     u_out: Array,
-    tangent: Array,
     bound: float,
     index: int,
     counts: EvaluationCounts,
@@ -352,24 +358,19 @@ def correct_on_limit(
     """The point of the curve through ``u_in`` where the state u[index] equals ``bound``.
 
     ``u_in`` is the last point inside the limit, ``u_out`` the corrected point beyond
-    it, ``tangent`` the unit tangent at ``u_in``. First Newton on G(u) = 0,
+    it. First Newton on G(u) = 0,
     u[index] = bound (bordered with e_index, as :func:`correct_on_edge`) from the
     chord cut at the bound. Where that system is singular (another branch lies in
     the limit's plane: a washout branch with zero biomass crossing the traced one
     exactly on the limit X = 0, so that every point of it solves the system) the
     point is interpolated from points of the traced curve on both sides of the
     limit, where the system is regular (:func:`_limit_by_interpolation`). Either
-    way u[index] is then set to ``bound`` exactly. ``tangent`` is kept for callers
-    that follow the curve (unused by these two methods).
+    way u[index] is then set to ``bound`` exactly.
     """
     fraction = (bound - u_in[index]) / (u_out[index] - u_in[index])
     guess = u_in + fraction * (u_out - u_in)
     guess[index] = bound
-    border = np.zeros(guess.shape[0])
-    border[index] = 1.0
-    correction = correct_newton(
-        evaluate, guess, border, bound, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
-    )
+    correction = _newton_with_fixed(evaluate, guess, bound, index, counts)
     if not correction[0]:
         interpolated = _limit_by_interpolation(evaluate, u_in, u_out, bound, index, counts)
         if interpolated[0]:
