@@ -13,7 +13,7 @@ from __future__ import annotations
 import numpy as np
 import scipy.sparse
 
-from branchline.model import Model
+from branchline.model.build import Model
 
 # The three-state model, as scan-file expressions (parameters a, b, c).
 EXPRESSIONS = {

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 
 from branchline.cli import main
-from branchline.report import CAUTION
+from branchline.present.report import CAUTION
 
 ROOT = Path(__file__).resolve().parents[1]
 

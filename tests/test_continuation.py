@@ -26,11 +26,11 @@ import pytest
 import scipy.sparse as sp
 from scipy.optimize import brentq
 
-from branchline import continuation
-from branchline.branches import trace_branch
-from branchline.continuation import StepControl, follow_curve
-from branchline.model import build_model
-from branchline.scan import ExpressionModelSpec, StepSettings
+from branchline.continuation import engine as continuation
+from branchline.continuation.engine import StepControl, follow_curve
+from branchline.model.build import build_model
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.scan.loader import ExpressionModelSpec, StepSettings
 from models_for_tests import hand_model
 
 # ---------------------------------------------------------------------------

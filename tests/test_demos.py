@@ -148,7 +148,7 @@ def test_cooled_reactor_hopf_onset_is_hard_in_simulation():
     # Bifurcation Theory, section 3.5: no small stable cycle when l1 > 0).
     from scipy.integrate import solve_ivp
 
-    from branchline.equilibrium import solve_equilibrium
+    from branchline.problems.equilibrium import solve_equilibrium
 
     result = _run("cooled_reactor")
     (hopf,) = [e for e in result.events if e.kind == "hopf"]

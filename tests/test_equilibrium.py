@@ -21,8 +21,8 @@ import math
 import numpy as np
 import pytest
 
-from branchline import linalg
-from branchline.equilibrium import (
+from branchline.numerics import linalg
+from branchline.problems.equilibrium import (
     STATUS_CONVERGED,
     STATUS_NONFINITE,
     STATUS_SINGULAR,

@@ -17,19 +17,19 @@ import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 import sympy as sp
 
-from branchline import location
-from branchline.branches import trace_branch
-from branchline.defining_systems import NewtonOutcome
-from branchline.detection import (
+from branchline.events import location
+from branchline.events.defining_systems import NewtonOutcome
+from branchline.events.detection import (
     TEST_FUNCTIONS,
     bordered_determinant,
     equilibrium_tests,
     find_brackets,
     hopf_test,
 )
-from branchline.events import locate_events
-from branchline.model import build_model
-from branchline.scan import ExpressionModelSpec, StepSettings
+from branchline.events.locate import locate_events
+from branchline.model.build import build_model
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 PARAMETER_RTOL = 1e-10
 
@@ -462,7 +462,7 @@ def test_sparse_location_agrees_with_dense(case, monkeypatch):
     # shift-invert Arnoldi; forcing that path on small models must give the same events.
     # A consistency check between two code paths (no external reference): the dense path
     # is itself checked against closed forms above.
-    from branchline import normal_forms
+    from branchline.events import normal_forms
 
     equations, start, interval = SPARSE_CASES[case]
     parameters = {"p": interval[0], "a": 1.0, "D": 0.3} if case == "hopf" else {"p": interval[0]}
@@ -535,10 +535,10 @@ def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
     # its l1 is the single cell's divided by the number of cells (uniform
     # oscillations solve the single-cell equations; l1 scales as 1/|x|^2 under the
     # contract's normalization <q, q> = 1/2 over all states).
-    from branchline.linalg import sort_by_real_part
-    from branchline.normal_forms import LARGE_MODEL_SIZE
-    from branchline.results import Branch
-    from branchline.scan import PythonModelSpec
+    from branchline.events.normal_forms import LARGE_MODEL_SIZE
+    from branchline.numerics.linalg import sort_by_real_part
+    from branchline.results.records import Branch
+    from branchline.scan.loader import PythonModelSpec
 
     (tmp_path / "coupled_cells.py").write_text(SPARSE_MODULE)
     monkeypatch.syspath_prepend(str(tmp_path))

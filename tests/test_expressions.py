@@ -12,7 +12,7 @@ import pytest
 import sympy
 
 from branchline.errors import ExpressionError
-from branchline.expressions import (
+from branchline.scan.expressions import (
     CONSTANTS,
     FUNCTION_ARITY,
     FUNCTIONS,

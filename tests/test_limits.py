@@ -10,13 +10,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from branchline import continuation, run_scan, scan_from_dict
-from branchline.branches import trace_branch
+from branchline import run_scan, scan_from_dict
 from branchline.cli import main
+from branchline.continuation import engine as continuation
+from branchline.continuation.step_control import LIMIT_SLACK, Limit
 from branchline.errors import ScanError
-from branchline.model import build_model
-from branchline.scan import ExpressionModelSpec, StepSettings
-from branchline.step_control import LIMIT_SLACK, Limit
+from branchline.model.build import build_model
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 # The landed point is put on the limit exactly; the other components come from Newton
 # with residual below RESIDUAL_TOL (1e-10), quadratically converged.

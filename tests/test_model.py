@@ -1,4 +1,4 @@
-"""Tests of branchline.model: compiled expression models and Python models.
+"""Tests of branchline.model.build: compiled expression models and Python models.
 
 References (outside the project):
 - sympy's own differentiation (``sympy.diff``) evaluated at 30 significant
@@ -24,8 +24,7 @@ import sympy as sp
 
 import models_for_tests
 from branchline.errors import ScanError
-from branchline.expressions import parse_expression
-from branchline.model import (
+from branchline.model.build import (
     DENSE_STATE_LIMIT,
     JACOBIAN_CHECK_TOLERANCE,
     build_model,
@@ -33,7 +32,8 @@ from branchline.model import (
     jacobian_dense,
     resolve_callable,
 )
-from branchline.scan import ExpressionModelSpec, PythonModelSpec
+from branchline.scan.expressions import parse_expression
+from branchline.scan.loader import ExpressionModelSpec, PythonModelSpec
 
 # Compiled double-precision values against 30-digit references: a few hundred
 # rounding errors of the largest intermediate term.

@@ -14,13 +14,13 @@ import pytest
 import sympy as sp
 from scipy.integrate import solve_ivp
 
-from branchline.model import build_model
-from branchline.normal_forms import (
+from branchline.events.normal_forms import (
     branch_point_normal_form,
     fold_normal_form,
     hopf_normal_form,
 )
-from branchline.scan import ExpressionModelSpec
+from branchline.model.build import build_model
+from branchline.scan.loader import ExpressionModelSpec
 
 
 def expression_model(equations: dict[str, str], parameters: dict[str, float]):

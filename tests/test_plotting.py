@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 from matplotlib.figure import Figure
 
-from branchline.plotting import (
+from branchline.present.plotting import (
     FIGURE_SIZE,
     PNG_DPI,
     TRACE_COLOURS,
@@ -142,7 +142,7 @@ def test_layout_is_settled_once_and_each_file_is_drawn_once(tmp_path, monkeypatc
 
 def test_importing_report_and_diagram_modules_leaves_pyplot_alone():
     code = (
-        "import sys, branchline.plotting, branchline.report; "
+        "import sys, branchline.present.plotting, branchline.present.report; "
         "print(sorted(m for m in ('matplotlib.pyplot', 'sympy', 'scipy') if m in sys.modules))"
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)

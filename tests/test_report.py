@@ -16,14 +16,14 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from branchline.margins import (
+from branchline.present.report import CAUTION, render_report, summary_table
+from branchline.results.margins import (
     bistable_ranges,
     hysteresis_windows,
     jump_targets,
     operating_margins,
 )
-from branchline.reading import event_label, fmt, stability_intervals
-from branchline.report import CAUTION, render_report, summary_table
+from branchline.results.reading import event_label, fmt, stability_intervals
 from tables_for_tests import (
     FOLD_P,
     hopf_tables,
@@ -258,10 +258,10 @@ def test_report_and_figure_of_a_real_run_read_back_from_disk(tmp_path):
     logistic growth with constant harvesting, section 3.7 -- recalled from memory; the
     closed form itself is elementary). The report must quote the located value and the
     margin from the operating value h = 0.1, computed from the saved tables only."""
-    from branchline.plotting import bifurcation_figure
+    from branchline.present.plotting import bifurcation_figure
+    from branchline.results.writers import read_results, write_results
     from branchline.runner import run_scan
-    from branchline.scan import scan_from_dict
-    from branchline.writers import read_results, write_results
+    from branchline.scan.loader import scan_from_dict
 
     scan = scan_from_dict(
         {

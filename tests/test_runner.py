@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 
 import branchline
-from branchline.results import STATUS_DONE
+from branchline.results.records import STATUS_DONE
 
 
 def _scan(equation: str, interval, start, parameters):

@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 
 from branchline.errors import ScanError
-from branchline.scan import (
+from branchline.scan.loader import (
     DEFAULT_INITIAL_STEP,
     DEFAULT_LARGEST_STEP,
     DEFAULT_MAX_POINTS,

@@ -40,11 +40,12 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from branchline import continuation, linalg
-from branchline.branches import EIGENVALUES_FAILED, trace_branch
-from branchline.events import locate_events
-from branchline.model import build_model
-from branchline.scan import PythonModelSpec, StepSettings
+from branchline.continuation import engine as continuation
+from branchline.events.locate import locate_events
+from branchline.model.build import build_model
+from branchline.numerics import linalg
+from branchline.problems.equilibrium_branch import EIGENVALUES_FAILED, trace_branch
+from branchline.scan.loader import PythonModelSpec, StepSettings
 
 A = 1.0
 D1, D2 = 0.001, 0.002

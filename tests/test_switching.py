@@ -7,11 +7,11 @@ import math
 import numpy as np
 import pytest
 
-from branchline.branches import trace_branch
-from branchline.events import locate_events
-from branchline.model import build_model
-from branchline.scan import ExpressionModelSpec, StepSettings
-from branchline.switching import SWITCH_OFFSET, branch_starts, trace_switched
+from branchline.events.locate import locate_events
+from branchline.events.switching import SWITCH_OFFSET, branch_starts, trace_switched
+from branchline.model.build import build_model
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 INTERVAL = (-0.5, 0.5)
 

@@ -5,10 +5,10 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from branchline.results import RunResult
+from branchline.results.records import RunResult
+from branchline.results.writers import write_results
 from branchline.runner import run_scan
-from branchline.scan import Scan, load_scan, scan_from_dict
-from branchline.writers import write_results
+from branchline.scan.loader import Scan, load_scan, scan_from_dict
 
 
 def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None) -> RunResult:

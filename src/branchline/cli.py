@@ -47,7 +47,7 @@ def _error(message: str) -> None:
 
 
 def _load(path: str):
-    from branchline.scan import load_scan
+    from branchline.scan.loader import load_scan
 
     return load_scan(path)
 
@@ -60,9 +60,9 @@ def _python_notice(scan) -> None:
 
 def _command_run(args: argparse.Namespace) -> int:
     from branchline.errors import ScanError
-    from branchline.report import CAUTION, summary_table
+    from branchline.present.report import CAUTION, summary_table
+    from branchline.results.writers import write_results
     from branchline.runner import run_scan
-    from branchline.writers import write_results
 
     try:
         scan = _load(args.scan)
@@ -126,7 +126,7 @@ def _parse_settings(pairs: list[str], scan) -> dict[str, float]:
 
 def _command_inspect(args: argparse.Namespace) -> int:
     from branchline.errors import ScanError
-    from branchline.inspection import describe_equilibrium
+    from branchline.present.inspection import describe_equilibrium
 
     try:
         scan = _load(args.scan)
@@ -142,7 +142,7 @@ def _command_inspect(args: argparse.Namespace) -> int:
 
 def _read_saved(folder: str):
     """The saved run in ``folder``, or None after printing why it cannot be read."""
-    from branchline.writers import ResultsFolderError, read_results
+    from branchline.results.writers import ResultsFolderError, read_results
 
     try:
         return read_results(folder)
@@ -152,7 +152,7 @@ def _read_saved(folder: str):
 
 
 def _command_plot(args: argparse.Namespace) -> int:
-    from branchline.plotting import bifurcation_figure, save_figure
+    from branchline.present.plotting import bifurcation_figure, save_figure
 
     saved = _read_saved(args.folder)
     if saved is None:
@@ -169,7 +169,7 @@ def _command_plot(args: argparse.Namespace) -> int:
 
 
 def _command_report(args: argparse.Namespace) -> int:
-    from branchline.report import render_report
+    from branchline.present.report import render_report
 
     saved = _read_saved(args.folder)
     if saved is None:

@@ -12,13 +12,13 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from branchline.branches import trace_branch
 from branchline.errors import ScanError
-from branchline.events import locate_events
-from branchline.model import Model, build_model, check_jacobian, resolve_callable
-from branchline.results import STATUS_FAILED, Branch, Event, RunResult
-from branchline.scan import Scan, TraceSpec
-from branchline.switching import trace_switched
+from branchline.events.locate import locate_events
+from branchline.events.switching import trace_switched
+from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
+from branchline.scan.loader import Scan, TraceSpec
 
 # Branch points closer than this (relative, in state and parameter) to one
 # already switched at are the same point met again from a child branch.
@@ -142,7 +142,7 @@ def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
     Parameters
     ----------
     scan : Scan
-        From :func:`branchline.scan.load_scan` or :func:`branchline.scan.scan_from_dict`.
+        From :func:`branchline.scan.loader.load_scan` or :func:`branchline.scan.loader.scan_from_dict`.
     progress : callable (trace name, points so far) -> None, optional
         Called as points are computed (the command line's progress display).
 

@@ -38,10 +38,10 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 
-from branchline import events
-from branchline.branches import trace_branch
-from branchline.model import build_model
-from branchline.scan import ExpressionModelSpec, StepSettings
+from branchline.events import locate as events
+from branchline.model.build import build_model
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 REPEATS = 5
 

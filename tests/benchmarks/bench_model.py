@@ -28,8 +28,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 
-from branchline.model import build_model
-from branchline.scan import ExpressionModelSpec
+from branchline.model.build import build_model
+from branchline.scan.loader import ExpressionModelSpec
 
 REPEATS = 5
 CALLS = 20_000

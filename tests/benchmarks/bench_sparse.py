@@ -34,7 +34,7 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "src"))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from branchline import linalg  # noqa: E402
+from branchline.numerics import linalg  # noqa: E402
 from test_sparse_eigen import (  # noqa: E402
     D1,
     D2,

@@ -5,7 +5,7 @@ Run by hand (not collected by pytest)::
     python3 tests/benchmarks/bench_trace.py
 
 For each model it prints accepted points per second and Newton iterations per
-point of ``branchline.branches.trace_branch`` (full Newton and chord
+point of ``branchline.problems.equilibrium_branch.trace_branch`` (full Newton and chord
 correctors; eigenvalues and test functions at every point), next to
 
 (a) a bare numpy pseudo-arclength loop over the same compiled model functions
@@ -37,8 +37,8 @@ from scipy.optimize import root
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 
-from branchline.branches import trace_branch
-from branchline.scan import StepSettings
+from branchline.problems.equilibrium_branch import trace_branch
+from branchline.scan.loader import StepSettings
 
 REPEATS = 5
 # The project's speed target for a 2-state model with stability at every point.
@@ -66,9 +66,9 @@ CASCADE = {
 
 
 def build(definition):
-    """The model through branchline.model.build_model (exact sympy derivatives)."""
-    from branchline.model import build_model
-    from branchline.scan import ExpressionModelSpec
+    """The model through branchline.model.build.build_model (exact sympy derivatives)."""
+    from branchline.model.build import build_model
+    from branchline.scan.loader import ExpressionModelSpec
 
     return build_model(ExpressionModelSpec(**definition))
 

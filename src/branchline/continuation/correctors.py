@@ -1,0 +1,480 @@
+"""Correctors on the bordered system of the continuation engine, and its tangent.
+
+A corrector solves the N + 1 equations
+
+    G(u) = 0,   b . u = c
+
+for u in R^(N+1), starting from a predicted point. With ``border_value``
+c = None the second equation is the pseudo-arclength condition through the
+predicted point, b . (u - u_predicted) = 0 (Keller, "Numerical solution of
+bifurcation and nonlinear eigenvalue problems", 1977; Allgower & Georg,
+Introduction to Numerical Continuation Methods, chapter 2), whose residual
+stays zero since every update is orthogonal to b; with a number it fixes
+b . u, e.g. the parameter on an interval edge.
+
+The correctors are plain functions returning a *correction*, the tuple
+
+    (converged, iterations, u, residual_norm, g, jacobian, message)
+
+converged : bool; iterations : int, updates applied; u : ndarray (N + 1,), the
+solution when converged, else the last iterate; residual_norm : float, |G(u)|
+(NaN when not known); g, jacobian : G(u) (N,) and G_u(u) (N, N + 1, dense or
+sparse) when converged, else None; message : str, "" when converged, else why
+not. A plain tuple (as scipy's ODE solvers return from their Newton
+iterations): the engine calls a corrector at every step and unpacks the result.
+The correctors are:
+
+- :func:`correct_newton`, full Newton: the Jacobian at every iterate. The
+  engine's default. Measured on a 2-state model
+  (tests/benchmarks/bench_trace.py) it is faster than the chord method: it
+  needs fewer iterations and a small dense factorization costs about as much
+  as the bookkeeping around it.
+- :func:`correct_chord`, the chord method: the bordered matrix factorized once
+  at the predicted point. Pays off when factorizations dominate (large sparse
+  models).
+- :func:`correct_on_edge`, full Newton with one component of u fixed (the last
+  point of a curve put exactly on the edge of its parameter interval, or on a
+  limit of one of its states); :func:`correct_on_limit` for a state limit, with a
+  fallback along the curve where fixing the state leaves a singular system.
+
+:func:`unit_tangent` gives the tangent at a corrected point from the same
+bordered matrix with the previous tangent as border.
+
+The Newton and chord iterations stop early when the updates say they diverge;
+all correctors count model evaluations and factorizations in an
+:class:`EvaluationCounts` and report numerical trouble in the message instead
+of raising.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import scipy.sparse.linalg as spla
+
+from branchline.numerics import linalg
+
+Array = np.ndarray
+# (converged, iterations, u, residual_norm, g, jacobian, message); see the module docstring.
+Correction = tuple[bool, int, Array, float, Any, Any, str]
+# u -> (G(u) (N,), G_u(u) (N, N + 1), dense or sparse): see :func:`evaluator`.
+Evaluate = Callable[[Array], tuple[Array, Any]]
+
+# Residual norm accepted as zero (Euclidean); see equilibrium.RESIDUAL_TOL.
+RESIDUAL_TOL = 1e-10
+# Newton update accepted as converged, relative to 1 + |u|. Quadratic
+# convergence makes the error after an update of size d about C d^2, so
+# 1e-6 leaves ~1e-12; together with the residual test it stops after two
+# iterations on a well-predicted step instead of three.
+UPDATE_RTOL = 1e-6
+# Updates this small (relative) are roundoff: the residual cannot drop further.
+STAGNATION_RTOL = 16 * np.finfo(float).eps
+MAX_CORRECTOR_ITERATIONS = 6
+# A Newton update larger than this times the previous one means divergence.
+DIVERGENCE_RATIO = 1.0
+# The chord method (Jacobian frozen at the predicted point) converges linearly;
+# it is abandoned when an update does not shrink at least by this factor.
+CHORD_CONTRACTION = 0.5
+MAX_CHORD_ITERATIONS = 10
+# A point on a state limit interpolated from points either side of it (correct_on_limit,
+# singular case) is accepted when its residual is this small: Newton's points carry
+# residuals below RESIDUAL_TOL, interpolation adds at most about as much.
+INTERPOLATED_RESIDUAL = 10 * RESIDUAL_TOL
+
+COUNT_KEYS = (
+    "rhs_evaluations",
+    "jacobian_evaluations",
+    "factorizations",
+    "rejected_steps",
+    "newton_iterations",
+)
+
+# Dot products of short vectors on the hot path are written x.dot(y): the same dot routine as
+# x @ y, bit for bit, at well under half the call overhead for N of a few (numpy 2.x).
+
+NOT_FINITE = "the right-hand side, its Jacobian or the Newton update is not finite (NaN/overflow)"
+
+
+class EvaluationCounts:
+    """Running counts of one curve (mutable; the engine and correctors add to it)."""
+
+    __slots__ = ("factorizations", "jacobian", "newton", "rejected", "rhs")
+
+    def __init__(self) -> None:
+        self.rhs = self.jacobian = self.factorizations = self.rejected = self.newton = 0
+
+    def as_dict(self) -> dict[str, int]:
+        """The counts under the names of ``COUNT_KEYS``."""
+        values = (self.rhs, self.jacobian, self.factorizations, self.rejected, self.newton)
+        return dict(zip(COUNT_KEYS, values, strict=True))
+
+
+def evaluator(problem: Any) -> Evaluate:
+    """``u -> (G(u), G_u(u))``: ``problem.evaluate`` if it has one, else both calls."""
+    evaluate = getattr(problem, "evaluate", None)
+    if evaluate is not None:
+        return evaluate
+    residual, jacobian = problem.residual, problem.jacobian
+
+    def both(u: Array) -> tuple[Array, Any]:
+        return residual(u), jacobian(u)
+
+    return both
+
+
+def safe_evaluate(evaluate: Evaluate, u: Array) -> tuple[Array | None, Any, str]:
+    """(G, G_u, message): message is "" or why the evaluation failed.
+
+    Runs inside the engine's ``np.errstate(all="ignore")``; a non-finite
+    residual is caught by the correctors, a non-finite Jacobian by the update
+    it produces.
+    """
+    try:
+        g, jac = evaluate(u)
+    except (ArithmeticError, ValueError) as exc:
+        return None, None, _raised("the model", exc)
+    return g, jac, ""
+
+
+def _raised(what: str, exc: Exception) -> str:
+    return f"evaluating {what} raised {type(exc).__name__}: {exc}"
+
+
+def _failed(u: Array, iterations: int, residual: float, message: str) -> Correction:
+    return False, iterations, u, residual, None, None, message
+
+
+def _converged(residual: float, update: float, scale: float) -> bool:
+    """Residual and update both small, or the update down to roundoff."""
+    return (residual <= RESIDUAL_TOL and update <= UPDATE_RTOL * scale) or (
+        update <= STAGNATION_RTOL * scale
+    )
+
+
+def correct_newton(
+    evaluate: Evaluate,
+    u: Array,
+    border: Array,
+    border_value: float | None,
+    counts: EvaluationCounts,
+    max_iterations: int = MAX_CORRECTOR_ITERATIONS,
+) -> Correction:
+    """Newton's method on [G(u); border . u - border_value] = 0 (full Newton).
+
+    Parameters
+    ----------
+    evaluate : callable
+        ``u -> (G(u), G_u(u))``, see :func:`evaluator`.
+    u : ndarray (N + 1,)
+        Start (the predicted point).
+    border : ndarray (N + 1,)
+        Last row of the bordered matrix (the tangent for pseudo-arclength).
+    border_value : float or None
+        None: pseudo-arclength condition through the start ``u``.
+    counts : EvaluationCounts
+        Incremented for every evaluation and factorization.
+    max_iterations : int
+
+    Returns
+    -------
+    tuple
+        A correction (module docstring).
+    """
+    size = u.shape[0]
+    solve = linalg.solve_unchecked
+    sqrt = math.sqrt
+    square = None
+    rhs = np.zeros(size)
+    update = previous_update = math.inf
+    iteration = 0
+    while True:
+        try:
+            g, jac = evaluate(u)
+        except (ArithmeticError, ValueError) as exc:
+            return _failed(u, iteration, math.nan, _raised("the model", exc))
+        counts.rhs += 1
+        counts.jacobian += 1
+        residual = sqrt(g.dot(g))
+        if not residual < math.inf:
+            return _failed(u, iteration, residual, NOT_FINITE)
+        if iteration:
+            if _converged(residual, update, 1.0 + sqrt(u.dot(u))):
+                return True, iteration, u, residual, g, jac, ""
+            if iteration >= max_iterations:
+                message = (
+                    f"no convergence in {max_iterations} Newton iterations "
+                    f"(residual {residual:.3g})"
+                )
+                return _failed(u, iteration, residual, message)
+        rhs[:-1] = g
+        if border_value is not None:
+            rhs[-1] = float(border @ u) - border_value
+        counts.factorizations += 1
+        if type(jac) is not np.ndarray:
+            try:
+                step = linalg.bordered_solve(jac, border, rhs)
+            except linalg.SingularMatrixError:
+                return _failed(u, iteration, residual, "the bordered Jacobian is singular")
+        else:
+            if square is None:
+                square = np.empty((size, size))
+                square[-1] = border
+            square[:-1] = jac
+            step = solve(square, rhs)
+        previous_update, update = update, sqrt(step.dot(step))
+        if not update < math.inf:
+            return _failed(
+                u, iteration, residual, "the bordered Jacobian is singular or not finite"
+            )
+        if iteration and update > DIVERGENCE_RATIO * previous_update:
+            return _failed(u, iteration, residual, "Newton's method diverges")
+        u = u - step
+        iteration += 1
+
+
+def correct_chord(
+    evaluate: Evaluate,
+    residual_fn: Callable[[Array], Array],
+    jacobian_fn: Callable[[Array], Any],
+    u: Array,
+    border: Array,
+    counts: EvaluationCounts,
+) -> Correction:
+    """Chord method on [G(u); border . (u - u_start)] = 0.
+
+    The bordered matrix is factorized once at the start ``u`` (the predicted
+    point); ``residual_fn`` and ``jacobian_fn`` are the problem's ``residual``
+    and ``jacobian`` (the Jacobian is evaluated again only at the solution).
+    Otherwise as :func:`correct_newton`.
+    """
+    size = u.shape[0]
+    sqrt = math.sqrt
+    g, jac, message = safe_evaluate(evaluate, u)
+    counts.rhs += 1
+    counts.jacobian += 1
+    if message:
+        return _failed(u, 0, math.nan, message)
+    square = linalg.bordered_matrix(jac, border)
+    counts.factorizations += 1
+    try:
+        if linalg.is_sparse(square):
+            solve = spla.splu(square).solve
+        else:
+            inverse = np.linalg.inv(square)
+            if not np.all(np.isfinite(inverse)):
+                raise np.linalg.LinAlgError("not finite")
+            solve = inverse.__matmul__
+    except (np.linalg.LinAlgError, RuntimeError):
+        return _failed(u, 0, math.nan, "the bordered Jacobian is singular")
+    previous_update = math.inf
+    rhs = np.zeros(size)
+    if not sqrt(g.dot(g)) < math.inf:
+        return _failed(u, 0, math.nan, NOT_FINITE)
+    for iteration in range(1, MAX_CHORD_ITERATIONS + 1):
+        rhs[:-1] = -g
+        step = solve(rhs)
+        update = sqrt(step.dot(step))
+        if not update < math.inf or update > CHORD_CONTRACTION * previous_update:
+            return _failed(u, iteration, math.nan, "the chord iteration does not contract")
+        previous_update = update
+        u = u + step
+        try:
+            g = residual_fn(u)
+        except (ArithmeticError, ValueError) as exc:
+            return _failed(u, iteration, math.nan, _raised("the model", exc))
+        counts.rhs += 1
+        residual = sqrt(g.dot(g))
+        if not residual < math.inf:
+            return _failed(u, iteration, math.nan, NOT_FINITE)
+        if _converged(residual, update, 1.0 + sqrt(u.dot(u))):
+            try:
+                jac = jacobian_fn(u)
+            except (ArithmeticError, ValueError) as exc:
+                return _failed(u, iteration, residual, _raised("the Jacobian", exc))
+            counts.jacobian += 1
+            return True, iteration, u, residual, g, jac, ""
+    return _failed(u, MAX_CHORD_ITERATIONS, math.nan, "no convergence of the chord iteration")
+
+
+def correct_on_edge(
+    evaluate: Evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+) -> Correction:
+    """Solve G(u) = 0 with the component u[index] fixed at ``edge`` (full Newton).
+
+    ``index`` -1 (the default) fixes the parameter (the edge of the parameter
+    interval); a state's index fixes that state (a trace's state limit). The
+    bordered matrix is [G_u; e_index^T]. The bordered solve may leave roundoff in
+    the fixed component; the solution's component is then set to ``edge`` exactly
+    and G, G_u are evaluated there again. ``iterations`` counts the Newton updates only.
+    """
+    correction = _newton_with_fixed(evaluate, guess, edge, index, counts)
+    if not correction[0] and not linalg.is_sparse(correction[5]):
+        # At an edge where the Jacobian without the fixed column is singular (a line of
+        # equilibria at a zero dilution rate, say) Newton's square solve fails although
+        # the point exists; Gauss-Newton with least-squares steps still converges there.
+        fallback = _least_squares_on_edge(evaluate, guess, edge, counts, index)
+        if fallback[0]:
+            correction = fallback
+    return _exactly_on(evaluate, correction, edge, index, counts)
+
+
+def _newton_with_fixed(
+    evaluate: Evaluate, guess: Array, value: float, index: int, counts: EvaluationCounts
+) -> Correction:
+    """Full Newton on G(u) = 0, u[index] = value (bordered with e_index)."""
+    border = np.zeros(guess.shape[0])
+    border[index] = 1.0
+    return correct_newton(
+        evaluate, guess, border, value, counts, max_iterations=2 * MAX_CORRECTOR_ITERATIONS
+    )
+
+
+def _exactly_on(evaluate, correction: Correction, edge: float, index: int, counts) -> Correction:
+    """A converged correction with u[index] set to ``edge`` exactly (G, G_u evaluated again)."""
+    converged, iterations, u = correction[:3]
+    if not converged or u[index] == edge:
+        return correction
+    u = u.copy()
+    u[index] = edge
+    g, jac, message = safe_evaluate(evaluate, u)
+    counts.rhs += 1
+    counts.jacobian += 1
+    if message:
+        return _failed(u, iterations, math.nan, message)
+    return True, iterations, u, linalg.norm(g), g, jac, ""
+
+
+def correct_on_limit(
+    evaluate: Evaluate,
+    u_in: Array,
+    u_out: Array,
+    bound: float,
+    index: int,
+    counts: EvaluationCounts,
+) -> Correction:
+    """The point of the curve through ``u_in`` where the state u[index] equals ``bound``.
+
+    ``u_in`` is the last point inside the limit, ``u_out`` the corrected point beyond
+    it. First Newton on G(u) = 0,
+    u[index] = bound (bordered with e_index, as :func:`correct_on_edge`) from the
+    chord cut at the bound. Where that system is singular (another branch lies in
+    the limit's plane: a washout branch with zero biomass crossing the traced one
+    exactly on the limit X = 0, so that every point of it solves the system) the
+    point is interpolated from points of the traced curve on both sides of the
+    limit, where the system is regular (:func:`_limit_by_interpolation`). Either
+    way u[index] is then set to ``bound`` exactly.
+    """
+    fraction = (bound - u_in[index]) / (u_out[index] - u_in[index])
+    guess = u_in + fraction * (u_out - u_in)
+    guess[index] = bound
+    correction = _newton_with_fixed(evaluate, guess, bound, index, counts)
+    if not correction[0]:
+        interpolated = _limit_by_interpolation(evaluate, u_in, u_out, bound, index, counts)
+        if interpolated[0]:
+            correction = interpolated
+    return _exactly_on(evaluate, correction, bound, index, counts)
+
+
+def _limit_by_interpolation(
+    evaluate, u_in: Array, u_out: Array, bound: float, index: int, counts: EvaluationCounts
+) -> Correction:
+    """The curve's point at u[index] = bound, interpolated from points on either side.
+
+    Points of the curve at u[index] = bound + d (d = the offsets of ``u_in`` and ``u_out``
+    from the bound, times 1, 2/3 and 1/3) are isolated solutions of the bordered system
+    even when the one at d = 0 is not; each component is interpolated as a polynomial in
+    u[index] through these six points (barycentric Lagrange) and evaluated at the bound.
+    Error ~ d^6 times the sixth derivative; Newton's own accuracy (~1e-12) dominates.
+    """
+    border = np.zeros(u_in.shape[0])
+    border[index] = 1.0
+    nodes, points, total = [], [], 0
+    for end, fractions in ((u_in, (1.0, 2 / 3, 1 / 3)), (u_out, (1 / 3, 2 / 3, 1.0))):
+        for fraction in fractions:
+            value = bound + fraction * (end[index] - bound)
+            if fraction == 1.0:
+                point = end
+            else:
+                guess = u_in + (value - u_in[index]) / (u_out[index] - u_in[index]) * (u_out - u_in)
+                correction = correct_newton(evaluate, guess, border, value, counts)
+                total += correction[1]
+                if not correction[0]:
+                    return _failed(correction[2], total, correction[3], correction[6])
+                point = correction[2]
+            nodes.append(value)
+            points.append(point)
+    # Imported here: scipy.interpolate costs ~0.3 s of start-up and this
+    # fallback is rare.
+    from scipy.interpolate import BarycentricInterpolator
+
+    # A fixed generator: scipy shuffles the nodes when computing the weights, and
+    # an unseeded shuffle would change the last digits from run to run.
+    interpolate = BarycentricInterpolator(nodes, np.array(points), rng=np.random.default_rng(0))
+    u = interpolate(bound)
+    u = np.asarray(u, dtype=float).reshape(-1)
+    u[index] = bound
+    g, jac, message = safe_evaluate(evaluate, u)
+    counts.rhs += 1
+    counts.jacobian += 1
+    residual = linalg.norm(g) if g is not None else math.nan
+    if message or not residual <= INTERPOLATED_RESIDUAL:
+        return _failed(u, total, residual, message or f"interpolated residual {residual:.3g}")
+    return True, total, u, residual, g, jac, ""
+
+
+def _least_squares_on_edge(
+    evaluate: Evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+) -> Correction:
+    """Gauss-Newton on G = 0 with u[index] = edge, minimum-norm least-squares steps (dense)."""
+    u = np.array(guess, dtype=float)
+    u[index] = edge
+    free = np.ones(u.shape[0], dtype=bool)
+    free[index] = False
+    residual = math.nan
+    for iteration in range(1, 2 * MAX_CORRECTOR_ITERATIONS + 1):
+        g, jac, message = safe_evaluate(evaluate, u)
+        counts.rhs += 1
+        counts.jacobian += 1
+        if message or linalg.is_sparse(jac):
+            return _failed(u, iteration, math.nan, message or "sparse Jacobian")
+        residual = linalg.norm(g)
+        step = np.linalg.lstsq(np.asarray(jac)[:, free], -g, rcond=None)[0]
+        counts.factorizations += 1
+        u[free] += step
+        if _converged(residual, linalg.norm(step), 1.0 + linalg.norm(u)):
+            g, jac, message = safe_evaluate(evaluate, u)
+            if message:
+                return _failed(u, iteration, math.nan, message)
+            return True, iteration, u, linalg.norm(g), g, jac, ""
+    return _failed(u, iteration, residual, "least-squares Newton did not converge on the edge")
+
+
+def unit_tangent(jac: Any, previous: Array, sparse: bool) -> Array:
+    """Unit tangent at a point with Jacobian ``jac`` (N, N + 1), oriented like ``previous``.
+
+    Solves [G_u; previous^T] z = e_{N+1} and normalizes z, as
+    :func:`branchline.numerics.linalg.tangent`, with a fast path for dense Jacobians
+    (no checks but a finite, non-zero z). Since previous . z = 1 > 0 the
+    orientation is kept through turning points.
+
+    Raises
+    ------
+    branchline.numerics.linalg.SingularMatrixError
+        When the bordered matrix is singular (a branch point, say).
+    """
+    if sparse or type(jac) is not np.ndarray:
+        return linalg.tangent(jac, previous)
+    size = previous.shape[0]
+    square = np.empty((size, size))
+    square[:-1] = jac
+    square[-1] = previous
+    rhs = np.zeros(size)
+    rhs[-1] = 1.0
+    z = linalg.solve_unchecked(square, rhs)
+    length = math.sqrt(z.dot(z))
+    if not 0.0 < length < math.inf:
+        raise linalg.SingularMatrixError("the tangent is not finite")
+    return z / length

@@ -1,0 +1,579 @@
+"""The continuation engine: pseudo-arclength following of one solution curve.
+
+Every curve branchline follows is a curve of solutions of G(u) = 0 with
+G: R^(N+1) -> R^N. The engine follows it with Keller's pseudo-arclength
+method (Keller, "Numerical solution of bifurcation and nonlinear eigenvalue
+problems", 1977; Allgower & Georg, Introduction to Numerical Continuation
+Methods, chapter 2): a tangent predictor u + h t, then Newton's method on the
+bordered system
+
+    G(u) = 0,   t . (u - u_predicted) = 0,
+
+whose Jacobian is [G_u; t^T], then the tangent at the new point from
+[G_u(u_new); t_old^T] z = e_{N+1}, t_new = z / |z|. Since t_old . z = 1 > 0
+the orientation is kept through turning points.
+
+The pieces: :mod:`branchline.continuation.correctors` (full Newton and chord correctors
+on the bordered system, the tangent), :mod:`branchline.continuation.step_control` (step
+lengths, the tangent-angle and test-function rules, the interval edge, closing
+an isola); this module holds the problem protocol, the :class:`Curve` record
+and the loop that ties them together.
+
+The problem protocol
+--------------------
+A *problem* is any object with these members (the equilibrium branch of
+:mod:`branchline.problems.equilibrium_branch` is one; fold and Hopf curves, cycles are others):
+
+``residual(u) -> ndarray (N,)``
+    G(u). May return non-finite values; the engine treats them as a failed
+    corrector step and shrinks the step.
+``jacobian(u) -> ndarray (N, N + 1) or scipy.sparse matrix``
+    dG/du. Sparse Jacobians switch the engine to sparse LU (SuperLU).
+``observe(u, tangent, jacobian) -> (payload, test_values)``
+    Called once at every accepted point with the converged point, its unit
+    tangent (in the direction of travel) and the Jacobian there. ``payload``
+    is anything to keep per point (e.g. eigenvalues); ``test_values`` is a
+    1-D float array of test functions whose sign changes mark events. When the
+    payload cannot be computed (eigenvalues that do not converge, say) it raises
+    :class:`ObservationFailed` with the reason: the curve then ends there with
+    status ``failed``, keeping the points before it.
+
+Optional members:
+
+``evaluate(u) -> (G, G_u)``
+    Both at once, when that is cheaper (shared subexpressions).
+``describe(u) -> str``
+    A short text naming the point for messages ("at D=0.3, S=1.2").
+
+Rules a problem must follow: ``u``'s last component is the curve's parameter
+(the one the ``bounds`` apply to; ``limits`` may bound any other component); the
+functions must not modify ``u``, print or write files; for numerical trouble they
+return NaN rather than raise (ArithmeticError and ValueError are caught anyway and
+count as a failed step).
+The engine runs under ``np.errstate(all="ignore")``.
+
+How a curve ends
+----------------
+``done``: it left the parameter bounds, or a component left its ``limits``, and
+its last point lies exactly on that edge or limit. ``closed``: it passed by the
+start point again with the same orientation (an isola); the start point is
+appended as the last point. ``max_points``: ``settings.max_points`` reached. ``failed``: the corrector failed at the
+smallest step, the edge point could not be found, or ``observe`` raised
+:class:`ObservationFailed`; the message says where and why.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any, Protocol
+
+import numpy as np
+
+from branchline.continuation import correctors, step_control
+from branchline.continuation.correctors import (  # noqa: F401  (re-exported: tuning values of the engine)
+    CHORD_CONTRACTION,
+    COUNT_KEYS,
+    DIVERGENCE_RATIO,
+    MAX_CHORD_ITERATIONS,
+    MAX_CORRECTOR_ITERATIONS,
+    RESIDUAL_TOL,
+    STAGNATION_RTOL,
+    UPDATE_RTOL,
+)
+from branchline.continuation.step_control import (  # noqa: F401  (re-exported; TEST_CHANGE_LIMIT also used)
+    EASY_ITERATIONS,
+    GROW_FACTOR,
+    LIMIT_SLACK,
+    LOOP_DISTANCE_FRACTION,
+    MAX_TANGENT_ANGLE,
+    SHRINK_FACTOR,
+    TEST_CHANGE_LIMIT,
+    TEST_SCALE_FLOOR,
+    TEST_STEP_FLOOR,
+    Limit,
+)
+from branchline.numerics import linalg
+
+if TYPE_CHECKING:
+    from branchline.scan.loader import StepSettings
+
+Array = np.ndarray
+
+# The progress callback is called every this many accepted points.
+PROGRESS_INTERVAL = 50
+
+STATUS_DONE = "done"
+STATUS_MAX_POINTS = "max_points"
+STATUS_CLOSED = "closed"
+STATUS_FAILED = "failed"
+
+
+class ObservationFailed(ArithmeticError):
+    """Raised by a problem's ``observe``: this point's payload cannot be computed.
+
+    The engine ends the curve with status ``failed`` and a message naming the
+    point and this exception's text (the reason); the points before it are kept.
+    """
+
+
+class CurveProblem(Protocol):
+    """The protocol a problem hands to :func:`follow_curve` (see the module docstring)."""
+
+    def residual(self, u: Array) -> Array:
+        """G(u), shape (N,); NaN rather than an exception on numerical trouble."""
+        ...
+
+    def jacobian(self, u: Array) -> Any:
+        """G_u(u), shape (N, N + 1): ndarray or scipy.sparse matrix."""
+        ...
+
+    def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Any, Array]:
+        """(payload, test values (K,)) at an accepted point; see the module docstring."""
+        ...
+
+
+@dataclass(frozen=True)
+class StepControl:
+    """Step lengths of one curve (pseudo-arclength units).
+
+    Mirrors :class:`branchline.scan.loader.StepSettings`; any object with the
+    attributes ``initial``, ``smallest``, ``largest``, ``max_points`` works.
+    """
+
+    initial: float = 0.01
+    smallest: float = 1e-8
+    largest: float = 0.05
+    max_points: int = 2000
+
+
+@dataclass(frozen=True)
+class Curve:
+    """A followed curve, rows in the order of travel (the start point first).
+
+    Attributes
+    ----------
+    points : ndarray (k, N + 1)
+        Converged points u (the parameter last).
+    tangents : ndarray (k, N + 1)
+        Unit tangents in the direction of travel.
+    arclength : ndarray (k,)
+        Distance travelled from the start (sum of chord lengths), increasing.
+    newton_iterations : ndarray (k,) int
+        Corrector iterations of each point (0 for the start point).
+    residual_norms : ndarray (k,)
+        |G(u)| at each point.
+    test_values : ndarray (k, T)
+    payloads : ndarray (k, ...) or tuple
+        What ``observe`` returned per point, stacked when possible.
+    status : str
+        ``done`` (left the bounds, last point on the edge), ``max_points``,
+        ``closed`` (isola), ``failed``.
+    message : str
+        How it ended; on failure where (parameter, state) and why.
+    counts : dict[str, int]
+        ``rhs_evaluations``, ``jacobian_evaluations``, ``factorizations``,
+        ``rejected_steps``, ``newton_iterations`` (total).
+    """
+
+    points: Array
+    tangents: Array
+    arclength: Array
+    newton_iterations: Array
+    residual_norms: Array
+    test_values: Array
+    payloads: Any
+    status: str
+    message: str
+    counts: dict[str, int] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return self.points.shape[0]
+
+
+def failed_curve(u: Array, message: str, counts: dict[str, int] | None = None) -> Curve:
+    """A curve with no points and status ``failed`` (it could not start at ``u``)."""
+    size = u.shape[0]
+    return Curve(
+        points=np.empty((0, size)),
+        tangents=np.empty((0, size)),
+        arclength=np.empty(0),
+        newton_iterations=np.empty(0, dtype=int),
+        residual_norms=np.empty(0),
+        test_values=np.empty((0, 0)),
+        payloads=(),
+        status=STATUS_FAILED,
+        message=message,
+        counts={} if counts is None else counts,
+    )
+
+
+def describe_point(problem: CurveProblem, u: Array) -> str:
+    """Text naming a point of a curve, from ``problem.describe`` or generic."""
+    describe = getattr(problem, "describe", None)
+    if describe is not None:
+        return describe(u)
+    head = ", ".join(f"{value:.6g}" for value in u[:-1][:6])
+    more = ", ..." if u.shape[0] > 7 else ""
+    return f"at parameter {u[-1]:.10g}, state ({head}{more})"
+
+
+def follow_curve(
+    problem: CurveProblem,
+    u0: Array,
+    tangent0: Array,
+    settings: StepControl | StepSettings,
+    bounds: tuple[float, float] = (-math.inf, math.inf),
+    *,
+    newton: str = "full",
+    progress: Callable[[int], None] | None = None,
+    start_tangent_exact: bool = False,
+    limits: Mapping[int, tuple[float, float]] | Sequence[Limit] = (),
+) -> Curve:
+    """Follow the solution curve of ``problem`` from ``u0`` along ``tangent0``.
+
+    Parameters
+    ----------
+    problem : CurveProblem
+        See the module docstring for the protocol.
+    u0 : ndarray (N + 1,)
+        A point on the curve (a converged solution; it is recorded as is).
+    tangent0 : ndarray (N + 1,)
+        Direction of travel. Unless ``start_tangent_exact``, the tangent at
+        ``u0`` is recomputed from the Jacobian and oriented like ``tangent0``.
+    settings : StepControl or branchline.scan.loader.StepSettings
+        ``initial``, ``smallest``, ``largest`` step (pseudo-arclength units)
+        and ``max_points`` (including the start point).
+    bounds : (lo, hi)
+        Window for the parameter u[-1]; the curve stops on its edge.
+    newton : {"full", "chord"}
+        Corrector: full Newton (Jacobian at every iterate) or the chord method
+        (bordered matrix factorized once per step). Full Newton needs fewer
+        iterations and is faster for small dense models (see
+        tests/benchmarks/bench_trace.py); the chord method saves
+        factorizations for large sparse ones.
+    progress : callable(int), optional
+        Called with the number of accepted points every ``PROGRESS_INTERVAL``
+        points and at the end.
+    start_tangent_exact : bool
+        Use ``tangent0`` itself as the start tangent (branch switching at a
+        branch point, where the bordered system is singular).
+    limits : mapping {index: (lo, hi)} or sequence of Limit, optional
+        Windows for other components of u (states): the curve stops when one
+        leaves its window, its last point exactly on the limit (G = 0 solved
+        with that component fixed there). A :class:`Limit` carries the name
+        used in messages; a mapping's entries are named ``u[index]``. With no
+        limits the engine's loop does no extra work.
+
+    Returns
+    -------
+    Curve
+        Never raises for numerical trouble; see ``status`` and ``message``.
+
+    Examples
+    --------
+    The unit circle x^2 + p^2 = 1 is followed once around and closes:
+
+    >>> import numpy as np
+    >>> class Circle:
+    ...     def residual(self, u): return np.array([u[0] ** 2 + u[1] ** 2 - 1.0])
+    ...     def jacobian(self, u): return np.array([[2 * u[0], 2 * u[1]]])
+    ...     def observe(self, u, t, jac): return None, np.array([t[-1]])
+    >>> curve = follow_curve(Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepControl())
+    >>> curve.status, round(float(curve.arclength[-1]), 2)
+    ('closed', 6.28)
+    """
+    if newton not in ("full", "chord"):
+        raise ValueError(f"newton must be 'full' or 'chord', not {newton!r}")
+    with np.errstate(all="ignore"):
+        return _follow(
+            problem,
+            np.array(u0, dtype=float),
+            np.array(tangent0, dtype=float),
+            settings,
+            bounds,
+            newton,
+            progress,
+            start_tangent_exact,
+            _as_limits(limits, np.shape(u0)[0]),
+        )
+
+
+def _as_limits(limits, size: int) -> tuple[Limit, ...]:
+    """``limits`` as a tuple of Limit with indices in 0 .. size - 2 (states only)."""
+    if isinstance(limits, Mapping):
+        limits = [
+            Limit(int(index), float(lo), float(hi), f"u[{int(index)}]")
+            for index, (lo, hi) in limits.items()
+        ]
+    normalized = []
+    for limit in limits:
+        index = limit.index % size
+        if index == size - 1:
+            raise ValueError("limits apply to states; bound the parameter with bounds")
+        if not limit.lo < limit.hi:
+            raise ValueError(f"limit {limit.name} needs lo < hi, got [{limit.lo}, {limit.hi}]")
+        normalized.append(Limit(index, float(limit.lo), float(limit.hi), limit.name))
+    return tuple(normalized)
+
+
+def _follow(
+    problem, u, t, settings, bounds, newton, progress, start_tangent_exact, limits
+) -> Curve:
+    """The engine loop: predict, correct, accept or shrink, record, test (under errstate)."""
+    lo, hi = float(bounds[0]), float(bounds[1])
+    smallest, largest = float(settings.smallest), float(settings.largest)
+    max_points = int(settings.max_points)
+    step = step_control.first_step(float(settings.initial), smallest, largest)
+    tests_floor = step_control.tests_step_floor(smallest, largest)
+    evaluate = correctors.evaluator(problem)
+    residual_fn, jacobian_fn, observe = problem.residual, problem.jacobian, problem.observe
+    counts = correctors.EvaluationCounts()
+
+    start = _start(problem, evaluate, u, t, start_tangent_exact, counts)
+    if isinstance(start, str):
+        return failed_curve(u, start, counts.as_dict())
+    g0, jac, t = start
+    sparse = linalg.is_sparse(jac)
+    try:
+        payload, tests = observe(u, t, jac)
+    except ObservationFailed as exc:
+        return failed_curve(
+            u, f"cannot start {describe_point(problem, u)}: {exc}", counts.as_dict()
+        )
+    tests = np.asarray(tests, dtype=float)
+    # One tuple per accepted point, in the order of Curve's columns (one append per point).
+    rows = [(u, t, 0.0, 0, linalg.norm(g0), tests, payload)]
+    tracked = step_control.track_tests(tests.tolist())
+    u_start, t_start = u, t
+    arclength = 0.0
+    status, message = "", ""
+    if not lo <= u[-1] <= hi:
+        status = STATUS_FAILED
+        message = (
+            f"the start point {describe_point(problem, u)} lies outside the parameter "
+            f"interval [{lo:.10g}, {hi:.10g}]"
+        )
+    outside = [limit for limit in limits if step_control.beyond_limit(u[limit.index], limit)]
+    if outside and not status:
+        limit = outside[0]
+        status = STATUS_FAILED
+        message = (
+            f"the start point {describe_point(problem, u)} lies outside the limit "
+            f"{limit.name} in [{limit.lo:.10g}, {limit.hi:.10g}]"
+        )
+
+    while not status:
+        if len(rows) >= max_points:
+            status = STATUS_MAX_POINTS
+            message = (
+                f"stopped after {max_points} points (steps.max_points) {describe_point(problem, u)}"
+            )
+            break
+        # Predict and correct.
+        predicted = u + step * t
+        if newton == "chord":
+            correction = correctors.correct_chord(
+                evaluate, residual_fn, jacobian_fn, predicted, t, counts
+            )
+        else:
+            correction = correctors.correct_newton(evaluate, predicted, t, None, counts)
+        converged, iterations, u_new, residual, _, jac_new, failure = correction
+        counts.newton += iterations
+        if converged:
+            t_new, failure = _tangent_at(
+                jac_new,
+                t,
+                sparse,
+                counts,
+                "the tangent is undefined at the corrected point (singular bordered matrix)",
+            )
+        # Accept or shrink.
+        if failure:
+            if step <= smallest:
+                status = STATUS_FAILED
+                message = (
+                    f"the corrector failed at the smallest step ({smallest:g}) after the "
+                    f"point {describe_point(problem, u)}: {failure}"
+                )
+                break
+            counts.rejected += 1
+            step = step_control.shrunk(step, smallest)
+            continue
+        if step_control.tangent_turns_too_far(t_new, t, step, smallest):
+            counts.rejected += 1
+            step = step_control.shrunk(step, smallest)
+            continue
+        edge = step_control.crossed_edge(u_new[-1], lo, hi)
+        if limits:
+            hit = step_control.first_limit(u, u_new, limits)
+            if hit is not None and (
+                edge is None or hit[2] <= step_control.edge_fraction(u, u_new, edge)
+            ):
+                limit, bound, _ = hit
+                status, message = _finish_on_edge(
+                    problem,
+                    evaluate,
+                    rows,
+                    u,
+                    u_new,
+                    t,
+                    bound,
+                    arclength,
+                    counts,
+                    sparse,
+                    limit,
+                )
+                break
+        if edge is not None:
+            status, message = _finish_on_edge(
+                problem, evaluate, rows, u, u_new, t, edge, arclength, counts, sparse
+            )
+            break
+        # Test events.
+        try:
+            payload, tests = observe(u_new, t_new, jac_new)
+        except ObservationFailed as exc:
+            status = STATUS_FAILED
+            message = f"stopped {describe_point(problem, u_new)}: {exc}"
+            break
+        tests = np.asarray(tests, dtype=float)
+        chord = u_new - u
+        chord_length = math.sqrt(chord.dot(chord))  # .dot: see correctors
+        values = tests.tolist()
+        # The limit is read from this module at run time, so that it can be tuned (or switched
+        # off, as tests/test_continuation.py does) in one place: continuation.TEST_CHANGE_LIMIT.
+        if step_control.tests_unresolved(
+            tracked, values, chord_length, step, tests_floor, TEST_CHANGE_LIMIT
+        ):
+            counts.rejected += 1
+            step = step_control.shrunk(step, tests_floor)
+            continue
+        if step_control.closes_loop(u_start, t_start, u, t, chord, chord_length, len(rows)):
+            arclength += linalg.norm(u_start - u)
+            rows.append(_start_again(rows[0], arclength))
+            status = STATUS_CLOSED
+            message = "the branch closed on itself (an isola) back at its start point"
+            break
+        # Record.
+        tracked = step_control.tracked_after(tracked, values, chord_length)
+        arclength += chord_length
+        u, t = u_new, t_new
+        rows.append((u, t, arclength, iterations, residual, tests, payload))
+        if progress is not None and len(rows) % PROGRESS_INTERVAL == 0:
+            progress(len(rows))
+        step = step_control.grown(step, iterations, largest)
+    if progress is not None:
+        progress(len(rows))
+    return _curve_from_rows(rows, status, message, counts.as_dict())
+
+
+def _tangent_at(jac, previous, sparse, counts, singular_message):
+    """(unit tangent, "") at a corrected point with Jacobian ``jac``, or (None, why not)."""
+    try:
+        counts.factorizations += 1
+        return correctors.unit_tangent(jac, previous, sparse), ""
+    except linalg.SingularMatrixError:
+        return None, singular_message
+
+
+def _start(problem, evaluate, u, t, start_tangent_exact, counts):
+    """(G, G_u, unit tangent) at the start point, or why the curve cannot start there."""
+    g0, jac, reason = correctors.safe_evaluate(evaluate, u)
+    counts.rhs += 1
+    counts.jacobian += 1
+    if reason:
+        return f"cannot start {describe_point(problem, u)}: {reason}"
+    t = t / linalg.norm(t)
+    if not start_tangent_exact:
+        t, reason = _tangent_at(
+            jac,
+            t,
+            linalg.is_sparse(jac),
+            counts,
+            "the tangent is undefined there (singular bordered Jacobian; a branch point?)",
+        )
+        if reason:
+            return f"cannot start {describe_point(problem, u)}: {reason}"
+    return g0, jac, t
+
+
+def _finish_on_edge(
+    problem, evaluate, rows, u, u_out, t, edge, arclength, counts, sparse, limit=None
+) -> tuple[str, str]:
+    """Append the point exactly on the interval edge to ``rows``; returns (status, message).
+
+    ``u`` is the last accepted point, ``u_out`` the corrected point beyond ``edge``.
+    With a ``limit`` (a :class:`Limit`), ``edge`` is its bound and the point is put
+    exactly on that limit of the state instead.
+    """
+    if limit is None:
+        index, where = -1, f"the edge {edge:.10g} of the parameter interval"
+    else:
+        index, where = limit.index, f"the limit {limit.name} = {edge:.10g} of trace limits"
+    reached = STATUS_DONE, f"reached {where}"
+    if u[index] == edge:
+        return reached
+    if limit is None:
+        correction = correctors.correct_on_edge(
+            evaluate, step_control.edge_guess(u, u_out, edge), edge, counts
+        )
+    else:
+        correction = correctors.correct_on_limit(evaluate, u, u_out, edge, index, counts)
+    converged, iterations, u_edge, _, g_edge, jac_edge, failure = correction
+    counts.newton += iterations
+    if converged:
+        t_edge, singular = _tangent_at(jac_edge, t, sparse, counts, "undefined")
+        if singular:
+            # The edge point is a solution but a singular one (a branch point or a
+            # line of equilibria lies on the edge): keep the last tangent for its row.
+            t_edge = t
+            reached = (
+                STATUS_DONE,
+                reached[1] + " (a singular point: the tangent there is undefined)",
+            )
+    if failure:
+        return STATUS_FAILED, (
+            f"could not put the last point on {where} (after the point "
+            f"{describe_point(problem, u)}): {failure}"
+        )
+    try:
+        payload, tests = problem.observe(u_edge, t_edge, jac_edge)
+    except ObservationFailed as exc:
+        return STATUS_FAILED, f"stopped {describe_point(problem, u_edge)}: {exc}"
+    arclength += linalg.norm(u_edge - u)
+    residual = linalg.norm(g_edge)
+    rows.append(
+        (u_edge, t_edge, arclength, iterations, residual, np.asarray(tests, float), payload)
+    )
+    return reached
+
+
+def _start_again(first_row: tuple, arclength: float) -> tuple:
+    """The start point's row again, at ``arclength`` and with no iterations (a closed curve)."""
+    u, t, _, _, residual, tests, payload = first_row
+    return u, t, arclength, 0, residual, tests, payload
+
+
+def _curve_from_rows(rows: list[tuple], status: str, message: str, counts: dict) -> Curve:
+    points, tangents, arcs, iterations, residuals, tests, payloads = zip(*rows, strict=True)
+    return Curve(
+        points=np.array(points),
+        tangents=np.array(tangents),
+        arclength=np.array(arcs),
+        newton_iterations=np.array(iterations, dtype=int),
+        residual_norms=np.array(residuals),
+        test_values=np.array(tests),
+        payloads=_stack(list(payloads)),
+        status=status,
+        message=message,
+        counts=counts,
+    )
+
+
+def _stack(payloads: list) -> Any:
+    try:
+        return np.array(payloads)
+    except (ValueError, TypeError):
+        return tuple(payloads)

@@ -1,0 +1,244 @@
+"""Defining systems of fold, Hopf and branch points, and Newton's method on them.
+
+Each builder returns a square system z -> (residual, Jacobian) whose regular
+solution is the event itself, so that Newton refines it to rounding level:
+
+- fold: the minimally augmented system f = 0, g = 0 with g from a bordered
+  system (Govaerts, Numerical Methods for Bifurcations of Dynamical Equilibria,
+  SIAM 2000, chapter 4; Kuznetsov, Elements of Applied Bifurcation Theory,
+  section 10.2.1; section numbers from memory);
+- Hopf: the standard extended system f = 0, A q = i omega q, <c, q> = 1
+  (Kuznetsov, section 10.2.2; Griewank & Reddien 1983);
+- branch point: the extended system f + mu psi = 0, [f_x, f_p]^T psi = 0,
+  psi^T psi = 1 (Moore, "The numerical treatment of non-trivial bifurcation
+  points", Numer. Funct. Anal. Optim. 2 (1980); Allgower & Georg, Introduction
+  to Numerical Continuation Methods, section 8.1);
+- a point on the branch: f = 0 and direction . (u - guess) = 0, which puts a
+  guess between two computed rows back on the branch.
+
+Unknowns start with u = (x, p): the states, then the varied parameter (index
+``k`` of the full parameter vector). Jacobians are dense, or scipy.sparse where
+the model's state Jacobian is (Moore's system is dense only).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
+
+import numpy as np
+import scipy.sparse as sps
+
+from branchline.events.normal_forms import (
+    dense,
+    directional_jacobian,
+    parameter_second_derivative,
+    solve,
+    state_jacobian,
+)
+from branchline.numerics.linalg import bordered_square
+
+if TYPE_CHECKING:
+    from branchline.model.build import Model
+
+Array = np.ndarray
+System = Callable[[Array], tuple[Array, object]]
+
+# Newton on the defining systems: stop when the update is this small relative
+# to the unknowns (one more iteration then only polishes the last bits).
+NEWTON_STEP_RTOL = 1e-13
+NEWTON_MAX_ITERATIONS = 30
+
+
+@dataclass(frozen=True)
+class NewtonOutcome:
+    """Result of :func:`newton`: the last iterate, the residual norm per iteration, why not."""
+
+    converged: bool
+    solution: Array
+    residual_norms: list[float] = field(default_factory=list)
+    message: str = ""
+
+
+def newton(system: System, z0: Array, scale: float = 1.0) -> NewtonOutcome:
+    """Newton's method on a square system z -> (residual, Jacobian).
+
+    Converged when the update is below ``NEWTON_STEP_RTOL`` relative to |z|
+    (the residual is then at rounding level); one more evaluation records the
+    final residual norm.
+    """
+    z = np.array(z0, dtype=float)
+    history: list[float] = []
+    for _ in range(NEWTON_MAX_ITERATIONS):
+        try:
+            residual, jacobian = system(z)
+        except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+            return NewtonOutcome(False, z, history, f"evaluation failed: {exc}")
+        size = float(np.linalg.norm(residual))
+        history.append(size)
+        if not np.isfinite(size):
+            return NewtonOutcome(False, z, history, "the residual is not finite")
+        if size == 0.0:
+            return NewtonOutcome(True, z, history)
+        try:
+            step = solve(jacobian, -residual)
+        except np.linalg.LinAlgError:
+            return NewtonOutcome(False, z, history, "singular Jacobian of the defining system")
+        if not np.all(np.isfinite(step)):
+            return NewtonOutcome(False, z, history, "the Newton update is not finite")
+        z = z + step
+        if float(np.linalg.norm(step)) <= NEWTON_STEP_RTOL * (scale + float(np.linalg.norm(z))):
+            residual, _ = system(z)
+            history.append(float(np.linalg.norm(residual)))
+            return NewtonOutcome(True, z, history)
+    return NewtonOutcome(False, z, history, f"no convergence in {NEWTON_MAX_ITERATIONS} iterations")
+
+
+def with_value(params: Array, k: int, value: float) -> Array:
+    """A copy of the parameter vector with entry ``k`` set to ``value``."""
+    full = np.array(params, dtype=float)
+    full[k] = value
+    return full
+
+
+def on_branch_system(model: Model, params: Array, k: int, guess: Array, direction: Array) -> System:
+    """f(u) = 0 and direction . (u - guess) = 0: unknowns u = (x, p), n + 1 equations."""
+
+    def system(u: Array) -> tuple[Array, object]:
+        full = with_value(params, k, u[-1])
+        x = u[:-1]
+        residual = np.append(model.rhs(x, full), direction @ (u - guess))
+        a_matrix = state_jacobian(model, x, full)
+        fp = model.parameter_jacobian(x, full)[:, k]
+        return residual, bordered_square(a_matrix, fp, direction)
+
+    return system
+
+
+def fold_system(model: Model, params: Array, k: int, border_b: Array, border_c: Array) -> System:
+    """Minimally augmented fold system: unknowns u = (x, p), equations (f, g)."""
+    n = border_b.shape[0]
+
+    def system(u: Array) -> tuple[Array, object]:
+        x, full = u[:-1], with_value(params, k, u[-1])
+        a_matrix = state_jacobian(model, x, full)
+        fp = model.parameter_jacobian(x, full)[:, k]
+        bordered = bordered_square(a_matrix, border_b, border_c)
+        rhs = np.zeros(n + 1)
+        rhs[n] = 1.0
+        vg = solve(bordered, rhs)
+        wg = solve(bordered.T, rhs)
+        v, g, w = vg[:n], vg[n], wg[:n]
+        g_x = -(directional_jacobian(model, x, full, v).T @ w)
+        g_p = -float(w @ model.jacobian_parameter_derivative(x, full, v)[:, k])
+        residual = np.append(model.rhs(x, full), g)
+        return residual, bordered_square(a_matrix, fp, np.append(g_x, g_p))
+
+    return system
+
+
+def hopf_system(model: Model, params: Array, k: int, c: Array) -> System:
+    """Extended Hopf system: unknowns (x, p, omega, Re q, Im q), 3n + 2 equations."""
+    n = c.shape[0]
+    eye = np.eye(n)
+
+    def system(z: Array) -> tuple[Array, object]:
+        x, p, omega = z[:n], z[n], z[n + 1]
+        qr, qi = z[n + 2 : 2 * n + 2], z[2 * n + 2 :]
+        q = qr + 1j * qi
+        full = with_value(params, k, p)
+        a_matrix = state_jacobian(model, x, full)
+        fp = model.parameter_jacobian(x, full)[:, k]
+        eigen_residual = a_matrix @ q - 1j * omega * q
+        normal = np.vdot(c, q) - 1.0
+        residual = np.concatenate(
+            [
+                model.rhs(x, full),
+                eigen_residual.real,
+                eigen_residual.imag,
+                [normal.real, normal.imag],
+            ]
+        )
+        bq = directional_jacobian(model, x, full, q)
+        apq = model.jacobian_parameter_derivative(x, full, q)[:, k]
+        if sps.issparse(a_matrix):
+            return residual, _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c)
+        size = 3 * n + 2
+        jac = np.zeros((size, size))
+        jac[:n, :n], jac[:n, n] = a_matrix, fp
+        rows_r, rows_i = slice(n, 2 * n), slice(2 * n, 3 * n)
+        cols_r, cols_i = slice(n + 2, 2 * n + 2), slice(2 * n + 2, 3 * n + 2)
+        jac[rows_r, :n], jac[rows_i, :n] = bq.real, bq.imag
+        jac[rows_r, n], jac[rows_i, n] = apq.real, apq.imag
+        jac[rows_r, n + 1], jac[rows_i, n + 1] = qi, -qr
+        jac[rows_r, cols_r], jac[rows_r, cols_i] = a_matrix, omega * eye
+        jac[rows_i, cols_r], jac[rows_i, cols_i] = -omega * eye, a_matrix
+        # <c, q> = (cr - i ci) . (qr + i qi)
+        jac[3 * n, cols_r], jac[3 * n, cols_i] = c.real, c.imag
+        jac[3 * n + 1, cols_r], jac[3 * n + 1, cols_i] = -c.imag, c.real
+        return residual, jac
+
+    return system
+
+
+def _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c):
+    """The extended Hopf system's Jacobian as one sparse matrix (large models)."""
+    n = a_matrix.shape[0]
+    eye = sps.identity(n, format="csc")
+
+    def column(v):
+        return sps.csc_matrix(np.reshape(v, (n, 1)))
+
+    def row(v):
+        return sps.csr_matrix(np.reshape(v, (1, n)))
+
+    bq = sps.csc_matrix(bq)
+    return sps.bmat(
+        [
+            [a_matrix, column(fp), None, None, None],
+            [bq.real, column(apq.real), column(q.imag), a_matrix, omega * eye],
+            [bq.imag, column(apq.imag), column(-q.real), -omega * eye, a_matrix],
+            [
+                sps.csr_matrix((1, n)),
+                sps.csr_matrix((1, 1)),
+                sps.csr_matrix((1, 1)),
+                row(c.real),
+                row(c.imag),
+            ],
+            [None, None, None, row(-c.imag), row(c.real)],
+        ],
+        format="csc",
+    )
+
+
+def branch_point_system(model: Model, params: Array, k: int) -> System:
+    """Moore's extended system: unknowns (x, p, psi, mu), 2n + 2 equations."""
+
+    def system(z: Array) -> tuple[Array, Array]:
+        n = (z.shape[0] - 2) // 2
+        x, p, psi, mu = z[:n], z[n], z[n + 1 : 2 * n + 1], z[2 * n + 1]
+        full = with_value(params, k, p)
+        a_matrix = dense(model.jacobian(x, full))
+        fp = model.parameter_jacobian(x, full)[:, k]
+        g_u = np.column_stack([a_matrix, fp])
+        residual = np.concatenate(
+            [model.rhs(x, full) + mu * psi, g_u.T @ psi, [0.5 * (psi @ psi - 1.0)]]
+        )
+        hessian = np.empty((n + 1, n + 1))
+        for j, unit in enumerate(np.eye(n)):
+            hessian[j, :n] = psi @ directional_jacobian(model, x, full, unit)
+            hessian[j, n] = psi @ model.jacobian_parameter_derivative(x, full, unit)[:, k]
+        hessian[n, :n] = hessian[:n, n]
+        hessian[n, n] = psi @ parameter_second_derivative(model, x, full, k)
+        size = 2 * n + 2
+        jac = np.zeros((size, size))
+        jac[:n, : n + 1] = g_u
+        jac[:n, n + 1 : 2 * n + 1] = mu * np.eye(n)
+        jac[:n, 2 * n + 1] = psi
+        jac[n : 2 * n + 1, : n + 1] = hessian
+        jac[n : 2 * n + 1, n + 1 : 2 * n + 1] = g_u.T
+        jac[2 * n + 1, n + 1 : 2 * n + 1] = psi
+        return residual, jac
+
+    return system

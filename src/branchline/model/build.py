@@ -1,0 +1,386 @@
+"""Compiled models: f(x, p), its exact derivatives, and Python models.
+
+Internally a parameter set is a 1-D float array ``p`` ordered as
+``Model.parameters``; Python models' own functions receive a dict.
+
+Expression models are parsed by the whitelisting parser of
+:mod:`branchline.scan.expressions`, differentiated exactly by sympy and compiled
+into plain Python functions by :mod:`branchline.model.codegen`; the hot-path
+callables (``rhs``, ``jacobian``, ``parameter_jacobian``, ``derivatives``)
+cost about a microsecond per call for small models. The normal-form
+derivatives (``second``, ``third``, ``jacobian_parameter_derivative``) are
+compiled on first use.
+
+Python models (``[model.python]``) import user code through
+:mod:`branchline.model.python`: **importing the named module runs that
+module's code, by design** (it is the user's own model). Their missing
+derivatives come from finite differences (:mod:`branchline.numerics.differences`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse
+import sympy as sp
+
+from branchline.errors import ExpressionError, ScanError
+from branchline.model.codegen import (
+    Lazy,
+    SymbolicDerivatives,
+    observable_function,
+    real_function,
+    split_function,
+)
+from branchline.model.python import (
+    DENSE_STATE_LIMIT,
+    probe,
+    python_jacobian,
+    python_observables,
+    python_rhs,
+    resolve_callable,
+)
+from branchline.numerics.differences import central_jacobian, directional_derivative
+from branchline.scan.expressions import parse_expression
+from branchline.scan.loader import ExpressionModelSpec, PythonModelSpec
+
+Array = np.ndarray
+
+# Relative disagreement between a user Jacobian and central differences above
+# which check_jacobian reports a mismatch. Central differences are accurate to
+# about eps**(2/3) ~ 4e-11 on well-scaled models; 1e-4 leaves room for badly
+# scaled ones while any real error in a formula is of order one.
+JACOBIAN_CHECK_TOLERANCE = 1e-4
+# Entries smaller than this fraction of their row's largest entry are compared
+# against that floor instead of themselves: differences cannot resolve them.
+JACOBIAN_CHECK_FLOOR = 1e-4
+# Random directions probed by check_jacobian for models too large for a full
+# column-by-column comparison (each costs two rhs calls).
+JACOBIAN_CHECK_DIRECTIONS = 8
+
+
+@dataclass(frozen=True)
+class Model:
+    """A compiled ODE model x' = f(x, p).
+
+    Attributes
+    ----------
+    states, parameters : tuple of str
+        Names, in the order of the state vector x (n,) and parameter vector p (m,).
+    defaults : ndarray, shape (m,)
+        Default parameter values from the scan file.
+    rhs : callable (x, p) -> ndarray (n,)
+    jacobian : callable (x, p) -> ndarray (n, n) or scipy.sparse matrix
+        df/dx.
+    parameter_jacobian : callable (x, p) -> ndarray (n, m)
+        df/dp, every parameter.
+    second : callable (x, p, v, w) -> ndarray (n,)
+        The bilinear form B(v, w)_i = sum_jk d2f_i/dx_j dx_k v_j w_k; v, w may be complex.
+    third : callable (x, p, u, v, w) -> ndarray (n,)
+        The trilinear form C(u, v, w); arguments may be complex.
+    jacobian_parameter_derivative : callable (x, p, v) -> ndarray (n, m)
+        d/dp_k (df/dx v) for every parameter k; v may be complex.
+    observables : callable (x, p) -> dict[str, float]
+    observable_names : tuple of str
+    sparse : bool
+        True if ``jacobian`` returns scipy.sparse matrices.
+    equations : dict[str, str]
+        Human-readable right-hand sides (for reports); empty for Python models.
+    definitions : dict[str, str]
+    python_source : str or None
+        ``"module:function"`` of a Python model's rhs (its module was imported).
+    exact_derivatives : bool
+        True when derivatives are exact (sympy), False when finite differences.
+    derivatives : callable (x, p) -> (ndarray (n, n), ndarray (n, m)) or None
+        df/dx and df/dp from one compiled call (expression models only).
+    jacobian_source : str or None
+        ``"module:function"`` of a Python model's own Jacobian, if it has one.
+    """
+
+    states: tuple[str, ...]
+    parameters: tuple[str, ...]
+    defaults: Array
+    rhs: Callable[[Array, Array], Array]
+    jacobian: Callable[[Array, Array], object]
+    parameter_jacobian: Callable[[Array, Array], Array]
+    second: Callable[[Array, Array, Array, Array], Array]
+    third: Callable[[Array, Array, Array, Array, Array], Array]
+    jacobian_parameter_derivative: Callable[[Array, Array, Array], Array]
+    observables: Callable[[Array, Array], dict[str, float]]
+    observable_names: tuple[str, ...] = ()
+    sparse: bool = False
+    equations: dict[str, str] | None = None
+    definitions: dict[str, str] | None = None
+    python_source: str | None = None
+    exact_derivatives: bool = True
+    derivatives: Callable[[Array, Array], tuple[Array, Array]] | None = None
+    jacobian_source: str | None = None
+
+    @property
+    def size(self) -> int:
+        """Number of states n."""
+        return len(self.states)
+
+    def parameter_index(self, name: str) -> int:
+        """Position of parameter ``name`` in the parameter vector p."""
+        return self.parameters.index(name)
+
+    def parameter_vector(self, overrides: dict[str, float] | None = None) -> Array:
+        """Defaults with ``overrides`` applied, shape (m,)."""
+        p = np.array(self.defaults, dtype=float)
+        for name, value in (overrides or {}).items():
+            p[self.parameters.index(name)] = float(value)
+        return p
+
+
+@dataclass(frozen=True)
+class JacobianCheck:
+    """Outcome of comparing a model's Jacobian with central differences of its rhs.
+
+    Attributes
+    ----------
+    max_relative_error : float
+        Largest entry-wise relative disagreement (see :func:`check_jacobian`).
+    ok : bool
+        ``max_relative_error <= JACOBIAN_CHECK_TOLERANCE``.
+    message : str
+        One line for a person: what was compared and, on mismatch, the worst entry.
+    """
+
+    max_relative_error: float
+    ok: bool
+    message: str
+
+
+def build_model(spec: ExpressionModelSpec | PythonModelSpec, source: str = "<dict>") -> Model:
+    """Compile an ExpressionModelSpec or PythonModelSpec into a :class:`Model`.
+
+    Parameters
+    ----------
+    spec : ExpressionModelSpec or PythonModelSpec
+    source : str
+        The scan file name, used in error messages.
+
+    Raises
+    ------
+    ScanError
+        An expression the parser refuses, an unknown name, or a Python
+        function that cannot be imported or returns the wrong shape.
+
+    Examples
+    --------
+    >>> spec = ExpressionModelSpec(parameters={"a": 2.0}, equations={"x": "a - x^2"})
+    >>> model = build_model(spec)
+    >>> model.jacobian(np.array([1.5]), model.defaults)
+    array([[-3.]])
+    """
+    if isinstance(spec, PythonModelSpec):
+        return _build_python_model(spec, source)
+    return _build_expression_model(spec, source)
+
+
+def jacobian_dense(model: Model, x: Array, p: Array) -> Array:
+    """df/dx as a dense (n, n) array, whatever the model's Jacobian returns."""
+    matrix = model.jacobian(x, p)
+    if scipy.sparse.issparse(matrix):
+        return matrix.toarray()
+    return np.asarray(matrix, dtype=float)
+
+
+def _defaults(spec: ExpressionModelSpec | PythonModelSpec) -> Array:
+    """The parameters' default values, shape (m,), in the order of the scan file."""
+    return np.array([float(v) for v in spec.parameters.values()], dtype=float)
+
+
+def _no_observables(x: Array, p: Array) -> dict[str, float]:
+    return {}
+
+
+# ---------------------------------------------------------------------------
+# Expression models
+# ---------------------------------------------------------------------------
+
+
+def _build_expression_model(spec: ExpressionModelSpec, source: str) -> Model:
+    states = tuple(spec.equations)
+    parameters = tuple(spec.parameters)
+    x = [sp.Symbol(f"_x{i}", real=True) for i in range(len(states))]
+    p = [sp.Symbol(f"_p{k}", real=True) for k in range(len(parameters))]
+    known: dict[str, sp.Expr] = dict(zip(states, x, strict=True))
+    known.update(zip(parameters, p, strict=True))
+    for name, text in spec.definitions.items():
+        key = f"model.definitions.{name}"
+        if name in known:
+            raise ScanError(source, key, f"'{name}' is already a state, parameter or definition")
+        known[name] = _translate(text, known, key, source)
+    f = [
+        _translate(text, known, f"model.equations.{name}", source)
+        for name, text in spec.equations.items()
+    ]
+    observables = _no_observables
+    if spec.observables:
+        observed = [
+            _translate(text, known, f"model.observables.{name}", source)
+            for name, text in spec.observables.items()
+        ]
+        observables = observable_function(tuple(spec.observables), observed, [x, p])
+    calculus = SymbolicDerivatives(f, x, p)
+    return Model(
+        states=states,
+        parameters=parameters,
+        defaults=_defaults(spec),
+        rhs=real_function(f, [x, p], (len(x),)),
+        jacobian=real_function(calculus.jacobian_entries, [x, p], (len(x), len(x))),
+        parameter_jacobian=real_function(calculus.parameter_entries, [x, p], (len(x), len(p))),
+        derivatives=split_function(
+            calculus.jacobian_entries + calculus.parameter_entries,
+            [x, p],
+            ((len(x), len(x)), (len(x), len(p))),
+        ),
+        second=Lazy(calculus.compile_second),
+        third=Lazy(calculus.compile_third),
+        jacobian_parameter_derivative=Lazy(calculus.compile_parameter_derivative),
+        observables=observables,
+        observable_names=tuple(spec.observables),
+        equations=dict(spec.equations),
+        definitions=dict(spec.definitions),
+        exact_derivatives=True,
+    )
+
+
+def _translate(text: str, known: dict[str, sp.Expr], key: str, source: str) -> sp.Expr:
+    """Parse one expression and replace every name by its state/parameter symbol or definition."""
+    try:
+        expression = parse_expression(text, where=key)
+    except ExpressionError as error:
+        raise ScanError(source, key, str(error)) from None
+    replacements = {}
+    for symbol in expression.free_symbols:
+        if symbol.name not in known:
+            raise ScanError(
+                source,
+                key,
+                f"unknown name '{symbol.name}': not a state, a parameter or an earlier definition",
+            )
+        replacements[symbol] = known[symbol.name]
+    return expression.xreplace(replacements)
+
+
+# ---------------------------------------------------------------------------
+# Python models
+# ---------------------------------------------------------------------------
+
+
+def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
+    n = int(spec.size)
+    states = tuple(spec.states) if spec.states else tuple(f"x{i}" for i in range(n))
+    if len(states) != n:
+        raise ScanError(source, "model.python.states", f"lists {len(states)} names but size is {n}")
+    defaults = _defaults(spec)
+    rhs = python_rhs(spec, source)
+    probe_point = np.ones(n)
+    probe(rhs, probe_point, defaults)
+    jacobian, sparse, derivatives = python_jacobian(spec, rhs, probe_point, defaults, source)
+    observables, names = _no_observables, ()
+    if spec.observables:
+        observables, names = python_observables(spec, probe_point, defaults, source)
+    return Model(
+        states=states,
+        parameters=tuple(spec.parameters),
+        defaults=defaults,
+        rhs=rhs,
+        jacobian=jacobian,
+        parameter_jacobian=derivatives.parameter_jacobian,
+        second=derivatives.second,
+        third=derivatives.third,
+        jacobian_parameter_derivative=derivatives.jacobian_parameter_derivative,
+        observables=observables,
+        observable_names=names,
+        sparse=sparse,
+        equations={},
+        definitions={},
+        python_source=spec.rhs,
+        exact_derivatives=False,
+        jacobian_source=spec.jacobian,
+    )
+
+
+# ---------------------------------------------------------------------------
+# Checking a Jacobian
+# ---------------------------------------------------------------------------
+
+
+def check_jacobian(model: Model, x: Array, p: Array) -> JacobianCheck:
+    """Compare the model's Jacobian at (x, p) with central differences of its rhs.
+
+    For up to ``DENSE_STATE_LIMIT`` states every entry is compared; above, the
+    products with ``JACOBIAN_CHECK_DIRECTIONS`` seeded random directions (a
+    wrong entry shows in almost every random product, at two rhs calls each).
+    The error of an entry is |J - D| / (max(|J|, |D|) + floor), the floor being
+    ``JACOBIAN_CHECK_FLOOR`` times the largest entry of its row.
+
+    Returns
+    -------
+    JacobianCheck
+    """
+    x = np.asarray(x, dtype=float)
+    p = np.asarray(p, dtype=float)
+    n = x.shape[0]
+    if n <= DENSE_STATE_LIMIT:
+        given = jacobian_dense(model, x, p)
+        differences = central_jacobian(lambda z: model.rhs(z, p), x)
+        what = "every entry"
+    else:
+        rng = np.random.default_rng(0)
+        directions = rng.standard_normal((n, JACOBIAN_CHECK_DIRECTIONS))
+        matrix = model.jacobian(x, p)
+        given = np.asarray(matrix @ directions)
+        differences = np.column_stack(
+            [directional_derivative(lambda z: model.rhs(z, p), x, d, 1) for d in directions.T]
+        )
+        what = f"products with {JACOBIAN_CHECK_DIRECTIONS} random directions"
+    return _compare(given, differences, model, what)
+
+
+def _compare(given: Array, differences: Array, model: Model, what: str) -> JacobianCheck:
+    magnitude = np.maximum(np.abs(given), np.abs(differences))
+    floor = JACOBIAN_CHECK_FLOOR * np.max(magnitude, axis=1, keepdims=True) + np.finfo(float).tiny
+    with np.errstate(invalid="ignore"):
+        errors = np.abs(given - differences) / (magnitude + floor)
+    if not np.all(np.isfinite(errors)):
+        return JacobianCheck(
+            float("nan"), False, "the Jacobian or the rhs is not finite at the check point"
+        )
+    worst = float(np.max(errors)) if errors.size else 0.0
+    source = model.jacobian_source or "the compiled Jacobian"
+    if worst <= JACOBIAN_CHECK_TOLERANCE:
+        return JacobianCheck(
+            worst,
+            True,
+            f"{source} agrees with finite differences ({what}; worst relative error {worst:.1e})",
+        )
+    i, j = np.unravel_index(int(np.argmax(errors)), errors.shape)
+    if what == "every entry":
+        place = f"d f[{model.states[i]}] / d {model.states[j]}"
+    else:
+        place = f"row {model.states[i]} of the product with random direction {j + 1}"
+    return JacobianCheck(
+        worst,
+        False,
+        f"{source} disagrees with finite differences of the rhs: {place} is "
+        f"{given[i, j]:.6g} but differences give {differences[i, j]:.6g} "
+        f"(relative error {worst:.1e}); check the Jacobian function",
+    )
+
+
+__all__ = [
+    "DENSE_STATE_LIMIT",
+    "JacobianCheck",
+    "Model",
+    "build_model",
+    "check_jacobian",
+    "jacobian_dense",
+    "resolve_callable",
+]

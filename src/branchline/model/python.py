@@ -1,0 +1,280 @@
+"""Python models (``[model.python]``): importing the user's functions and wrapping them.
+
+**Importing the named module runs that module's code, by design** (it is the
+user's own model). The user's functions take ``(x, params)`` with ``params`` a
+dict; the wrappers here take the parameter vector ``p`` of
+:class:`branchline.model.build.Model`, check the shapes of what comes back, and fill
+in the derivatives the user does not give by central differences
+(:mod:`branchline.numerics.differences`).
+"""
+
+from __future__ import annotations
+
+import importlib
+import os
+import sys
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+import scipy.sparse
+
+from branchline.errors import ModelCodeError, ScanError
+from branchline.numerics.differences import central_jacobian, directional_derivative
+from branchline.scan.loader import PythonModelSpec
+
+Array = np.ndarray
+
+# Above this many states a finite-difference Jacobian is returned as a
+# scipy.sparse matrix (its exact zeros dropped), so that the linear algebra
+# switches to sparse LU; below it dense LAPACK is faster.
+DENSE_STATE_LIMIT = 200
+
+
+def resolve_callable(reference: str, source: str, key: str) -> Callable:
+    """Import ``"module:function"`` and return the function.
+
+    Importing the module runs its code, by design: it is the user's own model.
+    When ``source`` is a scan file, its folder is searched first, so a model
+    module can sit next to the scan file.
+
+    Raises
+    ------
+    ScanError
+        Malformed reference, module not found or failing to import, attribute
+        missing, or not callable.
+    """
+    if not isinstance(reference, str) or reference.count(":") != 1:
+        raise ScanError(source, key, f"expected 'module:function', got {reference!r}")
+    module_name, attribute_path = (part.strip() for part in reference.split(":"))
+    if not module_name or not attribute_path:
+        raise ScanError(source, key, f"expected 'module:function', got {reference!r}")
+    module = _import_module(module_name, source, key)
+    target: Any = module
+    for attribute in attribute_path.split("."):
+        if not hasattr(target, attribute):
+            raise ScanError(
+                source, key, f"module '{module_name}' has no attribute '{attribute_path}'"
+            )
+        target = getattr(target, attribute)
+    if not callable(target):
+        raise ScanError(
+            source, key, f"'{reference}' is not a function (it is {type(target).__name__})"
+        )
+    return target
+
+
+def _import_module(module_name: str, source: str, key: str):
+    folder = os.path.dirname(os.path.abspath(source)) if os.path.isfile(source) else None
+    added = folder is not None and folder not in sys.path
+    if added:
+        sys.path.insert(0, folder)
+    try:
+        return importlib.import_module(module_name)
+    except ModuleNotFoundError as error:
+        raise ScanError(source, key, f"cannot import module '{module_name}': {error}") from None
+    except Exception as error:  # the user's module itself failed while importing
+        raise ScanError(
+            source,
+            key,
+            f"importing module '{module_name}' failed: {type(error).__name__}: {error}",
+        ) from None
+    finally:
+        if added:
+            sys.path.remove(folder)
+
+
+def python_rhs(spec: PythonModelSpec, source: str) -> Callable[[Array, Array], Array]:
+    """The user's rhs as (x, p) -> ndarray (n,), its shape checked on every call."""
+    user_rhs = resolve_callable(spec.rhs, source, "model.python.rhs")
+    return _wrap_rhs(_with_parameter_dict(user_rhs, tuple(spec.parameters), spec.rhs), spec, source)
+
+
+def python_jacobian(
+    spec: PythonModelSpec, rhs: Callable, probe_point: Array, defaults: Array, source: str
+) -> tuple[Callable, bool, DifferenceDerivatives]:
+    """df/dx of a Python model, whether it is sparse, and the source of its other derivatives.
+
+    The user's Jacobian (wrapped; sparse if it returns scipy.sparse at the
+    probe point) when the spec names one, else central differences of ``rhs``
+    (sparse above ``DENSE_STATE_LIMIT`` states).
+    """
+    n = int(spec.size)
+    if spec.jacobian is None:
+        sparse = n > DENSE_STATE_LIMIT
+        return _difference_jacobian(rhs, sparse), sparse, DifferenceDerivatives(rhs, None, 1)
+    user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
+    user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters), spec.jacobian)
+    sample = probe(user_jacobian, probe_point, defaults)
+    sparse = scipy.sparse.issparse(sample) if sample is not None else n > DENSE_STATE_LIMIT
+    jacobian = _wrap_jacobian(user_jacobian, spec, sparse, source)
+    probe(jacobian, probe_point, defaults)
+    return jacobian, sparse, DifferenceDerivatives(rhs, jacobian, 0)
+
+
+def python_observables(
+    spec: PythonModelSpec, probe_point: Array, defaults: Array, source: str
+) -> tuple[Callable, tuple[str, ...]]:
+    """The user's observables function, wrapped, and its names (read at the probe point)."""
+    user_observables = resolve_callable(spec.observables, source, "model.python.observables")
+    user_observables = _with_parameter_dict(
+        user_observables, tuple(spec.parameters), spec.observables
+    )
+
+    def observables(x: Array, p: Array) -> dict[str, float]:
+        values = user_observables(x, p)
+        return {str(name): float(value) for name, value in dict(values).items()}
+
+    sample = probe(observables, probe_point, defaults)
+    return observables, tuple(sample) if sample else ()
+
+
+def probe(function: Callable, x: Array, p: Array) -> Any:
+    """Call a user function once at build time; shape errors surface, other failures wait.
+
+    The probe point (all states 1, default parameters) is arbitrary, so an
+    exception there is not held against the model; a ScanError (wrong shape) is.
+    """
+    try:
+        with np.errstate(all="ignore"):
+            return function(x, p)
+    except ScanError:
+        raise
+    except Exception:
+        return None
+
+
+def _with_parameter_dict(
+    user_function: Callable, parameters: tuple[str, ...], reference: str
+) -> Callable:
+    """(x, params dict) -> value as (x, p) -> value, ``p`` ordered as ``parameters``.
+
+    Arithmetic trouble (ArithmeticError, ValueError) passes through as it is;
+    any other exception from the user's code becomes a ModelCodeError naming
+    ``reference``, so that a run stops gracefully instead of with a traceback.
+    """
+
+    def call(x: Array, p: Array) -> Any:
+        try:
+            return user_function(x, dict(zip(parameters, p.tolist(), strict=True)))
+        except (ArithmeticError, ValueError):
+            raise
+        except Exception as error:
+            raise ModelCodeError(f"'{reference}' raised {type(error).__name__}: {error}") from None
+
+    return call
+
+
+def _wrap_rhs(user_rhs: Callable, spec: PythonModelSpec, source: str) -> Callable:
+    n = int(spec.size)
+    expected = (n,)
+
+    def rhs(x: Array, p: Array) -> Array:
+        values = np.asarray(user_rhs(x, p), dtype=float)
+        if values.shape != expected:
+            raise ScanError(
+                source,
+                "model.python.rhs",
+                f"'{spec.rhs}' returned an array of shape {values.shape}; expected ({n},), "
+                f"one derivative per state (size = {n})",
+            )
+        return values
+
+    return rhs
+
+
+def _wrap_jacobian(
+    user_jacobian: Callable, spec: PythonModelSpec, sparse: bool, source: str
+) -> Callable:
+    n = int(spec.size)
+    expected = (n, n)
+
+    def jacobian(x: Array, p: Array):
+        matrix = user_jacobian(x, p)
+        if scipy.sparse.issparse(matrix):
+            matrix = matrix.tocsr() if sparse else matrix.toarray()
+        else:
+            matrix = np.asarray(matrix, dtype=float)
+            if sparse:
+                matrix = scipy.sparse.csr_matrix(matrix)
+        if matrix.shape != expected:
+            raise ScanError(
+                source,
+                "model.python.jacobian",
+                f"'{spec.jacobian}' returned a matrix of shape {matrix.shape}; expected {expected}",
+            )
+        return matrix
+
+    return jacobian
+
+
+def _difference_jacobian(rhs: Callable, sparse: bool):
+    """df/dx by central differences: 2 n rhs calls (noted in the docs for large n)."""
+
+    def jacobian(x: Array, p: Array):
+        matrix = central_jacobian(lambda z: rhs(z, p), x)
+        return scipy.sparse.csr_matrix(matrix) if sparse else matrix
+
+    return jacobian
+
+
+class DifferenceDerivatives:
+    """df/dp, B, C and d/dp (f_x v) of a Python model by nested central differences.
+
+    ``levels`` is the number of differences already inside a Jacobian action:
+    0 with an exact user Jacobian (action = J @ v), 1 without (a directional
+    difference of f). Each further derivative adds one level, and all levels
+    of one formula share the step of :func:`branchline.numerics.differences.central_step`.
+    """
+
+    def __init__(self, rhs: Callable, jacobian: Callable | None, levels: int) -> None:
+        self.rhs, self.user_jacobian, self.levels = rhs, jacobian, levels
+
+    def _action(self, x: Array, p: Array, v: Array, levels: int) -> Array:
+        if self.user_jacobian is not None:
+            return self.user_jacobian(x, p) @ v
+        return directional_derivative(lambda z: self.rhs(z, p), x, v, levels)
+
+    def parameter_jacobian(self, x: Array, p: Array) -> Array:
+        """df/dp, shape (n, m), by central differences."""
+        return central_jacobian(lambda q: self.rhs(x, q), p)
+
+    def second(self, x: Array, p: Array, v: Array, w: Array) -> Array:
+        """B(v, w), shape (n,): nested central differences of the Jacobian action."""
+        return self._second(x, p, v, w, self.levels + 1)
+
+    def _second(self, x: Array, p: Array, v: Array, w: Array, levels: int) -> Array:
+        return directional_derivative(lambda z: self._action(z, p, v, levels), x, w, levels)
+
+    def third(self, x: Array, p: Array, u: Array, v: Array, w: Array) -> Array:
+        """C(u, v, w), shape (n,): a central difference of B along w."""
+        levels = self.levels + 2
+        return directional_derivative(lambda z: self._second(z, p, u, v, levels), x, w, levels)
+
+    def jacobian_parameter_derivative(self, x: Array, p: Array, v: Array) -> Array:
+        """d/dp (f_x v), shape (n, m), by central differences in each parameter."""
+        levels = self.levels + 1
+        p = np.asarray(p, dtype=float)
+        columns = []
+        for k in range(p.shape[0]):
+            direction = np.zeros_like(p)
+            direction[k] = 1.0
+            columns.append(
+                directional_derivative(
+                    lambda q: self._action(x, q, v, levels), p, direction, levels
+                )
+            )
+        if not columns:
+            return np.zeros((np.asarray(x).shape[0], 0))
+        return np.column_stack(columns)
+
+
+__all__ = [
+    "DENSE_STATE_LIMIT",
+    "DifferenceDerivatives",
+    "probe",
+    "python_jacobian",
+    "python_observables",
+    "python_rhs",
+    "resolve_callable",
+]

@@ -1,0 +1,78 @@
+"""`branchline inspect`: one equilibrium, its linearization, in readable text."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from branchline.model.build import build_model
+from branchline.problems.equilibrium import linearize, solve_equilibrium
+from branchline.runner import start_vector
+from branchline.scan.loader import Scan
+
+# Print the full Jacobian only for models small enough to read it.
+MAX_PRINTED_JACOBIAN = 12
+
+
+def _matrix_text(matrix: np.ndarray, names: tuple[str, ...]) -> str:
+    width = max(12, *(len(n) for n in names)) + 2
+    lines = [" " * width + "".join(f"{('d/d' + n):>{width}}" for n in names)]
+    for name, row in zip(names, matrix):
+        lines.append(f"{('f_' + name):>{width}}" + "".join(f"{v:>{width}.6g}" for v in row))
+    return "\n".join(lines)
+
+
+def _eigen_text(eigenvalues: np.ndarray) -> str:
+    lines = []
+    for lam in eigenvalues:
+        if abs(lam.imag) > 0:
+            lines.append(f"  {lam.real:+.10g} {lam.imag:+.10g}i")
+        else:
+            lines.append(f"  {lam.real:+.10g}")
+    return "\n".join(lines)
+
+
+def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, bool]:
+    """Solve for the equilibrium at the first trace's start guess and describe it.
+
+    Parameters are the model defaults with the first trace's ``set`` and then
+    ``overrides`` applied. Returns the text and whether Newton converged.
+    """
+    model = build_model(scan.model, source=scan.source)
+    spec = scan.traces[0]
+    settings = {**spec.set, **overrides}
+    p = model.parameter_vector(settings)
+    x0 = start_vector(model, spec, p, scan.source)
+    solution = solve_equilibrium(model, x0, p)
+    lines = [f"{scan.title}", ""]
+    lines.append("parameters: " + ", ".join(f"{n} = {v:.10g}" for n, v in zip(model.parameters, p)))
+    if not solution.converged:
+        lines.append(
+            f"no equilibrium found from the start guess of trace {spec.name}: {solution.message}"
+        )
+        return "\n".join(lines), False
+    lines.append(
+        f"equilibrium (Newton: {solution.iterations} iterations, "
+        f"residual {solution.residual_norm:.2e}):"
+    )
+    if model.size <= 40:
+        lines += [f"  {name} = {value:.15g}" for name, value in zip(model.states, solution.state)]
+    else:
+        lines.append(f"  {model.size} states, norm {np.linalg.norm(solution.state):.15g}")
+    lin = linearize(model, solution.state, p)
+    if model.size <= MAX_PRINTED_JACOBIAN:
+        lines += ["", "Jacobian df/dx:", _matrix_text(np.asarray(lin.jacobian), model.states)]
+    lines += ["", "eigenvalues (by decreasing real part):", _eigen_text(lin.eigenvalues)]
+    lines += ["", f"type: {lin.kind.replace('_', ' ')}"]
+    if lin.hyperbolic:
+        lines.append(
+            "hyperbolic: yes - the linearization decides the local behaviour "
+            "(Hartman-Grobman theorem)"
+        )
+    else:
+        lines.append(
+            "hyperbolic: no - an eigenvalue lies on the imaginary axis, so the "
+            "linearization does not decide the local behaviour; nonlinear terms do"
+        )
+    if getattr(lin, "description", ""):
+        lines += ["", lin.description]
+    return "\n".join(lines), True

@@ -1,0 +1,480 @@
+"""One equilibrium: damped Newton, linearization and equilibrium type.
+
+``solve_equilibrium`` finds x with f(x, p) = 0 near a guess by Newton's method
+with backtracking on the residual norm (damped Newton; Deuflhard, Newton
+Methods for Nonlinear Problems, section 3.1, in its simplest Armijo form).
+It never raises on numerical trouble: the returned record carries a status
+and a message saying where and why.
+
+``linearize`` computes the Jacobian there, its eigenvalues and the type of
+the equilibrium. Planar types follow the trace-determinant classification
+(Strogatz, Nonlinear Dynamics and Chaos, section 5.2); larger systems are
+described by the numbers of eigenvalues in each half-plane and the leading
+eigenvalues.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from branchline.numerics import linalg
+
+if TYPE_CHECKING:
+    from branchline.model.build import Model
+
+Array = np.ndarray
+
+# --- Newton settings -------------------------------------------------------
+# Residual norm (Euclidean) accepted as zero. Tests demand 1e-10 residuals on
+# O(1) models; models whose terms are much larger than 1 reach the roundoff
+# floor first and are accepted by the update test (STAGNATION_RTOL) instead.
+RESIDUAL_TOL = 1e-10
+# Newton update accepted as converged relative to 1 + |x|. Quadratic
+# convergence makes the next error about the square of this.
+UPDATE_RTOL = 1e-8
+# An update this small (relative) means the iteration has reached roundoff:
+# further steps cannot reduce the residual.
+STAGNATION_RTOL = 16 * np.finfo(float).eps
+MAX_NEWTON_ITERATIONS = 50
+# Backtracking: halve the step until the residual norm drops by at least this
+# fraction of the step length (Armijo's sufficient-decrease constant, common practice).
+SUFFICIENT_DECREASE = 1e-4
+SMALLEST_DAMPING = 2.0**-20
+# A Jacobian whose 2-norm condition number exceeds this is treated as singular
+# (past it the Newton step has no correct digits).
+SINGULAR_CONDITION = 1e14
+
+# --- Classification settings -----------------------------------------------
+# An eigenvalue whose real part is below this fraction of the spectral radius
+# counts as lying on the imaginary axis (non-hyperbolic). Eigenvalues of a
+# well-conditioned matrix are accurate to about eps * |J|; defective ones only
+# to about sqrt(eps) * |J|, so 1e-8 sits between the two.
+HYPERBOLIC_RTOL = 1e-8
+# Relative tolerance for tau^2 - 4 Delta = 0 (stars and degenerate nodes) and
+# for equal eigenvalues.
+REPEATED_RTOL = 1e-8
+# Number of leading eigenvalues reported.
+LEADING_COUNT = 3
+
+STATUS_CONVERGED = "converged"
+STATUS_NOT_CONVERGED = "not_converged"
+STATUS_SINGULAR = "singular_jacobian"
+STATUS_NONFINITE = "non_finite"
+
+
+@dataclass(frozen=True)
+class EquilibriumSolution:
+    """The outcome of Newton's method for f(x, p) = 0.
+
+    Attributes
+    ----------
+    state : ndarray (n,)
+        The last iterate (the equilibrium when ``converged``).
+    parameters : ndarray (m,)
+    converged : bool
+    iterations : int
+        Newton steps taken.
+    residual_norm : float
+        Euclidean norm of f at ``state``.
+    history : tuple of float
+        Residual norms, starting with the guess.
+    status : str
+        ``converged``, ``not_converged``, ``singular_jacobian`` or ``non_finite``.
+    message : str
+        Empty when converged, else where and why it failed.
+    """
+
+    state: Array
+    parameters: Array
+    converged: bool
+    iterations: int
+    residual_norm: float
+    history: tuple[float, ...]
+    status: str
+    message: str = ""
+
+
+@dataclass(frozen=True)
+class Linearization:
+    """The linearization x' = J (x - x*) at an equilibrium.
+
+    Attributes
+    ----------
+    jacobian : ndarray (n, n)
+    eigenvalues : ndarray (n,) complex
+        Sorted by decreasing real part (the r leading ones for sparse models).
+    kind : str
+        One of ``stable_node``, ``unstable_node``, ``saddle``, ``stable_focus``,
+        ``unstable_focus``, ``centre``, ``stable_star``, ``unstable_star``,
+        ``stable_degenerate_node``, ``unstable_degenerate_node``,
+        ``zero_eigenvalue`` (a zero eigenvalue: a line of equilibria of the
+        linearization), ``zero_jacobian`` (J = 0), ``saddle_focus`` (n > 2, a
+        saddle with complex eigenvalues), ``non_hyperbolic`` (n > 2, eigenvalues
+        on the imaginary axis).
+    hyperbolic : bool
+        False when some eigenvalue has (near-)zero real part; then the
+        linearization does not decide the local behaviour.
+    positive, zero, negative : int
+        Eigenvalues with positive, (near-)zero and negative real part (for a
+        large sparse model: among the r leading eigenvalues that were computed).
+    leading : ndarray complex
+        Up to ``LEADING_COUNT`` eigenvalues with the largest real parts.
+    description : str
+        One or two plain sentences for a person.
+    """
+
+    jacobian: Array
+    eigenvalues: Array
+    kind: str
+    hyperbolic: bool
+    positive: int
+    zero: int
+    negative: int
+    leading: Array
+    description: str
+    trace: float | None = None
+    determinant: float | None = None
+    notes: tuple[str, ...] = field(default_factory=tuple)
+
+
+# ---------------------------------------------------------------------------
+# Newton's method
+# ---------------------------------------------------------------------------
+
+
+def _evaluate(function, x: Array, p: Array) -> Array | None:
+    """f(x, p) as a float array, or None when it is not finite or raises arithmetic errors."""
+    try:
+        with np.errstate(all="ignore"):
+            value = np.asarray(function(x, p), dtype=float)
+    except (ArithmeticError, ValueError):
+        return None
+    if not np.all(np.isfinite(value)):
+        return None
+    return value
+
+
+def _jacobian_dense_or_sparse(model: Model, x: Array, p: Array):
+    try:
+        with np.errstate(all="ignore"):
+            jac = model.jacobian(x, p)
+    except (ArithmeticError, ValueError):
+        return None
+    if linalg.is_sparse(jac):
+        return jac if np.all(np.isfinite(jac.data)) else None
+    jac = np.asarray(jac, dtype=float)
+    return jac if np.all(np.isfinite(jac)) else None
+
+
+def _where(x: Array, p: Array, model) -> str:
+    """Short text naming a point: the first states and the parameters."""
+    names = getattr(model, "states", ()) or tuple(f"x{i}" for i in range(len(x)))
+    shown = ", ".join(f"{name}={value:.6g}" for name, value in zip(names[:6], x[:6], strict=False))
+    if len(x) > 6:
+        shown += f", ... ({len(x)} states, |x|={linalg.norm(x):.6g})"
+    return f"at {shown}"
+
+
+def _singular(jac) -> bool:
+    """True when a dense Jacobian is numerically singular (sparse: left to the LU)."""
+    if linalg.is_sparse(jac) or jac.shape[0] > linalg.CONDITION_CHECK_LIMIT:
+        return False
+    with np.errstate(all="ignore"):
+        condition = np.linalg.cond(jac)
+    return not np.isfinite(condition) or condition > SINGULAR_CONDITION
+
+
+def solve_equilibrium(
+    model: Model,
+    x0: Array,
+    p: Array,
+    *,
+    residual_tol: float = RESIDUAL_TOL,
+    update_rtol: float = UPDATE_RTOL,
+    max_iterations: int = MAX_NEWTON_ITERATIONS,
+) -> EquilibriumSolution:
+    """Solve f(x, p) = 0 by damped Newton from the guess ``x0``.
+
+    Each step solves J dx = -f and backtracks (halving) until the residual
+    norm decreases sufficiently (Armijo). Converged when |f| <= residual_tol
+    and the last update |dx| <= update_rtol (1 + |x|), or when the update has
+    reached roundoff.
+
+    Parameters
+    ----------
+    model : branchline.model.build.Model
+        Needs ``rhs(x, p)`` and ``jacobian(x, p)`` (dense or scipy.sparse).
+    x0 : array_like (n,)
+        Start guess.
+    p : array_like (m,)
+        Parameter vector.
+
+    Returns
+    -------
+    EquilibriumSolution
+        Never raises for numerical trouble; see ``status`` and ``message``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from types import SimpleNamespace
+    >>> m = SimpleNamespace(rhs=lambda x, p: x**2 - p, jacobian=lambda x, p: np.diag(2 * x),
+    ...                     states=("x",))
+    >>> sol = solve_equilibrium(m, np.array([1.0]), np.array([2.0]))
+    >>> sol.converged, round(float(sol.state[0]), 12)
+    (True, 1.414213562373)
+    """
+    x = np.array(x0, dtype=float).reshape(-1)
+    p = np.array(p, dtype=float).reshape(-1)
+    with np.errstate(all="ignore"):
+        return _newton(model, x, p, residual_tol, update_rtol, max_iterations)
+
+
+def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
+    f = _evaluate(model.rhs, x, p)
+    if f is None:
+        message = f"f is not finite {_where(x, p, model)} (start guess)"
+        return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE, message)
+    residual = linalg.norm(f)
+    history = [residual]
+    if residual == 0.0:
+        return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), STATUS_CONVERGED)
+    for iteration in range(1, max_iterations + 1):
+        status, message, step = _newton_direction(model, x, p, f, residual)
+        damping = 1.0
+        if not status:
+            damping, trial, f_trial, residual_trial = _backtrack(model, x, p, step, residual)
+            if trial is None:
+                status = STATUS_NOT_CONVERGED
+                message = (
+                    f"Newton's method stalled {_where(x, p, model)} with residual "
+                    f"{residual:.3g}: no step along the Newton direction reduces |f|; "
+                    "there may be no equilibrium near the guess, try another guess"
+                )
+        if status:
+            if residual <= residual_tol and status != STATUS_NONFINITE:
+                # Already a solution to roundoff; Newton cannot polish it further here
+                # (for instance at a turning point, where df/dx is singular).
+                return EquilibriumSolution(
+                    x, p, True, iteration - 1, residual, tuple(history), STATUS_CONVERGED
+                )
+            return _failed(x, p, iteration - 1, residual, history, status, message)
+        x, f, residual = trial, f_trial, residual_trial
+        history.append(residual)
+        update = damping * linalg.norm(step)
+        scale = 1.0 + linalg.norm(x)
+        if (residual <= residual_tol and update <= update_rtol * scale) or (
+            update <= STAGNATION_RTOL * scale and damping == 1.0
+        ):
+            return EquilibriumSolution(
+                x, p, True, iteration, residual, tuple(history), STATUS_CONVERGED
+            )
+    message = (
+        f"no convergence in {max_iterations} Newton iterations; last iterate "
+        f"{_where(x, p, model)} with residual {residual:.3g}"
+    )
+    return _failed(x, p, max_iterations, residual, history, STATUS_NOT_CONVERGED, message)
+
+
+def _newton_direction(model: Model, x, p, f, residual):
+    """(status, message, step): status "" and the Newton step, or why there is none."""
+    jac = _jacobian_dense_or_sparse(model, x, p)
+    if jac is None:
+        return STATUS_NONFINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
+    if _singular(jac):
+        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+    try:
+        return "", "", -linalg.solve_square(jac, f)
+    except linalg.SingularMatrixError:
+        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+
+
+def _backtrack(model: Model, x, p, step, residual):
+    """Halve the Newton step until |f| decreases sufficiently; (damping, x, f, |f|) or Nones."""
+    damping = 1.0
+    while damping >= SMALLEST_DAMPING:
+        trial = x + damping * step
+        f_trial = _evaluate(model.rhs, trial, p)
+        if f_trial is not None:
+            residual_trial = linalg.norm(f_trial)
+            if residual_trial <= (1.0 - SUFFICIENT_DECREASE * damping) * residual:
+                return damping, trial, f_trial, residual_trial
+        damping *= 0.5
+    return damping, None, None, None
+
+
+def _singular_message(x, p, residual, model) -> str:
+    return (
+        f"the Jacobian df/dx is singular {_where(x, p, model)} (residual {residual:.3g}); "
+        "the guess may sit at a turning point or there may be no isolated equilibrium "
+        "nearby, try another guess or parameter value"
+    )
+
+
+def _failed(x, p, iterations, residual, history, status, message) -> EquilibriumSolution:
+    return EquilibriumSolution(
+        x, p, False, iterations, float(residual), tuple(history), status, message
+    )
+
+
+# ---------------------------------------------------------------------------
+# Linearization and equilibrium type
+# ---------------------------------------------------------------------------
+
+
+def linearize(model: Model, x: Array, p: Array) -> Linearization:
+    """Jacobian, eigenvalues and equilibrium type at (x, p).
+
+    Parameters
+    ----------
+    model : branchline.model.build.Model
+    x : ndarray (n,)
+        An equilibrium (the classification describes the linearization at any point).
+    p : ndarray (m,)
+
+    Returns
+    -------
+    Linearization
+    """
+    x = np.asarray(x, dtype=float)
+    p = np.asarray(p, dtype=float)
+    with np.errstate(all="ignore"):
+        jac = model.jacobian(x, p)
+    if linalg.is_sparse(jac) and jac.shape[0] > linalg.SPARSE_DENSE_LIMIT:
+        eigenvalues = linalg.leading_eigenvalues(jac)
+        jac_dense = None
+    else:
+        jac_dense = jac.toarray() if linalg.is_sparse(jac) else np.asarray(jac, dtype=float)
+        eigenvalues = linalg.dense_eigenvalues(jac_dense)
+    return classify(jac_dense if jac_dense is not None else jac, eigenvalues)
+
+
+def classify(jacobian: Any, eigenvalues: Array | None = None) -> Linearization:
+    """Type of the linear system x' = J x from J (and its eigenvalues, if known).
+
+    Planar systems use the trace tau and determinant Delta (Strogatz,
+    Nonlinear Dynamics and Chaos, section 5.2): Delta < 0 saddle; Delta > 0
+    and tau^2 - 4 Delta > 0 node, < 0 focus (spiral), = 0 star (J a multiple
+    of I) or degenerate node; tau = 0 < Delta centre; Delta = 0 a zero
+    eigenvalue (non-isolated equilibria of the linear system). Other sizes
+    are described by half-plane counts.
+    """
+    if eigenvalues is None:
+        eigenvalues = linalg.dense_eigenvalues(np.asarray(jacobian, dtype=float))
+    eigenvalues = np.asarray(eigenvalues, dtype=complex)
+    scale = float(np.max(np.abs(eigenvalues))) if eigenvalues.size else 0.0
+    if not linalg.is_sparse(jacobian):
+        scale = max(scale, float(np.max(np.abs(jacobian))) if jacobian.size else 0.0)
+    zero_tol = HYPERBOLIC_RTOL * scale
+    positive, zero, negative = linalg.count_by_half_plane(eigenvalues, zero_tol)
+    hyperbolic = zero == 0 and scale > 0.0
+    leading = eigenvalues[:LEADING_COUNT]
+    n = eigenvalues.shape[0]
+    if n == 2 and not linalg.is_sparse(jacobian):
+        kind, tau, delta = _planar_kind(np.asarray(jacobian, dtype=float), scale)
+    else:
+        kind, tau, delta = _general_kind(eigenvalues, positive, zero, negative, scale), None, None
+    description = _describe(kind, eigenvalues, positive, zero, negative, hyperbolic)
+    return Linearization(
+        jacobian=jacobian,
+        eigenvalues=eigenvalues,
+        kind=kind,
+        hyperbolic=hyperbolic,
+        positive=positive,
+        zero=zero,
+        negative=negative,
+        leading=leading,
+        description=description,
+        trace=tau,
+        determinant=delta,
+    )
+
+
+def _planar_kind(jac: Array, scale: float) -> tuple[str, float, float]:
+    tau = float(jac[0, 0] + jac[1, 1])
+    delta = float(jac[0, 0] * jac[1, 1] - jac[0, 1] * jac[1, 0])
+    if scale == 0.0:
+        return "zero_jacobian", tau, delta
+    if abs(delta) <= HYPERBOLIC_RTOL * scale**2:
+        return "zero_eigenvalue", tau, delta
+    if delta < 0.0:
+        return "saddle", tau, delta
+    if abs(tau) <= HYPERBOLIC_RTOL * scale:
+        return "centre", tau, delta
+    sign = "stable" if tau < 0.0 else "unstable"
+    discriminant = tau * tau - 4.0 * delta
+    if abs(discriminant) <= REPEATED_RTOL * scale**2:
+        half = 0.5 * tau
+        off_identity = np.abs(jac - half * np.eye(2)).max()
+        if off_identity <= REPEATED_RTOL * scale:
+            return f"{sign}_star", tau, delta
+        return f"{sign}_degenerate_node", tau, delta
+    if discriminant > 0.0:
+        return f"{sign}_node", tau, delta
+    return f"{sign}_focus", tau, delta
+
+
+def _general_kind(eigenvalues, positive, zero, negative, scale) -> str:
+    n = eigenvalues.shape[0]
+    if scale == 0.0:
+        return "zero_jacobian"
+    if zero:
+        if n == 1 or np.any(np.abs(eigenvalues) <= HYPERBOLIC_RTOL * scale):
+            return "zero_eigenvalue"
+        return "centre" if n == 2 else "non_hyperbolic"
+    complex_present = bool(np.any(np.abs(eigenvalues.imag) > HYPERBOLIC_RTOL * scale))
+    if positive and negative:
+        return "saddle_focus" if complex_present and n > 2 else "saddle"
+    sign = "stable" if negative else "unstable"
+    # For a sink the slowest (leading) eigenvalues decide whether orbits spiral in.
+    decisive = eigenvalues[0] if negative else eigenvalues[-1]
+    if abs(decisive.imag) > HYPERBOLIC_RTOL * scale:
+        return f"{sign}_focus"
+    return f"{sign}_node"
+
+
+_KIND_TEXT = {
+    "stable_node": "stable node: nearby states approach it without oscillating",
+    "unstable_node": "unstable node: nearby states move away without oscillating",
+    "saddle": "saddle: unstable, some directions attract and others repel",
+    "saddle_focus": "saddle focus: unstable, with oscillating attracting or repelling directions",
+    "stable_focus": "stable focus: nearby states spiral in (damped oscillation)",
+    "unstable_focus": "unstable focus: nearby states spiral out (growing oscillation)",
+    "centre": "centre of the linearization: purely imaginary eigenvalues; the nonlinear terms "
+    "decide stability",
+    "stable_star": "stable star: equal eigenvalues, every direction approaches at the same rate",
+    "unstable_star": "unstable star: equal eigenvalues, every direction leaves at the same rate",
+    "stable_degenerate_node": "stable degenerate node: a repeated eigenvalue with one eigenvector",
+    "unstable_degenerate_node": "unstable degenerate node: a repeated eigenvalue with one "
+    "eigenvector",
+    "zero_eigenvalue": "zero eigenvalue: the linearization has a line of equilibria (not "
+    "isolated); the nonlinear terms decide",
+    "zero_jacobian": "zero Jacobian: the linearization says nothing about the local behaviour",
+    "non_hyperbolic": "non-hyperbolic: eigenvalues on the imaginary axis; the nonlinear terms "
+    "decide",
+}
+
+
+def _describe(kind, eigenvalues, positive, zero, negative, hyperbolic) -> str:
+    counts = (
+        f"{positive} eigenvalue(s) with positive real part, {zero} on the imaginary axis, "
+        f"{negative} with negative real part"
+    )
+    verdict = (
+        "hyperbolic: the linearization decides the local behaviour"
+        if hyperbolic
+        else "not hyperbolic: the linearization does not decide the local behaviour"
+    )
+    lead = ", ".join(_format_complex(value) for value in eigenvalues[:LEADING_COUNT])
+    return f"{_KIND_TEXT[kind]}. {counts}; leading eigenvalues {lead}; {verdict}."
+
+
+def _format_complex(value: complex) -> str:
+    if value.imag == 0.0:
+        return f"{value.real:.6g}"
+    sign = "+" if value.imag > 0 else "-"
+    return f"{value.real:.6g}{sign}{abs(value.imag):.6g}i"

@@ -1,0 +1,187 @@
+"""Result records: frozen dataclasses.
+
+Everything numerical returns these records; writers and plots only read them.
+Their pandas tables are built by :mod:`branchline.results.tables` (``RunResult.points_frame``
+and ``events_frame`` delegate there).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+if TYPE_CHECKING:
+    import pandas as pd
+    from matplotlib.figure import Figure
+
+    from branchline.model.build import Model
+    from branchline.scan.loader import Scan
+
+Array = np.ndarray
+
+EVENT_KINDS = ("fold", "hopf", "branch_point")
+
+# Numerical status of a branch (a failure is a status, not an exception).
+STATUS_DONE = "done"  # reached the interval edge (or direction not requested)
+STATUS_MAX_POINTS = "max_points"  # stopped at steps.max_points
+STATUS_CLOSED = "closed"  # the branch closed on itself (an isola)
+STATUS_FAILED = "failed"  # numerical trouble; message says where and why
+
+
+@dataclass(frozen=True)
+class Branch:
+    """One traced equilibrium branch, rows in trace order.
+
+    Attributes
+    ----------
+    name : str
+        Trace name (``<parent>.<k>`` for branches started at a branch point).
+    vary : str
+        The continuation parameter's name.
+    parameters : ndarray (m,)
+        The trace's parameter vector (defaults with ``set`` applied); the
+        ``vary`` entry holds the start value, per-row values are ``parameter_values``.
+    parameter_values : ndarray (k,)
+    states : ndarray (k, n)
+    arclength : ndarray (k,)
+        Signed pseudo-arclength from the start point (negative on the side traced
+        with decreasing parameter first).
+    tangents : ndarray (k, n + 1)
+        Unit tangents (state components, then parameter), oriented in trace order.
+    eigenvalues : ndarray (k, r), complex
+        The r leading eigenvalues of df/dx (all of them for dense models), sorted
+        by decreasing real part.
+    unstable_count : ndarray (k,) int
+        Eigenvalues with positive real part.
+    test_values : ndarray (k, 3)
+        Test functions in the order of ``TEST_FUNCTIONS`` in :mod:`branchline.events.locate`.
+    newton_iterations : ndarray (k,) int
+    residual_norms : ndarray (k,)
+    status, message : str
+        How the trace ended; ``message`` says where and why on failure.
+    counts : dict
+        Work counters: rhs/jacobian evaluations, factorizations, rejected steps.
+    parent : str or None
+        The branch this one was started from at a branch point.
+    interval : tuple (lo, hi)
+    """
+
+    name: str
+    vary: str
+    parameters: Array
+    parameter_values: Array
+    states: Array
+    arclength: Array
+    tangents: Array
+    eigenvalues: Array
+    unstable_count: Array
+    test_values: Array
+    newton_iterations: Array
+    residual_norms: Array
+    status: str
+    message: str
+    interval: tuple[float, float]
+    counts: dict[str, int] = field(default_factory=dict)
+    parent: str | None = None
+
+    @property
+    def stable(self) -> Array:
+        """Bool per point (shape (points,)): no eigenvalue with positive real part."""
+        return self.unstable_count == 0
+
+    def __len__(self) -> int:
+        return len(self.parameter_values)
+
+
+@dataclass(frozen=True)
+class Event:
+    """A located stability change on a branch.
+
+    ``state`` and ``value`` solve the event's defining system to near machine
+    precision (``note`` says when a fallback was used instead).
+    """
+
+    trace: str
+    kind: str  # one of EVENT_KINDS
+    vary: str
+    value: float  # the varied parameter at the event
+    state: Array  # (n,)
+    parameters: Array  # (m,) full parameter vector at the event
+    arclength: float  # position along the branch (interpolated between rows)
+    frequency: float | None = None  # Hopf: omega (rad per time unit)
+    lyapunov: float | None = None  # Hopf: first Lyapunov coefficient l1
+    criticality: str | None = None  # Hopf: "supercritical" / "subcritical"
+    branching: str | None = None  # branch point: "transcritical" / "pitchfork"
+    fold_coefficient: float | None = None  # fold: quadratic normal-form coefficient
+    note: str = ""
+    details: dict[str, Any] = field(default_factory=dict)  # JSON-ready detail
+
+    @property
+    def period(self) -> float | None:
+        """2 pi / frequency (model time units) for a Hopf point, else None."""
+        return None if not self.frequency else 2.0 * np.pi / self.frequency
+
+
+@dataclass(frozen=True)
+class RunResult:
+    """Everything one scan produced.
+
+    ``status`` is ``"done"`` or ``"failed"``; on failure ``message`` says which
+    trace stopped, where and why, and every point computed so far is kept.
+    Tables and files are made from this record by :mod:`branchline.results.tables`
+    and :mod:`branchline.results.writers`.
+    """
+
+    scan: Scan
+    model: Model
+    branches: tuple[Branch, ...]
+    events: tuple[Event, ...]
+    status: str
+    message: str
+    timings: dict[str, float] = field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
+
+    def branch(self, name: str) -> Branch:
+        """The branch called ``name``; KeyError listing the names if there is none."""
+        for branch in self.branches:
+            if branch.name == name:
+                return branch
+        raise KeyError(f"no trace named {name!r}; traces: {[b.name for b in self.branches]}")
+
+    def points_frame(self) -> pd.DataFrame:
+        """points.csv as a pandas DataFrame."""
+        from branchline.results.tables import points_frame
+
+        return points_frame(self)
+
+    def events_frame(self) -> pd.DataFrame:
+        """events.csv as a pandas DataFrame."""
+        from branchline.results.tables import events_frame
+
+        return events_frame(self)
+
+    def info(self) -> dict[str, Any]:
+        """run.json content: what was run, settings with defaults filled in, timings."""
+        from branchline.results.tables import run_info
+
+        return run_info(self)
+
+    def event_records(self) -> list[dict[str, Any]]:
+        """events.json entries (JSON-ready dicts with full detail)."""
+        from branchline.results.tables import event_records
+
+        return event_records(self)
+
+    def report(self) -> str:
+        """The stability-change report (markdown)."""
+        from branchline.present.report import render_report
+
+        return render_report(self.points_frame(), self.event_records(), self.info())
+
+    def figure(self, x: str | None = None, y: str | None = None) -> Figure:
+        """The bifurcation diagram as a matplotlib Figure."""
+        from branchline.present.plotting import bifurcation_figure
+
+        return bifurcation_figure(self.points_frame(), self.event_records(), self.info(), x=x, y=y)
