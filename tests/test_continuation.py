@@ -466,6 +466,54 @@ def test_engine_chord_and_full_agree_on_circle():
         )
 
 
+class WrappedPhase:
+    """p = sin(x): a curve that is invariant under x -> x + 2 pi (elementary).
+
+    Its ``adapt`` moves each accepted point to the next copy of the curve, as a
+    periodic-orbit problem re-represents its orbit between steps.
+    """
+
+    def __init__(self):
+        self.adapted = []
+
+    def residual(self, u):
+        return np.array([math.sin(u[0]) - u[1]])
+
+    def jacobian(self, u):
+        return np.array([[math.cos(u[0]), -1.0]])
+
+    def observe(self, u, tangent, jacobian):
+        return None, np.array([u[1]])
+
+    def adapt(self, u, tangent):
+        self.adapted.append((u.copy(), tangent.copy()))
+        shifted = u.copy()
+        shifted[0] += 2.0 * math.pi
+        return shifted, 3.0 * tangent  # the engine normalizes the tangent
+
+
+@pytest.mark.parametrize("newton", ["full", "chord"])
+def test_adapt_is_called_between_accepted_steps(newton):
+    problem = WrappedPhase()
+    settings = StepControl(initial=0.05, largest=0.05, max_points=12)
+    curve = follow_curve(problem, np.zeros(2), np.array([1.0, 1.0]), settings, newton=newton)
+    assert curve.status == "max_points" and len(curve) == 12
+    # Called once per accepted step with the point and tangent just recorded ...
+    assert len(problem.adapted) == len(curve) - 1
+    for k, (u, tangent) in enumerate(problem.adapted, start=1):
+        np.testing.assert_array_equal(u, curve.points[k])
+        np.testing.assert_array_equal(tangent, curve.tangents[k])
+    # ... and each prediction starts from the adapted point: every step moves x by
+    # 2 pi plus one short pseudo-arclength step, and every point still solves G = 0.
+    jumps = np.diff(curve.points[:, 0])
+    assert np.all(jumps[1:] > 2.0 * math.pi) and np.all(jumps[1:] < 2.0 * math.pi + 0.06)
+    assert 0.0 < jumps[0] < 0.06
+    np.testing.assert_allclose(np.sin(curve.points[:, 0]), curve.points[:, 1], atol=1e-12)
+    # The arclength counts the steps taken, not the shifts.
+    assert curve.arclength[-1] < 11 * 0.05 * 1.001
+    np.testing.assert_allclose(np.linalg.norm(curve.tangents, axis=1), 1.0, rtol=1e-14)
+
+
 # ---------------------------------------------------------------------------
 # Sparse Jacobians: Bratu's problem
 # ---------------------------------------------------------------------------

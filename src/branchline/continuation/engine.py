@@ -44,6 +44,15 @@ Optional members:
     Both at once, when that is cheaper (shared subexpressions).
 ``describe(u) -> str``
     A short text naming the point for messages ("at D=0.3, S=1.2").
+``adapt(u, tangent) -> (u, tangent)``
+    Called after each accepted step, before the next prediction, with the
+    point just recorded and its unit tangent; returns the pair (same shapes)
+    from which the next prediction u + h t starts. The recorded row keeps the
+    point as corrected and observed; the engine normalizes the returned
+    tangent. It is not called at the start point, at a point put on an edge or
+    limit, or at the closing point of an isola. A periodic-orbit problem
+    redistributes its mesh here (and may update its own reference data, such
+    as a phase condition); it must return a point on the same curve.
 
 Rules a problem must follow: ``u``'s last component is the curve's parameter
 (the one the ``bounds`` apply to; ``limits`` may bound any other component); the
@@ -329,6 +338,7 @@ def _follow(
     tests_floor = step_control.tests_step_floor(smallest, largest)
     evaluate = correctors.evaluator(problem)
     residual_fn, jacobian_fn, observe = problem.residual, problem.jacobian, problem.observe
+    adapt = getattr(problem, "adapt", None)
     counts = correctors.EvaluationCounts()
 
     start = _start(problem, evaluate, u, t, start_tangent_exact, counts)
@@ -461,12 +471,27 @@ def _follow(
         arclength += chord_length
         u, t = u_new, t_new
         rows.append((u, t, arclength, iterations, residual, tests, payload))
+        if adapt is not None:
+            u, t = _adapted(adapt, u, t)
         if progress is not None and len(rows) % PROGRESS_INTERVAL == 0:
             progress(len(rows))
         step = step_control.grown(step, iterations, largest)
     if progress is not None:
         progress(len(rows))
     return _curve_from_rows(rows, status, message, counts.as_dict())
+
+
+def _adapted(adapt, u: Array, t: Array) -> tuple[Array, Array]:
+    """The problem's ``adapt(u, t)`` with its shapes checked and the tangent normalized."""
+    u_new, t_new = adapt(u, t)
+    u_new = np.asarray(u_new, dtype=float)
+    t_new = np.asarray(t_new, dtype=float)
+    if u_new.shape != u.shape or t_new.shape != t.shape:
+        raise ValueError(
+            f"adapt must keep the shapes of u and tangent {u.shape}, got {u_new.shape} "
+            f"and {t_new.shape}"
+        )
+    return u_new, t_new / linalg.norm(t_new)
 
 
 def _tangent_at(jac, previous, sparse, counts, singular_message):
