@@ -60,9 +60,7 @@ def _python_notice(scan) -> None:
 
 def _command_run(args: argparse.Namespace) -> int:
     from branchline.errors import ScanError
-    from branchline.present.report import CAUTION, summary_table
-    from branchline.results.writers import write_results
-    from branchline.runner import run_scan
+    from branchline.results.output_folder import OutputFolderError, reserve_output
 
     try:
         scan = _load(args.scan)
@@ -70,7 +68,21 @@ def _command_run(args: argparse.Namespace) -> int:
         _error(str(err))
         return EXIT_INVALID
     out = Path(args.out) if args.out else Path("runs") / Path(args.scan).stem
-    quiet = args.quiet
+    try:
+        with reserve_output(out):
+            return _run_and_write(scan, out, args.quiet)
+    except OutputFolderError as err:
+        _error(f"--out {err}")
+        return EXIT_INVALID
+
+
+def _run_and_write(scan, out: Path, quiet: bool) -> int:
+    """Run a loaded scan and write its results into ``out`` (already reserved)."""
+    from branchline.errors import ScanError
+    from branchline.present.report import CAUTION, summary_table
+    from branchline.results.writers import write_results
+    from branchline.runner import run_scan
+
     if not quiet:
         _python_notice(scan)
     progress = _Progress(enabled=not quiet and sys.stderr.isatty())
@@ -81,7 +93,11 @@ def _command_run(args: argparse.Namespace) -> int:
         _error(str(err))
         return EXIT_INVALID
     progress.close()
-    write_results(result, out)
+    try:
+        written = write_results(result, out, reserved=True)
+    except OSError as err:
+        _error(f"could not write the results to {out}: {err}")
+        return EXIT_NUMERICS
     if not quiet:
         for warning in result.warnings:
             print(f"warning: {warning}", file=sys.stderr)
@@ -92,10 +108,10 @@ def _command_run(args: argparse.Namespace) -> int:
             f"{len(result.events)} stability changes in {seconds:.2f} s"
         )
         print(summary_table(result.event_records()))
-        print(f"results written to {out}/")
+        print(f"results written to {written}/")
         print(CAUTION)
     if result.status != "done":
-        _error(f"the computation stopped early: {result.message} (see {out / 'report.md'})")
+        _error(f"the computation stopped early: {result.message} (see {written / 'report.md'})")
         return EXIT_NUMERICS
     return EXIT_OK
 

@@ -28,6 +28,7 @@ STATUS_DONE = "done"  # reached the interval edge (or direction not requested)
 STATUS_MAX_POINTS = "max_points"  # stopped at steps.max_points
 STATUS_CLOSED = "closed"  # the branch closed on itself (an isola)
 STATUS_FAILED = "failed"  # numerical trouble; message says where and why
+STATUS_INTERRUPTED = "interrupted"  # stopped by Ctrl-C or SIGTERM; points so far kept
 
 
 @dataclass(frozen=True)

@@ -7,9 +7,9 @@ more than ``tables.MAX_STATE_COLUMNS`` states).
 
 from __future__ import annotations
 
+import contextlib
 import json
 import shutil
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -17,7 +17,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from branchline.results.records import RunResult
+from branchline.results.output_folder import (
+    FILES_KEY,
+    MARKER_KEY,
+    MARKER_VALUE,
+    STAGING_MARKER,
+    move_into_place,
+    new_staging,
+    read_marker,
+    remove_stale_staging,
+    reserve_output,
+)
+from branchline.results.records import STATUS_INTERRUPTED, RunResult
 
 # Full round-trip precision for binary64 (the contract: 17 significant digits).
 FLOAT_FORMAT = "%.17g"
@@ -45,45 +56,73 @@ def _json(data: Any, path: Path) -> None:
     path.write_text(json.dumps(data, indent=2, allow_nan=False) + "\n", encoding="utf-8")
 
 
-def write_results(result: RunResult, folder: str | Path, *, figures: bool = True) -> Path:
-    """Write every results file into ``folder``, replacing an earlier run there.
+def write_results(
+    result: RunResult, folder: str | Path, *, figures: bool = True, reserved: bool = False
+) -> Path:
+    """Write every results file, replacing an earlier branchline run in ``folder``.
 
-    The files are first written into a temporary sibling folder which is then
-    moved into place, so a crash never leaves a half-written results folder.
+    The files are written into a hidden staging folder beside ``folder`` that is
+    moved into place only when complete (:mod:`branchline.results.output_folder`),
+    so a crash never leaves a half-written results folder; a folder holding
+    anything branchline did not write is never replaced (OutputFolderError).
+    An interrupted run does not replace complete earlier results: it goes to
+    ``<folder>-interrupted`` instead (marked ``"status": "interrupted"``).
+
+    Parameters
+    ----------
+    reserved : bool
+        The caller already holds ``folder`` with :func:`reserve_output`.
+
+    Returns
+    -------
+    Path
+        The folder actually written.
     """
     folder = Path(folder)
-    folder.parent.mkdir(parents=True, exist_ok=True)
-    staging = Path(tempfile.mkdtemp(prefix=f".{folder.name}-", dir=folder.parent))
-    try:
-        points = result.points_frame()
-        events = result.event_records()
-        info = result.info()
-        _csv(points, staging / "points.csv")
-        _csv(result.events_frame(), staging / "events.csv")
-        _json({"events": events}, staging / "events.json")
-        _json(info, staging / "run.json")
-        if result.model.size > 20:
-            np.savez_compressed(
-                staging / "states.npz",
-                **{b.name: b.states for b in result.branches},
-                state_names=np.array(result.model.states),
-            )
-        from branchline.present.report import render_report
-
-        (staging / "report.md").write_text(render_report(points, events, info), encoding="utf-8")
-        if figures:
-            from branchline.present.plotting import bifurcation_figure, save_figure
-
-            figure = bifurcation_figure(points, events, info)
-            save_figure(figure, staging / "diagram.png")
-            save_figure(figure, staging / "diagram.svg")
-        if folder.exists():
-            shutil.rmtree(folder)
-        staging.rename(folder)
-    except BaseException:
-        shutil.rmtree(staging, ignore_errors=True)
-        raise
+    if result.status == STATUS_INTERRUPTED and _holds_complete_run(folder):
+        folder = folder.with_name(f"{folder.name}-interrupted")
+        reserved = False
+    with contextlib.nullcontext(folder) if reserved else reserve_output(folder):
+        remove_stale_staging(folder)
+        staging = new_staging(folder)
+        try:
+            _write_files(result, staging, figures)
+            move_into_place(staging, folder)
+        except BaseException:
+            shutil.rmtree(staging, ignore_errors=True)
+            raise
     return folder
+
+
+def _holds_complete_run(folder: Path) -> bool:
+    info = read_marker(folder) if folder.is_dir() else None
+    return bool(info) and info.get("status") != STATUS_INTERRUPTED
+
+
+def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
+    points = result.points_frame()
+    events = result.event_records()
+    info = result.info()
+    _csv(points, staging / "points.csv")
+    _csv(result.events_frame(), staging / "events.csv")
+    _json({"events": events}, staging / "events.json")
+    if result.model.size > 20:
+        np.savez_compressed(
+            staging / "states.npz",
+            **{b.name: b.states for b in result.branches},
+            state_names=np.array(result.model.states),
+        )
+    from branchline.present.report import render_report
+
+    (staging / "report.md").write_text(render_report(points, events, info), encoding="utf-8")
+    if figures:
+        from branchline.present.plotting import bifurcation_figure, save_figure
+
+        figure = bifurcation_figure(points, events, info)
+        save_figure(figure, staging / "diagram.png")
+        save_figure(figure, staging / "diagram.svg")
+    written = sorted(entry.name for entry in staging.iterdir() if entry.name != STAGING_MARKER)
+    _json({**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json")
 
 
 def _read_points(path: Path) -> pd.DataFrame:
