@@ -645,7 +645,7 @@ def test_max_points_may_be_an_integral_float():
 
 def test_bad_trace_steps_after_merging():
     data = bioreactor()
-    data["trace"][0]["steps"] = {"largest": 0.005}  # below the global initial 0.01
+    data["trace"][0]["steps"] = {"initial": 0.01, "largest": 0.005}
     refused(
         data,
         "trace[1].steps",
@@ -653,6 +653,9 @@ def test_bad_trace_steps_after_merging():
         "after merging over [steps]",
         "largest = 0.005",
     )
+    # a largest step alone below the first step lowers the (unset) first step
+    data["trace"][0]["steps"] = {"largest": 0.005}
+    assert scan_from_dict(data).traces[0].steps.initial == 0.005
     data["trace"][0]["steps"] = {"initial": -1}
     refused(data, "trace[1].steps.initial", "must be positive")
     data["trace"][0]["steps"] = 0.1

@@ -2,7 +2,8 @@
 
 Nothing numerical happens here; every command calls the Python API.
 Exit codes: 0 success, 2 invalid scan file (nothing written), 1 numerics
-failed part-way (what was computed is written and the report says why).
+failed part-way (what was computed is written and the report says why). A
+trace cut short by ``steps.max_points`` exits 0 with a warning on screen.
 """
 
 from __future__ import annotations
@@ -110,10 +111,29 @@ def _run_and_write(scan, out: Path, quiet: bool) -> int:
         print(summary_table(result.event_records()))
         print(f"results written to {written}/")
         print(CAUTION)
+    for line in cut_short(result.branches):
+        print(f"warning: {line}", file=sys.stderr)
     if result.status != "done":
         _error(f"the computation stopped early: {result.message} (see {written / 'report.md'})")
         return EXIT_NUMERICS
     return EXIT_OK
+
+
+def cut_short(branches) -> list[str]:
+    """One line per trace stopped by ``steps.max_points`` before its interval edge.
+
+    Exit-code policy: such a run still exits 0 (the cap is the user's own
+    setting and every point is written), but the cut is always said on screen,
+    even with ``--quiet``, as in report.md and run.json.
+    """
+    from branchline.results.records import STATUS_MAX_POINTS
+
+    return [
+        f"trace {b.name} was cut short by max_points before its interval edge ({b.message}); "
+        "raise [steps] max_points to follow it further"
+        for b in branches
+        if b.status == STATUS_MAX_POINTS
+    ]
 
 
 def _parse_settings(pairs: list[str], scan) -> dict[str, float]:

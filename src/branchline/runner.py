@@ -17,6 +17,7 @@ from branchline.events.locate import locate_events
 from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
 from branchline.problems.equilibrium_branch import trace_branch
+from branchline.problems.start_guess import start_distance
 from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
 
@@ -136,6 +137,15 @@ def _follow(
     return _TraceOutcome(branches, events)
 
 
+def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> str:
+    """A warning when the trace's start equilibrium lies far from its guess, else ""."""
+    if len(root) == 0:
+        return ""
+    start = int(np.argmin(np.abs(root.arclength)))
+    found = start_distance(tuple(model.states), guess, root.states[start])
+    return f"trace {name}: {found.text}" if found.far else ""
+
+
 def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
     """Run everything a validated scan asks for.
 
@@ -178,6 +188,9 @@ def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
             if not check.ok:
                 warnings.append(check.message)
         outcome = _follow(model, spec, parameters, x0, progress)
+        found = _start_warning(model, spec.name, x0, outcome.branches[0])
+        if found:
+            warnings.append(found)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
     failed = [b for b in branches if b.status == STATUS_FAILED]

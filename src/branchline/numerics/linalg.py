@@ -197,11 +197,13 @@ def initial_tangent(jacobian: object, parameter_sign: float = 1.0) -> Array:
     """
     size = jacobian.shape[1]
     order = [size - 1, *range(size - 1)]
+    last = np.zeros(size)
+    last[-1] = 1.0  # [G_u; b^T] z = e_{N+1}: G_u z = 0 and b . z = 1, whatever the border b
     for index in order:
         border = np.zeros(size)
         border[index] = 1.0
         try:
-            z = bordered_solve(jacobian, border, border)
+            z = bordered_solve(jacobian, border, last)
         except SingularMatrixError:
             continue
         z = z / norm(z)

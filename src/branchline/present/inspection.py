@@ -5,7 +5,13 @@ from __future__ import annotations
 import numpy as np
 
 from branchline.model.build import build_model
-from branchline.problems.equilibrium import linearize, solve_equilibrium
+from branchline.problems.equilibrium import (
+    HYPERBOLIC_RTOL,
+    Linearization,
+    linearize,
+    solve_equilibrium,
+)
+from branchline.problems.start_guess import start_distance
 from branchline.runner import start_vector
 from branchline.scan.loader import Scan
 
@@ -31,6 +37,29 @@ def _eigen_text(eigenvalues: np.ndarray) -> str:
     return "\n".join(lines)
 
 
+def hyperbolicity_lines(lin: Linearization) -> list[str]:
+    """The verdict and the one rule that decided it (the same rule decides the type)."""
+    rule = (
+        f"rule: an eigenvalue lies on the imaginary axis when |Re| <= {HYPERBOLIC_RTOL:g} |J| "
+        f"= {lin.axis_tolerance:.3g} (|J| = {lin.jacobian_norm:.6g}: the Frobenius norm of "
+        "df/dx, or of df/dp diag(p) / |x| when larger; rounding blurs eigenvalues by about 1e-16 |J|, and a point within rounding "
+        "of a fold has an eigenvalue of about 1e-8 |J|)"
+    )
+    if lin.hyperbolic:
+        verdict = (
+            "hyperbolic: yes - no eigenvalue on the imaginary axis, so the linearization "
+            "decides the local behaviour (Hartman-Grobman theorem)"
+        )
+    else:
+        nearest = lin.eigenvalues[int(np.argmin(np.abs(lin.eigenvalues.real)))]
+        verdict = (
+            f"hyperbolic: no - the eigenvalue {_eigen_text([nearest]).strip()} lies on the "
+            "imaginary axis, so the linearization does not decide the local behaviour; "
+            "nonlinear terms do"
+        )
+    return [verdict, rule]
+
+
 def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, bool]:
     """Solve for the equilibrium at the first trace's start guess and describe it.
 
@@ -54,6 +83,8 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
         f"equilibrium (Newton: {solution.iterations} iterations, "
         f"residual {solution.residual_norm:.2e}):"
     )
+    found = start_distance(tuple(model.states), x0, solution.state)
+    lines.append(f"  {'warning: ' if found.far else ''}{found.text}")
     if model.size <= 40:
         lines += [f"  {name} = {value:.15g}" for name, value in zip(model.states, solution.state)]
     else:
@@ -63,16 +94,7 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
         lines += ["", "Jacobian df/dx:", _matrix_text(np.asarray(lin.jacobian), model.states)]
     lines += ["", "eigenvalues (by decreasing real part):", _eigen_text(lin.eigenvalues)]
     lines += ["", f"type: {lin.kind.replace('_', ' ')}"]
-    if lin.hyperbolic:
-        lines.append(
-            "hyperbolic: yes - the linearization decides the local behaviour "
-            "(Hartman-Grobman theorem)"
-        )
-    else:
-        lines.append(
-            "hyperbolic: no - an eigenvalue lies on the imaginary axis, so the "
-            "linearization does not decide the local behaviour; nonlinear terms do"
-        )
+    lines += hyperbolicity_lines(lin)
     if getattr(lin, "description", ""):
         lines += ["", lin.description]
     return "\n".join(lines), True

@@ -49,11 +49,14 @@ SMALLEST_DAMPING = 2.0**-20
 SINGULAR_CONDITION = 1e14
 
 # --- Classification settings -----------------------------------------------
-# An eigenvalue whose real part is below this fraction of the spectral radius
-# counts as lying on the imaginary axis (non-hyperbolic). Eigenvalues of a
-# well-conditioned matrix are accurate to about eps * |J|; defective ones only
-# to about sqrt(eps) * |J|, so 1e-8 sits between the two.
-HYPERBOLIC_RTOL = 1e-8
+# The one hyperbolicity rule: an eigenvalue whose real part is at most this
+# fraction of |J| (the model's rates, :func:`rate_scale`) counts as lying on the
+# imaginary axis, and that single count decides both the type and the verdict.
+# Rounding leaves simple eigenvalues uncertain by about eps |J| (1e-16), but a
+# point given to rounding (relative eps) from a fold has an eigenvalue of about
+# sqrt(eps) |J| (1e-8), and defective eigenvalues are only good to that level:
+# 1e-7 calls both "on the axis" and keeps every larger real part decisive.
+HYPERBOLIC_RTOL = 1e-7
 # Relative tolerance for tau^2 - 4 Delta = 0 (stars and degenerate nodes) and
 # for equal eigenvalues.
 REPEATED_RTOL = 1e-8
@@ -125,6 +128,11 @@ class Linearization:
         Up to ``LEADING_COUNT`` eigenvalues with the largest real parts.
     description : str
         One or two plain sentences for a person.
+    axis_tolerance : float
+        The hyperbolicity rule's threshold: eigenvalues with |Re| at most this
+        lie on the imaginary axis (``HYPERBOLIC_RTOL`` times ``jacobian_norm``).
+    jacobian_norm : float
+        |J|, the yardstick of the rule (:func:`rate_scale`).
     """
 
     jacobian: Array
@@ -136,6 +144,8 @@ class Linearization:
     negative: int
     leading: Array
     description: str
+    axis_tolerance: float = 0.0
+    jacobian_norm: float = 0.0
     trace: float | None = None
     determinant: float | None = None
     notes: tuple[str, ...] = field(default_factory=tuple)
@@ -350,10 +360,27 @@ def linearize(model: Model, x: Array, p: Array) -> Linearization:
     else:
         jac_dense = jac.toarray() if linalg.is_sparse(jac) else np.asarray(jac, dtype=float)
         eigenvalues = linalg.dense_eigenvalues(jac_dense)
-    return classify(jac_dense if jac_dense is not None else jac, eigenvalues)
+    scale = rate_scale(jac, model.parameter_jacobian(x, p), x, p)
+    return classify(jac_dense if jac_dense is not None else jac, eigenvalues, scale)
 
 
-def classify(jacobian: Any, eigenvalues: Array | None = None) -> Linearization:
+def rate_scale(jac_x: Any, jac_p: Array, x: Array, p: Array) -> float:
+    """|J|: the rates of the model at (x, p), the yardstick of the hyperbolicity rule.
+
+    The Frobenius norm of f_x, or of f_p diag(p) / |x| (the rates at which
+    relative parameter changes move the state) when that is larger: at a fold
+    of a one-state model f_x itself vanishes, and the rule must still see the
+    model's own rates.
+    """
+    size = float(np.linalg.norm(x))
+    response = np.asarray(jac_p, dtype=float) * np.asarray(p, dtype=float)
+    through_parameters = float(np.linalg.norm(response)) / size if size > 0.0 else 0.0
+    return max(jacobian_norm(jac_x), through_parameters)
+
+
+def classify(
+    jacobian: Any, eigenvalues: Array | None = None, scale: float | None = None
+) -> Linearization:
     """Type of the linear system x' = J x from J (and its eigenvalues, if known).
 
     Planar systems use the trace tau and determinant Delta (Strogatz,
@@ -366,20 +393,21 @@ def classify(jacobian: Any, eigenvalues: Array | None = None) -> Linearization:
     if eigenvalues is None:
         eigenvalues = linalg.dense_eigenvalues(np.asarray(jacobian, dtype=float))
     eigenvalues = np.asarray(eigenvalues, dtype=complex)
-    scale = float(np.max(np.abs(eigenvalues))) if eigenvalues.size else 0.0
-    if not linalg.is_sparse(jacobian):
-        scale = max(scale, float(np.max(np.abs(jacobian))) if jacobian.size else 0.0)
+    if scale is None:
+        scale = jacobian_norm(jacobian)
     zero_tol = HYPERBOLIC_RTOL * scale
     positive, zero, negative = linalg.count_by_half_plane(eigenvalues, zero_tol)
     hyperbolic = zero == 0 and scale > 0.0
     leading = eigenvalues[:LEADING_COUNT]
     n = eigenvalues.shape[0]
     if n == 2 and not linalg.is_sparse(jacobian):
-        kind, tau, delta = _planar_kind(np.asarray(jacobian, dtype=float), scale)
+        kind, tau, delta = _planar_kind(np.asarray(jacobian, dtype=float), eigenvalues, zero_tol)
     else:
         kind, tau, delta = _general_kind(eigenvalues, positive, zero, negative, scale), None, None
     description = _describe(kind, eigenvalues, positive, zero, negative, hyperbolic)
     return Linearization(
+        axis_tolerance=zero_tol,
+        jacobian_norm=scale,
         jacobian=jacobian,
         eigenvalues=eigenvalues,
         kind=kind,
@@ -394,17 +422,29 @@ def classify(jacobian: Any, eigenvalues: Array | None = None) -> Linearization:
     )
 
 
-def _planar_kind(jac: Array, scale: float) -> tuple[str, float, float]:
+def jacobian_norm(jacobian: Any) -> float:
+    """|J|, the Frobenius norm of a dense or sparse Jacobian (0 for an empty one)."""
+    if linalg.is_sparse(jacobian):
+        import scipy.sparse.linalg as spla
+
+        return float(spla.norm(jacobian))
+    jacobian = np.asarray(jacobian, dtype=float)
+    return float(np.linalg.norm(jacobian)) if jacobian.size else 0.0
+
+
+def _planar_kind(jac: Array, eigenvalues: Array, zero_tol: float) -> tuple[str, float, float]:
+    """Strogatz's trace-determinant type; what lies on the axis decides as in :func:`classify`."""
     tau = float(jac[0, 0] + jac[1, 1])
     delta = float(jac[0, 0] * jac[1, 1] - jac[0, 1] * jac[1, 0])
+    scale = zero_tol / HYPERBOLIC_RTOL
     if scale == 0.0:
         return "zero_jacobian", tau, delta
-    if abs(delta) <= HYPERBOLIC_RTOL * scale**2:
+    if np.any(np.abs(eigenvalues) <= zero_tol):
         return "zero_eigenvalue", tau, delta
-    if delta < 0.0:
-        return "saddle", tau, delta
-    if abs(tau) <= HYPERBOLIC_RTOL * scale:
+    if np.any(np.abs(eigenvalues.real) <= zero_tol):
         return "centre", tau, delta
+    if eigenvalues[0].real > 0.0 > eigenvalues[-1].real:
+        return "saddle", tau, delta
     sign = "stable" if tau < 0.0 else "unstable"
     discriminant = tau * tau - 4.0 * delta
     if abs(discriminant) <= REPEATED_RTOL * scale**2:

@@ -49,6 +49,8 @@ def _csv(frame: pd.DataFrame, path: Path) -> None:
     for column in frame.columns:
         if frame[column].dtype == bool:
             frame[column] = frame[column].map({True: "true", False: "false"})
+        elif pd.api.types.is_float_dtype(frame[column].dtype):
+            frame[column] = frame[column] + 0.0  # -0.0 + 0.0 is +0.0: no "-0" in a table
     frame.to_csv(path, index=False, float_format=FLOAT_FORMAT)
 
 

@@ -22,6 +22,8 @@ Rules beyond the layout in ``interface.md``:
   states, parameters and definitions; observables may not use each other.
 - A trace's ``[trace.steps]`` replaces the entries of the global ``[steps]``
   it names; the merged settings need ``0 < smallest <= initial <= largest``.
+  An ``initial`` the table does not set is clipped into [smallest, largest]
+  (``largest = 0.005`` alone lowers the first step to 0.005).
 - Traces are named ``trace1``, ``trace2``, ... (1-based over all traces)
   unless named; names are unique and contain no ``.`` (kept for branches
   started at branch points: ``<trace>.1``, ...).
@@ -242,6 +244,11 @@ def _steps(check: Checker, value: object, path: str, base: StepSettings) -> Step
                 check.fail(key, f"must be positive, got {shown(table[name])}")
             lengths[name] = length
     settings = replace(base, **lengths)
+    if "initial" not in table:
+        # An unset first step follows the bounds the table sets (largest below it lowers it).
+        settings = replace(
+            settings, initial=min(max(settings.initial, settings.smallest), settings.largest)
+        )
     if "max_points" in table:
         settings = replace(
             settings, max_points=check.count(table["max_points"], f"{path}.max_points")
