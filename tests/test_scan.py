@@ -371,7 +371,6 @@ def test_unknown_key_in_trace_steps_and_python_table():
     [
         ("boundary", "two-parameter boundaries"),
         ("cycles", "periodic orbits"),
-        ("ensemble", "ensembles"),
     ],
 )
 def test_later_capabilities_are_not_available_yet(key, words):

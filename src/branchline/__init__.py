@@ -10,6 +10,7 @@ The public API, for scripts and notebooks::
     result.figure(); print(result.report())
     branchline.write_results(result, "runs/stock")              # the results folder
     saved = branchline.read_results("runs/stock")               # read back
+    batch = branchline.run_batch(["grid.toml"], "runs/grid")     # ensembles: .members, .events
 
 Names are imported lazily so that ``import branchline`` stays fast.
 """
@@ -30,6 +31,9 @@ _EXPORTS = {
     "Model": "branchline.model.build",
     "run_scan": "branchline.runner",
     "run": "branchline.api",
+    "run_batch": "branchline.batch.execute",
+    "read_batch": "branchline.batch.execute",
+    "BatchResult": "branchline.batch.execute",
     "write_results": "branchline.results.writers",
     "read_results": "branchline.results.writers",
     "SavedRun": "branchline.results.writers",

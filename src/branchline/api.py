@@ -5,6 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
+from branchline.errors import ScanError
 from branchline.results.records import RunResult
 from branchline.results.writers import write_results
 from branchline.runner import run_scan
@@ -47,6 +48,8 @@ def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None)
         scan = scan_from_dict(scan)
     elif not isinstance(scan, Scan):
         scan = load_scan(scan)
+    if scan.ensemble is not None:
+        raise ScanError(scan.source, "ensemble", "a scan with an ensemble runs with run_batch")
     result = run_scan(scan)
     if out is not None:
         write_results(result, out)

@@ -68,6 +68,9 @@ def _command_run(args: argparse.Namespace) -> int:
     except ScanError as err:
         _error(str(err))
         return EXIT_INVALID
+    if scan.ensemble is not None:
+        _error(f"{args.scan} has an [ensemble] section: run it with `branchline batch {args.scan}`")
+        return EXIT_INVALID
     out = Path(args.out) if args.out else Path("runs") / Path(args.scan).stem
     try:
         with reserve_output(out):
@@ -215,8 +218,9 @@ def _command_report(args: argparse.Namespace) -> int:
 
 
 def _command_batch(args: argparse.Namespace) -> int:
-    _error("batch runs are not available in this version; run each scan with `branchline run`")
-    return EXIT_INVALID
+    from branchline.batch.command import command_batch
+
+    return command_batch(args)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -253,12 +257,15 @@ def build_parser() -> argparse.ArgumentParser:
     report.add_argument("folder")
     report.set_defaults(handler=_command_report)
 
-    batch = sub.add_parser("batch", help="run many scans")
-    batch.add_argument("scans", nargs="+")
-    batch.add_argument("--out")
-    batch.add_argument("--jobs", type=int, default=1)
-    batch.add_argument("--cluster")
-    batch.add_argument("--quiet", action="store_true")
+    batch = sub.add_parser(
+        "batch", help="run many scans and their ensembles, locally or on a Dask cluster"
+    )
+    batch.add_argument("scans", nargs="+", help="scan files; each [ensemble] is expanded")
+    batch.add_argument("--out", help="batch folder (default runs/<first scan stem>-batch/)")
+    batch.add_argument("--jobs", type=int, help="local worker processes (default: the cores)")
+    batch.add_argument("--cluster", metavar="ADDRESS", help="run on the Dask scheduler there")
+    batch.add_argument("--resume", action="store_true", help="continue the batch in --out")
+    batch.add_argument("--quiet", action="store_true", help="no progress and no summary")
     batch.set_defaults(handler=_command_batch)
     return parser
 

@@ -146,7 +146,9 @@ def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> 
     return f"trace {name}: {found.text}" if found.far else ""
 
 
-def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
+def run_scan(
+    scan: Scan, *, progress: Progress | None = None, model: Model | None = None
+) -> RunResult:
     """Run everything a validated scan asks for.
 
     Parameters
@@ -155,6 +157,9 @@ def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
         From :func:`branchline.scan.loader.load_scan` or :func:`branchline.scan.loader.scan_from_dict`.
     progress : callable (trace name, points so far) -> None, optional
         Called as points are computed (the command line's progress display).
+    model : Model, optional
+        The scan's model already compiled (a batch compiles it once per worker);
+        its ``defaults`` must be the scan's parameter values.
 
     Returns
     -------
@@ -175,7 +180,8 @@ def run_scan(scan: Scan, *, progress: Progress | None = None) -> RunResult:
     ['fold']
     """
     started = time.perf_counter()
-    model = build_model(scan.model, source=scan.source)
+    if model is None:
+        model = build_model(scan.model, source=scan.source)
     compiled = time.perf_counter()
     warnings = []
     branches: list[Branch] = []

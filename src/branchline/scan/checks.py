@@ -30,7 +30,6 @@ FILE_KEY = "(file)"
 NOT_YET_AVAILABLE = {
     "boundary": "two-parameter boundaries ([[boundary]])",
     "cycles": "periodic orbits ([[cycles]])",
-    "ensemble": "ensembles ([ensemble])",
 }
 
 # Column names of the result tables; a state, parameter or observable of the same

@@ -40,8 +40,9 @@ Rules beyond the layout in ``interface.md``:
   else the parameter's default.
 - ``[model.python]`` functions are only checked for the ``"module:function"``
   shape here; importing them is :mod:`branchline.model.python`' job.
-- ``[[boundary]]``, ``[[cycles]]`` and ``[ensemble]`` are refused as not
-  available in this version.
+- ``[ensemble]`` (run the scan for many parameter sets with ``branchline
+  batch``) is read by :mod:`branchline.scan.ensemble_section`.
+- ``[[boundary]]`` and ``[[cycles]]`` are refused as not available in this version.
 """
 
 from __future__ import annotations
@@ -61,6 +62,7 @@ from branchline.scan.checks import (
     shown,
     suggestion,
 )
+from branchline.scan.ensemble_section import EnsembleSpec, read_ensemble
 from branchline.scan.model_section import (
     ExpressionModelSpec,
     PythonModelSpec,
@@ -116,6 +118,7 @@ class Scan:
     traces: tuple[TraceSpec, ...]
     steps: StepSettings = field(default_factory=StepSettings)
     raw: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+    ensemble: EnsembleSpec | None = None  # [ensemble]: run with `branchline batch`
 
     @property
     def stem(self) -> str:
@@ -202,6 +205,9 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
     model = read_model(check, data["model"])
     steps = _steps(check, data.get("steps", {}), "steps", StepSettings())
     traces = _traces(check, data.get("trace"), model, steps)
+    ensemble = None
+    if "ensemble" in data:
+        ensemble = read_ensemble(check, data["ensemble"], model.parameters, _fixed(traces))
     return Scan(
         source=str(source),
         title=title,
@@ -209,10 +215,21 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         traces=traces,
         steps=steps,
         raw=copy.deepcopy(data),
+        ensemble=ensemble,
     )
 
 
-TOP_KEYS = ("title", "model", "trace", "steps")
+def _fixed(traces: tuple[TraceSpec, ...]) -> dict[str, str]:
+    """Parameter -> the trace key that varies or sets it (not an ensemble parameter)."""
+    fixed: dict[str, str] = {}
+    for index, trace in enumerate(traces, start=1):
+        fixed.setdefault(trace.vary, f"trace[{index}].vary")
+        for name in trace.set:
+            fixed.setdefault(name, f"trace[{index}].set")
+    return fixed
+
+
+TOP_KEYS = ("title", "model", "trace", "steps", "ensemble")
 TRACE_KEYS = (
     "name",
     "vary",

@@ -1,0 +1,262 @@
+"""Run a batch: plan the members, run them on a backend, save, aggregate, report.
+
+One loop for every backend (:mod:`branchline.batch.backends`): at most a few
+members per worker slot are in flight; each finished member is saved at once
+(so an interruption loses only the members still running), a failed member is
+recorded with its error, and the aggregated tables and report are written at
+the end of every run, complete or interrupted.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from collections.abc import Callable, Sequence
+from concurrent.futures import FIRST_COMPLETED, Future, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from branchline import __version__
+from branchline.batch import folder as disk
+from branchline.batch.backends import open_backend
+from branchline.batch.member import STATUS_FAILED, MemberOutcome, run_member
+from branchline.batch.plan import MemberPlan, ensemble_parameters, plan_batch
+from branchline.batch.tables import events_frame, margins_frame, members_frame, write_table
+from branchline.scan.loader import Scan, load_scan, scan_from_dict
+
+# Members in flight per worker slot: enough to keep every worker busy while the
+# batch saves a finished one, few enough that an interruption loses little.
+IN_FLIGHT_PER_SLOT = 2
+
+# progress(finished, to_run, failed, elapsed seconds): after every member of this run.
+BatchProgress = Callable[[int, int, int, float], None]
+
+
+@dataclass(frozen=True)
+class BatchResult:
+    """A batch's aggregated tables and how the run went.
+
+    ``complete`` is False when the run was interrupted (Ctrl-C, a lost worker,
+    or ``limit``) before every member finished; ``message`` then says how to
+    continue (``--resume``).
+    """
+
+    folder: Path
+    members: pd.DataFrame
+    events: pd.DataFrame
+    margins: pd.DataFrame
+    total: int  # members in the batch
+    complete: bool
+    message: str
+    info: dict[str, Any]
+
+    @property
+    def failed(self) -> int:
+        """Finished members whose status is failed."""
+        return int((self.members["status"] == STATUS_FAILED).sum())
+
+
+def _load(scan: str | Path | dict | Scan) -> Scan:
+    if isinstance(scan, Scan):
+        return scan
+    if isinstance(scan, dict):
+        return scan_from_dict(scan)
+    return load_scan(scan)
+
+
+def _lost(plan: MemberPlan, error: BaseException) -> MemberOutcome:
+    """The outcome of a member whose task itself failed on the backend."""
+    return MemberOutcome(
+        member=plan.member,
+        status=STATUS_FAILED,
+        seconds=0.0,
+        error=f"the worker failed: {type(error).__name__}: {error}",
+        files={},
+        events=(),
+        margins=(),
+        worker="",
+        built_model=False,
+    )
+
+
+def _run_members(
+    todo: list[MemberPlan],
+    scans: list[Scan],
+    save: Callable[[MemberOutcome, MemberPlan], None],
+    backend,
+    progress: BatchProgress | None,
+) -> str:
+    """Run ``todo`` on ``backend``, saving each as it finishes; "" or why it stopped early."""
+    started = time.perf_counter()
+    pending: dict[Future, MemberPlan] = {}
+    queue = list(reversed(todo))
+    finished = failed = 0
+    try:
+        while queue or pending:
+            while queue and len(pending) < IN_FLIGHT_PER_SLOT * backend.slots:
+                plan = queue.pop()
+                pending[backend.executor.submit(run_member, scans[plan.scan], plan)] = plan
+            done, _ = wait(pending, return_when=FIRST_COMPLETED)
+            for future in sorted(done, key=lambda f: pending[f].member):
+                plan = pending.pop(future)
+                try:
+                    outcome = future.result()
+                except BrokenProcessPool:
+                    raise
+                except Exception as error:  # the task never ran to its end on the worker
+                    outcome = _lost(plan, error)
+                save(outcome, plan)
+                finished += 1
+                failed += outcome.status == STATUS_FAILED
+                if progress:
+                    progress(finished, len(todo), failed, time.perf_counter() - started)
+    except KeyboardInterrupt:
+        reason = "interrupted"
+    except BrokenProcessPool:
+        reason = "a worker process died"
+    else:
+        return ""
+    for future in pending:
+        future.cancel()
+    return reason
+
+
+def run_batch(
+    scans: Sequence[str | Path | dict | Scan],
+    out: str | Path,
+    *,
+    jobs: int | None = None,
+    cluster: str | None = None,
+    resume: bool = False,
+    progress: BatchProgress | None = None,
+    limit: int | None = None,
+) -> BatchResult:
+    """Run every member of the scans' ensembles and write the batch folder ``out``.
+
+    Parameters
+    ----------
+    scans : sequence of paths, dicts or Scans
+        A scan without ``[ensemble]`` is one member.
+    out : path
+        The batch folder (must be new or empty unless ``resume``).
+    jobs : int, optional
+        Local worker processes (default: the number of cores; 1 runs the
+        members in this process). Ignored with ``cluster``.
+    cluster : str, optional
+        Address of a Dask scheduler (``tcp://host:8786``): run there instead.
+    resume : bool
+        Continue the batch in ``out``, skipping its finished members.
+    progress : callable, optional
+        ``progress(finished, to_run, failed, elapsed_seconds)`` after each member.
+    limit : int, optional
+        Run at most this many unfinished members now (the rest with ``resume``).
+
+    Returns
+    -------
+    BatchResult
+        The aggregated tables as DataFrames. Ctrl-C during the run stops it;
+        the members finished so far are kept and tabled, and ``complete`` is False.
+
+    Raises
+    ------
+    ScanError
+        An invalid scan (nothing is written).
+    BatchFolderError, BackendError
+        ``out`` cannot be used as asked, or the backend cannot be opened.
+    """
+    loaded = [_load(scan) for scan in scans]
+    plan = plan_batch(loaded)
+    folder = Path(out)
+    sources = [scan.source for scan in loaded]
+
+    def save(outcome: MemberOutcome, member: MemberPlan) -> None:
+        disk.save_member(folder, outcome, member, sources[member.scan], len(plan))
+
+    started = time.perf_counter()
+    with open_backend(jobs, cluster) as backend:  # first: a backend error writes nothing
+        finished = disk.prepare(folder, disk.plan_document(sources, plan), resume)
+        disk.clear_staging(folder)
+        todo = [member for member in plan if member.member not in finished]
+        stopped = _run_members(todo[:limit], loaded, save, backend, progress)
+        where = backend.description
+    return _conclude(folder, loaded, plan, stopped, where, time.perf_counter() - started)
+
+
+def _conclude(
+    folder: Path, scans: list[Scan], plan, stopped: str, where: str, seconds: float
+) -> BatchResult:
+    records = disk.read_member_records(folder)
+    parameters = ensemble_parameters(scans)
+    members = members_frame(records, parameters)
+    events = events_frame(records, parameters)
+    margins = margins_frame(records)
+    complete = len(records) == len(plan)
+    message = ""
+    if not complete:
+        why = stopped or "stopped at the member limit"
+        message = (
+            f"{why}: {len(records)} of {len(plan)} members finished; "
+            "run the same command with --resume to continue"
+        )
+    builds: dict[str, int] = {}
+    for record in records:
+        if record.get("built_model"):
+            builds[record["worker"]] = builds.get(record["worker"], 0) + 1
+    info = {
+        "branchline_version": __version__,
+        "scans": [scan.source for scan in scans],
+        "ensemble_parameters": parameters,
+        "members": len(plan),
+        "finished": len(records),
+        "failed": int((members["status"] == STATUS_FAILED).sum()),
+        "complete": complete,
+        "message": message,
+        "backend": where,
+        "seconds_this_run": seconds,
+        "model_builds_by_worker": builds,
+    }
+    written = []
+    for frame, name in ((members, "members"), (events, "events"), (margins, "margins")):
+        written += write_table(frame, folder, name)
+    info["tables"] = written
+    from branchline.batch.report import write_report
+
+    info["report"] = write_report(folder, scans, members, events, margins)
+    (folder / "batch.json").write_text(json.dumps(info, indent=2) + "\n", encoding="utf-8")
+    return BatchResult(folder, members, events, margins, len(plan), complete, message, info)
+
+
+def read_batch(out: str | Path) -> BatchResult:
+    """A batch folder's aggregated tables, read back from its member records.
+
+    Raises
+    ------
+    BatchFolderError
+        If ``out`` holds no batch (no plan.json).
+    """
+    folder = Path(out)
+    try:
+        plan = json.loads((folder / disk.PLAN_FILE).read_text(encoding="utf-8"))
+        info = json.loads((folder / "batch.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError) as error:
+        raise disk.BatchFolderError(f"{folder}: not a batch folder ({error})") from None
+    records = disk.read_member_records(folder)
+    parameters = list(info.get("ensemble_parameters", []))
+    total = len(plan["members"])
+    return BatchResult(
+        folder=folder,
+        members=members_frame(records, parameters),
+        events=events_frame(records, parameters),
+        margins=margins_frame(records),
+        total=total,
+        complete=len(records) == total,
+        message=str(info.get("message", "")),
+        info=info,
+    )
+
+
+__all__ = ["BatchProgress", "BatchResult", "read_batch", "run_batch"]

@@ -1,0 +1,169 @@
+"""One member of a batch, run wherever a worker runs it.
+
+:func:`run_member` is the one task every backend executes (the calling process
+with ``--jobs 1``, a local process pool, or a Dask worker). It compiles the
+scan's model once per worker process (kept in :data:`_MODELS`), runs the
+member's scan with its ensemble values as parameter defaults, and returns
+everything the batch keeps as plain picklable data: the bytes of the member's
+results folder (so workers on other machines need no shared disk), its
+events.csv rows and its operating margins. It never raises for a failing
+member: the error becomes the outcome's ``status`` and ``error``.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import socket
+import tempfile
+import threading
+import time
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
+
+from branchline.batch.plan import MemberPlan
+from branchline.model.build import Model, build_model
+from branchline.results.margins import operating_margins
+from branchline.results.writers import write_results
+from branchline.runner import run_scan
+from branchline.scan.loader import Scan
+
+STATUS_DONE = "done"
+STATUS_FAILED = "failed"
+
+# Compiled models of this worker process, by scan model: compiling is the
+# costly part of a small scan, and every member of a scan shares its model.
+_MODELS: dict[str, Model] = {}
+_MODELS_LOCK = threading.Lock()  # Dask workers may run several members in threads
+
+
+@dataclass(frozen=True)
+class MemberOutcome:
+    """What one member produced (plain data, sent back from the worker)."""
+
+    member: int
+    status: str  # "done" or "failed"
+    seconds: float  # wall time on the worker, run and results files
+    error: str  # why it failed; empty when done
+    files: dict[str, bytes]  # the member's results folder, file name -> content
+    events: tuple[dict[str, Any], ...]  # its events.csv rows (None for empty cells)
+    margins: tuple[dict[str, Any], ...]  # operating margin of each scanned trace
+    worker: str  # host:pid of the worker process
+    built_model: bool  # True if this member compiled the model (first on its worker)
+
+
+def member_scan(scan: Scan, values: dict[str, float]) -> Scan:
+    """The scan of one member: ``values`` become parameter defaults, no ensemble."""
+    parameters = {**scan.model.parameters, **values}
+    return replace(scan, model=replace(scan.model, parameters=parameters), ensemble=None)
+
+
+def _model_key(scan: Scan) -> str:
+    return repr((scan.source, scan.model))
+
+
+def compiled_model(scan: Scan) -> tuple[Model, bool]:
+    """This worker's compiled model of ``scan`` and whether it was compiled just now."""
+    key = _model_key(scan)
+    with _MODELS_LOCK:
+        if key in _MODELS:
+            return _MODELS[key], False
+        model = build_model(scan.model, source=scan.source)
+        _MODELS[key] = model
+        return model, True
+
+
+def _finite(value: Any) -> Any:
+    """NaN -> None, numpy scalars -> Python ones: a JSON-ready table cell."""
+    if hasattr(value, "item"):
+        value = value.item()
+    if isinstance(value, float) and math.isnan(value):
+        return None
+    return value
+
+
+def _margin_rows(result) -> tuple[dict[str, Any], ...]:
+    rows = []
+    info = result.info()
+    for margin in operating_margins(result.points_frame(), result.event_records(), info):
+        sides = {"below": margin.decreasing, "above": margin.increasing}
+        distances = {k: side.absolute for k, side in sides.items()}
+        near = min((k for k in sides if distances[k] is not None), key=distances.get, default=None)
+        rows.append(
+            {
+                "trace": margin.trace,
+                "vary": margin.vary,
+                "start_value": margin.start_value,
+                "stable": margin.stable,
+                "below": distances["below"],
+                "above": distances["above"],
+                "margin": distances[near] if near else None,
+                "nearest": sides[near].event["kind"] if near else None,
+            }
+        )
+    return tuple(rows)
+
+
+def _folder_bytes(result) -> dict[str, bytes]:
+    """The member's results folder (no diagrams: ``branchline plot`` draws one) as bytes."""
+    with tempfile.TemporaryDirectory(prefix="branchline-member-") as scratch:
+        folder = write_results(result, Path(scratch) / "member", figures=False)
+        return {path.name: path.read_bytes() for path in sorted(folder.iterdir())}
+
+
+def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
+    """Run one member of a batch; a failure is recorded, never raised.
+
+    Parameters
+    ----------
+    scan : Scan
+        The batch's scan (its ``[ensemble]`` is ignored here).
+    plan : MemberPlan
+        The member's number and ensemble values.
+
+    Returns
+    -------
+    MemberOutcome
+        ``status`` "failed" with ``error`` when the scan stopped on numerical
+        trouble (its partial results are kept) or raised (no files then).
+    """
+    started = time.perf_counter()
+    worker = f"{socket.gethostname()}:{os.getpid()}"
+    built = False
+    try:
+        model, built = compiled_model(scan)
+        own = member_scan(scan, plan.values)
+        result = run_scan(own, model=replace(model, defaults=model.parameter_vector(plan.values)))
+        events = tuple(
+            {k: _finite(v) for k, v in row.items()}
+            for row in result.events_frame().to_dict(orient="records")
+        )
+        files, margins = _folder_bytes(result), _margin_rows(result)
+    except Exception as error:  # any member's failure is recorded; the batch goes on
+        return MemberOutcome(
+            member=plan.member,
+            status=STATUS_FAILED,
+            seconds=time.perf_counter() - started,
+            error=f"{type(error).__name__}: {error}",
+            files={},
+            events=(),
+            margins=(),
+            worker=worker,
+            built_model=built,
+        )
+    failed = result.status != "done"
+    return MemberOutcome(
+        member=plan.member,
+        status=STATUS_FAILED if failed else STATUS_DONE,
+        seconds=time.perf_counter() - started,
+        error=result.message if failed else "",
+        files=files,
+        events=events,
+        margins=margins,
+        worker=worker,
+        built_model=built,
+    )
+
+
+__all__ = ["STATUS_DONE", "STATUS_FAILED", "MemberOutcome", "compiled_model", "run_member"]
