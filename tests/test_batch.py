@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 
 import numpy as np
 import pandas as pd
@@ -31,12 +32,13 @@ STOCK = {
     "ensemble": {"grid": {"r": [0.5, 0.7], "h": {"from": 0.1, "to": 0.14, "count": 3}}},
 }
 
-# x' = a - x^2 + mu x has no equilibrium at all for mu = 0 when a < 0, so the
-# member with a = -1 fails at its start guess while the others trace a fold.
+# x' = mu + b - x^2 has a fold at mu = -b, x = 0 (the saddle-node normal form), and
+# no equilibrium at all at its start mu = 0 when b < 0: the member with b = -1 fails
+# at its start guess while the others locate their fold.
 FRAGILE = {
-    "model": {"parameters": {"a": 1.0, "mu": 0.0}, "equations": {"x": "a - x^2 + mu*x"}},
+    "model": {"parameters": {"b": 1.0, "mu": 0.0}, "equations": {"x": "mu + b - x^2"}},
     "trace": [{"name": "root", "vary": "mu", "interval": [-3.0, 3.0], "start": {"x": 1.0}}],
-    "ensemble": {"grid": {"a": [1.0, -1.0, 4.0]}},
+    "ensemble": {"grid": {"b": [1.0, -1.0, 2.0]}},
 }
 
 
@@ -101,14 +103,14 @@ def test_grid_batch_events_agree_exactly_with_single_runs(tmp_path):
 
 def test_failing_member_is_recorded_and_the_others_complete(tmp_path):
     result = branchline.run_batch([FRAGILE], tmp_path / "fragile", jobs=1)
-    status = dict(zip(result.members["a"], result.members["status"]))
-    assert status == {1.0: "done", -1.0: "failed", 4.0: "done"}
-    error = result.members.loc[result.members["a"] == -1.0, "error"].item()
+    status = dict(zip(result.members["b"], result.members["status"]))
+    assert status == {1.0: "done", -1.0: "failed", 2.0: "done"}
+    error = result.members.loc[result.members["b"] == -1.0, "error"].item()
     assert "no equilibrium found at the start" in error
-    # The survivors' folds: mu x = x^2 - a has a double root where mu^2 = -4a ... none
-    # for a > 0 on the real line, so their folds come from x' = 0 with 2x = mu:
-    # a - x^2 + 2x^2 = 0 has no real root either; the trace runs without events.
-    assert set(result.events["member"]) <= {1, 3}
+    folds = result.events.set_index("member")
+    assert list(folds.index) == [1, 3] and list(folds["kind"]) == ["fold", "fold"]
+    np.testing.assert_allclose(folds["mu"], [-1.0, -2.0], rtol=1e-12)
+    np.testing.assert_allclose(folds["x"], [0.0, 0.0], atol=1e-8)
     report = (tmp_path / "fragile" / "report.md").read_text()
     assert "## Failed members" in report and "no equilibrium found" in report
     assert "Results describe the model" in report
@@ -159,6 +161,65 @@ def test_local_processes_match_this_process_and_compile_once_per_worker(tmp_path
     assert 1 <= len(builds) <= 2 and all(count <= 2 for count in builds.values())
     assert sum(builds.values()) < len(pool.members)
     assert sum(inline.info["model_builds_by_worker"].values()) <= 2  # 0 if compiled earlier here
+
+
+def test_a_killed_worker_stops_the_batch_and_resume_finishes_it(tmp_path):
+    from batch_models import doom_flag
+
+    token = os.getpid()
+    scan = {
+        "model": {
+            "parameters": {"a": 1.0, "mu": 0.0, "doom": 0.0},
+            "python": {"rhs": "batch_models:rhs", "size": 1},
+        },
+        "trace": [{"vary": "mu", "interval": [-1.0, 1.0], "start": {"x0": 1.0}}],
+        "ensemble": {"grid": {"a": [1.0, 4.0], "doom": [0.0, float(token)]}},
+    }
+    whole = branchline.run_batch([scan], tmp_path / "whole", jobs=1)
+    assert whole.complete and whole.failed == 0
+    doom_flag(token).touch()
+    try:
+        broken = branchline.run_batch([scan], tmp_path / "parts", jobs=2)
+    finally:
+        doom_flag(token).unlink()
+    assert not broken.complete and broken.message.startswith("a worker process died")
+    assert 2 not in set(broken.members["member"])  # the member that killed its worker
+    resumed = branchline.run_batch([scan], tmp_path / "parts", jobs=2, resume=True)
+    assert resumed.complete
+    for name in ("members", "events", "margins"):
+        got, expected = getattr(resumed, name), getattr(whole, name)
+        pd.testing.assert_frame_equal(comparable(got), comparable(expected), check_exact=True)
+
+
+def test_tables_are_also_parquet_exactly_when_pyarrow_is_installed(tmp_path):
+    from branchline.batch.tables import parquet_available
+
+    result = branchline.run_batch([FRAGILE], tmp_path / "p", jobs=1)
+    written = sorted(path.name for path in (tmp_path / "p").glob("*.parquet"))
+    if parquet_available():
+        assert written == ["events.parquet", "margins.parquet", "members.parquet"]
+        back = pd.read_parquet(tmp_path / "p" / "events.parquet")
+        np.testing.assert_array_equal(back["mu"].to_numpy(), result.events["mu"].to_numpy())
+    else:
+        assert written == []
+
+
+def test_progress_line_counts_members_and_estimates_time_left(capsys, monkeypatch):
+    from branchline.batch import command
+
+    clock = iter([100.0, 101.0, 102.0])
+    monkeypatch.setattr(command.time, "monotonic", lambda: next(clock))
+    line = command.BatchProgressLine(enabled=True)
+    line(1, 4, 0, 3.0)  # 3 s for the first member: about 9 s for the other three
+    line(2, 4, 1, 4.0)
+    line.close()
+    err = capsys.readouterr().err
+    assert "members 1/4, 0 failed, about 0:09 left" in err
+    assert "members 2/4, 1 failed, about 0:04 left" in err
+    silent = command.BatchProgressLine(enabled=False)
+    silent(1, 4, 0, 3.0)
+    silent.close()
+    assert capsys.readouterr().err == ""
 
 
 # --------------------------------------------------------------------------- sampling
@@ -332,9 +393,9 @@ def test_batch_command_runs_fails_clearly_and_resumes(tmp_path, monkeypatch, cap
     assert code == 2 and "--resume" in err
     code, out, err = cli(capsys, "batch", "fragile.toml", "--resume", "--quiet")
     assert code == 1 and out == ""
-    (tmp_path / "bad.toml").write_text(toml_text(FRAGILE).replace("a = [", "b = ["))
+    (tmp_path / "bad.toml").write_text(toml_text(FRAGILE).replace("b = [", "c = ["))
     code, out, err = cli(capsys, "batch", "bad.toml")
-    assert code == 2 and "ensemble.grid.b" in err
+    assert code == 2 and "ensemble.grid.c" in err
     assert not (tmp_path / "runs" / "bad-batch").exists()
     code, out, err = cli(capsys, "batch", "fragile.toml", "--jobs", "0", "--out", "zero")
     assert code == 2 and "--jobs must be at least 1" in err

@@ -68,13 +68,14 @@ def clopper_pearson(hits: int, trials: int, confidence: float = CONFIDENCE) -> P
     return Probability(hits, trials, hits / trials, low, high)
 
 
-def scan_members(members: pd.DataFrame, source: str) -> pd.DataFrame:
-    """The finished members of one scan whose status is done."""
-    return members[(members["scan"] == source) & (members["status"] == "done")]
+def scan_members(members: pd.DataFrame, numbers: Sequence[int]) -> pd.DataFrame:
+    """The finished members among ``numbers`` (one scan's) whose status is done."""
+    return members[members["member"].isin(list(numbers)) & (members["status"] == "done")]
 
 
 def event_locations(events: pd.DataFrame, scan: Scan, members: Sequence[int]) -> pd.DataFrame:
-    """One row per event of the given members: ``member``, ``label``, ``location``.
+    """One row per event of the given members: ``member``, ``label``, ``parameter``
+    (the trace's varied parameter) and ``location`` (its value at the event).
 
     Labels follow trace order within each member (see the module docstring).
     """
@@ -92,10 +93,11 @@ def event_locations(events: pd.DataFrame, scan: Scan, members: Sequence[int]) ->
                 {
                     "member": member,
                     "label": f"{kind} {number} on {trace}",
+                    "parameter": parameter,
                     "location": float(row[parameter]),
                 }
             )
-    return pd.DataFrame(rows, columns=["member", "label", "location"])
+    return pd.DataFrame(rows, columns=["member", "label", "parameter", "location"])
 
 
 def location_summary(locations: pd.DataFrame, members: int) -> pd.DataFrame:
@@ -107,6 +109,7 @@ def location_summary(locations: pd.DataFrame, members: int) -> pd.DataFrame:
         rows.append(
             {
                 "label": label,
+                "parameter": group["parameter"].iloc[0],
                 "members": len(values),
                 "share": len(values) / members if members else math.nan,
                 "min": float(values.min()),

@@ -225,7 +225,7 @@ def _conclude(
     info["tables"] = written
     from branchline.batch.report import write_report
 
-    info["report"] = write_report(folder, scans, members, events, margins)
+    info["report"] = write_report(folder, scans, plan, members, events, margins)
     (folder / "batch.json").write_text(json.dumps(info, indent=2) + "\n", encoding="utf-8")
     return BatchResult(folder, members, events, margins, len(plan), complete, message, info)
 

@@ -27,6 +27,7 @@ from branchline.batch.analysis import (
     rank_correlations,
     scan_members,
 )
+from branchline.batch.plan import MemberPlan
 from branchline.present.report import CAUTION
 from branchline.scan.loader import Scan
 
@@ -93,18 +94,19 @@ def _grid_figure(scan: Scan, locations: pd.DataFrame, members: pd.DataFrame, pat
     figure, axes = plt.subplots(1, len(labels), figsize=(4.2 * len(labels), 3.6), squeeze=False)
     for ax, label in zip(axes[0], labels):
         rows = table[table["label"] == label]
+        where = f"{rows['parameter'].iloc[0]} at the event" if len(rows) else "location"
         if len(axes_names) == 1:
             ordered = rows.sort_values(axes_names[0])
             ax.plot(ordered[axes_names[0]], ordered["location"], marker="o", color="#2a6f97")
             ax.set_xlabel(axes_names[0])
-            ax.set_ylabel("location")
+            ax.set_ylabel(where)
         else:
             x_values, y_values = scan.ensemble.grid[0][1], scan.ensemble.grid[1][1]
             grid = np.full((len(y_values), len(x_values)), np.nan)
             for x, y, value in zip(rows[axes_names[0]], rows[axes_names[1]], rows["location"]):
                 grid[list(y_values).index(y), list(x_values).index(x)] = value
             image = ax.pcolormesh(x_values, y_values, grid, shading="nearest", cmap="viridis")
-            figure.colorbar(image, ax=ax, label="location")
+            figure.colorbar(image, ax=ax, label=where)
             ax.set_xlabel(axes_names[0])
             ax.set_ylabel(axes_names[1])
         ax.set_title(label, fontsize=9)
@@ -123,10 +125,11 @@ def _sample_figure(locations: pd.DataFrame, path: Path):
         return None
     figure, axes = plt.subplots(1, len(labels), figsize=(4.2 * len(labels), 3.4), squeeze=False)
     for ax, label in zip(axes[0], labels):
-        values = locations.loc[locations["label"] == label, "location"].to_numpy(dtype=float)
+        rows = locations[locations["label"] == label]
+        values = rows["location"].to_numpy(dtype=float)
         ax.hist(values, bins="auto", color="#8a5a44", edgecolor="white")
         ax.set_title(label, fontsize=9)
-        ax.set_xlabel("location")
+        ax.set_xlabel(f"{rows['parameter'].iloc[0]} at the event")
         ax.set_ylabel("members")
     figure.tight_layout()
     figure.savefig(path, dpi=110)
@@ -138,11 +141,12 @@ def _scan_section(
     folder: Path,
     scan: Scan,
     figure_name: str,
+    planned: Sequence[int],
     members: pd.DataFrame,
     events: pd.DataFrame,
     margins: pd.DataFrame,
 ) -> tuple[list[str], list[str]]:
-    chosen = scan_members(members, scan.source)
+    chosen = scan_members(members, planned)
     numbers = chosen["member"].tolist()
     locations = event_locations(events, scan, numbers)
     lines = [
@@ -224,6 +228,7 @@ def _figure_names(scans: Sequence[Scan]) -> list[str]:
 def write_report(
     folder: Path,
     scans: Sequence[Scan],
+    plan: Sequence[MemberPlan],
     members: pd.DataFrame,
     events: pd.DataFrame,
     margins: pd.DataFrame,
@@ -240,8 +245,9 @@ def write_report(
     ]
     lines += _failed_lines(members)
     written = ["report.md"]
-    for scan, name in zip(scans, _figure_names(scans)):
-        section, figures = _scan_section(folder, scan, name, members, events, margins)
+    for index, (scan, name) in enumerate(zip(scans, _figure_names(scans))):
+        planned = [m.member for m in plan if m.scan == index]
+        section, figures = _scan_section(folder, scan, name, planned, members, events, margins)
         lines += section
         written += figures
     lines += ["---", "", f"**Caution.** {CAUTION}", ""]

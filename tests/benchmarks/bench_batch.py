@@ -1,0 +1,113 @@
+"""Batch throughput and overhead, run by hand: python3 tests/benchmarks/bench_batch.py [MEMBERS]
+
+1. Throughput (members per second) of one sampled ensemble of a small model
+   (the harvested-stock scan of the tests, MEMBERS members, default 1000) in
+   this process (--jobs 1, the baseline), with 2 local worker processes, and
+   through a local Dask cluster of 2 single-threaded worker processes; each
+   as a ratio to the baseline measured in the same run. Times include
+   starting the workers and writing every member folder and the aggregated
+   tables and report.
+2. The batch machinery's overhead per member: the --jobs 1 batch's seconds
+   per member against a bare single run of the same members (run_scan on the
+   compiled model plus write_results of its folder, no batch), as a
+   percentage.
+
+Goals (issue 12): 2 workers >= 1.8x serial; overhead under 10 %. On a
+machine shared with other work the parallel figures fall short of what two
+idle cores give; the script prints the load average so that a reader can judge.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+import branchline
+from branchline.batch.member import member_scan
+from branchline.batch.plan import plan_batch
+from branchline.model.build import build_model
+from branchline.results.writers import write_results
+from branchline.runner import run_scan
+from test_batch import STOCK
+
+# Members of the bare-run comparison (the overhead is per member; fewer suffice).
+OVERHEAD_MEMBERS = 200
+
+
+def ensemble(members: int) -> dict:
+    scan = json.loads(json.dumps(STOCK))
+    scan["ensemble"] = {
+        "samples": members,
+        "seed": 1,
+        "sampling": "latin_hypercube",
+        "draw": {"r": {"uniform": [0.55, 0.75]}, "h": {"uniform": [0.1, 0.14]}},
+        "margin_threshold": 0.05,
+    }
+    return scan
+
+
+def timed_batch(scan: dict, folder: Path, **backend) -> tuple[float, branchline.BatchResult]:
+    started = time.perf_counter()
+    result = branchline.run_batch([scan], folder, **backend)
+    return time.perf_counter() - started, result
+
+
+def bare_runs(scan: dict, folder: Path) -> float:
+    """Seconds for the members run one by one without the batch (model compiled once)."""
+    loaded = branchline.scan_from_dict(scan)
+    model = build_model(loaded.model, source=loaded.source)
+    started = time.perf_counter()
+    for plan in plan_batch([loaded]):
+        own = member_scan(loaded, plan.values)
+        from dataclasses import replace
+
+        result = run_scan(own, model=replace(model, defaults=model.parameter_vector(plan.values)))
+        write_results(result, folder / str(plan.member), figures=False)
+    return time.perf_counter() - started
+
+
+def main() -> None:
+    members = int(sys.argv[1]) if len(sys.argv) > 1 else 1000
+    from distributed import LocalCluster
+
+    print(f"load average before: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
+    with tempfile.TemporaryDirectory() as scratch:
+        root = Path(scratch)
+        scan = ensemble(members)
+        serial, result = timed_batch(scan, root / "serial", jobs=1)
+        assert result.complete
+        two, pool = timed_batch(scan, root / "two", jobs=2)
+        assert pool.complete
+        with LocalCluster(
+            n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None
+        ) as cluster:
+            dask, remote = timed_batch(scan, root / "dask", cluster=cluster.scheduler_address)
+        assert remote.complete
+        print(f"\n{members} members, harvested-stock model, {result.failed} failed members")
+        print(f"{'backend':<28} {'seconds':>9} {'members/s':>10} {'vs serial':>10}")
+        for name, seconds in (
+            ("1 worker (this process)", serial),
+            ("2 local processes", two),
+            ("Dask LocalCluster, 2 x 1", dask),
+        ):
+            print(f"{name:<28} {seconds:9.2f} {members / seconds:10.1f} {serial / seconds:9.2f}x")
+
+        small = ensemble(OVERHEAD_MEMBERS)
+        bare = bare_runs(small, root / "bare")
+        batch, _ = timed_batch(small, root / "overhead", jobs=1)
+        per_bare, per_batch = bare / OVERHEAD_MEMBERS, batch / OVERHEAD_MEMBERS
+        print(f"\noverhead, {OVERHEAD_MEMBERS} members in this process:")
+        print(f"  bare single runs   {per_bare * 1e3:8.2f} ms per member")
+        print(f"  batch (--jobs 1)   {per_batch * 1e3:8.2f} ms per member")
+        print(f"  overhead           {(per_batch / per_bare - 1) * 100:8.1f} %")
+    print(f"load average after: {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()
