@@ -13,6 +13,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from branchline.errors import ScanError
+from branchline.events.crowding import resolve_crowded_steps
 from branchline.events.locate import locate_events
 from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
@@ -106,6 +107,7 @@ def _follow(
         progress=callback,
         limits=spec.limits,
     )
+    root = resolve_crowded_steps(model, root)
     branches, events = [root], _mark_edge_events(locate_events(model, root), spec.interval)
     if not spec.switch_branches:
         return _TraceOutcome(branches, events)
@@ -130,6 +132,7 @@ def _follow(
         )
         started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
+            child = resolve_crowded_steps(model, child)
             branches.append(child)
             found = _mark_edge_events(locate_events(model, child), spec.interval)
             events.extend(found)

@@ -83,10 +83,21 @@ def _same_point(a: Event, b: Event, rtol: float = SAME_EVENT_RTOL) -> bool:
 
 
 def _duplicates(event: Event, other: Event) -> bool:
-    """The same event met twice, or a fold at a branch point already reported."""
+    """The same event met twice, or a fold at a branch point already reported.
+
+    A fold is the branch point itself when its normal form says so (f_p in the
+    range of f_x), or when it could not be refined on its own system and lies at
+    the branch point (or shares its bracket). A fold refined by Newton beside a
+    branch point, however close, is its own event: never dropped for sharing a step.
+    """
     if event.kind == other.kind:
         return _same_point(event, other)
     if event.kind == "fold" and other.kind == "branch_point":
+        form = event.details.get("normal_form", {})
+        if form.get("degenerate") == "branch point":
+            return _same_point(event, other, FOLD_AT_BRANCH_POINT_RTOL)
+        if str(event.details.get("method", "")).startswith("Newton"):
+            return _same_point(event, other)
         same_bracket = event.details["bracket_rows"] == other.details["bracket_rows"]
         return same_bracket or _same_point(event, other, FOLD_AT_BRANCH_POINT_RTOL)
     return False

@@ -59,6 +59,8 @@ BranchTest = Callable[[Array, Array], float]
 # A converged event must lie within this many bracket lengths of its bracket;
 # further away, Newton has found some other point.
 BRACKET_REACH = 2.0
+# ... and project onto its chord within this fraction of the chord beyond either row.
+BRACKET_CHORD_SLACK = 1e-3
 # Roundoff slack on that reach (relative to the bracket's start), so that a
 # zero-length bracket still accepts its own end point.
 BRACKET_REACH_SLACK = 1e-12
@@ -112,11 +114,24 @@ def _arclength_at(branch: Branch, row: int, u: Array) -> float:
 
 
 def _within_bracket(branch: Branch, row: int, u: Array) -> bool:
+    """u lies within the bracket: its projection on the chord falls between the rows
+    (up to ``BRACKET_CHORD_SLACK``) and it is within ``BRACKET_REACH`` chord lengths.
+
+    An arc that turns little within a step projects into its chord, so a point
+    projecting outside belongs to a neighbouring step: in a cluster, Newton
+    from one bracket may converge to the next event.
+    """
     ua, ub = _curve_point(branch, row), _curve_point(branch, row + 1)
-    reach = BRACKET_REACH * float(np.linalg.norm(ub - ua))
-    middle = 0.5 * (ua + ub)
+    chord = ub - ua
+    length = float(np.linalg.norm(chord))
     slack = BRACKET_REACH_SLACK * (1.0 + float(np.linalg.norm(ua)))
-    return float(np.linalg.norm(u - middle)) <= reach + slack
+    if float(np.linalg.norm(u - 0.5 * (ua + ub))) > BRACKET_REACH * length + slack:
+        return False
+    if length <= slack:
+        return True
+    theta = float((u - ua) @ chord) / (length * length)
+    margin = BRACKET_CHORD_SLACK + slack / length
+    return -margin <= theta <= 1.0 + margin
 
 
 def _seed(branch: Branch, bracket: Bracket) -> Array:
@@ -318,6 +333,7 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
     details["normal_form"] = {
         "coefficient": form.coefficient,
         "parameter_sensitivity": form.parameter_sensitivity,
+        "degenerate": form.degenerate or "",
     }
     side_note = ""
     if form.degenerate == "branch point":
