@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -27,6 +27,9 @@ from branchline.scan.loader import Scan, TraceSpec
 SAME_POINT_TOLERANCE = 1e-6
 # Child branches may meet further branch points; stop switching this deep.
 MAX_SWITCH_DEPTH = 3
+# At most this many branches are started at branch points of one trace: a cluster of
+# branch points (identical coupled cells) would otherwise start dozens of costly traces.
+MAX_SWITCHED_BRANCHES = 8
 # A branch point this close to an interval edge (relative to the interval's
 # width) has its crossing branches outside the window: they are not followed.
 EDGE_TOLERANCE = 1e-9
@@ -38,6 +41,7 @@ Progress = Callable[[str, int], None]
 class _TraceOutcome:
     branches: list[Branch]
     events: list[Event]
+    warnings: list[str] = field(default_factory=list)
 
 
 def start_vector(model: Model, spec: TraceSpec, parameters: np.ndarray, source: str) -> np.ndarray:
@@ -114,9 +118,13 @@ def _follow(
     visited: list[Event] = []
     started: dict[str, int] = {}  # parent name -> children started so far
     queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
+    skipped = 0
     while queue:
         parent, event, depth = queue.pop(0)
         if _seen(event, visited) or depth > MAX_SWITCH_DEPTH or _on_edge(event, spec.interval):
+            continue
+        if len(branches) > MAX_SWITCHED_BRANCHES:
+            skipped += 1
             continue
         visited.append(event)
         child_progress = (lambda count, n=parent.name: progress(n, count)) if progress else None
@@ -137,7 +145,14 @@ def _follow(
             found = _mark_edge_events(locate_events(model, child), spec.interval)
             events.extend(found)
             queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
-    return _TraceOutcome(branches, events)
+    notes = []
+    if skipped:
+        notes.append(
+            f"trace {spec.name}: the branches crossing at {skipped} more branch point(s) were "
+            f"not followed (at most {MAX_SWITCHED_BRANCHES} branches are started per trace); "
+            "trace them from their own start guesses or narrow the interval"
+        )
+    return _TraceOutcome(branches, events, notes)
 
 
 def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> str:
@@ -200,6 +215,7 @@ def run_scan(
         found = _start_warning(model, spec.name, x0, outcome.branches[0])
         if found:
             warnings.append(found)
+        warnings.extend(outcome.warnings)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
     failed = [b for b in branches if b.status == STATUS_FAILED]

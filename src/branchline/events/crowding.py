@@ -130,26 +130,34 @@ class _Refiner:
         if not outcome.converged:
             return None
         u = outcome.solution
+        left, right = linalg.norm(u - a.u), linalg.norm(b.u - u)
+        share = left / (left + right) if left + right > 0.0 else 0.5
+        arclength = a.arclength + share * (b.arclength - a.arclength)
+        return self.observe(u, a.tangent, arclength, outcome.residual_norms)
+
+    def observe(
+        self, u: Array, like: Array, arclength: float, residuals: list[float]
+    ) -> _Point | None:
+        """The point u of the branch with its tangent (oriented like ``like``), eigenvalues
+        and test values; None when they cannot be computed."""
         try:
             with np.errstate(all="ignore"):
                 jac = self.problem.jacobian(u)
-                tangent = unit_tangent(jac, a.tangent, linalg.is_sparse(jac))
+                tangent = unit_tangent(jac, like, linalg.is_sparse(jac))
                 eigenvalues, tests = self.problem.observe(u, tangent, jac)
         except (engine.ObservationFailed, linalg.SingularMatrixError, ArithmeticError, ValueError):
             return None
         row = np.full(self.width, complex(math.nan), dtype=complex)
         count = min(self.width, len(eigenvalues))
         row[:count] = np.asarray(eigenvalues, dtype=complex)[:count]
-        left, right = linalg.norm(u - a.u), linalg.norm(b.u - u)
-        share = left / (left + right) if left + right > 0.0 else 0.5
         return _Point(
             u=u,
             tangent=tangent,
             eigenvalues=row,
             tests=np.asarray(tests, dtype=float),
-            arclength=a.arclength + share * (b.arclength - a.arclength),
-            iterations=max(len(outcome.residual_norms) - 1, 0),
-            residual=outcome.residual_norms[-1] if outcome.residual_norms else 0.0,
+            arclength=arclength,
+            iterations=max(len(residuals) - 1, 0),
+            residual=residuals[-1] if residuals else 0.0,
         )
 
     def split(self, a: _Point, b: _Point, depth: int = 0) -> list[_Point]:
@@ -235,9 +243,36 @@ def resolve_crowded_steps(model: Model, branch: Branch) -> Branch:
     return _with_points(branch, inserted, counts)
 
 
-def _with_points(branch: Branch, inserted: dict[int, list[_Point]], counts: dict) -> Branch:
-    """A copy of ``branch`` with ``inserted[row]`` placed after each ``row``."""
-    rows: list[_Point] = []
+def with_start_point(model: Model, branch: Branch, u: Array) -> Branch:
+    """The branch with ``u`` (a point on it, beyond its start row) added before that row.
+
+    For a branch started off a branch point: ``u``, much closer to the branch
+    point than the start, makes the stretch between them an ordinary step of
+    the branch, whose events detection and location then see. The start row is
+    the one at arclength 0, the first row in trace order (last for a branch
+    traced towards decreasing parameter); ``u`` is put on its outer side.
+    Returns ``branch`` unchanged when ``u`` cannot be observed.
+    """
+    if len(branch) == 0:
+        return branch
+    start = int(np.argmin(np.abs(branch.arclength)))
+    first = start == 0 and (len(branch) == 1 or branch.arclength[-1] > 0.0)
+    gap = linalg.norm(u - _row(branch, start).u)
+    arclength = float(branch.arclength[start]) + (-gap if first else gap)
+    point = _Refiner(model, branch).observe(u, branch.tangents[start], arclength, [])
+    if point is None:
+        return branch
+    if first:
+        return _with_points(branch, {}, dict(branch.counts), before=[point])
+    return _with_points(branch, {len(branch) - 1: [point]}, dict(branch.counts))
+
+
+def _with_points(
+    branch: Branch, inserted: dict[int, list[_Point]], counts: dict, before: list | None = None
+) -> Branch:
+    """A copy of ``branch`` with ``inserted[row]`` placed after each ``row``
+    (and ``before`` ahead of the first row)."""
+    rows: list[_Point] = list(before or [])
     for row in range(len(branch)):
         rows.append(_row(branch, row))
         rows.extend(inserted.get(row, []))
@@ -258,4 +293,9 @@ def _with_points(branch: Branch, inserted: dict[int, list[_Point]], counts: dict
     )
 
 
-__all__ = ["MAX_REFINEMENT_POINTS", "crowded", "resolve_crowded_steps"]
+__all__ = [
+    "MAX_REFINEMENT_POINTS",
+    "crowded",
+    "resolve_crowded_steps",
+    "with_start_point",
+]

@@ -19,7 +19,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from branchline.events.defining_systems import with_value
+from branchline.events.crowding import with_start_point
+from branchline.events.defining_systems import newton, on_branch_system, with_value
 from branchline.events.locate import correct_on_branch
 from branchline.events.normal_forms import branch_point_normal_form, branch_tangent
 from branchline.problems.equilibrium_branch import state_limits_of, within_limits
@@ -41,6 +42,11 @@ SWITCH_OFFSET = 1e-3
 # times, until the start point lies inside the window.
 OFFSET_CUT = 10.0
 OFFSET_TRIES = 4
+
+# The stretch between the branch point and the start is checked for events from a
+# point this fraction of the offset from the branch point (1e-6 relative): events
+# closer to the branch point than that coincide with it to the accuracy of a start.
+NEAR_FRACTION = 1e-3
 
 # The corrected start must keep this cosine with the predicted tangent;
 # otherwise Newton slid back onto the traced branch and the start is dropped.
@@ -120,6 +126,30 @@ def branch_starts(
     return starts
 
 
+def near_point(model: Model, event: Event, k: int, start: Array) -> Array | None:
+    """A point of the new half-branch between the branch point and its ``start`` (n + 1,).
+
+    It lies ``NEAR_FRACTION`` of the way from the branch point to the start along
+    the start's direction, corrected onto the branch (None when that fails or
+    lands elsewhere): the child branch gets it as an extra row, so that the
+    stretch next to the branch point is checked for events like any step.
+    """
+    u_event = np.append(event.state, event.value)
+    reach = start - u_event
+    guess = u_event + NEAR_FRACTION * reach
+    system = on_branch_system(model, event.parameters, k, guess, reach)
+    # Newton's own tests relative to |u| alone (scale 0), not "any nearby solution":
+    # the point may be tiny (a branch point at the origin), and is kept as a row.
+    outcome = newton(lambda z: system(z), guess, scale=0.0)
+    if not outcome.converged:
+        return None
+    u = outcome.solution
+    along = float((u - u_event) @ reach) / float(reach @ reach)
+    if not 0.0 < along < 1.0 or np.linalg.norm(u - guess) > 0.5 * np.linalg.norm(reach):
+        return None
+    return u
+
+
 def _first_start_inside(model: Model, event, k, u_event, tangent, offset, window):
     """A corrected start point on the new half-branch inside the parameter window.
 
@@ -181,20 +211,22 @@ def trace_switched(
     children = []
     for x0, p0, tangent in branch_starts(model, parent_branch, event, limits):
         name = f"{parent_branch.name}.{first_number + len(children)}"
-        children.append(
-            trace_branch(
-                model,
-                name,
-                parent_branch.vary,
-                with_value(event.parameters, k, p0),
-                x0,
-                interval,
-                "increasing" if tangent[-1] >= 0 else "decreasing",
-                steps,
-                parent=parent_branch.name,
-                start_tangent=tangent,
-                progress=progress,
-                limits=limits,
-            )
+        child = trace_branch(
+            model,
+            name,
+            parent_branch.vary,
+            with_value(event.parameters, k, p0),
+            x0,
+            interval,
+            "increasing" if tangent[-1] >= 0 else "decreasing",
+            steps,
+            parent=parent_branch.name,
+            start_tangent=tangent,
+            progress=progress,
+            limits=limits,
         )
+        near = near_point(model, event, k, np.append(x0, p0))
+        if near is not None and within_limits(near[:-1], state_limits_of(model, limits)):
+            child = with_start_point(model, child, near)
+        children.append(child)
     return children
