@@ -44,9 +44,12 @@ OFFSET_CUT = 10.0
 OFFSET_TRIES = 4
 
 # The stretch between the branch point and the start is checked for events from a
-# point this fraction of the offset from the branch point (1e-6 relative): events
-# closer to the branch point than that coincide with it to the accuracy of a start.
-NEAR_FRACTION = 1e-3
+# point this fraction of the offset from the branch point (1e-5 relative). Closer, the
+# point's tangent is unreliable: [f_x, f_p] is singular at the branch point, so a
+# point at distance s is found to about eps / s and its tangent to about eps / s^2
+# (relative), while a pitchfork's turning tangent has a parameter component of only
+# about s: at 1e-5 these are 1e-6 against 1e-5.
+NEAR_FRACTION = 1e-2
 
 # The corrected start must keep this cosine with the predicted tangent;
 # otherwise Newton slid back onto the traced branch and the start is dropped.
