@@ -221,6 +221,26 @@ def test_cluster_of_branch_points_beside_a_fold():
         assert abs(nearest[1] - value) <= 1e-12
     counts = result.branches[0].counts
     assert counts["refinement_points"] > 0 and counts["crowded_steps_unresolved"] == 0
+    assert result.info()["counts"]["refinement_points"] == counts["refinement_points"]  # run.json
+
+
+def test_refinement_is_capped_and_says_so(monkeypatch):
+    # A budget of 4 points cannot separate 8 cells' modes: the run still ends, within the
+    # budget, and run.json counts the steps left crowded. (The cap is what keeps a dense
+    # cluster from hanging a run.)
+    from branchline.events import crowding
+
+    monkeypatch.setattr(crowding, "MAX_REFINEMENT_POINTS", 4)
+    cells = 8
+    lower = min(r.real for r in np.roots([-1.0, 0.0, 1.0, -0.5]) if abs(r.imag) < 1e-12)
+    trace = {"vary": "p", "interval": [-0.5, 0.5], "direction": "increasing"}
+    trace.update(start={f"x{i}": lower for i in range(cells)}, switch_branches=False)
+    model = {"parameters": {"p": -0.5, "d": 1e-3}, "equations": cubic_equations(cells)}
+    result = run_scan(scan_from_dict({"model": model, "trace": [trace]}))
+    counts = result.info()["counts"]
+    assert counts["refinement_points"] <= 4
+    assert counts["crowded_steps_unresolved"] >= 1
+    assert result.status == "done"
 
 
 HOPF_MODEL_D = 0.05
@@ -265,3 +285,18 @@ def test_every_hopf_point_of_a_40_state_model_is_refined(kind):
     rel = {"expressions": 1e-10, "python with Jacobian": 1e-7}.get(kind, 1e-4)
     assert hopf[0].lyapunov == pytest.approx(expected_l1, rel=rel)
     assert hopf[0].criticality == "supercritical"
+
+
+def test_switching_stops_after_a_fixed_number_of_branches():
+    # x' = x sin(p) - x^2: the trivial branch meets x = sin(p) at every p = k pi
+    # (transcritical branch points, elementary calculus), nine of them in [0.5, 29];
+    # at most eight branches are started, and a warning says how many points were left.
+    scan = {
+        "model": {"parameters": {"p": 0.5}, "equations": {"x": "x*sin(p) - x^2"}},
+        "trace": [{"vary": "p", "interval": [0.5, 29.0], "start": {"x": 0.0}}],
+    }
+    result = run_scan(scan_from_dict(scan))
+    points = sorted(e.value for e in result.events if e.trace == "trace1")
+    assert points == pytest.approx([k * math.pi for k in range(1, 10)], abs=1e-12)
+    assert len(result.branches) - 1 <= 8
+    assert any("were not followed (at most 8 branches" in w for w in result.warnings)

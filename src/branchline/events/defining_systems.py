@@ -53,10 +53,11 @@ System = Callable[[Array], tuple[Array, object]]
 #   update is below STALL_RTOL relative: the update taken from there only polishes
 #   the last bits (near a singular root a tiny residual alone proves nothing);
 # - the update has stalled: below STALL_RTOL relative and no smaller than the
-#   one before (STALL_RATIO; linear convergence to a singular solution, at a
-#   pitchfork say, shrinks every update and so never counts as stalled). Rounding (or the noise of a finite-difference
-#   Jacobian, about eps^(2/3), in Python models without one) then sets a floor that
-#   more iterations cannot pass; the iterate with the smallest residual is kept.
+#   one before (STALL_RATIO). Rounding, or the noise of a finite-difference
+#   Jacobian (about eps^(2/3), Python models without one), sets a floor that more
+#   iterations cannot pass; the iterate with the smallest residual is kept. Linear
+#   convergence to a singular solution (a fold system at a pitchfork, say) shrinks
+#   every update and so never counts as stalled.
 NEWTON_STEP_RTOL = 1e-13
 # Rounding in a matrix-vector product of size N is about N * eps * |J| |z| at worst
 # (Higham, Accuracy and Stability of Numerical Algorithms, section 3.5, from memory);
