@@ -7,10 +7,11 @@ Run by hand (not collected by pytest)::
 Each case is run whole (``run_scan``: trace, refinement of crowded steps, location,
 branch switching) twice in this process: as branchline does it, and with the
 finer detection switched off (no splitting of crowded steps, no check of the
-stretch next to a branch point): the plain detection that came before. It prints
-the best of ``REPEATS`` wall times of each, their ratio, the points added by
-refinement and the events each way. Cases: the four demo scans, a chain of 20
-cubic bistable cells whose 38 branch points crowd beside its two folds, and the
+stretch next to a branch point): the plain detection that came before. It
+prints the best of ``REPEATS`` wall times of each (the two alternated), their
+ratio, the points added by refinement, and the events found each way (with how
+many of them Newton placed). Cases: the four demo scans, a chain of 20 cubic
+bistable cells whose 38 branch points crowd beside its two folds, and the
 20-cell Brusselator chain whose Hopf points crowd within 0.016 of b = 2 (models
 of tests/cell_chains.py; switching off for the chains).
 """
@@ -33,7 +34,7 @@ from branchline.events import switching  # noqa: E402
 from branchline.scan.loader import load_scan, scan_from_dict  # noqa: E402
 from cell_chains import brusselator_equations, cubic_equations  # noqa: E402
 
-REPEATS = 3
+REPEATS = 5
 
 
 @contextmanager
@@ -73,27 +74,44 @@ def cases():
     yield "Brusselator chain (20 cells)", scan_from_dict(brusselator_chain())
 
 
-def best_run(scan):
-    best, result = float("inf"), None
+def timed(scan):
+    started = time.perf_counter()
+    result = runner.run_scan(scan)
+    return time.perf_counter() - started, result
+
+
+def best_runs(scan):
+    """Best wall times (plain, finer) and results, the two alternated so that the
+    load of a shared machine weighs on both alike."""
+    plain = finer = float("inf")
+    before = after = None
     for _ in range(REPEATS):
-        started = time.perf_counter()
-        result = runner.run_scan(scan)
-        best = min(best, time.perf_counter() - started)
-    return best, result
+        with plain_detection():
+            seconds, before = timed(scan)
+        plain = min(plain, seconds)
+        seconds, after = timed(scan)
+        finer = min(finer, seconds)
+    return plain, finer, before, after
 
 
 def main() -> None:
-    print(f"{'case':30} {'plain s':>9} {'finer s':>9} {'ratio':>6} {'added':>6} events plain/finer")
+    print(
+        f"{'case':30} {'plain s':>9} {'finer s':>9} {'ratio':>6} {'added':>6} "
+        "events plain/finer (of them refined by Newton)"
+    )
     for name, scan in cases():
         runner.run_scan(scan)  # compile and warm caches once
-        with plain_detection():
-            plain, before = best_run(scan)
-        finer, after = best_run(scan)
+        plain, finer, before, after = best_runs(scan)
         added = sum(b.counts.get("refinement_points", 0) for b in after.branches)
         print(
             f"{name:30} {plain:9.3f} {finer:9.3f} {finer / plain:6.2f} {added:6d} "
-            f"{len(before.events)}/{len(after.events)}"
+            f"{len(before.events)}/{len(after.events)} ({newton(before)}/{newton(after)})"
         )
+
+
+def newton(result) -> int:
+    """Events placed by Newton on their defining systems (no fallback)."""
+    return sum(str(e.details.get("method", "")).startswith("Newton") for e in result.events)
 
 
 if __name__ == "__main__":
