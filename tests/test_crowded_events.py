@@ -300,3 +300,25 @@ def test_switching_stops_after_a_fixed_number_of_branches():
     assert points == pytest.approx([k * math.pi for k in range(1, 10)], abs=1e-12)
     assert len(result.branches) - 1 <= 8
     assert any("were not followed (at most 8 branches" in w for w in result.warnings)
+
+
+def test_newton_on_a_defining_system_stops_once_converged():
+    # A system whose residual carries noise of 1e-11 (as a finite-difference Jacobian
+    # leaves in a Hopf system) cannot get its update below 1e-13: it must stop as
+    # converged within a few iterations, at the root to the noise level, not run on
+    # to "no convergence". Root of z^2 = 2 (elementary).
+    from branchline.events.defining_systems import NEWTON_MAX_ITERATIONS, newton
+
+    calls = iter([1e-11 * (-1) ** k for k in range(NEWTON_MAX_ITERATIONS + 2)])
+
+    def noisy(z):
+        return np.array([z[0] ** 2 - 2.0 + next(calls)]), np.array([[2.0 * z[0]]])
+
+    outcome = newton(noisy, np.array([1.0]))
+    assert outcome.converged
+    assert len(outcome.residual_norms) <= 10
+    assert abs(outcome.solution[0] - math.sqrt(2.0)) <= 1e-11
+    # A singular root is not taken for converged on a tiny residual alone: z^2 = 0 from 1e-3
+    # has residual 1e-6 at once, but Newton halves its distance each time (linear rate).
+    outcome = newton(lambda z: (np.array([z[0] ** 2]), np.array([[2.0 * z[0]]])), np.array([1e-3]))
+    assert not outcome.converged or abs(outcome.solution[0]) <= 1e-8
