@@ -111,6 +111,15 @@ def test_fold_beside_a_transcritical_branch_point(sigma, gap, from_disease_free)
     assert fold.state == pytest.approx([float(reference["I_f"]), float(reference["V_f"])], abs=1e-9)
     assert fold.details["method"].startswith("Newton")
     assert branch_point.branching == "transcritical"
+    if from_disease_free and gap < 1e-6:
+        # the fold lies between the branch point and the switched branch's first point
+        # (its start, 1e-3 away): only the check of that stretch finds it
+        child = result.branch(fold.trace)
+        start = int(np.argmin(np.abs(child.arclength)))
+        u_bp = np.append(branch_point.state, branch_point.value)
+        u_fold = np.append(fold.state, fold.value)
+        u_start = np.append(child.states[start], child.parameter_values[start])
+        assert np.linalg.norm(u_fold - u_bp) < np.linalg.norm(u_start - u_bp)
 
 
 # ---------------------------------------------------------------------------
