@@ -12,7 +12,12 @@ from branchline.runner import run_scan
 from branchline.scan.loader import Scan, load_scan, scan_from_dict
 
 
-def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None) -> RunResult:
+def run(
+    scan: str | Path | dict[str, Any] | Scan,
+    out: str | Path | None = None,
+    *,
+    confirm: bool = True,
+) -> RunResult:
     """Load (if needed), validate and run a scan; optionally write its results folder.
 
     Parameters
@@ -21,6 +26,9 @@ def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None)
         A scan file, a dict with the scan file's layout, or a loaded Scan.
     out : path, optional
         If given, the results folder to write (as ``branchline run --out``).
+    confirm : bool
+        Confirm the located events by simulation (``result.confirmations``), as
+        ``branchline run`` does unless given ``--no-confirm``.
 
     Returns
     -------
@@ -50,7 +58,7 @@ def run(scan: str | Path | dict[str, Any] | Scan, out: str | Path | None = None)
         scan = load_scan(scan)
     if scan.ensemble is not None:
         raise ScanError(scan.source, "ensemble", "a scan with an ensemble runs with run_batch")
-    result = run_scan(scan)
+    result = run_scan(scan, confirm=confirm)
     if out is not None:
         write_results(result, out)
     return result

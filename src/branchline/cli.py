@@ -74,15 +74,16 @@ def _command_run(args: argparse.Namespace) -> int:
     out = Path(args.out) if args.out else Path("runs") / Path(args.scan).stem
     try:
         with reserve_output(out):
-            return _run_and_write(scan, out, args.quiet)
+            return _run_and_write(scan, out, args.quiet, confirm=not args.no_confirm)
     except OutputFolderError as err:
         _error(f"--out {err}")
         return EXIT_INVALID
 
 
-def _run_and_write(scan, out: Path, quiet: bool) -> int:
+def _run_and_write(scan, out: Path, quiet: bool, confirm: bool = True) -> int:
     """Run a loaded scan and write its results into ``out`` (already reserved)."""
     from branchline.errors import ScanError
+    from branchline.present.confirmations import confirmation_summary
     from branchline.present.report import CAUTION, summary_table
     from branchline.results.writers import write_results
     from branchline.runner import run_scan
@@ -91,7 +92,7 @@ def _run_and_write(scan, out: Path, quiet: bool) -> int:
         _python_notice(scan)
     progress = _Progress(enabled=not quiet and sys.stderr.isatty())
     try:
-        result = run_scan(scan, progress=progress)
+        result = run_scan(scan, progress=progress, confirm=confirm)
     except ScanError as err:
         progress.close()
         _error(str(err))
@@ -112,6 +113,9 @@ def _run_and_write(scan, out: Path, quiet: bool) -> int:
             f"{len(result.events)} stability changes in {seconds:.2f} s"
         )
         print(summary_table(result.event_records()))
+        checked = confirmation_summary(result.confirmations, result.confirmation_note)
+        if checked:
+            print(checked)
         print(f"results written to {written}/")
         print(CAUTION)
     for line in cut_short(result.branches):
@@ -236,6 +240,11 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("scan", help="the scan file (TOML)")
     run.add_argument("--out", help="results folder (default runs/<scan file stem>/)")
     run.add_argument("--quiet", action="store_true", help="no progress and no summary")
+    run.add_argument(
+        "--no-confirm",
+        action="store_true",
+        help="skip the confirmation of each stability change by simulation",
+    )
     run.set_defaults(handler=_command_run)
 
     inspect = sub.add_parser("inspect", help="solve for one equilibrium and describe it")

@@ -165,7 +165,11 @@ def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> 
 
 
 def run_scan(
-    scan: Scan, *, progress: Progress | None = None, model: Model | None = None
+    scan: Scan,
+    *,
+    progress: Progress | None = None,
+    model: Model | None = None,
+    confirm: bool = True,
 ) -> RunResult:
     """Run everything a validated scan asks for.
 
@@ -178,6 +182,10 @@ def run_scan(
     model : Model, optional
         The scan's model already compiled (a batch compiles it once per worker);
         its ``defaults`` must be the scan's parameter values.
+    confirm : bool
+        Confirm each located event by a short simulation
+        (:func:`branchline.simulation.confirm.confirm_events`); models with more
+        than ``confirm.MAX_STATES`` states are skipped with a note.
 
     Returns
     -------
@@ -220,6 +228,8 @@ def run_scan(
         events.extend(outcome.events)
     failed = [b for b in branches if b.status == STATUS_FAILED]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
+    traced = time.perf_counter()
+    confirmations, note = _confirm(model, branches, events) if confirm else ((), "")
     finished = time.perf_counter()
     return RunResult(
         scan=scan,
@@ -230,8 +240,20 @@ def run_scan(
         message=message,
         timings={
             "compile_seconds": compiled - started,
-            "continuation_seconds": finished - compiled,
+            "continuation_seconds": traced - compiled,
+            "confirmation_seconds": finished - traced,
             "total_seconds": finished - started,
         },
         warnings=tuple(warnings),
+        confirmations=confirmations,
+        confirmation_note=note,
     )
+
+
+def _confirm(model: Model, branches, events) -> tuple[tuple, str]:
+    """Confirmations by simulation, or none and a note saying why."""
+    from branchline.simulation.confirm import MAX_STATES, confirm_events, skipped_note
+
+    if model.size > MAX_STATES:
+        return (), skipped_note(model.size)
+    return confirm_events(model, branches, events), ""

@@ -134,7 +134,10 @@ def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
     try:
         model, built = compiled_model(scan)
         own = member_scan(scan, plan.values)
-        result = run_scan(own, model=replace(model, defaults=model.parameter_vector(plan.values)))
+        # members are not confirmed by simulation: that would add its cost to every member
+        result = run_scan(
+            own, model=replace(model, defaults=model.parameter_vector(plan.values)), confirm=False
+        )
         events = tuple(
             {k: _finite(v) for k, v in row.items()}
             for row in result.events_frame().to_dict(orient="records")

@@ -13,6 +13,7 @@ from typing import Any
 
 import pandas as pd
 
+from branchline.present.confirmations import confirmation_section
 from branchline.results.margins import (
     HysteresisWindow,
     JumpTarget,
@@ -597,6 +598,7 @@ def render_report(
     out += _intervals_section(points, events, info)
     out += _margins_section(margins)
     out += _readings_section(points, events, info, windows)
+    out += confirmation_section(info)
     for warning in info.get("warnings") or []:
         out += [f"> Warning: {warning}", ""]
     out += ["---", "", f"**Caution.** {CAUTION}", ""]

@@ -143,6 +143,10 @@ class RunResult:
     message: str
     timings: dict[str, float] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+    # Confirmation by simulation (branchline.simulation.confirm); the note says why
+    # there are none when the run skipped them.
+    confirmations: tuple[Any, ...] = ()
+    confirmation_note: str = ""
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""

@@ -232,6 +232,14 @@ def model_info(result: RunResult) -> dict[str, Any]:
     )
 
 
+def _confirmations(result: RunResult) -> dict[str, Any] | None:
+    if not result.confirmations and not result.confirmation_note:
+        return None
+    from branchline.present.confirmations import confirmation_info
+
+    return confirmation_info(result.confirmations, result.confirmation_note)
+
+
 def run_info(result: RunResult) -> dict[str, Any]:
     """run.json: package version, settings with defaults filled in, timings, counts."""
     counts: dict[str, int] = {}
@@ -249,6 +257,7 @@ def run_info(result: RunResult) -> dict[str, Any]:
             "status": result.status,
             "message": result.message,
             "warnings": list(result.warnings),
+            "confirmations": _confirmations(result),
             "timings": dict(result.timings),
             "counts": {
                 "traces": len(result.branches),

@@ -123,8 +123,18 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
         figure = bifurcation_figure(points, events, info)
         save_figure(figure, staging / "diagram.png")
         save_figure(figure, staging / "diagram.svg")
+        _confirmation_figure(result, staging)
     written = sorted(entry.name for entry in staging.iterdir() if entry.name != STAGING_MARKER)
     _json({**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json")
+
+
+def _confirmation_figure(result: RunResult, folder: Path) -> None:
+    """confirmations.png: one small panel per event the run simulated."""
+    from branchline.present.confirmations import PNG_DPI, confirmations_figure
+
+    figure = confirmations_figure(result.confirmations)
+    if figure is not None:
+        figure.savefig(folder / "confirmations.png", dpi=PNG_DPI)
 
 
 def _read_points(path: Path) -> pd.DataFrame:

@@ -1,0 +1,1 @@
+"""Confirmation by simulation: time integrations that show each located stability change."""
