@@ -262,7 +262,9 @@ def test_stock_jump_approaches_the_fold_as_the_ramp_slows():
 
 
 def _chain(size: int) -> dict:
-    equations = {f"x{i}": f"p - x{i}" + (f" + 0.1*x{i - 1}^2" if i else " + x0^2") for i in range(size)}
+    equations = {
+        f"x{i}": f"p - x{i}" + (f" + 0.1*x{i - 1}^2" if i else " + x0^2") for i in range(size)
+    }
     return {
         "model": {"parameters": {"p": -1.0}, "equations": equations},
         "trace": [
@@ -285,9 +287,19 @@ def test_the_command_line_switch_turns_confirmations_off(tmp_path):
     env = {"PYTHONPATH": str(SRC), "PATH": "/usr/bin:/bin"}
     for flag, folder in (([], "on"), (["--no-confirm"], "off")):
         subprocess.run(
-            [sys.executable, "-m", "branchline", "run", str(SCANS / "toggle_switch.toml"),
-             "--out", str(tmp_path / folder), "--quiet", *flag],
-            check=True, env=env,
+            [
+                sys.executable,
+                "-m",
+                "branchline",
+                "run",
+                str(SCANS / "toggle_switch.toml"),
+                "--out",
+                str(tmp_path / folder),
+                "--quiet",
+                *flag,
+            ],
+            check=True,
+            env=env,
         )
     on = json.loads((tmp_path / "on" / "run.json").read_text())
     off = json.loads((tmp_path / "off" / "run.json").read_text())
@@ -297,7 +309,10 @@ def test_the_command_line_switch_turns_confirmations_off(tmp_path):
     assert not (tmp_path / "off" / "confirmations.png").exists()
     report = subprocess.run(
         [sys.executable, "-m", "branchline", "report", str(tmp_path / "on")],
-        check=True, env=env, capture_output=True, text=True,
+        check=True,
+        env=env,
+        capture_output=True,
+        text=True,
     ).stdout
     assert "## Confirmation by simulation" in report and "**confirmed**" in report
 

@@ -98,16 +98,33 @@ def _panel(ax, record: Confirmation) -> None:
                 _arrow(ax, curve.x, curve.y, colour)
             simulated += 1
         elif curve.role == ROLE_PREDICTION:
-            ax.plot(curve.x, curve.y, color=PREDICTION_COLOUR, ls=(0, (1.5, 1.5)), lw=1.0,
-                    zorder=4, label=curve.label)
+            ax.plot(
+                curve.x,
+                curve.y,
+                color=PREDICTION_COLOUR,
+                ls=(0, (1.5, 1.5)),
+                lw=1.0,
+                zorder=4,
+                label=curve.label,
+            )
         elif curve.role == ROLE_MARK:
-            ax.plot(curve.x, curve.y, marker="D", ms=5, mfc="white", mec="black", ls="none",
-                    zorder=5, label=curve.label)
+            ax.plot(
+                curve.x,
+                curve.y,
+                marker="D",
+                ms=5,
+                mfc="white",
+                mec="black",
+                ls="none",
+                zorder=5,
+                label=curve.label,
+            )
     handles, labels = ax.get_legend_handles_labels()
     unique = dict(zip(labels, handles))
     if unique:
-        ax.legend(unique.values(), unique.keys(), fontsize=FONT_SIZE - 1.5, loc="best",
-                  framealpha=0.8)
+        ax.legend(
+            unique.values(), unique.keys(), fontsize=FONT_SIZE - 1.5, loc="best", framealpha=0.8
+        )
     ax.set_xlabel(record.x_label)
     ax.set_ylabel(record.y_label)
     status = STATUS_WORDS.get(record.status, record.status)
@@ -122,8 +139,13 @@ def _panel(ax, record: Confirmation) -> None:
 def _arrow(ax, x: np.ndarray, y: np.ndarray, colour: str) -> None:
     """An arrowhead at the middle of a curve: which way the simulation went."""
     i = len(x) // 2
-    ax.annotate("", xy=(x[i + 1], y[i + 1]), xytext=(x[i], y[i]),
-                arrowprops={"arrowstyle": "-|>", "color": colour, "lw": 1.0}, zorder=4)
+    ax.annotate(
+        "",
+        xy=(x[i + 1], y[i + 1]),
+        xytext=(x[i], y[i]),
+        arrowprops={"arrowstyle": "-|>", "color": colour, "lw": 1.0},
+        zorder=4,
+    )
 
 
 def confirmations_figure(confirmations: Sequence[Confirmation]) -> Figure | None:
@@ -134,14 +156,13 @@ def confirmations_figure(confirmations: Sequence[Confirmation]) -> Figure | None
     rows = -(-len(drawn) // COLUMNS)
     columns = min(COLUMNS, len(drawn))
     with mpl.rc_context({"font.size": FONT_SIZE, "svg.hashsalt": "branchline"}):
-        fig = Figure(figsize=(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows),
-                     layout="constrained")
+        fig = Figure(figsize=(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows), layout="constrained")
         FigureCanvasAgg(fig)
         axes = np.atleast_1d(fig.subplots(rows, columns, squeeze=False).ravel())
         for ax, record in zip(axes, drawn):
             _panel(ax, record)
             ax.grid(True, color="#DDDDDD", lw=0.5)
-        for ax in axes[len(drawn):]:
+        for ax in axes[len(drawn) :]:
             ax.set_axis_off()
         fig.suptitle("Confirmation by simulation", fontsize=FONT_SIZE + 1)
     return fig

@@ -10,6 +10,7 @@ whether the simulation agrees (``confirmed``), contradicts the prediction
 
 from __future__ import annotations
 
+import itertools
 import time
 from collections.abc import Callable, Sequence
 
@@ -57,11 +58,12 @@ def _branch_curves(branches: Sequence[Branch], vary: str, j: int) -> list[Curve]
             continue
         stable = branch.stable
         cuts = [0, *(np.nonzero(stable[1:] != stable[:-1])[0] + 1), len(branch)]
-        for a, b in zip(cuts[:-1], cuts[1:]):
+        for a, b in itertools.pairwise(cuts):
             rows = slice(a, min(b + 1, len(branch)))
             role = ROLE_STABLE if stable[a] else ROLE_UNSTABLE
-            curves.append(Curve(branch.name, branch.parameter_values[rows],
-                                branch.states[rows, j], role))
+            curves.append(
+                Curve(branch.name, branch.parameter_values[rows], branch.states[rows, j], role)
+            )
     return curves
 
 
@@ -86,7 +88,9 @@ def _leg_words(leg: folds.Leg, vary: str, names: Sequence[str], j: int) -> str:
             text += " (a slow passage through a Hopf point delays the departure)"
     if leg.landing is not None:
         text += f", to {names[j]} = {fmt(leg.landing[j], DIGITS)}"
-        text += f" on trace {leg.landing_trace}" if leg.landing_trace else " (not on a traced branch)"
+        text += (
+            f" on trace {leg.landing_trace}" if leg.landing_trace else " (not on a traced branch)"
+        )
     elif leg.trajectory.status == "stopped":
         text += ", then ran away (the state grew without bound)"
     else:
@@ -120,14 +124,23 @@ def confirm_fold(
     branch = next(b for b in branches if b.name == event.trace)
     row = folds.stable_side(branch, event)
     if row is None:
-        return _plain(event, index, NOT_APPLICABLE, "no stable state is lost at this fold "
-                      "(the branch is unstable on both sides): there is no jump to show"), []
+        return _plain(
+            event,
+            index,
+            NOT_APPLICABLE,
+            "no stable state is lost at this fold "
+            "(the branch is unstable on both sides): there is no jump to show",
+        ), []
     run = run_containing(branch, row)
     start, end, length = folds.ramp_plan(branch, event, run)
     rate, delay, _ = folds.fold_rate(model, event, length)
     if rate == 0.0:
-        return _plain(event, index, INCONCLUSIVE, "degenerate fold (near a cusp): no ramp rate "
-                      "follows from its normal form"), []
+        return _plain(
+            event,
+            index,
+            INCONCLUSIVE,
+            "degenerate fold (near a cusp): no ramp rate follows from its normal form",
+        ), []
     first = folds.ramp(model, branches, events, run, start, end, rate, delay)
     if not first.trajectory.ok:
         return _plain(event, index, INCONCLUSIVE, first.trajectory.message), []
@@ -144,8 +157,14 @@ def confirm_fold(
     curves = _branch_curves(branches, event.vary, j)
     for leg in legs:
         where = "up" if leg.rate > 0 else "down"
-        curves.append(Curve(f"ramp {where}", _thin(leg.trajectory.parameter),
-                            _thin(leg.trajectory.states[:, j]), ROLE_SIMULATION))
+        curves.append(
+            Curve(
+                f"ramp {where}",
+                _thin(leg.trajectory.parameter),
+                _thin(leg.trajectory.states[:, j]),
+                ROLE_SIMULATION,
+            )
+        )
     curves.append(Curve("fold", np.array([event.value]), np.array([event.state[j]]), ROLE_MARK))
     numbers = {
         "rate": abs(first.rate),
@@ -156,22 +175,43 @@ def confirm_fold(
     if len(legs) == 2:
         numbers.update(return_departure=second.departure, return_expected=second.expected)
     covered = []
-    if len(legs) == 2 and second.expected_event is not None and second.expected_event.kind == "fold":
+    if (
+        len(legs) == 2
+        and second.expected_event is not None
+        and second.expected_event.kind == "fold"
+    ):
         covered = [i for i, e in enumerate(events) if e is second.expected_event]
-    record = Confirmation(index, event.trace, event.kind, event.vary, event.value, status,
-                          words, numbers, tuple(curves), event.vary, model.states[j])
+    record = Confirmation(
+        index,
+        event.trace,
+        event.kind,
+        event.vary,
+        event.value,
+        status,
+        words,
+        numbers,
+        tuple(curves),
+        event.vary,
+        model.states[j],
+    )
     return record, covered
 
 
-def confirm_hopf(model: Model, branches: Sequence[Branch], events: Sequence[Event],
-                 index: int) -> Confirmation:
+def confirm_hopf(
+    model: Model, branches: Sequence[Branch], events: Sequence[Event], index: int
+) -> Confirmation:
     """A simulation just past Hopf point ``index``: amplitude against the normal form."""
     event = events[index]
     branch = next(b for b in branches if b.name == event.trace)
     beside = [r for r in rows_beside(branch, event) if r is not None]
     if beside and not any(branch.stable[r] for r in beside):
-        return _plain(event, index, NOT_APPLICABLE, "the branch is already unstable on both "
-                      "sides: no stable state starts to oscillate here")
+        return _plain(
+            event,
+            index,
+            NOT_APPLICABLE,
+            "the branch is already unstable on both "
+            "sides: no stable state starts to oscillate here",
+        )
     outcome = hopf.simulate_past_hopf(model, event)
     if isinstance(outcome, str):
         return _plain(event, index, INCONCLUSIVE, outcome)
@@ -188,7 +228,9 @@ def confirm_hopf(model: Model, branches: Sequence[Branch], events: Sequence[Even
     if outcome.observed == "small stable cycle":
         seen = f"simulated: a small stable cycle, {name} half-range {fmt(outcome.measured_amplitude[j], 4)}"
     elif outcome.observed == "departure":
-        seen = f"simulated: the state departed beyond {fmt(hopf.DEPARTURE_FACTOR, 2)} amplitude scales"
+        seen = (
+            f"simulated: the state departed beyond {fmt(hopf.DEPARTURE_FACTOR, 2)} amplitude scales"
+        )
     else:
         seen = "simulated: the oscillation died out"
     status = CONFIRMED if hopf.agreement(outcome) else MISMATCH
@@ -200,24 +242,44 @@ def confirm_hopf(model: Model, branches: Sequence[Branch], events: Sequence[Even
     if outcome.predicted_amplitude is not None:
         half = outcome.predicted_amplitude[j]
         for sign in (-1.0, 1.0):
-            curves.append(Curve("normal form: equilibrium ± half-range", t.time[[0, -1]],
-                                np.full(2, centre + sign * half), ROLE_PREDICTION))
+            curves.append(
+                Curve(
+                    "normal form: equilibrium ± half-range",
+                    t.time[[0, -1]],
+                    np.full(2, centre + sign * half),
+                    ROLE_PREDICTION,
+                )
+            )
     numbers = {
         "simulated_value": outcome.value,
         "growth_rate": outcome.growth,
         "lyapunov": event.lyapunov,
-        "predicted_half_range": None if outcome.predicted_amplitude is None
+        "predicted_half_range": None
+        if outcome.predicted_amplitude is None
         else float(outcome.predicted_amplitude[j]),
-        "measured_half_range": None if outcome.measured_amplitude is None
+        "measured_half_range": None
+        if outcome.measured_amplitude is None
         else float(outcome.measured_amplitude[j]),
         "observed": outcome.observed,
     }
-    return Confirmation(index, event.trace, event.kind, event.vary, event.value, status, words,
-                        numbers, tuple(curves), "time", name)
+    return Confirmation(
+        index,
+        event.trace,
+        event.kind,
+        event.vary,
+        event.value,
+        status,
+        words,
+        numbers,
+        tuple(curves),
+        "time",
+        name,
+    )
 
 
-def confirm_branch_point(model: Model, branches: Sequence[Branch], events: Sequence[Event],
-                         index: int) -> Confirmation:
+def confirm_branch_point(
+    model: Model, branches: Sequence[Branch], events: Sequence[Event], index: int
+) -> Confirmation:
     """Nudged equilibria on both sides of branch point ``index``: the exchange of stability."""
     event = events[index]
     nudges = branch_points.nudge_both_sides(model, branches, events, event)
@@ -235,21 +297,38 @@ def confirm_branch_point(model: Model, branches: Sequence[Branch], events: Seque
             fate = "returned"
         else:
             fate = f"left for trace {n.reached}" if n.reached else "left"
-        parts.append(f"{event.vary} = {fmt(n.value, DIGITS)}, trace {n.trace} "
-                     f"({'stable' if n.stable else 'unstable'}): {fate}")
+        parts.append(
+            f"{event.vary} = {fmt(n.value, DIGITS)}, trace {n.trace} "
+            f"({'stable' if n.stable else 'unstable'}): {fate}"
+        )
     status = CONFIRMED if agree else MISMATCH
     lead = "exchange of stability seen: " if agree and exchange else ""
     j = int(np.argmax(np.abs(nudges[0].trajectory.states[-1] - nudges[0].trajectory.states[0])))
     if not np.any(np.abs(nudges[0].trajectory.states[-1] - nudges[0].trajectory.states[0])):
         j = 0
     curves = tuple(
-        Curve(f"{event.vary} = {fmt(n.value, 4)} from {n.trace}", _thin(n.trajectory.time),
-              _thin(n.trajectory.states[:, j]), ROLE_SIMULATION)
+        Curve(
+            f"{event.vary} = {fmt(n.value, 4)} from {n.trace}",
+            _thin(n.trajectory.time),
+            _thin(n.trajectory.states[:, j]),
+            ROLE_SIMULATION,
+        )
         for n in nudges
     )
     numbers = {"agree": agree, "exchange": exchange, "simulations": len(nudges)}
-    return Confirmation(index, event.trace, event.kind, event.vary, event.value, status,
-                        lead + "; ".join(parts), numbers, curves, "time", model.states[j])
+    return Confirmation(
+        index,
+        event.trace,
+        event.kind,
+        event.vary,
+        event.value,
+        status,
+        lead + "; ".join(parts),
+        numbers,
+        curves,
+        "time",
+        model.states[j],
+    )
 
 
 def _plain(event: Event, index: int, status: str, words: str) -> Confirmation:
@@ -286,11 +365,20 @@ def confirm_events(
         for other in covered:
             if other not in done and other != index:
                 partner = events[other]
-                words = (f"crossed by the ramp back in the hysteresis loop of the fold at "
-                         f"{event.vary} = {fmt(event.value, DIGITS + 2)} (confirmation "
-                         f"#{index + 1}); {'confirmed' if record.status == CONFIRMED else 'see there'}")
-                done[other] = Confirmation(other, partner.trace, partner.kind, partner.vary,
-                                           partner.value, record.status, words)
+                words = (
+                    f"crossed by the ramp back in the hysteresis loop of the fold at "
+                    f"{event.vary} = {fmt(event.value, DIGITS + 2)} (confirmation "
+                    f"#{index + 1}); {'confirmed' if record.status == CONFIRMED else 'see there'}"
+                )
+                done[other] = Confirmation(
+                    other,
+                    partner.trace,
+                    partner.kind,
+                    partner.vary,
+                    partner.value,
+                    record.status,
+                    words,
+                )
     return tuple(done[i] for i in sorted(done))
 
 

@@ -165,8 +165,19 @@ def ramp(
     ending = run_end_event(run, events, direction)
     expected = ending.value if ending is not None else None
     if not trajectory.ok:
-        return Leg(start, end, signed, trajectory, expected, ending, None, predicted_delay,
-                   None, False, None)
+        return Leg(
+            start,
+            end,
+            signed,
+            trajectory,
+            expected,
+            ending,
+            None,
+            predicted_delay,
+            None,
+            False,
+            None,
+        )
     scale = state_scale(branches)
     final = params.copy()
     final[k] = end
@@ -179,8 +190,19 @@ def ramp(
         name, gap = nearest_traced(branches, branch.vary, end, landing, scale)
         trace = name if gap <= LANDING_SHARE else None
     departure = _departure(trajectory, run, trajectory.states[-1], scale)
-    return Leg(start, end, signed, trajectory, expected, ending, departure, predicted_delay,
-               landing, stable, trace)
+    return Leg(
+        start,
+        end,
+        signed,
+        trajectory,
+        expected,
+        ending,
+        departure,
+        predicted_delay,
+        landing,
+        stable,
+        trace,
+    )
 
 
 def stable_side(branch: Branch, event: Event) -> int | None:
@@ -228,10 +250,16 @@ def return_leg(
     end = float(np.clip(ending.value + back * OVERSHOOT_SHARE * length, low, high))
     rate, delay = abs(leg.rate), None
     if ending.kind == "fold":
-        form = fold_normal_form(model, ending.state, ending.parameters,
-                                model.parameter_index(ending.vary))
+        form = fold_normal_form(
+            model, ending.state, ending.parameters, model.parameter_index(ending.vary)
+        )
         if not form.degenerate:
             delay = slow_passage_delay(rate, form.coefficient, form.parameter_sensitivity)
-            end = float(np.clip(ending.value + back * max(OVERSHOOT_SHARE * length,
-                                                          OVERSHOOT_DELAYS * delay), low, high))
+            end = float(
+                np.clip(
+                    ending.value + back * max(OVERSHOOT_SHARE * length, OVERSHOOT_DELAYS * delay),
+                    low,
+                    high,
+                )
+            )
     return ramp(model, branches, events, run, leg.end, end, rate, delay)

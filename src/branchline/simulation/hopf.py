@@ -103,8 +103,18 @@ def simulate_past_hopf(model: Model, event: Event) -> HopfRun | str:
         tail = trajectory.states[window]
         measured = 0.5 * (tail.max(axis=0) - tail.min(axis=0))
         observed = "small stable cycle" if measured[focus] > 0.1 * scale * shape[focus] else "decay"
-    return HopfRun(float(params[k]), x0, alpha, omega, predicted, amplitude, observed, measured,
-                   trajectory, focus)
+    return HopfRun(
+        float(params[k]),
+        x0,
+        alpha,
+        omega,
+        predicted,
+        amplitude,
+        observed,
+        measured,
+        trajectory,
+        focus,
+    )
 
 
 def agreement(run: HopfRun) -> bool:
