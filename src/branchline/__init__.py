@@ -44,6 +44,12 @@ _EXPORTS = {
     "linearize": "branchline.problems.equilibrium",
     "render_report": "branchline.present.report",
     "bifurcation_figure": "branchline.present.plotting",
+    "phase_portrait": "branchline.api",
+    "compute_portrait": "branchline.portrait.build",
+    "portrait_figure": "branchline.present.portrait",
+    "write_portrait": "branchline.present.portrait",
+    "confirm_events": "branchline.simulation.confirm",
+    "Confirmation": "branchline.simulation.records",
 }
 
 __all__ = [*sorted(_EXPORTS), "__version__"]

@@ -62,3 +62,42 @@ def run(
     if out is not None:
         write_results(result, out)
     return result
+
+
+def phase_portrait(
+    scan: str | Path | dict[str, Any] | Scan,
+    settings: dict[str, float] | None = None,
+    *,
+    plane: tuple[str, str] | None = None,
+    eigenvector_plane: bool = False,
+    at: int | None = None,
+    out: str | Path | None = None,
+):
+    """The phase portrait of a scan's model at given parameter values, as a Figure.
+
+    Parameters are as for ``branchline portrait`` (``at`` numbers equilibria from 1).
+    The numbers behind it come from :func:`branchline.portrait.build.compute_portrait`;
+    with ``out`` the folder gets portrait.png, portrait.svg and portrait.json.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Two panels: the portrait, and the linearized flow beside the model's.
+    """
+    from branchline.portrait.build import compute_portrait
+    from branchline.present.portrait import portrait_figure, write_portrait
+
+    if isinstance(scan, dict):
+        scan = scan_from_dict(scan)
+    elif not isinstance(scan, Scan):
+        scan = load_scan(scan)
+    computed = compute_portrait(
+        scan,
+        settings,
+        plane=plane,
+        eigenvector_plane=eigenvector_plane,
+        focus=None if at is None else at - 1,
+    )
+    if out is not None:
+        write_portrait(computed, out)
+    return portrait_figure(computed)

@@ -183,6 +183,41 @@ def _command_inspect(args: argparse.Namespace) -> int:
     return EXIT_OK if converged else EXIT_NUMERICS
 
 
+def _command_portrait(args: argparse.Namespace) -> int:
+    from branchline.errors import ScanError
+    from branchline.portrait.build import compute_portrait
+    from branchline.present.portrait import portrait_lines, write_portrait
+
+    try:
+        scan = _load(args.scan)
+        settings = _parse_settings(args.set or [], scan)
+        if not args.quiet:
+            _python_notice(scan)
+        portrait = compute_portrait(
+            scan,
+            settings,
+            plane=tuple(args.plane) if args.plane else None,
+            eigenvector_plane=args.eigenvector_plane,
+            focus=args.at - 1 if args.at else None,
+        )
+    except ScanError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    out = Path(args.out) if args.out else Path("runs") / f"{Path(args.scan).stem}-portrait"
+    try:
+        write_portrait(portrait, out)
+    except OSError as err:
+        _error(f"could not write the portrait to {out}: {err}")
+        return EXIT_NUMERICS
+    if not args.quiet:
+        print("\n".join(portrait_lines(portrait)))
+        print(f"portrait written to {out}/ (portrait.png, portrait.svg, portrait.json)")
+    if not portrait.equilibria:
+        _error("no equilibrium was found at these parameter values")
+        return EXIT_NUMERICS
+    return EXIT_OK
+
+
 def _read_saved(folder: str):
     """The saved run in ``folder``, or None after printing why it cannot be read."""
     from branchline.results.writers import ResultsFolderError, read_results
@@ -253,6 +288,26 @@ def build_parser() -> argparse.ArgumentParser:
         "--set", action="append", metavar="NAME=VALUE", help="override a parameter (repeatable)"
     )
     inspect.set_defaults(handler=_command_inspect)
+
+    portrait = sub.add_parser("portrait", help="draw the phase portrait at given parameter values")
+    portrait.add_argument("scan")
+    portrait.add_argument(
+        "--set", action="append", metavar="NAME=VALUE", help="set a parameter (repeatable)"
+    )
+    portrait.add_argument(
+        "--plane", nargs=2, metavar=("X", "Y"), help="the two states spanning the plane"
+    )
+    portrait.add_argument(
+        "--eigenvector-plane",
+        action="store_true",
+        help="draw in the plane of the two leading eigenvectors instead",
+    )
+    portrait.add_argument(
+        "--at", type=int, metavar="K", help="equilibrium number for the linearization panel"
+    )
+    portrait.add_argument("--out", help="folder (default runs/<scan file stem>-portrait/)")
+    portrait.add_argument("--quiet", action="store_true", help="print nothing but errors")
+    portrait.set_defaults(handler=_command_portrait)
 
     plot = sub.add_parser("plot", help="redraw the diagram of a results folder")
     plot.add_argument("folder")

@@ -31,6 +31,7 @@ from branchline.simulation.records import (
 # One panel per simulated event, this many side by side; inches per panel.
 COLUMNS = 2
 PANEL_SIZE = (3.6, 2.6)
+TITLE_ROOM = 0.3  # inches above the panels for the figure's title
 # The figure is written once per run: a modest resolution keeps the run fast.
 PNG_DPI = 110
 FONT_SIZE = 8
@@ -90,7 +91,8 @@ def _panel(ax, record: Confirmation) -> None:
     for curve in record.curves:
         if curve.role in (ROLE_STABLE, ROLE_UNSTABLE):
             style = "-" if curve.role == ROLE_STABLE else (0, (4.0, 2.5))
-            ax.plot(curve.x, curve.y, color=BRANCH_COLOUR, ls=style, lw=1.0, zorder=2)
+            named = curve.label if curve.label == "equilibrium" else None
+            ax.plot(curve.x, curve.y, color=BRANCH_COLOUR, ls=style, lw=1.0, zorder=2, label=named)
         elif curve.role == ROLE_SIMULATION:
             colour = SIMULATION_COLOURS[simulated % len(SIMULATION_COLOURS)]
             ax.plot(curve.x, curve.y, color=colour, lw=1.1, zorder=3, label=curve.label)
@@ -148,6 +150,19 @@ def _arrow(ax, x: np.ndarray, y: np.ndarray, colour: str) -> None:
     )
 
 
+def _margins(rows: int, columns: int) -> dict[str, float]:
+    height = PANEL_SIZE[1] * rows + TITLE_ROOM
+    width = PANEL_SIZE[0] * columns
+    return {
+        "left": 0.7 / width,
+        "right": 1.0 - 0.15 / width,
+        "bottom": 0.45 / height,
+        "top": 1.0 - (TITLE_ROOM + 0.3) / height,
+        "wspace": 0.35,
+        "hspace": 0.75 / PANEL_SIZE[1],
+    }
+
+
 def confirmations_figure(confirmations: Sequence[Confirmation]) -> Figure | None:
     """One small panel per confirmation that simulated something; None if none did."""
     drawn = [c for c in confirmations if c.curves]
@@ -156,9 +171,12 @@ def confirmations_figure(confirmations: Sequence[Confirmation]) -> Figure | None
     rows = -(-len(drawn) // COLUMNS)
     columns = min(COLUMNS, len(drawn))
     with mpl.rc_context({"font.size": FONT_SIZE, "svg.hashsalt": "branchline"}):
-        fig = Figure(figsize=(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows), layout="constrained")
+        # fixed margins instead of a layout engine: the layout pass would cost as much
+        # as drawing the panels, and these small panels fit the margins
+        fig = Figure(figsize=(PANEL_SIZE[0] * columns, PANEL_SIZE[1] * rows + TITLE_ROOM))
         FigureCanvasAgg(fig)
         axes = np.atleast_1d(fig.subplots(rows, columns, squeeze=False).ravel())
+        fig.subplots_adjust(**_margins(rows, columns))
         for ax, record in zip(axes, drawn):
             _panel(ax, record)
             ax.grid(True, color="#DDDDDD", lw=0.5)

@@ -33,6 +33,9 @@ NEAR_FACTOR = 20.0
 NUDGE_SHARE = 0.05
 # Simulated for this many slowest time scales 1/|lambda| of the equilibrium.
 SETTLE_TIMES = 25.0
+# Time scales slower than this share of the fastest are not waited for (a cap on
+# the duration next to a nearly zero eigenvalue).
+SLOWEST_SHARE = 1e-3
 # Back within this share of the nudge: returned. Farther than the nudge: left.
 RETURN_SHARE = 0.1
 
@@ -104,8 +107,9 @@ def _nudge(model, branches, params, k, name, state, local, scale) -> Nudge:
     else:
         push = NUDGE_SHARE * 1e-2 * scale * np.sign(state + 1e-300)
     lin = linearize(model, state, params)
-    slowest = float(np.min(np.abs(lin.eigenvalues.real)))
-    duration = SETTLE_TIMES / max(slowest, 1e-6)
+    rates = np.abs(lin.eigenvalues.real)
+    slowest = max(float(rates.min()), SLOWEST_SHARE * float(rates.max()), 1e-300)
+    duration = SETTLE_TIMES / slowest
     trajectory = simulate(model, params, state + push, duration)
     value = float(params[k])
     if not trajectory.ok:

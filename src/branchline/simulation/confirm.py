@@ -308,7 +308,7 @@ def confirm_branch_point(
         j = 0
     curves = tuple(
         Curve(
-            f"{event.vary} = {fmt(n.value, 4)} from {n.trace}",
+            f"{event.vary} = {fmt(n.value, 4)}, nudged off {n.trace}",
             _thin(n.trajectory.time),
             _thin(n.trajectory.states[:, j]),
             ROLE_SIMULATION,
@@ -338,6 +338,17 @@ def _plain(event: Event, index: int, status: str, words: str) -> Confirmation:
 Confirmer = Callable[[Model, Sequence[Branch], Sequence[Event], int], Confirmation]
 
 
+def _confirm_one(model, branches, events, index) -> tuple[Confirmation, list[int]]:
+    kind = events[index].kind
+    if kind == "fold":
+        return confirm_fold(model, branches, events, index)
+    if kind == "hopf":
+        return confirm_hopf(model, branches, events, index), []
+    if kind == "branch_point":
+        return confirm_branch_point(model, branches, events, index), []
+    return _plain(events[index], index, NOT_APPLICABLE, "no simulation for this kind of event"), []
+
+
 def confirm_events(
     model: Model, branches: Sequence[Branch], events: Sequence[Event]
 ) -> tuple[Confirmation, ...]:
@@ -351,15 +362,11 @@ def confirm_events(
         if index in done:
             continue
         started = time.perf_counter()
-        covered: list[int] = []
-        if event.kind == "fold":
-            record, covered = confirm_fold(model, branches, events, index)
-        elif event.kind == "hopf":
-            record = confirm_hopf(model, branches, events, index)
-        elif event.kind == "branch_point":
-            record = confirm_branch_point(model, branches, events, index)
-        else:
-            record = _plain(event, index, NOT_APPLICABLE, "no simulation for this kind of event")
+        try:
+            record, covered = _confirm_one(model, branches, events, index)
+        except Exception as error:  # a confirmation must never break the run it checks
+            words = f"the simulation could not be set up ({type(error).__name__}: {error})"
+            record, covered = _plain(event, index, INCONCLUSIVE, words), []
         seconds = time.perf_counter() - started
         done[index] = _with_seconds(record, seconds)
         for other in covered:

@@ -33,6 +33,9 @@ ABSOLUTE_SHARE = 1e-10
 # A state this many times larger than the start state (plus one) has run away:
 # the integration stops there instead of chasing a blow-up.
 RUNAWAY_FACTOR = 1e3
+# With samples=None each integrator step is split into this many pieces
+# (evaluated on the integrator's dense output).
+STEP_SPLIT = 6
 # Samples kept for figures and for locating crossings between them.
 SAMPLES = 800
 
@@ -78,7 +81,8 @@ def simulate(
     index: int | None = None,
     rate: float = 0.0,
     stop: Callable[[float, Array], float] | None = None,
-    samples: int = SAMPLES,
+    samples: int | None = SAMPLES,
+    backward: bool = False,
 ) -> Trajectory:
     """Integrate x' = f(x, p(t)) from x0 for ``duration`` time units.
 
@@ -98,8 +102,12 @@ def simulate(
         terminal event of ``solve_ivp``); status ``"stopped"``. It also stops
         when a state grows past ``RUNAWAY_FACTOR`` times the start's size (a
         runaway, e.g. a finite-time blow-up), so that no simulation hangs.
-    samples : int
-        Evenly spaced samples returned.
+    samples : int or None
+        Evenly spaced samples returned; None returns the integrator's own steps
+        (dense where the solution turns, as curves in a figure need).
+    backward : bool
+        Integrate x' = -f(x, p) instead: the flow backward in time (for stable
+        manifolds); the ramp is not reversed.
 
     Returns
     -------
@@ -117,12 +125,14 @@ def simulate(
         p[index] += rate * t
         return p
 
+    sign = -1.0 if backward else 1.0
+
     def rhs(t, x):
-        return model.rhs(x, at(t))
+        return sign * model.rhs(x, at(t))
 
     def jacobian(t, x):
         jac = model.jacobian(x, at(t))
-        return jac.toarray() if hasattr(jac, "toarray") else jac
+        return sign * (jac.toarray() if hasattr(jac, "toarray") else np.asarray(jac))
 
     limit = RUNAWAY_FACTOR * (1.0 + float(np.max(np.abs(x0))))
 
@@ -133,7 +143,7 @@ def simulate(
     event.terminal = True
     event.direction = 1.0
     events = [event]
-    grid = np.linspace(0.0, float(duration), int(samples))
+    grid = None if samples is None else np.linspace(0.0, float(duration), int(samples))
     atol = ABSOLUTE_SHARE * (1.0 + float(np.max(np.abs(x0))))
     try:
         with np.errstate(all="ignore"):
@@ -155,6 +165,13 @@ def simulate(
     if not solution.success or not np.all(np.isfinite(states)):
         return _failed(base, x0, index, f"the integrator stopped: {solution.message}")
     times = solution.t
+    if samples is None and times.size > 1:
+        # the integrator's steps, each split so that curves drawn through them look smooth
+        fractions = np.linspace(0.0, 1.0, STEP_SPLIT, endpoint=False)
+        times = np.append(
+            (times[:-1, None] + np.diff(times)[:, None] * fractions).ravel(), times[-1]
+        )
+        states = solution.sol(times).T
     status = "done"
     if solution.t_events[0].size:
         stopped = float(solution.t_events[0][0])

@@ -1,0 +1,1 @@
+"""Phase portraits: the plane, equilibria and their types, manifolds, trajectories."""
