@@ -32,7 +32,7 @@ NEAR_FACTOR = 20.0
 # The nudge: this share of the distance to the nearest neighbour on that side.
 NUDGE_SHARE = 0.05
 # Simulated for this many slowest time scales 1/|lambda| of the equilibrium.
-SETTLE_TIMES = 25.0
+SETTLE_TIMES = 12.0
 # Time scales slower than this share of the fastest are not waited for (a cap on
 # the duration next to a nearly zero eigenvalue).
 SLOWEST_SHARE = 1e-3

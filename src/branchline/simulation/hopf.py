@@ -9,7 +9,7 @@ Applied Bifurcation Theory, section 3.5):
   state j oscillates with half-range 2 r |q_j|;
 - l1 > 0 (subcritical): no small cycle; the state departs from the equilibrium.
 
-The simulation starts beside the equilibrium at half the amplitude scale
+The simulation starts beside the equilibrium at 0.9 of the amplitude scale
 sqrt(|alpha / (omega l1)|), whatever the sign of l1, so the same run tests
 either prediction: a prediction with the wrong sign is contradicted.
 """
@@ -33,9 +33,10 @@ Array = np.ndarray
 # (its error is of relative order alpha / omega), far enough to settle quickly.
 GROWTH_SHARE = 0.02
 # Start at this share of the amplitude scale sqrt(|alpha / (omega l1)|).
-START_SHARE = 0.5
-# Transients toward a cycle decay like exp(-2 alpha t): this many 1/alpha.
-SETTLE_TIMES = 3.5
+START_SHARE = 0.9
+# Transients toward a cycle decay like exp(-2 alpha t): this many 1/alpha leaves
+# exp(-3) of the start's 10 % deviation from a predicted cycle, under 1 %.
+SETTLE_TIMES = 1.5
 # Amplitude measured over this many periods at the end.
 MEASURE_PERIODS = 3.0
 # Farther than this many amplitude scales from the equilibrium the state has

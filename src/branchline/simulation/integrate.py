@@ -25,8 +25,8 @@ if TYPE_CHECKING:
 Array = np.ndarray
 
 # Tolerances of the integrator. The confirmations compare amplitudes and jump
-# points to a few per cent; 1e-8 relative keeps the integration error far below that.
-RELATIVE_TOLERANCE = 1e-8
+# points to a few per cent; 1e-7 relative keeps the integration error far below that.
+RELATIVE_TOLERANCE = 1e-7
 # Absolute tolerance relative to the size of the start state (plus one, so that
 # states near zero still get a sensible floor).
 ABSOLUTE_SHARE = 1e-10
