@@ -181,18 +181,8 @@ def confirm_fold(
         and second.expected_event.kind == "fold"
     ):
         covered = [i for i, e in enumerate(events) if e is second.expected_event]
-    record = Confirmation(
-        index,
-        event.trace,
-        event.kind,
-        event.vary,
-        event.value,
-        status,
-        words,
-        numbers,
-        tuple(curves),
-        event.vary,
-        model.states[j],
+    record = _plain(
+        event, index, status, words, numbers, tuple(curves), event.vary, model.states[j]
     )
     return record, covered
 
@@ -262,19 +252,7 @@ def confirm_hopf(
         else float(outcome.measured_amplitude[j]),
         "observed": outcome.observed,
     }
-    return Confirmation(
-        index,
-        event.trace,
-        event.kind,
-        event.vary,
-        event.value,
-        status,
-        words,
-        numbers,
-        tuple(curves),
-        "time",
-        name,
-    )
+    return _plain(event, index, status, words, numbers, tuple(curves), "time", name)
 
 
 def confirm_branch_point(
@@ -316,23 +294,15 @@ def confirm_branch_point(
         for n in nudges
     )
     numbers = {"agree": agree, "exchange": exchange, "simulations": len(nudges)}
+    words = lead + "; ".join(parts)
+    return _plain(event, index, status, words, numbers, curves, "time", model.states[j])
+
+
+def _plain(event: Event, index: int, status: str, words: str, *details) -> Confirmation:
+    """A Confirmation of event ``index``; ``details`` are numbers, curves and axis labels."""
     return Confirmation(
-        index,
-        event.trace,
-        event.kind,
-        event.vary,
-        event.value,
-        status,
-        lead + "; ".join(parts),
-        numbers,
-        curves,
-        "time",
-        model.states[j],
+        index, event.trace, event.kind, event.vary, event.value, status, words, *details
     )
-
-
-def _plain(event: Event, index: int, status: str, words: str) -> Confirmation:
-    return Confirmation(index, event.trace, event.kind, event.vary, event.value, status, words)
 
 
 Confirmer = Callable[[Model, Sequence[Branch], Sequence[Event], int], Confirmation]
@@ -377,15 +347,7 @@ def confirm_events(
                     f"{event.vary} = {fmt(event.value, DIGITS + 2)} (confirmation "
                     f"#{index + 1}); {'confirmed' if record.status == CONFIRMED else 'see there'}"
                 )
-                done[other] = Confirmation(
-                    other,
-                    partner.trace,
-                    partner.kind,
-                    partner.vary,
-                    partner.value,
-                    record.status,
-                    words,
-                )
+                done[other] = _plain(partner, other, record.status, words)
     return tuple(done[i] for i in sorted(done))
 
 

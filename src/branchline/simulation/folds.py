@@ -164,32 +164,19 @@ def ramp(
     trajectory = simulate(model, params, x0, abs(end - start) / abs(rate), index=k, rate=signed)
     ending = run_end_event(run, events, direction)
     expected = ending.value if ending is not None else None
-    if not trajectory.ok:
-        return Leg(
-            start,
-            end,
-            signed,
-            trajectory,
-            expected,
-            ending,
-            None,
-            predicted_delay,
-            None,
-            False,
-            None,
-        )
-    scale = state_scale(branches)
-    final = params.copy()
-    final[k] = end
-    landing, stable, trace = None, False, None
-    ran_away = trajectory.status == "stopped"
-    settled = None if ran_away else solve_equilibrium(model, trajectory.states[-1], final)
-    if settled is not None and settled.converged:
-        landing = settled.state
-        stable = linearize(model, landing, final).positive == 0
-        name, gap = nearest_traced(branches, branch.vary, end, landing, scale)
-        trace = name if gap <= LANDING_SHARE else None
-    departure = _departure(trajectory, run, trajectory.states[-1], scale)
+    landing, stable, trace, departure = None, False, None, None
+    if trajectory.ok:
+        scale = state_scale(branches)
+        final = params.copy()
+        final[k] = end
+        ran_away = trajectory.status == "stopped"
+        settled = None if ran_away else solve_equilibrium(model, trajectory.states[-1], final)
+        if settled is not None and settled.converged:
+            landing = settled.state
+            stable = linearize(model, landing, final).positive == 0
+            name, gap = nearest_traced(branches, branch.vary, end, landing, scale)
+            trace = name if gap <= LANDING_SHARE else None
+        departure = _departure(trajectory, run, trajectory.states[-1], scale)
     return Leg(
         start,
         end,

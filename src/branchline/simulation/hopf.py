@@ -35,8 +35,8 @@ GROWTH_SHARE = 0.02
 # Start at this share of the amplitude scale sqrt(|alpha / (omega l1)|).
 START_SHARE = 0.9
 # Transients toward a cycle decay like exp(-2 alpha t): this many 1/alpha leaves
-# exp(-3) of the start's 10 % deviation from a predicted cycle, under 1 %.
-SETTLE_TIMES = 1.5
+# exp(-5) of the start's 10 % deviation from a predicted cycle, under 0.1 %.
+SETTLE_TIMES = 2.5
 # Amplitude measured over this many periods at the end.
 MEASURE_PERIODS = 3.0
 # Farther than this many amplitude scales from the equilibrium the state has
