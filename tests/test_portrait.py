@@ -136,7 +136,7 @@ def test_competition_types_eigenvalues_and_basins():
     separatrix = np.vstack([m.points for m in portrait.manifolds if m.which == "stable"])
     order = np.argsort(separatrix[:, 0])
     xs, ys = separatrix[order, 0], separatrix[order, 1]
-    assert np.all(np.diff(ys) >= -1e-9)
+    assert np.all(np.diff(ys) >= -1e-6)  # rising, up to integration noise near the node
 
     def rhs(t, z):
         x, y = z
