@@ -17,6 +17,7 @@ from branchline.events.crowding import resolve_crowded_steps
 from branchline.events.locate import locate_events
 from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
+from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.problems.start_guess import start_distance
 from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
@@ -218,7 +219,9 @@ def run_scan(
         warnings.extend(outcome.warnings)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
-    failed = [b for b in branches if b.status == STATUS_FAILED]
+    families, cycle_events = run_cycles(model, scan.cycles, events, progress)
+    events.extend(cycle_events)
+    failed = [b for b in (*branches, *families) if b.status == STATUS_FAILED]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
     finished = time.perf_counter()
     return RunResult(
@@ -234,4 +237,5 @@ def run_scan(
             "total_seconds": finished - started,
         },
         warnings=tuple(warnings),
+        cycles=tuple(families),
     )

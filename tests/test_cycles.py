@@ -1,0 +1,256 @@
+"""Periodic orbits: collocation, Floquet multipliers, cycle events, [[cycles]] scans.
+
+References (each named beside its check):
+- Hopf normal form x' = mu x - y - x r^2, y' = x + mu y - y r^2: r' = r (mu - r^2),
+  theta' = 1, so orbits of radius sqrt(mu), period 2 pi, and nontrivial multiplier
+  exp(T d/dr[r (mu - r^2)]) = exp(-4 pi mu) (Kuznetsov, Elements of Applied
+  Bifurcation Theory, 3rd ed., section 3.4; Strogatz, Nonlinear Dynamics and Chaos,
+  section 8.2).
+- Bautin normal form rho' = rho (b1 + b2 rho^2 - rho^4), phi' = 1 (Kuznetsov,
+  section 8.3): cycles at b1 + b2 rho^2 - rho^4 = 0, which fold at b1 = -b2^2 / 4,
+  rho^2 = b2 / 2; the radial multiplier is exp(2 pi * 2 rho^2 (b2 - 2 rho^2)).
+- The van der Pol oscillator x'' - (a - x^2) x' + x = 0 (van der Pol, 1926; Strogatz,
+  section 7.5), checked against scipy.integrate.solve_ivp at tight tolerances, and its
+  multiplier against the variational equations integrated by solve_ivp and against
+  Liouville's formula exp(int trace f_x dt) (Hartman, Ordinary Differential Equations,
+  chapter IV; for planar orbits the nontrivial multiplier).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.integrate import solve_ivp
+
+from branchline.errors import ScanError
+from branchline.runner import run_scan
+from branchline.scan.loader import scan_from_dict
+
+HOPF_NORMAL_FORM = {
+    "x": "mu*x - y - x*(x^2 + y^2)",
+    "y": "x + mu*y - y*(x^2 + y^2)",
+}
+
+
+def cycles_scan(equations, parameters, vary, interval, start, **cycle_keys):
+    data = {
+        "model": {"parameters": parameters, "equations": equations},
+        "trace": [{"name": "rest", "vary": vary, "interval": interval, "start": start}],
+        "cycles": [{"name": "osc", "from": "rest", "interval": interval, **cycle_keys}],
+    }
+    return scan_from_dict(data)
+
+
+@pytest.fixture(scope="module")
+def hopf_run():
+    scan = cycles_scan(
+        HOPF_NORMAL_FORM, {"mu": -0.5}, "mu", [-1.0, 1.0], {"x": 0.0, "y": 0.0}, intervals=20
+    )
+    return run_scan(scan)
+
+
+def test_hopf_normal_form_orbits(hopf_run):
+    family = hopf_run.cycles[0]
+    assert family.status == "done" and len(family) > 5
+    assert family.orbits[-1].parameter == pytest.approx(1.0, abs=1e-12)  # ends on the edge
+    for orbit in family.orbits:
+        mu = orbit.parameter
+        assert mu > 0  # supercritical: the orbits exist for mu > 0
+        # Kuznetsov section 3.4: radius sqrt(mu), period 2 pi, multiplier exp(-4 pi mu)
+        assert orbit.period == pytest.approx(2 * math.pi, rel=1e-9)
+        assert orbit.maxima == pytest.approx([math.sqrt(mu)] * 2, rel=1e-8)
+        assert orbit.minima == pytest.approx([-math.sqrt(mu)] * 2, rel=1e-8)
+        assert abs(orbit.nontrivial[0]) == pytest.approx(math.exp(-4 * math.pi * mu), rel=1e-8)
+        assert abs(orbit.multipliers[orbit.trivial] - 1.0) < 1e-8
+        assert orbit.stable
+
+
+def test_cycles_table_and_profiles(hopf_run, tmp_path):
+    from branchline.results.writers import read_results, write_results
+
+    frame = hopf_run.cycles_frame()
+    assert list(frame.columns) == [
+        "cycles",
+        "step",
+        "mu",
+        "period",
+        "x_min",
+        "x_max",
+        "y_min",
+        "y_max",
+        "stable",
+        "multiplier",
+    ]
+    assert frame["multiplier"].to_numpy() == pytest.approx(np.exp(-4 * np.pi * frame["mu"]))
+    folder = write_results(hopf_run, tmp_path / "run", figures=False)
+    saved = read_results(folder)
+    assert saved.cycles is not None and len(saved.cycles) == len(frame)
+    profiles = np.load(folder / "cycles.npz")
+    orbit = profiles["osc:profiles"][-1]  # mu = 1: the unit circle
+    assert np.hypot(orbit[:, 0], orbit[:, 1]) == pytest.approx(1.0, rel=1e-8)
+    report = (folder / "report.md").read_text()
+    assert "## Oscillations" in report and "onset soft" in report
+
+
+def test_bautin_cycle_fold_and_multipliers():
+    # Kuznetsov section 8.3 with b2 = 1, s = -1: subcritical Hopf at b1 = 0, cycle fold at
+    # b1 = -1/4 with rho^2 = 1/2, where both multipliers are 1.
+    equations = {
+        "x": "b1*x - y + b2*x*(x^2+y^2) - x*(x^2+y^2)^2",
+        "y": "x + b1*y + b2*y*(x^2+y^2) - y*(x^2+y^2)^2",
+    }
+    scan = cycles_scan(
+        equations, {"b1": -0.6, "b2": 1.0}, "b1", [-0.6, 0.2], {"x": 0.0, "y": 0.0}, intervals=20
+    )
+    result = run_scan(scan)
+    folds = [e for e in result.events if e.kind == "cycle_fold"]
+    assert len(folds) == 1
+    fold = folds[0]
+    assert fold.value == pytest.approx(-0.25, abs=1e-10)
+    assert np.hypot(*fold.state) == pytest.approx(math.sqrt(0.5), rel=1e-8)
+    multipliers = np.array([complex(*z) for z in fold.details["multipliers"]])
+    assert np.abs(multipliers - 1.0) == pytest.approx([0.0, 0.0], abs=1e-6)
+    family = result.cycles[0]
+    for orbit in family.orbits:
+        rho2 = float(orbit.maxima[0]) ** 2
+        expected = math.exp(2 * math.pi * 2 * rho2 * (1.0 - 2 * rho2))
+        assert abs(orbit.nontrivial[0]) == pytest.approx(expected, rel=1e-7)
+        assert orbit.stable == (rho2 > 0.5)
+    assert any(o.stable for o in family.orbits) and not family.orbits[0].stable
+
+
+VAN_DER_POL = {"x": "y", "y": "(a - x^2)*y - x"}
+
+
+def _van_der_pol_reference(a: float):
+    """Period, extremes and multiplier of the van der Pol orbit at ``a`` by solve_ivp."""
+
+    def field(t, z):
+        x, y = z
+        return [y, (a - x * x) * y - x]
+
+    def crossing(t, z):
+        return z[1]
+
+    crossing.direction = -1.0  # y falls through 0 at the maximum of x
+    settle = solve_ivp(field, (0, 200), [2.0, 0.0], rtol=1e-12, atol=1e-12)
+    start = solve_ivp(field, (0, 50), settle.y[:, -1], events=crossing, rtol=1e-12, atol=1e-12)
+    z0 = start.y_events[0][-1]
+    one = solve_ivp(field, (0, 50), z0, events=crossing, rtol=1e-13, atol=1e-13, dense_output=True)
+    period = one.t_events[0][1] if one.t_events[0][0] < 1e-9 else one.t_events[0][0]
+    times = np.linspace(0, period, 20001)
+    ys = one.sol(times)[1]
+    i = int(np.argmax(ys))
+
+    def slope(t, z):
+        x, y = z
+        return (a - x * x) * y - x
+
+    peak = solve_ivp(field, (0, times[i] + 0.5), z0, events=slope, rtol=1e-13, atol=1e-13)
+    y_max = max(z[1] for z in peak.y_events[0] if z[1] > 0)
+
+    def variational(t, w):
+        x, y = w[:2]
+        m = w[2:].reshape(2, 2)
+        jac = np.array([[0.0, 1.0], [-2 * x * y - 1.0, a - x * x]])
+        return np.concatenate([[y, (a - x * x) * y - x], (jac @ m).ravel()])
+
+    flow = solve_ivp(
+        variational, (0, period), np.concatenate([z0, np.eye(2).ravel()]), rtol=1e-13, atol=1e-13
+    )
+    monodromy = flow.y[2:, -1].reshape(2, 2)
+    return period, float(z0[0]), y_max, np.linalg.eigvals(monodromy)
+
+
+@pytest.fixture(scope="module")
+def van_der_pol_family():
+    scan = cycles_scan(
+        VAN_DER_POL, {"a": -0.5}, "a", [-0.5, 1.2], {"x": 0.0, "y": 0.0}, intervals=40
+    )
+    return run_scan(scan).cycles[0]
+
+
+def test_van_der_pol_against_simulation(van_der_pol_family):
+    family = van_der_pol_family
+    assert family.status == "done"
+    orbit = min(family.orbits, key=lambda o: abs(o.parameter - 1.0))
+    period, x_max, y_max, multipliers = _van_der_pol_reference(orbit.parameter)
+    # solve_ivp at rtol 1e-13 is the reference (the period for a = 1 is 6.6632868593...,
+    # a widely tabulated value, from memory)
+    assert orbit.period == pytest.approx(period, rel=1e-6)
+    assert orbit.maxima[0] == pytest.approx(x_max, rel=1e-6)
+    assert orbit.minima[0] == pytest.approx(-x_max, rel=1e-6)  # symmetric orbit
+    assert orbit.maxima[1] == pytest.approx(y_max, rel=1e-6)
+    ours = np.sort(np.abs(orbit.multipliers))
+    assert ours == pytest.approx(np.sort(np.abs(multipliers)), rel=1e-6, abs=1e-9)
+
+
+def test_van_der_pol_liouville_and_trivial_multiplier(van_der_pol_family):
+    from branchline.numerics.collocation import evaluate_periodic
+
+    for orbit in van_der_pol_family.orbits:
+        assert abs(orbit.multipliers[orbit.trivial] - 1.0) < 1e-8
+        # Liouville: mu = exp(T int_0^1 (a - x^2) ds), by the trapezoid rule on a fine
+        # periodic grid (spectrally accurate for periodic integrands)
+        s = np.arange(4000) / 4000
+        x = evaluate_periodic(orbit.mesh, 4, orbit.values, s)[:, 0]
+        expected = math.exp(orbit.period * float(np.mean(orbit.parameter - x * x)))
+        assert abs(orbit.nontrivial[0]) == pytest.approx(expected, rel=1e-6)
+
+
+def test_strongly_stable_orbit_keeps_its_other_multipliers():
+    # The Hopf normal form with a fast decaying third state z' = -lam z: multipliers 1,
+    # exp(-4 pi mu) and exp(-2 pi lam) = 1e-10 for lam = 10 ln(10) / (2 pi).
+    lam = 10 * math.log(10) / (2 * math.pi)
+    equations = {**HOPF_NORMAL_FORM, "z": "-lam*z"}
+    scan = cycles_scan(
+        equations,
+        {"mu": -0.5, "lam": lam},
+        "mu",
+        [-1.0, 0.6],
+        {"x": 0.0, "y": 0.0, "z": 0.0},
+        intervals=20,
+    )
+    family = run_scan(scan).cycles[0]
+    assert family.status == "done"
+    for orbit in family.orbits:
+        mu = orbit.parameter
+        moduli = np.sort(np.abs(orbit.nontrivial))
+        assert moduli[1] == pytest.approx(math.exp(-4 * math.pi * mu), rel=1e-8)
+        assert moduli[0] == pytest.approx(1e-10, rel=1e-3)
+        assert abs(orbit.multipliers[orbit.trivial] - 1.0) < 1e-8
+
+
+@pytest.mark.parametrize(
+    ("change", "key", "words"),
+    [
+        ({"from": "nowhere"}, "cycles[1].from", "not a trace"),
+        ({"points": 9}, "cycles[1].points", "from 2 to 7"),
+        ({"name": "a.b"}, "cycles[1].name", "without '.'"),
+        ({"name": "rest"}, "cycles[1].name", "already used"),
+        ({"interval": [1.0, 0.0]}, "cycles[1].interval", "reversed"),
+        ({"intervals": 2}, "cycles[1].intervals", "at least 4"),
+        ({"doublings": -1}, "cycles[1].doublings", "positive whole number"),
+        ({"steps": {"largst": 1}}, "cycles[1].steps.largst", "did you mean 'largest'"),
+        ({"colour": 1}, "cycles[1].colour", "unknown key"),
+    ],
+)
+def test_cycles_section_errors_name_file_and_key(change, key, words):
+    data = {
+        "model": {"parameters": {"mu": -0.5}, "equations": HOPF_NORMAL_FORM},
+        "trace": [{"name": "rest", "vary": "mu", "interval": [-1, 1], "start": {"x": 0, "y": 0}}],
+        "cycles": [{"name": "osc", "from": "rest", "interval": [-1, 1], **change}],
+    }
+    with pytest.raises(ScanError) as info:
+        scan_from_dict(data, "plant.toml")
+    assert info.value.key == key
+    assert str(info.value).startswith(f"plant.toml: {key}: ") and words in str(info.value)
+
+
+def test_missing_hopf_point_fails_gracefully():
+    scan = cycles_scan({"x": "mu - x"}, {"mu": 0.0}, "mu", [-1.0, 1.0], {"x": 0.0})
+    result = run_scan(scan)
+    assert result.status == "failed"
+    assert "0 located Hopf point" in result.cycles[0].message
