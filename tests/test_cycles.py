@@ -254,3 +254,70 @@ def test_missing_hopf_point_fails_gracefully():
     result = run_scan(scan)
     assert result.status == "failed"
     assert "0 located Hopf point" in result.cycles[0].message
+
+
+ROESSLER = {"x": "-y - z", "y": "x + a*y", "z": "b + z*(x - c)"}
+
+
+def _roessler_returns(a: float, start, settle: float = 300.0, span: float = 200.0):
+    """Times and values of the maxima of x on the attractor at ``a`` (b = 2, c = 4), by
+    solve_ivp at tight tolerances after a transient of ``settle`` time units."""
+
+    def field(t, z):
+        x, y, w = z
+        return [-y - w, x + a * y, 2.0 + w * (x - 4.0)]
+
+    def x_peak(t, z):
+        return -z[1] - z[2]
+
+    x_peak.direction = -1.0
+    first = solve_ivp(field, (0, settle), start, rtol=1e-11, atol=1e-11)
+    run = solve_ivp(field, (0, span), first.y[:, -1], events=x_peak, rtol=1e-12, atol=1e-12)
+    return run.t_events[0], run.y_events[0][:, 0]
+
+
+@pytest.fixture(scope="module")
+def roessler_run():
+    # Roessler, "An equation for continuous chaos", Phys. Lett. A 57 (1976), with b = 2,
+    # c = 4 and a varied: the orbit born at the Hopf point of the inner equilibrium
+    # doubles its period before chaos (the cascade; Kuznetsov, Elements of Applied
+    # Bifurcation Theory, section 10.3 discusses this model family; the doubling's
+    # value here is confirmed by simulation below, not taken from a table).
+    a0 = 0.05
+    x0 = (4.0 - math.sqrt(16.0 - 8.0 * a0)) / 2.0
+    scan = cycles_scan(
+        ROESSLER,
+        {"a": a0, "b": 2.0, "c": 4.0},
+        "a",
+        [0.0, 0.36],
+        {"x": x0, "y": -x0 / a0, "z": x0 / a0},
+        intervals=30,
+    )
+    return run_scan(scan)
+
+
+def test_roessler_period_doubling_confirmed_by_simulation(roessler_run):
+    doublings = [e for e in roessler_run.events if e.kind == "period_doubling"]
+    assert [e.trace for e in doublings][:1] == ["osc"]
+    value = doublings[0].value
+    multipliers = [complex(*z) for z in doublings[0].details["multipliers"]]
+    assert min(abs(z + 1.0) for z in multipliers) < 1e-6
+    single, doubled = roessler_run.cycles[0], roessler_run.cycles[1]
+    assert doubled.name == "osc.2" and doubled.parent == "osc" and len(doubled) > 3
+    # Before the doubling: one maximum of x per turn, the single family's period.
+    before = min(single.orbits, key=lambda o: abs(o.parameter - (value - 0.01)))
+    assert before.parameter < value and before.stable
+    start = before.values[0]
+    times, peaks = _roessler_returns(before.parameter, start)
+    assert np.ptp(peaks) < 1e-6 * abs(peaks).max()
+    assert np.mean(np.diff(times)) == pytest.approx(before.period, rel=1e-6)
+    # After it, on the side the doubled family lies: two alternating maxima, and the
+    # simulated orbit's period (every second maximum) is the doubled family's period.
+    after = [o for o in doubled.orbits if o.parameter > value + 0.005 and o.stable]
+    assert after, "the doubled family exists beyond the doubling"
+    orbit = after[0]
+    times, peaks = _roessler_returns(orbit.parameter, orbit.values[0])
+    assert abs(peaks[0] - peaks[1]) > 1e-3 * abs(peaks[0])
+    assert peaks[::2] == pytest.approx(np.full(peaks[::2].shape, peaks[0]), rel=1e-6)
+    assert np.mean(np.diff(times[::2])) == pytest.approx(orbit.period, rel=1e-6)
+    assert orbit.maxima[0] == pytest.approx(peaks.max(), rel=1e-6)
