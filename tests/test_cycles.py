@@ -321,3 +321,71 @@ def test_roessler_period_doubling_confirmed_by_simulation(roessler_run):
     assert peaks[::2] == pytest.approx(np.full(peaks[::2].shape, peaks[0]), rel=1e-6)
     assert np.mean(np.diff(times[::2])) == pytest.approx(orbit.period, rel=1e-6)
     assert orbit.maxima[0] == pytest.approx(peaks.max(), rel=1e-6)
+
+
+def test_homoclinic_approach_on_a_saddle_node_on_the_orbit():
+    # Our variant of Strogatz's infinite-period bifurcation (Nonlinear Dynamics and Chaos,
+    # section 8.4: r' = r (1 - r^2), theta' = mu - sin theta): here r' = r (a - r^2),
+    # theta' = 1 - r sin theta. The orbit is the circle r = sqrt(a), of period
+    # int dtheta / (1 - sqrt(a) sin theta) = 2 pi / sqrt(1 - a), which diverges as a -> 1,
+    # where a saddle-node appears on the orbit at (0, 1).
+    equations = {
+        "x": "x*(a - x^2 - y^2) - y*(1 - y)",
+        "y": "y*(a - x^2 - y^2) + x*(1 - y)",
+    }
+    scan = cycles_scan(equations, {"a": -0.5}, "a", [-0.5, 1.5], {"x": 0.0, "y": 0.0}, intervals=40)
+    result = run_scan(scan)
+    family = result.cycles[0]
+    assert family.status == "homoclinic" and result.status == "done"
+    assert "period grows without bound" in family.message
+    assert "x=-0.000" in family.message or "x=0.000" in family.message
+    assert "y=0.99" in family.message and "saddle-node" in family.message
+    last = family.orbits[-1]
+    assert 0.98 < last.parameter < 1.0
+    assert last.period > 9 * 2 * math.pi
+    for orbit in family.orbits:
+        a = orbit.parameter
+        assert orbit.period == pytest.approx(2 * math.pi / math.sqrt(1 - a), rel=1e-8)
+        assert orbit.maxima[0] == pytest.approx(math.sqrt(a), rel=1e-6)
+
+
+def test_torus_located_with_its_angle():
+    # An orbit r = 1, z = 0 of period 2 pi for every al, whose transverse linearization in
+    # (u, z), u = x^2 + y^2 - 1, is [[al, -w], [w, al]]: multipliers 1 and
+    # exp(2 pi (al +- i w)) (Floquet's theorem for a constant-coefficient linearization;
+    # Hartman, Ordinary Differential Equations, chapter IV). A complex pair crosses the
+    # unit circle at al = 0, at angle 2 pi w: a torus (Neimark-Sacker) point (Kuznetsov,
+    # Elements of Applied Bifurcation Theory, section 7.3 for maps; from memory).
+    from branchline.events.cycle_events import locate_cycle_events
+    from branchline.model.build import build_model
+    from branchline.numerics.collocation import representation_times
+    from branchline.problems.cycle_family import family_record, follow_family
+    from branchline.problems.cycles import PeriodicOrbitProblem
+    from branchline.scan.loader import StepSettings
+
+    w = 0.3
+    equations = {
+        "x": "-y + 0.5*x*(al*(x^2 + y^2 - 1) - w*z)",
+        "y": "x + 0.5*y*(al*(x^2 + y^2 - 1) - w*z)",
+        "z": "w*(x^2 + y^2 - 1) + al*z",
+    }
+    scan = cycles_scan(
+        equations, {"al": -0.2, "w": w}, "al", [-0.2, 0.2], {"x": 0.0, "y": 0.0, "z": 0.0}
+    )
+    model = build_model(scan.model)
+    mesh = np.linspace(0.0, 1.0, 21)
+    s = representation_times(mesh, 4)
+    values = np.column_stack([np.cos(2 * np.pi * s), np.sin(2 * np.pi * s), 0 * s])
+    problem = PeriodicOrbitProblem(model, 0, model.defaults, mesh, 4, values)
+    u0 = problem.pack(values, 2 * np.pi, -0.2)
+    tangent = np.zeros_like(u0)
+    tangent[-1] = 1.0
+    steps = StepSettings(initial=0.02, smallest=1e-8, largest=0.05, max_points=100)
+    curve, status, message = follow_family(problem, u0, tangent, steps, (-0.2, 0.2))
+    family = family_record("ring", "al", model.defaults, curve, 4, (-0.2, 0.2), status, message)
+    assert status == "done"
+    events = locate_cycle_events(model, family, family.test_values)
+    assert [e.kind for e in events] == ["torus"]
+    assert events[0].value == pytest.approx(0.0, abs=1e-10)
+    assert events[0].details["angle"] == pytest.approx(2 * np.pi * w, rel=1e-8)
+    assert "angle" in events[0].note

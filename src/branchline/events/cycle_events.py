@@ -23,10 +23,11 @@ from branchline.continuation import correctors
 from branchline.numerics import collocation
 from branchline.problems.cycles import PeriodicOrbitProblem, cycle_tests
 from branchline.results.records import CycleFamily, Event
+from branchline.vocabulary import EventKind
 
 Array = np.ndarray
 
-KINDS = ("cycle_fold", "period_doubling", "torus")
+KINDS = (EventKind.CYCLE_FOLD, EventKind.PERIOD_DOUBLING, EventKind.TORUS)
 # Relative width of the final bracket along the chord (in u): below it the located
 # orbit is as good as the collocation system can place it.
 LOCATE_TOLERANCE = 1e-12
@@ -163,7 +164,7 @@ def _event(model, family, kind, problem, u, point, row, iterations) -> Event | N
         "orbit_mesh": problem.mesh.tolist(),
         "orbit_values": values.tolist(),
     }
-    if kind == "torus":
+    if kind == EventKind.TORUS:
         products = [abs(abs(z) - 1.0) for z in rest]
         crossing = rest[int(np.argmin(products))]
         if abs(crossing.imag) <= REAL_PAIR_TOLERANCE * abs(crossing):
@@ -174,7 +175,7 @@ def _event(model, family, kind, problem, u, point, row, iterations) -> Event | N
             f"a complex pair of multipliers crosses the unit circle at angle {angle:.8g} rad "
             f"(ratio to 2 pi {angle / (2 * math.pi):.6g}); period {period:.10g}"
         )
-    elif kind == "period_doubling":
+    elif kind == EventKind.PERIOD_DOUBLING:
         crossing = rest[int(np.argmin(np.abs(rest + 1.0)))]
         note = f"multiplier {crossing.real:.10g} passes through -1; period {period:.10g}"
     else:

@@ -17,13 +17,14 @@ import numpy as np
 import pandas as pd
 
 from branchline.results.reading import fmt
+from branchline.vocabulary import EventKind
 
 CYCLE_COLOURS = ("#7A3E9D", "#8C564B", "#117733", "#882255")
-CYCLE_MARKERS = {"cycle_fold": "v", "period_doubling": "P", "torus": "*"}
+CYCLE_MARKERS = {EventKind.CYCLE_FOLD: "v", EventKind.PERIOD_DOUBLING: "P", EventKind.TORUS: "*"}
 CYCLE_WORDS = {
-    "cycle_fold": "cycle fold",
-    "period_doubling": "period doubling",
-    "torus": "torus (quasi-periodic onset)",
+    EventKind.CYCLE_FOLD: "cycle fold",
+    EventKind.PERIOD_DOUBLING: "period doubling",
+    EventKind.TORUS: "torus (quasi-periodic onset)",
 }
 
 
@@ -116,7 +117,7 @@ def draw_cycles(top, period_axis, cycles, events, x: str, y: str, styles) -> lis
 def _hopf_of(events, family_rows: pd.DataFrame, vary: str):
     """The Hopf event nearest the family's first orbit, or None."""
     first = float(family_rows[vary].iloc[0])
-    hopfs = [e for e in events if e.get("kind") == "hopf" and e.get("value") is not None]
+    hopfs = [e for e in events if e.get("kind") == EventKind.HOPF and e.get("value") is not None]
     if not hopfs:
         return None
     return min(hopfs, key=lambda e: abs(float(e["value"]) - first))
@@ -193,7 +194,7 @@ def _family_lines(name, rows, entry, events, states) -> list[str]:
             f"- {CYCLE_WORDS.get(str(event.get('kind')), event.get('kind'))} at "
             f"{vary} = {fmt(float(event['value']), 10)}: {event.get('note', '')}."
         )
-    folds = [e for e in mine if e.get("kind") == "cycle_fold"]
+    folds = [e for e in mine if e.get("kind") == EventKind.CYCLE_FOLD]
     if hopf is not None and hopf.get("criticality") == "subcritical" and folds:
         out.append(_coexistence(rows, vary, float(hopf["value"]), float(folds[0]["value"])))
     out.append("")

@@ -27,13 +27,14 @@ from branchline.numerics import collocation, linalg
 from branchline.problems.cycles import OrbitPoint, PeriodicOrbitProblem
 from branchline.problems.equilibrium import linearize, solve_equilibrium
 from branchline.results.records import STATUS_FAILED, CycleFamily, Event
+from branchline.vocabulary import Status
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
 
 Array = np.ndarray
 
-STATUS_HOMOCLINIC = "homoclinic"
+STATUS_HOMOCLINIC = Status.HOMOCLINIC
 # The first orbit lies this fraction of the parameter window away from the Hopf
 # value (its amplitude then follows from the normal form r^2 = -alpha'(p - p0) /
 # (omega l1)): small enough for the normal form to be accurate, large enough to be

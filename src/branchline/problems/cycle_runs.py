@@ -15,13 +15,14 @@ from branchline.problems.cycle_family import (
 )
 from branchline.problems.cycles import PeriodicOrbitProblem
 from branchline.results.records import STATUS_FAILED, CycleFamily, Event
+from branchline.vocabulary import EventKind
 
 Progress = Callable[[str, int], None]
 
 
 def hopf_points(events: Sequence[Event], trace: str) -> list[Event]:
     """The located Hopf points of ``trace``, in trace order."""
-    found = [e for e in events if e.trace == trace and e.kind == "hopf"]
+    found = [e for e in events if e.trace == trace and e.kind == EventKind.HOPF]
     return sorted(found, key=lambda e: e.arclength)
 
 
@@ -75,7 +76,7 @@ def _add_with_doublings(model, spec, family, families, found, progress) -> None:
         families.append(family)
         located = locate_cycle_events(model, family, family.test_values) if len(family) > 1 else []
         found.extend(located)
-        doublings = [e for e in located if e.kind == "period_doubling"]
+        doublings = [e for e in located if e.kind == EventKind.PERIOD_DOUBLING]
         if depth >= spec.doublings or not doublings:
             return
         depth += 1

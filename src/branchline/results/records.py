@@ -22,7 +22,6 @@ if TYPE_CHECKING:
 Array = np.ndarray
 
 EVENT_KINDS = ("fold", "hopf", "branch_point")
-CYCLE_EVENT_KINDS = ("cycle_fold", "period_doubling", "torus")
 
 # Numerical status of a branch (a failure is a status, not an exception).
 STATUS_DONE = "done"  # reached the interval edge (or direction not requested)

@@ -134,7 +134,9 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
         save_figure(figure, staging / "diagram.png")
         save_figure(figure, staging / "diagram.svg")
     written = sorted(entry.name for entry in staging.iterdir() if entry.name != STAGING_MARKER)
-    _json({**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json")
+    _json(
+        {**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json"
+    )
 
 
 def _read_points(path: Path) -> pd.DataFrame:
