@@ -389,3 +389,29 @@ def test_torus_located_with_its_angle():
     assert events[0].value == pytest.approx(0.0, abs=1e-10)
     assert events[0].details["angle"] == pytest.approx(2 * np.pi * w, rel=1e-8)
     assert "angle" in events[0].note
+
+
+def test_collocation_jacobian_matches_central_differences():
+    # The assembled sparse Jacobian against central differences of the residual (a
+    # generic check of the assembly; Nocedal and Wright, Numerical Optimization,
+    # section 8.1 for the difference step), at a point off the solution set.
+    from branchline.model.build import build_model
+    from branchline.numerics.collocation import representation_times
+    from branchline.problems.cycles import PeriodicOrbitProblem
+
+    scan = cycles_scan(VAN_DER_POL, {"a": 0.7}, "a", [0.0, 1.0], {"x": 0.0, "y": 0.0})
+    model = build_model(scan.model)
+    mesh = np.sort(np.concatenate([[0.0, 1.0], np.random.default_rng(1).uniform(0, 1, 7)]))
+    s = representation_times(mesh, 3)
+    values = np.column_stack([2 * np.cos(2 * np.pi * s), np.sin(2 * np.pi * s) + 0.3 * s])
+    problem = PeriodicOrbitProblem(model, 0, model.defaults, mesh, 3, values)
+    u = problem.pack(values * 1.1, 6.5, 0.8)
+    jac = problem.jacobian(u).toarray()
+    step = 1e-6
+    for column in range(u.size):
+        e = np.zeros_like(u)
+        e[column] = step
+        difference = (problem.residual(u + e) - problem.residual(u - e)) / (2 * step)
+        assert jac[:, column] == pytest.approx(difference, rel=1e-6, abs=1e-7)
+    dense = PeriodicOrbitProblem(model, 0, model.defaults, mesh, 3, values, dense=True)
+    assert dense.jacobian(u) == pytest.approx(jac, abs=0)

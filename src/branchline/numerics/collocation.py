@@ -65,26 +65,28 @@ class CollocationTables:
     slopes: Array
 
 
-def lagrange_basis(points: Array, at: Array) -> tuple[Array, Array]:
-    """Values and derivatives of the Lagrange basis on ``points`` at ``at``.
+def lagrange_basis(points: Array, at: Array, slopes: bool = True) -> tuple[Array, Array | None]:
+    """Values and (when ``slopes``) derivatives of the Lagrange basis on ``points`` at ``at``.
 
     Returns
     -------
-    values, slopes : ndarray (len(at), len(points))
+    values, slopes : ndarray (len(at), len(points)); slopes is None when not asked for
     """
     points = np.asarray(points, dtype=float)
     at = np.asarray(at, dtype=float)
     count = points.shape[0]
-    values = np.ones((at.shape[0], count))
-    slopes = np.zeros((at.shape[0], count))
+    factors = at[:, None] - points[None, :]  # (k, count)
+    values = np.empty((at.shape[0], count))
+    derivatives = np.zeros((at.shape[0], count)) if slopes else None
     for column in range(count):
-        others = np.delete(points, column)
-        denominator = np.prod(points[column] - others)
-        factors = at[:, None] - others[None, :]
-        values[:, column] = np.prod(factors, axis=1) / denominator
-        for skip in range(count - 1):
-            slopes[:, column] += np.prod(np.delete(factors, skip, axis=1), axis=1) / denominator
-    return values, slopes
+        others = [i for i in range(count) if i != column]
+        denominator = np.prod(points[column] - points[others])
+        values[:, column] = np.prod(factors[:, others], axis=1) / denominator
+        if derivatives is not None:
+            for skip in others:
+                rest = [i for i in others if i != skip]
+                derivatives[:, column] += np.prod(factors[:, rest], axis=1) / denominator
+    return values, derivatives
 
 
 @lru_cache(maxsize=8)
@@ -122,7 +124,7 @@ def evaluate_periodic(mesh: Array, degree: int, values: Array, at: Array) -> Arr
     intervals = mesh.shape[0] - 1
     which = np.clip(np.searchsorted(mesh, at, side="right") - 1, 0, intervals - 1)
     sigma = (at - mesh[which]) / (mesh[which + 1] - mesh[which])
-    basis, _ = lagrange_basis(np.linspace(0.0, 1.0, degree + 1), sigma)  # (k, m + 1)
+    basis, _ = lagrange_basis(np.linspace(0.0, 1.0, degree + 1), sigma, slopes=False)
     index = interval_indices(intervals, degree)[which]  # (k, m + 1)
     return np.einsum("kl,kln->kn", basis, values[index])
 

@@ -181,6 +181,20 @@ class PeriodicOrbitProblem:
         self._rows = np.broadcast_to((j * m + k) * n + i, shape).ravel()
         point = self.index[:, None, None, :, None]
         self._cols = np.broadcast_to(point * n + c, shape).ravel()
+        # The sparsity pattern never changes: find once where each entry of the assembly
+        # order goes in CSC storage, so that each Jacobian is one gather (no sorting).
+        size = self.points * n
+        rows = np.concatenate(
+            [self._rows, np.arange(size), np.arange(size), np.full(size + 2, size)]
+        )
+        cols = np.concatenate(
+            [self._cols, np.full(size, size), np.full(size, size + 1), np.arange(size + 2)]
+        )
+        pattern = sp.csc_matrix(
+            (np.arange(rows.size, dtype=float), (rows, cols)), shape=(size + 1, size + 2)
+        )
+        pattern.sort_indices()
+        self._csc = (pattern.data.astype(np.intp), pattern.indices, pattern.indptr)
 
     def set_mesh(self, mesh: Array, reference: Array) -> None:
         """Use ``mesh`` and take the orbit ``reference`` (N m, n) on it as phase reference."""
@@ -289,14 +303,9 @@ class PeriodicOrbitProblem:
             jac[:size, size + 1] = parameter_column
             jac[size] = self._phase_row
             return jac
-        rows = np.concatenate(
-            [self._rows, np.arange(size), np.arange(size), np.full(size + 2, size)]
-        )
-        cols = np.concatenate(
-            [self._cols, np.full(size, size), np.full(size, size + 1), np.arange(size + 2)]
-        )
         entries = np.concatenate([data, period_column, parameter_column, self._phase_row])
-        return sp.csc_matrix((entries, (rows, cols)), shape=(size + 1, size + 2))
+        order, indices, indptr = self._csc
+        return sp.csc_matrix((entries[order], indices, indptr), shape=(size + 1, size + 2))
 
     def monodromy(self, u: Array) -> Array:
         """The monodromy matrix (n, n) of the orbit u, by condensation of the collocation system."""
