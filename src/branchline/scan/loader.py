@@ -63,8 +63,8 @@ from branchline.scan.checks import (
     shown,
     suggestion,
 )
-from branchline.scan.ensemble_section import EnsembleSpec, read_ensemble
 from branchline.scan.cycles_section import CycleSpec, read_cycles
+from branchline.scan.ensemble_section import EnsembleSpec, read_ensemble
 from branchline.scan.model_section import (
     ExpressionModelSpec,
     PythonModelSpec,
