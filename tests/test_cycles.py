@@ -415,3 +415,17 @@ def test_collocation_jacobian_matches_central_differences():
         assert jac[:, column] == pytest.approx(difference, rel=1e-6, abs=1e-7)
     dense = PeriodicOrbitProblem(model, 0, model.defaults, mesh, 3, values, dense=True)
     assert dense.jacobian(u) == pytest.approx(jac, abs=0)
+
+
+def test_diagram_draws_envelope_and_period_panel(hopf_run):
+    figure = hopf_run.figure()
+    top, periods, _ = figure.axes[:3]
+    envelope = [line for line in top.lines if str(line.get_gid()).startswith("cycles-osc")]
+    assert {str(line.get_gid()).rsplit("-", 1)[1] for line in envelope} == {"min", "max"}
+    maxima = np.concatenate(
+        [line.get_ydata() for line in envelope if line.get_gid().endswith("max")]
+    )
+    assert maxima.max() == pytest.approx(1.0, rel=1e-8)  # radius sqrt(mu) at mu = 1
+    drawn = np.concatenate([line.get_ydata() for line in periods.lines if line.get_gid()])
+    assert drawn == pytest.approx(2 * np.pi, rel=1e-9)
+    assert "period" in periods.get_ylabel()

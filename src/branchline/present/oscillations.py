@@ -153,6 +153,26 @@ def _coexistence(rows: pd.DataFrame, vary: str, hopf: float, fold: float) -> str
     )
 
 
+def _stable_span(rows: pd.DataFrame, vary: str, event_values: list[float]):
+    """(low, high) of the stable orbits' parameter, or None; each end moved to a located
+    event of the family lying between the last stable orbit and its unstable neighbour."""
+    stable = rows["stable"].to_numpy(dtype=bool)
+    if not stable.any():
+        return None
+    values = rows[vary].to_numpy(dtype=float)
+    which = np.flatnonzero(stable)
+    ends = []
+    for inside, outside in ((which[0], which[0] - 1), (which[-1], which[-1] + 1)):
+        end = values[inside]
+        if 0 <= outside < len(values):
+            low, high = sorted((values[inside], values[outside]))
+            between = [v for v in event_values if low <= v <= high]
+            if between:
+                end = between[0]
+        ends.append(end)
+    return min(ends), max(ends)
+
+
 def _family_lines(name, rows, entry, events, states) -> list[str]:
     vary = str(entry.get("vary"))
     first, last = rows.iloc[0], rows.iloc[-1]
@@ -179,16 +199,15 @@ def _family_lines(name, rows, entry, events, states) -> list[str]:
     )
     ending = str(entry.get("message") or entry.get("status")).rstrip(".")
     out.append(f"- How the family ends: {ending}.")
-    stable = rows["stable"].to_numpy(dtype=bool)
-    if stable.any():
-        values = rows[vary].to_numpy(float)[stable]
+    mine = [e for e in events if str(e.get("trace")) == name]
+    span = _stable_span(rows, vary, [float(e["value"]) for e in mine])
+    if span is not None:
         out.append(
-            f"- Stable orbits for {vary} between {fmt(float(values.min()), 8)} and "
-            f"{fmt(float(values.max()), 8)} (on this family)."
+            f"- Stable orbits for {vary} between {fmt(span[0], 8)} and {fmt(span[1], 8)} "
+            "(on this family; ends at located events where they lie next to it)."
         )
     else:
         out.append("- No orbit of this family is stable.")
-    mine = [e for e in events if str(e.get("trace")) == name]
     for event in mine:
         out.append(
             f"- {CYCLE_WORDS.get(str(event.get('kind')), event.get('kind'))} at "
