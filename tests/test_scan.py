@@ -370,7 +370,6 @@ def test_unknown_key_in_trace_steps_and_python_table():
     ("key", "words"),
     [
         ("boundary", "two-parameter boundaries"),
-        ("cycles", "periodic orbits"),
     ],
 )
 def test_later_capabilities_are_not_available_yet(key, words):

@@ -236,7 +236,9 @@ def _command_plot(args: argparse.Namespace) -> int:
     if saved is None:
         return EXIT_INVALID
     try:
-        figure = bifurcation_figure(saved.points, saved.events, saved.info, x=args.x, y=args.y)
+        figure = bifurcation_figure(
+            saved.points, saved.events, saved.info, x=args.x, y=args.y, cycles=saved.cycles
+        )
     except ValueError as err:
         _error(str(err))
         return EXIT_INVALID
@@ -252,7 +254,7 @@ def _command_report(args: argparse.Namespace) -> int:
     saved = _read_saved(args.folder)
     if saved is None:
         return EXIT_INVALID
-    print(render_report(saved.points, saved.events, saved.info))
+    print(render_report(saved.points, saved.events, saved.info, cycles=saved.cycles))
     return EXIT_OK
 
 

@@ -17,6 +17,7 @@ from branchline.events.crowding import resolve_crowded_steps
 from branchline.events.locate import locate_events
 from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
+from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.problems.start_guess import start_distance
 from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
@@ -226,7 +227,9 @@ def run_scan(
         warnings.extend(outcome.warnings)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
-    failed = [b for b in branches if b.status == STATUS_FAILED]
+    families, cycle_events = run_cycles(model, scan.cycles, events, progress)
+    events.extend(cycle_events)
+    failed = [b for b in (*branches, *families) if b.status == STATUS_FAILED]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
     traced = time.perf_counter()
     confirmations, note = _confirm(model, branches, events) if confirm else ((), "")
@@ -247,6 +250,7 @@ def run_scan(
         warnings=tuple(warnings),
         confirmations=confirmations,
         confirmation_note=note,
+        cycles=tuple(families),
     )
 
 

@@ -26,6 +26,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from branchline.present.labels import GUIDE_GID, LABEL_FONT_SIZE, place_labels
+from branchline.present.oscillations import CYCLE_COLOURS, CYCLE_MARKERS, draw_cycles, families
 from branchline.results.margins import bistable_ranges, hysteresis_windows
 from branchline.results.reading import (
     BOOKKEEPING_COLUMNS,
@@ -263,6 +264,7 @@ def bifurcation_figure(
     info: Mapping[str, Any],
     x: str | None = None,
     y: str | None = None,
+    cycles: pd.DataFrame | None = None,
 ) -> Figure:
     """The bifurcation diagram of a results folder's tables.
 
@@ -277,6 +279,9 @@ def bifurcation_figure(
         Quantity on the vertical axis of the top panel: a state, parameter,
         observable or ``norm``; default the first state (``norm`` for models
         whose tables hold no individual states).
+    cycles : DataFrame, optional
+        As in cycles.csv: each family's min/max envelope of ``y`` is added to the
+        diagram and a period panel below it (:mod:`branchline.present.oscillations`).
 
     Returns
     -------
@@ -307,9 +312,18 @@ def bifurcation_figure(
     with mpl.rc_context(_STYLE):
         fig = Figure(figsize=FIGURE_SIZE, layout="constrained")
         FigureCanvasAgg(fig)
-        top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=HEIGHT_RATIOS)
+        orbit_families = families(cycles)
+        if orbit_families:
+            top, period_axis, bottom = fig.subplots(
+                3, 1, sharex=True, height_ratios=(*HEIGHT_RATIOS, HEIGHT_RATIOS[1])
+            )
+        else:
+            top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=HEIGHT_RATIOS)
         context = _context(points, events, info, x)
         marks = _draw(top, bottom, points, events, info, (x, y), states)
+        if orbit_families:
+            styles = (STABLE_STYLE, UNSTABLE_STYLE, LINE_WIDTH, MARKER_SIZE)
+            marks += draw_cycles(top, period_axis, cycles, events, x, y, styles)
         _draw_context(top, bottom, *context)
         top.set_ylabel(_axis_label(y, info))
         bottom.set_ylabel("leading eigenvalue,\nreal part (> 0: unstable)")
@@ -320,7 +334,7 @@ def bifurcation_figure(
         title = info.get("title")
         if title:
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
-        _legend(fig, points, events, info, x, context)
+        _legend(fig, points, events, info, x, context, orbit_families)
         _note_hidden_traces(top, points, info, x)
         place_labels(fig, top, marks, _fix_layout(fig), MARKER_SIZE)
     return fig
@@ -476,9 +490,9 @@ def _shade_unstable(ax) -> None:
     ax.set_ylim(lo, hi)
 
 
-def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
+def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=()) -> None:
     """One legend under the figure, in three columns: traces, line styles, event kinds."""
-    drawn = _drawn_traces(points, info, x)
+    drawn = _drawn_traces(points, info, x) + list(orbits)
     traces = [
         Line2D(
             [],
@@ -487,7 +501,16 @@ def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
             lw=LINE_WIDTH,
             label=_trace_legend_label(name, info),
         )
-        for k, name in enumerate(drawn)
+        for k, name in enumerate(drawn[: len(drawn) - len(orbits)])
+    ] + [
+        Line2D(
+            [],
+            [],
+            color=CYCLE_COLOURS[k % len(CYCLE_COLOURS)],
+            lw=LINE_WIDTH,
+            label=f"orbits {name} (min/max)",
+        )
+        for k, name in enumerate(orbits)
     ]
     grey = "#555555"
     styles = [
@@ -508,7 +531,7 @@ def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
         label = event_label(event)
         if event.get("trace") not in drawn or label in kinds:
             continue
-        marker = EVENT_MARKERS.get(str(event.get("kind")), DEFAULT_MARKER)
+        marker = {**EVENT_MARKERS, **CYCLE_MARKERS}.get(str(event.get("kind")), DEFAULT_MARKER)
         kinds[label] = Line2D(
             [],
             [],

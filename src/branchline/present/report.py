@@ -14,6 +14,7 @@ from typing import Any
 import pandas as pd
 
 from branchline.present.confirmations import confirmation_section
+from branchline.present.oscillations import oscillation_section
 from branchline.results.margins import (
     HysteresisWindow,
     JumpTarget,
@@ -560,7 +561,11 @@ def _brief_section(
 
 
 def render_report(
-    points: pd.DataFrame, events: Sequence[Mapping[str, Any]], info: Mapping[str, Any]
+    points: pd.DataFrame,
+    events: Sequence[Mapping[str, Any]],
+    info: Mapping[str, Any],
+    *,
+    cycles: pd.DataFrame | None = None,
 ) -> str:
     """The stability-change report (markdown), from the saved tables alone.
 
@@ -572,6 +577,8 @@ def render_report(
         As in events.json.
     info : dict
         As in run.json.
+    cycles : DataFrame, optional
+        As in cycles.csv: adds the section on oscillations.
 
     Returns
     -------
@@ -599,6 +606,7 @@ def render_report(
     out += _margins_section(margins)
     out += _readings_section(points, events, info, windows)
     out += confirmation_section(info)
+    out += oscillation_section(events, info, cycles)
     for warning in info.get("warnings") or []:
         out += [f"> Warning: {warning}", ""]
     out += ["---", "", f"**Caution.** {CAUTION}", ""]

@@ -126,6 +126,53 @@ class Event:
 
 
 @dataclass(frozen=True)
+class CycleFamily:
+    """One followed family of periodic orbits, rows in the order of travel from its start.
+
+    Attributes
+    ----------
+    name : str
+        The ``[[cycles]]`` name (``<name>.2`` for a family started at a period doubling).
+    vary : str
+    parameters : ndarray (m,)
+        Parameter vector of the family (the ``vary`` entry: its start value).
+    orbits : tuple of branchline.problems.cycles.OrbitPoint
+        Period, parameter, mesh, mesh values, Floquet multipliers, extremes per orbit.
+    arclength : ndarray (k,)
+    degree : int
+        Collocation points per mesh interval.
+    status, message : str
+        ``done``, ``max_points``, ``homoclinic`` (period growing without bound at a
+        bounded orbit), ``failed``; ``message`` says where and why.
+    interval : (lo, hi)
+    counts : dict
+    parent : str or None
+        The family this one was started from at a period doubling.
+    origin : str
+        Where it started, in words (the Hopf point or the period doubling).
+    test_values : ndarray (k, 3)
+        Cycle fold, period doubling and torus test functions per orbit.
+    """
+
+    name: str
+    vary: str
+    parameters: Array
+    orbits: tuple
+    arclength: Array
+    degree: int
+    status: str
+    message: str
+    interval: tuple[float, float]
+    counts: dict[str, int] = field(default_factory=dict)
+    parent: str | None = None
+    origin: str = ""
+    test_values: Array = field(default_factory=lambda: np.empty((0, 3)))
+
+    def __len__(self) -> int:
+        return len(self.orbits)
+
+
+@dataclass(frozen=True)
 class RunResult:
     """Everything one scan produced.
 
@@ -147,6 +194,7 @@ class RunResult:
     # there are none when the run skipped them.
     confirmations: tuple[Any, ...] = ()
     confirmation_note: str = ""
+    cycles: tuple[CycleFamily, ...] = ()
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""
@@ -167,6 +215,13 @@ class RunResult:
 
         return events_frame(self)
 
+    def cycles_frame(self) -> pd.DataFrame:
+        """cycles.csv as a pandas DataFrame (no rows when the scan has no [[cycles]])."""
+        from branchline.results.cycle_tables import cycles_frame
+        from branchline.results.tables import varying_parameters
+
+        return cycles_frame(self, varying_parameters(self))
+
     def info(self) -> dict[str, Any]:
         """run.json content: what was run, settings with defaults filled in, timings."""
         from branchline.results.tables import run_info
@@ -183,10 +238,14 @@ class RunResult:
         """The stability-change report (markdown)."""
         from branchline.present.report import render_report
 
-        return render_report(self.points_frame(), self.event_records(), self.info())
+        cycles = self.cycles_frame() if self.cycles else None
+        return render_report(self.points_frame(), self.event_records(), self.info(), cycles=cycles)
 
     def figure(self, x: str | None = None, y: str | None = None) -> Figure:
         """The bifurcation diagram as a matplotlib Figure."""
         from branchline.present.plotting import bifurcation_figure
 
-        return bifurcation_figure(self.points_frame(), self.event_records(), self.info(), x=x, y=y)
+        cycles = self.cycles_frame() if self.cycles else None
+        return bifurcation_figure(
+            self.points_frame(), self.event_records(), self.info(), x=x, y=y, cycles=cycles
+        )

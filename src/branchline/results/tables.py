@@ -265,5 +265,15 @@ def run_info(result: RunResult) -> dict[str, Any]:
                 "events": len(result.events),
                 **counts,
             },
+            **_cycles_info(result),
         }
     )
+
+
+def _cycles_info(result: RunResult) -> dict[str, Any]:
+    """run.json's ``cycles`` entry, only when the scan has [[cycles]]."""
+    if not result.cycles:
+        return {}
+    from branchline.results.cycle_tables import cycle_entries
+
+    return {"cycles": cycle_entries(result)}

@@ -42,6 +42,7 @@ class SavedRun:
     points: pd.DataFrame
     events: list[dict[str, Any]]
     info: dict[str, Any]
+    cycles: pd.DataFrame | None = None
 
 
 def _csv(frame: pd.DataFrame, path: Path) -> None:
@@ -108,6 +109,13 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
     _csv(points, staging / "points.csv")
     _csv(result.events_frame(), staging / "events.csv")
     _json({"events": events}, staging / "events.json")
+    cycles = None
+    if result.cycles:
+        from branchline.results.cycle_tables import profile_arrays
+
+        cycles = result.cycles_frame()
+        _csv(cycles, staging / "cycles.csv")
+        np.savez_compressed(staging / "cycles.npz", **profile_arrays(result))
     if result.model.size > 20:
         np.savez_compressed(
             staging / "states.npz",
@@ -116,16 +124,20 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
         )
     from branchline.present.report import render_report
 
-    (staging / "report.md").write_text(render_report(points, events, info), encoding="utf-8")
+    (staging / "report.md").write_text(
+        render_report(points, events, info, cycles=cycles), encoding="utf-8"
+    )
     if figures:
         from branchline.present.plotting import bifurcation_figure, save_figure
 
-        figure = bifurcation_figure(points, events, info)
+        figure = bifurcation_figure(points, events, info, cycles=cycles)
         save_figure(figure, staging / "diagram.png")
         save_figure(figure, staging / "diagram.svg")
         _confirmation_figure(result, staging)
     written = sorted(entry.name for entry in staging.iterdir() if entry.name != STAGING_MARKER)
-    _json({**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json")
+    _json(
+        {**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json"
+    )
 
 
 def _confirmation_figure(result: RunResult, folder: Path) -> None:
@@ -163,6 +175,7 @@ def read_results(folder: str | Path) -> SavedRun:
         points = _read_points(folder / "points.csv")
         events = json.loads((folder / "events.json").read_text(encoding="utf-8"))["events"]
         info = json.loads((folder / "run.json").read_text(encoding="utf-8"))
+        cycles = _read_points(folder / "cycles.csv") if (folder / "cycles.csv").is_file() else None
     except (ValueError, KeyError, OSError) as err:
         raise ResultsFolderError(f"{folder}: cannot read the results ({err})") from None
-    return SavedRun(folder=folder, points=points, events=events, info=info)
+    return SavedRun(folder=folder, points=points, events=events, info=info, cycles=cycles)

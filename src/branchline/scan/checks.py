@@ -29,7 +29,6 @@ FILE_KEY = "(file)"
 # Keys of later capabilities, refused with a plain statement rather than "unknown key".
 NOT_YET_AVAILABLE = {
     "boundary": "two-parameter boundaries ([[boundary]])",
-    "cycles": "periodic orbits ([[cycles]])",
 }
 
 # Column names of the result tables; a state, parameter or observable of the same

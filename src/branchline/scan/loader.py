@@ -42,7 +42,8 @@ Rules beyond the layout in ``interface.md``:
   shape here; importing them is :mod:`branchline.model.python`' job.
 - ``[ensemble]`` (run the scan for many parameter sets with ``branchline
   batch``) is read by :mod:`branchline.scan.ensemble_section`.
-- ``[[boundary]]`` and ``[[cycles]]`` are refused as not available in this version.
+- ``[[cycles]]`` is read by :mod:`branchline.scan.cycles_section`.
+- ``[[boundary]]`` is refused as not available in this version.
 """
 
 from __future__ import annotations
@@ -62,6 +63,7 @@ from branchline.scan.checks import (
     shown,
     suggestion,
 )
+from branchline.scan.cycles_section import CycleSpec, read_cycles
 from branchline.scan.ensemble_section import EnsembleSpec, read_ensemble
 from branchline.scan.model_section import (
     ExpressionModelSpec,
@@ -119,6 +121,7 @@ class Scan:
     steps: StepSettings = field(default_factory=StepSettings)
     raw: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
     ensemble: EnsembleSpec | None = None  # [ensemble]: run with `branchline batch`
+    cycles: tuple[CycleSpec, ...] = ()
 
     @property
     def stem(self) -> str:
@@ -208,6 +211,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
     ensemble = None
     if "ensemble" in data:
         ensemble = read_ensemble(check, data["ensemble"], model.parameters, _fixed(traces))
+    cycles = read_cycles(check, data.get("cycles"), traces, steps, _steps, _window)
     return Scan(
         source=str(source),
         title=title,
@@ -216,6 +220,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         steps=steps,
         raw=copy.deepcopy(data),
         ensemble=ensemble,
+        cycles=cycles,
     )
 
 
@@ -229,7 +234,7 @@ def _fixed(traces: tuple[TraceSpec, ...]) -> dict[str, str]:
     return fixed
 
 
-TOP_KEYS = ("title", "model", "trace", "steps", "ensemble")
+TOP_KEYS = ("title", "model", "trace", "steps", "ensemble", "cycles")
 TRACE_KEYS = (
     "name",
     "vary",
@@ -490,6 +495,7 @@ def _limits(
 __all__ = [
     "DIRECTIONS",
     "RESERVED_COLUMNS",
+    "CycleSpec",
     "ExpressionModelSpec",
     "PythonModelSpec",
     "Scan",
