@@ -17,6 +17,7 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
     from branchline.model.build import Model
+    from branchline.results.search_records import SearchRecord
     from branchline.scan.loader import Scan
 
 Array = np.ndarray
@@ -195,6 +196,7 @@ class RunResult:
     confirmations: tuple[Any, ...] = ()
     confirmation_note: str = ""
     cycles: tuple[CycleFamily, ...] = ()
+    searches: tuple[SearchRecord, ...] = ()  # equilibria found without a start guess
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""

@@ -2,7 +2,8 @@
 
 Files follow the interface contract: points.csv, events.csv, events.json,
 report.md, diagram.png, diagram.svg, run.json (and states.npz for models with
-more than ``tables.MAX_STATE_COLUMNS`` states).
+more than ``tables.MAX_STATE_COLUMNS`` states; search.csv when a trace searched
+for equilibria without a start guess).
 """
 
 from __future__ import annotations
@@ -116,6 +117,10 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
         cycles = result.cycles_frame()
         _csv(cycles, staging / "cycles.csv")
         np.savez_compressed(staging / "cycles.npz", **profile_arrays(result))
+    if result.searches:
+        from branchline.results.search_tables import search_frame
+
+        _csv(search_frame(result), staging / "search.csv")
     if result.model.size > 20:
         np.savez_compressed(
             staging / "states.npz",

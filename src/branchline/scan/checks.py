@@ -58,6 +58,9 @@ RESERVED_COLUMNS = frozenset(
         "status",
         "seconds",
         "error",
+        "search",  # search.csv
+        "found_by_search",
+        "in_box",
     }
 )
 
