@@ -17,6 +17,8 @@ import numpy as np
 EXIT_OK = 0
 EXIT_NUMERICS = 1
 EXIT_INVALID = 2
+# Stopped by a signal: 128 + its number, as shells report (130 SIGINT, 143 SIGTERM).
+EXIT_SIGNAL_BASE = 128
 
 PYTHON_MODEL_NOTICE = (
     "note: this scan's [model.python] section imports {source}; importing a module "
@@ -86,22 +88,32 @@ def _run_and_write(scan, out: Path, quiet: bool) -> int:
     from branchline.present.report import CAUTION, summary_table
     from branchline.results.writers import write_results
     from branchline.runner import run_scan
+    from branchline.stopping import StopRequest, catching_signals
 
     if not quiet:
         _python_notice(scan)
     progress = _Progress(enabled=not quiet and sys.stderr.isatty())
-    try:
-        result = run_scan(scan, progress=progress)
-    except ScanError as err:
+    stop = StopRequest()
+    with catching_signals(stop):
+        try:
+            result = run_scan(scan, progress=progress, stop=stop)
+        except ScanError as err:
+            progress.close()
+            _error(str(err))
+            return EXIT_INVALID
         progress.close()
-        _error(str(err))
-        return EXIT_INVALID
-    progress.close()
-    try:
-        written = write_results(result, out, reserved=True)
-    except OSError as err:
-        _error(f"could not write the results to {out}: {err}")
-        return EXIT_NUMERICS
+        try:
+            written = write_results(result, out, reserved=True)
+        except OSError as err:
+            _error(f"could not write the results to {out}: {err}")
+            return EXIT_NUMERICS
+    if result.status == "interrupted":
+        points = sum(len(b) for b in result.branches)
+        _error(
+            f"{result.message}; the {points} points computed were written to {written}/ "
+            "(run.json says interrupted)"
+        )
+        return EXIT_SIGNAL_BASE + (stop.signal_number or 2)
     if not quiet:
         for warning in result.warnings:
             print(f"warning: {warning}", file=sys.stderr)
@@ -278,6 +290,10 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         return args.handler(args)
+    except KeyboardInterrupt:
+        # Ctrl-C outside a run's own handling (loading, a second Ctrl-C): stop, no traceback.
+        print("\nbranchline: interrupted; nothing more was written", file=sys.stderr)
+        return EXIT_SIGNAL_BASE + 2
     except BrokenPipeError:
         # The reader (e.g. `| head`) closed the pipe; that is not an error of ours.
         import os

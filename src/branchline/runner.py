@@ -19,8 +19,9 @@ from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.problems.start_guess import start_distance
-from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
+from branchline.results.records import STATUS_FAILED, STATUS_INTERRUPTED, Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
+from branchline.stopping import Interrupted, StopRequest, watched_model
 
 # Branch points closer than this (relative, in state and parameter) to one
 # already switched at are the same point met again from a child branch.
@@ -91,16 +92,54 @@ def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
     return marked
 
 
+def _interrupted(branch: Branch, stop: StopRequest | None) -> Branch:
+    """``branch`` marked interrupted if a stop cut it short (its points are kept)."""
+    if stop is None or not stop.requested or branch.status != STATUS_FAILED:
+        return branch
+    where = ""
+    if len(branch):
+        where = f", the last at {branch.vary} = {branch.parameter_values[-1]:.10g}"
+    return replace(
+        branch,
+        status=STATUS_INTERRUPTED,
+        message=f"stopped by {stop.signal_name} after {len(branch)} points{where}",
+    )
+
+
 def _follow(
     model: Model,
     spec: TraceSpec,
     parameters: np.ndarray,
     x0: np.ndarray,
     progress: Progress | None,
+    stop: StopRequest | None = None,
 ) -> _TraceOutcome:
-    callback = (lambda count: progress(spec.name, count)) if progress else None
+    """The trace of ``spec`` and the branches switched from it, with their events.
+
+    The branches are followed with the model watched by ``stop`` (a stop request
+    ends them at once, keeping their points); events are located with the plain
+    model, so a stop does not cut a location short (it takes milliseconds for
+    dense models; large sparse ones skip it once stopped).
+    """
+    traced = watched_model(model, stop) if stop is not None else model
+    done = [0]  # points of this trace's earlier branches: the progress count runs on
+
+    def counter(label: str):
+        if progress is None:
+            return None
+        return lambda count: progress(label, done[0] + count)
+
+    def stopped() -> bool:
+        return stop is not None and stop.requested
+
+    def located(branch: Branch) -> list[Event]:
+        done[0] += len(branch)
+        if stopped() and model.sparse:
+            return []
+        return _mark_edge_events(locate_events(model, branch), spec.interval)
+
     root = trace_branch(
-        model,
+        traced,
         spec.name,
         spec.vary,
         parameters,
@@ -108,18 +147,20 @@ def _follow(
         spec.interval,
         spec.direction,
         spec.steps,
-        progress=callback,
+        progress=counter(spec.name),
         limits=spec.limits,
     )
-    root = resolve_crowded_steps(model, root)
-    branches, events = [root], _mark_edge_events(locate_events(model, root), spec.interval)
+    root = _interrupted(root, stop)
+    if not stopped():
+        root = resolve_crowded_steps(model, root)
+    branches, events = [root], located(root)
     if not spec.switch_branches:
         return _TraceOutcome(branches, events)
     visited: list[Event] = []
     started: dict[str, int] = {}  # parent name -> children started so far
     queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
     skipped = 0
-    while queue:
+    while queue and not stopped():
         parent, event, depth = queue.pop(0)
         if _seen(event, visited) or depth > MAX_SWITCH_DEPTH or _on_edge(event, spec.interval):
             continue
@@ -127,22 +168,23 @@ def _follow(
             skipped += 1
             continue
         visited.append(event)
-        child_progress = (lambda count, n=parent.name: progress(n, count)) if progress else None
         children = trace_switched(
-            model,
+            traced,
             parent,
             event,
             spec.steps,
             spec.interval,
-            progress=child_progress,
+            progress=counter(f"{spec.name}, branches switched at {parent.name}"),
             first_number=started.get(parent.name, 0) + 1,
             limits=spec.limits,
         )
         started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
-            child = resolve_crowded_steps(model, child)
+            child = _interrupted(child, stop)
+            if not stopped():
+                child = resolve_crowded_steps(model, child)
             branches.append(child)
-            found = _mark_edge_events(locate_events(model, child), spec.interval)
+            found = located(child)
             events.extend(found)
             queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
     notes = []
@@ -165,7 +207,11 @@ def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> 
 
 
 def run_scan(
-    scan: Scan, *, progress: Progress | None = None, model: Model | None = None
+    scan: Scan,
+    *,
+    progress: Progress | None = None,
+    model: Model | None = None,
+    stop: StopRequest | None = None,
 ) -> RunResult:
     """Run everything a validated scan asks for.
 
@@ -178,6 +224,10 @@ def run_scan(
     model : Model, optional
         The scan's model already compiled (a batch compiles it once per worker);
         its ``defaults`` must be the scan's parameter values.
+    stop : branchline.stopping.StopRequest, optional
+        Once it is requested (the command line's Ctrl-C / SIGTERM handler), the
+        branch being followed ends at once with its points kept, nothing further
+        is started, and the result has status ``"interrupted"``.
 
     Returns
     -------
@@ -204,29 +254,42 @@ def run_scan(
     warnings = []
     branches: list[Branch] = []
     events: list[Event] = []
+    skipped = []
     for spec in scan.traces:
+        if stop is not None and stop.requested:
+            skipped.append(spec.name)
+            continue
         parameters = model.parameter_vector(spec.set)
         x0 = start_vector(model, spec, parameters, scan.source)
         if model.jacobian_source:
             check = check_jacobian(model, x0, parameters)
             if not check.ok:
                 warnings.append(check.message)
-        outcome = _follow(model, spec, parameters, x0, progress)
+        try:
+            outcome = _follow(model, spec, parameters, x0, progress, stop)
+        except Interrupted:  # cut off outside the engine (e.g. at a start): nothing to keep
+            skipped.append(spec.name)
+            continue
         found = _start_warning(model, spec.name, x0, outcome.branches[0])
         if found:
             warnings.append(found)
         warnings.extend(outcome.warnings)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
-    failed = [b for b in branches if b.status == STATUS_FAILED]
+    failed = [b for b in branches if b.status in (STATUS_FAILED, STATUS_INTERRUPTED)]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
+    status = STATUS_FAILED if failed else "done"
+    if stop is not None and stop.requested:
+        status = STATUS_INTERRUPTED
+        not_started = f"; not started: {', '.join(skipped)}" if skipped else ""
+        message = f"{stop.reason}{': ' + message if message else ''}{not_started}"
     finished = time.perf_counter()
     return RunResult(
         scan=scan,
         model=model,
         branches=tuple(branches),
         events=tuple(events),
-        status=STATUS_FAILED if failed else "done",
+        status=status,
         message=message,
         timings={
             "compile_seconds": compiled - started,

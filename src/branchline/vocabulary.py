@@ -61,6 +61,7 @@ class Status(_Word):
     CLOSED = "closed"  # the curve closed on itself (an isola)
     MAX_POINTS = "max_points"  # stopped at steps.max_points
     FAILED = "failed"  # numerical trouble; the message says where and why
+    INTERRUPTED = "interrupted"  # stopped by Ctrl-C or SIGTERM; the points so far are kept
     CONVERGED = "converged"
     NOT_CONVERGED = "not_converged"
     SINGULAR_JACOBIAN = "singular_jacobian"

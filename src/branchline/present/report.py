@@ -57,6 +57,7 @@ STATUS_WORDS = {
     "max_points": "stopped at the point limit (steps.max_points)",
     "closed": "closed on itself (an isola)",
     "failed": "stopped by numerical trouble",
+    "interrupted": "was interrupted (Ctrl-C or SIGTERM)",
 }
 
 
@@ -474,11 +475,12 @@ def _readings_section(points, events, info, windows: Sequence[HysteresisWindow])
 
 def _failure_section(points: pd.DataFrame, info: Mapping[str, Any]) -> list[str]:
     stopped = [t for t in trace_entries(info) if t.get("status") not in (None, "done", "closed")]
-    if info.get("status") != "failed" and not stopped:
+    if info.get("status") not in ("failed", "interrupted") and not stopped:
         return []
-    title = "## The run stopped early" if info.get("status") == "failed" else "## Incomplete traces"
+    title = {"failed": "## The run stopped early", "interrupted": "## The run was interrupted"}
+    title = title.get(str(info.get("status")), "## Incomplete traces")
     out = [title, ""]
-    if info.get("message") and not stopped:
+    if info.get("message") and (not stopped or info.get("status") == "interrupted"):
         out += [str(info["message"]), ""]
     for entry in stopped:
         name = str(entry.get("name"))
@@ -552,7 +554,7 @@ def _brief_section(
                 f"- Hysteresis between {window.vary} = {fmt(window.low)} and {fmt(window.high)} "
                 f"(trace {window.trace}): two stable states coexist there."
             )
-    if info.get("status") == "failed":
+    if info.get("status") in ("failed", "interrupted"):
         out.append("- **The run stopped early**; see the next section for where and why.")
     out.append("")
     return out
