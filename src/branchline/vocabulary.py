@@ -78,6 +78,8 @@ _HINTS = {
     "fewer points",
     Status.FAILED: "try a smaller steps.smallest or steps.initial, or narrow the interval "
     "to stop before the trouble",
+    Status.INTERRUPTED: "run the scan again to compute the rest (the points so far are kept "
+    "in the results folder)",
     Status.NOT_CONVERGED: "give a start guess closer to an equilibrium (branchline inspect "
     "shows the residual there)",
     Status.SINGULAR_JACOBIAN: "start the trace at another parameter value, away from a fold "
