@@ -202,19 +202,35 @@ def _read_saved(folder: str):
         return None
 
 
+def _damaged(folder: str, error: Exception) -> int:
+    """A saved folder whose content the readers could not use: say so, exit 2."""
+    text = str(error)[:200]
+    _error(f"{folder}: the results there cannot be used ({type(error).__name__}: {text})")
+    return EXIT_INVALID
+
+
 def _command_plot(args: argparse.Namespace) -> int:
     from branchline.present.plotting import bifurcation_figure, save_figure
 
     saved = _read_saved(args.folder)
     if saved is None:
         return EXIT_INVALID
+    target = Path(args.output) if args.output else saved.folder / f"diagram.{args.format}"
+    if not target.parent.is_dir():
+        _error(f"--output {target}: the folder {target.parent} does not exist")
+        return EXIT_INVALID
     try:
         figure = bifurcation_figure(saved.points, saved.events, saved.info, x=args.x, y=args.y)
     except ValueError as err:
         _error(str(err))
         return EXIT_INVALID
-    target = Path(args.output) if args.output else saved.folder / f"diagram.{args.format}"
-    save_figure(figure, target)
+    except Exception as err:  # a damaged folder must not end in a traceback
+        return _damaged(args.folder, err)
+    try:
+        save_figure(figure, target)
+    except OSError as err:
+        _error(f"--output {target}: cannot write it ({err.strerror or err})")
+        return EXIT_INVALID
     print(f"diagram written to {target}")
     return EXIT_OK
 
@@ -225,7 +241,11 @@ def _command_report(args: argparse.Namespace) -> int:
     saved = _read_saved(args.folder)
     if saved is None:
         return EXIT_INVALID
-    print(render_report(saved.points, saved.events, saved.info))
+    try:
+        text = render_report(saved.points, saved.events, saved.info)
+    except Exception as err:  # a damaged folder must not end in a traceback
+        return _damaged(args.folder, err)
+    print(text)
     return EXIT_OK
 
 

@@ -206,6 +206,58 @@ def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> 
     return f"trace {name}: {found.text}" if found.far else ""
 
 
+def _recheck_jacobian(model: Model, branches: list[Branch]) -> list[str]:
+    """Compare a user Jacobian with differences again where the corrector struggled.
+
+    The check at the start sees one point only; a Jacobian wrong elsewhere (a
+    transposed one, say) shows where Newton needs many iterations or fails:
+    the point with the most corrector iterations and the last point of each branch.
+    """
+    found = []
+    for branch in branches:
+        if len(branch) == 0:
+            continue
+        rows = {int(np.argmax(branch.newton_iterations)), len(branch) - 1}
+        k = model.parameter_index(branch.vary)
+        for row in sorted(rows):
+            params = np.array(branch.parameters, dtype=float)
+            params[k] = branch.parameter_values[row]
+            with np.errstate(all="ignore"):
+                check = check_jacobian(model, branch.states[row], params)
+            if not check.ok and np.isfinite(check.max_relative_error):
+                found.append(
+                    f"trace {branch.name} at {branch.vary} = {params[k]:.10g} "
+                    f"({int(branch.newton_iterations[row])} corrector iterations): {check.message}"
+                )
+                break
+    return found
+
+
+def _observable_trouble(model: Model, branches: list[Branch]) -> str:
+    """A warning when the observables cannot be computed at some points (their cells are empty)."""
+    if not model.observable_names:
+        return ""
+    failures, first = 0, ""
+    for branch in branches:
+        params = np.array(branch.parameters, dtype=float)
+        k = model.parameter_index(branch.vary)
+        for x, value in zip(branch.states, branch.parameter_values):
+            params[k] = value
+            try:
+                model.observables(x, params)
+            except (ArithmeticError, ValueError) as error:
+                failures += 1
+                if not first:
+                    first = f"first at {branch.vary} = {value:.10g} on trace {branch.name}: {error}"
+    if not failures:
+        return ""
+    names = ", ".join(model.observable_names)
+    return (
+        f"the observables ({names}) could not be computed at {failures} points ({first}); "
+        "those cells are empty"
+    )
+
+
 def run_scan(
     scan: Scan,
     *,
@@ -276,6 +328,11 @@ def run_scan(
         warnings.extend(outcome.warnings)
         branches.extend(outcome.branches)
         events.extend(outcome.events)
+        if model.jacobian_source:
+            warnings.extend(_recheck_jacobian(model, outcome.branches))
+    trouble = _observable_trouble(model, branches)
+    if trouble:
+        warnings.append(trouble)
     failed = [b for b in branches if b.status in (STATUS_FAILED, STATUS_INTERRUPTED)]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
     status = STATUS_FAILED if failed else "done"
