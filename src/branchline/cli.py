@@ -9,6 +9,7 @@ trace cut short by ``steps.max_points`` exits 0 with a warning on screen.
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 from pathlib import Path
 
@@ -85,6 +86,7 @@ def _command_run(args: argparse.Namespace) -> int:
 def _run_and_write(scan, out: Path, quiet: bool) -> int:
     """Run a loaded scan and write its results into ``out`` (already reserved)."""
     from branchline.errors import ScanError
+    from branchline.present.inspection import plural
     from branchline.present.report import CAUTION, summary_table
     from branchline.results.writers import write_results
     from branchline.runner import run_scan
@@ -120,8 +122,8 @@ def _run_and_write(scan, out: Path, quiet: bool) -> int:
         points = sum(len(b) for b in result.branches)
         seconds = result.timings.get("total_seconds", float("nan"))
         print(
-            f"{scan.title}: {len(result.branches)} traces, {points} points, "
-            f"{len(result.events)} stability changes in {seconds:.2f} s"
+            f"{scan.title}: {plural(len(result.branches), 'trace')}, {plural(points, 'point')}, "
+            f"{plural(len(result.events), 'stability change')} in {seconds:.2f} s"
         )
         print(summary_table(result.event_records()))
         print(f"results written to {written}/")
@@ -151,39 +153,47 @@ def cut_short(branches) -> list[str]:
     ]
 
 
-def _parse_settings(pairs: list[str], scan) -> dict[str, float]:
+# A number on the command line: ASCII digits only (float() also takes other scripts' digits).
+NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?", re.ASCII)
+# Text from the command line is echoed at most this long in messages.
+ECHO_LIMIT = 60
+
+
+def _parse_pairs(pairs: list[str], known: tuple[str, ...], option: str, source: str):
+    """NAME=VALUE pairs as {name: float}; ScanError naming the option on bad input."""
     from branchline.errors import ScanError
 
-    known = tuple(scan.model.parameters)
     overrides = {}
     for pair in pairs:
         name, sep, value = pair.partition("=")
-        name = name.strip()
+        name, value = name.strip(), value.strip()
+        shown = f"{option} {pair[:ECHO_LIMIT]}"
         if not sep or name not in known:
+            listed = ", ".join(known)
             raise ScanError(
-                scan.source,
-                f"--set {pair}",
-                f"expected NAME=VALUE with NAME one of {', '.join(known)}",
+                source, shown, f"expected NAME=VALUE with NAME one of {listed[:300]}"
             )
-        try:
-            number = float(value)
-        except ValueError:
-            number = float("nan")
+        number = float(value) if NUMBER.fullmatch(value) else float("nan")
         if not np.isfinite(number):
-            raise ScanError(scan.source, f"--set {pair}", f"{value!r} is not a finite number")
+            raise ScanError(source, shown, f"{value[:ECHO_LIMIT]!r} is not a finite number")
         overrides[name] = number
     return overrides
 
 
 def _command_inspect(args: argparse.Namespace) -> int:
     from branchline.errors import ScanError
+    from branchline.model.build import build_model
     from branchline.present.inspection import describe_equilibrium
 
     try:
         scan = _load(args.scan)
-        overrides = _parse_settings(args.set or [], scan)
+        overrides = _parse_pairs(args.set or [], tuple(scan.model.parameters), "--set", scan.source)
         _python_notice(scan)
-        text, converged = describe_equilibrium(scan, overrides)
+        start = None
+        if args.start:
+            states = build_model(scan.model, source=scan.source).states
+            start = _parse_pairs(args.start, tuple(states), "--start", scan.source)
+        text, converged = describe_equilibrium(scan, overrides, trace=args.trace, start=start)
     except ScanError as err:
         _error(str(err))
         return EXIT_INVALID
@@ -262,6 +272,9 @@ def build_parser() -> argparse.ArgumentParser:
         description="Follow equilibria of an ODE model through a parameter and report "
         "where their stability changes.",
     )
+    from branchline import __version__
+
+    parser.add_argument("--version", action="version", version=f"branchline {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
     run = sub.add_parser("run", help="run a scan file and write its results folder")
@@ -274,6 +287,15 @@ def build_parser() -> argparse.ArgumentParser:
     inspect.add_argument("scan")
     inspect.add_argument(
         "--set", action="append", metavar="NAME=VALUE", help="override a parameter (repeatable)"
+    )
+    inspect.add_argument(
+        "--trace", metavar="NAME", help="use this trace's settings and start guess (default: first)"
+    )
+    inspect.add_argument(
+        "--start",
+        action="append",
+        metavar="STATE=VALUE",
+        help="replace the start guess of a state (repeatable)",
     )
     inspect.set_defaults(handler=_command_inspect)
 

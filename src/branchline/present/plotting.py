@@ -292,8 +292,16 @@ def bifurcation_figure(
     -----
     The layout is settled once, when the figure is built: the event labels are
     placed against it, so it is kept as it is (no layout engine is left on the
-    figure). Draw another figure rather than resizing this one.
+    figure). Draw another figure rather than resizing this one. Every text is
+    drawn literally (no mathtext): titles and names come from the user, and a
+    ``$`` in them must not be parsed as a formula.
     """
+    with mpl.rc_context({"text.parse_math": False}):
+        return _diagram(points, events, info, x, y)
+
+
+def _diagram(points, events, info, x, y) -> Figure:
+    """:func:`bifurcation_figure`'s body (under its rc settings)."""
     if points.empty or "trace" not in points.columns:
         return _empty_figure(info)
     default_x, default_y = _default_names(points, info)

@@ -42,8 +42,8 @@ from branchline.results.reading import (
 )
 
 CAUTION = (
-    "Results describe the model, not the plant: a safety decision must follow local codes "
-    "and licensed engineering practice, never these numbers alone."
+    "Results describe the model, not the real system it stands for: a safety decision must "
+    "follow local codes and licensed practice, never these numbers alone."
 )
 
 # Values read off the computed points (grid accuracy only) get fewer digits than
@@ -333,7 +333,11 @@ def _events_section(events: Sequence[Mapping[str, Any]]) -> list[str]:
     out += [_table(header, rows), ""]
     out += [
         f"Values are shown to {VALUE_DIGITS} significant digits; events.csv and events.json "
-        "hold them to full precision. Frequencies are angular (radians per time unit).",
+        "hold them to full precision. Frequencies are angular (radians per time unit). "
+        "The first Lyapunov coefficient is computed with the critical eigenvector scaled to "
+        "<q, q> = 1/2, so that the complex amplitude is the oscillation's amplitude; with a "
+        "unit-norm eigenvector it would be twice as large (only its sign is independent of the "
+        "scaling).",
         "",
     ]
     return out
