@@ -91,3 +91,13 @@ def observables_raise_past(x, p):
     if _past(p):
         raise ZeroDivisionError("flow is zero")
     return {"biomass": float(x[0])}
+
+
+def coupled(x, p):
+    # x1 feeds x0 with strength F: zero at the start F = 0, so a transposed
+    # Jacobian agrees with the true one there and nowhere else.
+    return np.array([x[0] * (1.0 - x[0]) - p["F"] * x[0] + p["F"] * x[1], -x[1]])
+
+
+def coupled_jacobian_transposed(x, p):
+    return np.array([[1.0 - 2.0 * x[0] - p["F"], p["F"]], [0.0, -1.0]]).T

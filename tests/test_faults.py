@@ -193,3 +193,14 @@ def test_observables_that_raise_are_said(tmp_path, capsys):
     points = pd.read_csv(out / "points.csv")
     assert points.loc[points["F"] > FAULT_AT, "biomass"].isna().all()
     assert points.loc[points["F"] <= FAULT_AT, "biomass"].notna().all()
+
+
+def test_jacobian_wrong_away_from_the_start_is_said(tmp_path, capsys):
+    extra = 'jacobian = "faulty_models:coupled_jacobian_transposed"'
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="coupled", extra=extra))
+    capsys.readouterr()
+    info = json.loads((out / "run.json").read_text())
+    # No warning at the start (the transpose is right there), one from the re-check.
+    rechecks = [w for w in info["warnings"] if "disagrees with finite differences" in w]
+    assert rechecks and all("corrector iterations" in w for w in rechecks)
+    assert code in (0, 1)

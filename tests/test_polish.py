@@ -187,3 +187,66 @@ def test_progress_names_switched_branches_and_counts_on():
     assert "p" in labels and any("switched at p" in name for name in labels)
     counts = [count for _, count in seen]
     assert counts == sorted(counts)  # the count runs on, never restarts
+
+
+def test_report_wording_is_consistent():
+    import re
+
+    import branchline
+
+    result = branchline.run(str(ROOT / "scans" / "cooled_reactor.toml"))
+    report = result.report()
+    assert "At that value" not in report
+    # One margin, one number: the brief and the margins list print it alike.
+    brief = re.search(r"In brief.*?([\d.]+) % of the start value", report, re.S).group(1)
+    rest = report.split("## Operating margin", 1)[1]
+    assert f"({brief} % of the start value)" in rest
+    # A stability interval that turns at a fold covers the fold value itself.
+    folds = [e.value for e in result.events if e.kind == "fold"]
+    for line in report.splitlines():
+        if "turns at" in line:
+            covers = re.search(r"\[([\d.]+), ([\d.]+)\]", line).groups()
+            turned = float(line.split("turns at")[1].split("=")[1].split()[0].strip(" |"))
+            assert any(abs(turned - fold) < 1e-6 for fold in folds)
+            assert min(map(float, covers)) <= turned + 1e-6 <= max(map(float, covers)) + 2e-6
+
+
+LONG = "a" * 100_000
+
+
+@pytest.mark.parametrize(
+    "change, key",
+    [
+        (lambda d: d.update(title=LONG), "title"),
+        (lambda d: d.update(title="line one\nline two"), "title"),
+        (lambda d: d["trace"][0].update(name=LONG), "trace[1].name"),
+        (lambda d: d["trace"][0].update(name="bell\x07\x1b[31mred"), "trace[1].name"),
+        (lambda d: d["trace"][0].update(name="abc\u202edcba"), "trace[1].name"),
+        (lambda d: d["model"]["parameters"].update({LONG: 1.0}), "model.parameters"),
+        (lambda d: d["trace"][0].update({LONG: 1.0}), "trace[1]"),
+        (lambda d: d["model"]["equations"].update(N=f"N - {LONG}"), "model.equations.N"),
+    ],
+    ids=[
+        "long-title",
+        "newline-title",
+        "long-name",
+        "escape-name",
+        "bidi-name",
+        "long-parameter",
+        "long-key",
+        "long-unknown-name",
+    ],
+)
+def test_names_and_titles_are_bounded_and_plain(change, key):
+    from branchline.errors import ScanError
+
+    data = {
+        "model": {"parameters": {"F": 0.2}, "equations": {"N": "N*(1 - N) - F*N"}},
+        "trace": [{"vary": "F", "interval": [0.0, 0.5], "start": {"N": 0.8}}],
+    }
+    change(data)
+    with pytest.raises(ScanError) as refused:
+        scan_from_dict(data)
+    assert refused.value.key.startswith(key)
+    assert len(str(refused.value)) < 1000
+    assert "\x1b" not in str(refused.value) and "\u202e" not in str(refused.value)

@@ -46,6 +46,9 @@ CAUTION = (
     "follow local codes and licensed practice, never these numbers alone."
 )
 
+# Significant digits of a relative margin (in %), the same wherever it is printed.
+MARGIN_DIGITS = 4
+
 # Values read off the computed points (grid accuracy only) get fewer digits than
 # located events (VALUE_DIGITS).
 APPROX_DIGITS = 5
@@ -357,11 +360,13 @@ def _interval_row(part: StabilityInterval) -> tuple[str, ...]:
     counts = "–".join(str(c) for c in (part.unstable_counts[0], part.unstable_counts[-1]))
     if len(set(part.unstable_counts)) == 1:
         counts = str(part.unstable_counts[0])
+    # The range covered reaches the located folds and ends, not only the computed points.
+    reached = [part.low, part.high, *part.folds_inside, part.start_value, part.end_value]
     return (
         "stable" if part.stable else "unstable",
         _boundary_text(part.start_value, part.start_exact, part.start_kind),
         _boundary_text(part.end_value, part.end_exact, part.end_kind),
-        f"[{fmt(part.low)}, {fmt(part.high)}]",
+        f"[{fmt(min(reached))}, {fmt(max(reached))}]",
         counts,
         remark,
     )
@@ -404,7 +409,7 @@ def _margin_side_text(margin: OperatingMargin, side: SideMargin) -> str:
         where = "the edge of the interval" if side.reached_edge else "where the trace ended"
         return f"none within the traced part (followed to {vary} = {fmt(side.reach)}, {where})"
     relative = (
-        f"{fmt(100.0 * side.relative, 4)} % of the start value"
+        f"{fmt(100.0 * side.relative, MARGIN_DIGITS)} % of the start value"
         if side.relative is not None
         else "start value is 0: no relative margin"
     )
@@ -536,7 +541,7 @@ def _brief_section(
         if sides:
             near = min(sides, key=lambda s: s.absolute)
             relative = (
-                f", {fmt(100.0 * near.relative, 3)} % of the start value"
+                f", {fmt(100.0 * near.relative, MARGIN_DIGITS)} % of the start value"
                 if near.relative is not None
                 else ""
             )
@@ -549,7 +554,8 @@ def _brief_section(
         out.append(line + ".")
         if m.coexisting:
             out.append(
-                f"- At that value another stable state exists ({_targets_text(m.coexisting)}): "
+                f"- At the start value {m.vary} = {fmt(m.start_value)} another stable state "
+                f"exists ({_targets_text(m.coexisting)}): "
                 "a disturbance or a past excursion can leave the system there."
             )
     for window in windows:

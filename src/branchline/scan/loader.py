@@ -56,6 +56,8 @@ from typing import Any
 from branchline.errors import ScanError
 from branchline.scan.checks import (
     FILE_KEY,
+    MAX_NAME_LENGTH,
+    MAX_TITLE_LENGTH,
     RESERVED_COLUMNS,
     Checker,
     key_path,
@@ -199,8 +201,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         check.fail(FILE_KEY, "the scan must be a table of keys")
     check.keys(data, "", TOP_KEYS)
     title = data.get("title", Path(source).stem if source != "<dict>" else "scan")
-    if not isinstance(title, str):
-        check.fail("title", f"must be text, got {shown(title)}")
+    title = check.plain_text(title, "title", MAX_TITLE_LENGTH)
     if "model" not in data:
         check.fail("model", "missing: the scan needs a [model] with its parameters and equations")
     model = read_model(check, data["model"])
@@ -373,7 +374,7 @@ _TRACE_REQUIRED = {
 
 
 def _trace_name(check: Checker, value: object, key: str) -> str:
-    name = check.text(value, key)
+    name = check.plain_text(value, key, MAX_NAME_LENGTH)
     if not name.strip():
         check.fail(key, "must not be empty")
     if "." in name:
