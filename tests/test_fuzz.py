@@ -263,8 +263,8 @@ def test_scan_dict_loads_or_is_refused_naming_a_key(mutations):
     for path, action, junk in mutations:
         try:
             data = _mutated(data, path, action, junk)
-        except (KeyError, IndexError, TypeError):
-            continue  # an earlier mutation removed this path
+        except (KeyError, IndexError, TypeError, AttributeError):
+            continue  # an earlier mutation removed or replaced this path
     with watchdog(), no_side_effects():
         try:
             scan = scan_from_dict(data, "fuzz.toml")
@@ -384,7 +384,10 @@ def _damage(folder: Path, action: str, file: str, cut: float, junk: str, column:
             return
         if isinstance(data, dict) and data:
             key = sorted(data)[column % len(data)]
-            data[key] = json.loads(junk) if junk.startswith(("{", "[", "n")) else junk
+            try:
+                data[key] = json.loads(junk)
+            except ValueError:
+                data[key] = junk
             path.write_text(json.dumps(data))
 
 

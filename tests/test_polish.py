@@ -250,3 +250,42 @@ def test_names_and_titles_are_bounded_and_plain(change, key):
     assert refused.value.key.startswith(key)
     assert len(str(refused.value)) < 1000
     assert "\x1b" not in str(refused.value) and "\u202e" not in str(refused.value)
+
+
+def _figure_texts(scan_dict, **axes):
+    result = run_scan(scan_from_dict(scan_dict))
+    figure = bifurcation_figure(
+        result.points_frame(), result.event_records(), result.info(), **axes
+    )
+    figure.canvas.draw()
+    return figure, [t.get_text() for ax in figure.axes for t in ax.texts]
+
+
+VAN_DER_POL = {
+    "model": {"parameters": {"mu": -0.5}, "equations": {"x": "y", "y": "mu*(1 - x^2)*y - x"}},
+    "trace": [{"vary": "mu", "interval": [-0.5, 0.5], "start": {"x": 0.0, "y": 0.0}}],
+}
+
+
+def test_event_label_near_zero_prints_zero_and_names_the_parameter():
+    # The van der Pol Hopf point is at mu = 0 exactly (located as about 1e-32).
+    _, texts = _figure_texts(VAN_DER_POL)
+    assert any(t.endswith("mu = 0") for t in texts), texts
+    # With a state on the x axis the label still gives the varied parameter.
+    _, texts = _figure_texts(VAN_DER_POL, x="y", y="x")
+    assert any("mu = 0" in t for t in texts), texts
+
+
+def test_many_traces_get_distinct_colours():
+    from branchline.present.plotting import TRACE_COLOURS, trace_colour
+
+    count = len(TRACE_COLOURS) + 5
+    colours = {tuple(matplotlib.colors.to_rgba(trace_colour(k, count))) for k in range(count)}
+    assert len(colours) == count
+
+
+def test_diagram_with_a_hopf_point_says_cycles_were_not_computed():
+    from branchline.present.plotting import HOPF_CYCLES_NOTE
+
+    figure, _ = _figure_texts(VAN_DER_POL)
+    assert HOPF_CYCLES_NOTE in [t.get_text() for t in figure.legends[0].get_texts()]

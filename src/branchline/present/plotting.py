@@ -49,6 +49,13 @@ TRACE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9
 # One marker shape per event kind; unknown kinds get a plus.
 EVENT_MARKERS = {"fold": "D", "hopf": "s", "branch_point": "^"}
 DEFAULT_MARKER = "P"
+# An event value below this fraction of its parameter's range is zero to rounding in labels.
+LABEL_ZERO_RTOL = 1e-12
+# Said under the event kinds whenever a Hopf point is drawn: this diagram holds
+# equilibria only; the periodic orbits born there were not followed.
+HOPF_CYCLES_NOTE = "cycles at Hopf points: not computed"
+# Share of the viridis map used for many traces: its light yellow end is lost on white.
+VIRIDIS_SPAN = 0.85
 FIGURE_SIZE = (7.0, 6.5)  # inches: fits a journal page at full width
 PNG_DPI = 200
 FONT_SIZE = 9
@@ -320,7 +327,9 @@ def _diagram(points, events, info, x, y) -> Figure:
         marks = _draw(top, bottom, points, events, info, (x, y), states)
         _draw_context(top, bottom, *context)
         top.set_ylabel(_axis_label(y, info))
-        bottom.set_ylabel("leading eigenvalue,\nreal part (> 0: unstable)")
+        bottom.set_ylabel(
+            "leading eigenvalue,\nreal part (> 0: unstable)\nmarks at 0: the crossing one"
+        )
         drawn = points[points["trace"].astype(str).isin(_drawn_traces(points, info, x))]
         _eigenvalue_scale(bottom, drawn["leading_real"].to_numpy(dtype=float))
         _shade_unstable(bottom)
@@ -384,14 +393,23 @@ _STYLE = {
 }
 
 
+def trace_colour(k: int, count: int) -> Any:
+    """The colour of the k-th of ``count`` traces: the fixed palette while it lasts,
+    else evenly spaced hues of a perceptually ordered map, so that no two repeat."""
+    if count <= len(TRACE_COLOURS):
+        return TRACE_COLOURS[k]
+    return mpl.colormaps["viridis"](VIRIDIS_SPAN * k / max(count - 1, 1))
+
+
 def _draw(top, bottom, points, events, info, names, states):
     """Draw every trace (runs and event markers) in both panels; return the
     event marks still to be labelled: (x, y, text, colour)."""
     vary_of = {str(t.get("name")): str(t.get("vary")) for t in trace_entries(info)}
     marks = []
     bottom.axhline(0.0, color="#333333", lw=0.9, zorder=1)
-    for k, name in enumerate(_drawn_traces(points, info, names[0])):
-        colour = TRACE_COLOURS[k % len(TRACE_COLOURS)]
+    drawn = _drawn_traces(points, info, names[0])
+    for k, name in enumerate(drawn):
+        colour = trace_colour(k, len(drawn))
         rows = trace_rows(points, name)
         if rows.empty:
             continue
@@ -421,14 +439,28 @@ def _draw(top, bottom, points, events, info, names, states):
                     ls="none",
                     zorder=5,
                 )
-            value = event_value(event, names[0])
-            text = event_label(event)
-            if value is not None:
-                text += f"\n{names[0]} = {fmt(value, 5)}"
-            marks.append((ex, ey, text, colour))
+            marks.append((ex, ey, _mark_text(event, rows), colour))
     top.margins(x=0.03, y=0.08)
     bottom.margins(x=0.03)  # shared x: both panels must ask for the same room
     return marks
+
+
+def _mark_text(event: Mapping[str, Any], rows: pd.DataFrame) -> str:
+    """An event's label: its kind and the varied parameter's value (whatever the x axis is).
+
+    A value within rounding of zero (relative to the parameter's range on the
+    trace) prints as 0, not as 7.7e-33.
+    """
+    text = event_label(event)
+    vary, value = event.get("vary"), event.get("value")
+    if vary is None or value is None:
+        return text
+    value = float(value)
+    if vary in rows.columns and len(rows):
+        scale = float(np.nanmax(np.abs(rows[vary].to_numpy(dtype=float))))
+        if abs(value) <= LABEL_ZERO_RTOL * scale:
+            value = 0.0
+    return f"{text}\n{vary} = {fmt(value, 5)}"
 
 
 def _context(points, events, info, x) -> tuple[list[float], list[tuple[float, float]]]:
@@ -491,7 +523,7 @@ def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
         Line2D(
             [],
             [],
-            color=TRACE_COLOURS[k % len(TRACE_COLOURS)],
+            color=trace_colour(k, len(drawn)),
             lw=LINE_WIDTH,
             label=_trace_legend_label(name, info),
         )
@@ -509,7 +541,9 @@ def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
         )
     if windows:
         styles.append(
-            Patch(color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="hysteresis window")
+            Patch(
+                color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="two stable states coexist"
+            )
         )
     kinds: dict[str, Line2D] = {}
     for event in events:
@@ -528,6 +562,8 @@ def _legend(fig, points, events, info, x, context: tuple[list, list]) -> None:
             ls="none",
             label=label,
         )
+    if any(str(e.get("kind")) == "hopf" and e.get("trace") in drawn for e in events):
+        kinds[HOPF_CYCLES_NOTE] = Line2D([], [], alpha=0.0, label=HOPF_CYCLES_NOTE)
     groups = [g for g in (traces, styles, list(kinds.values())) if g]
     rows = max(len(g) for g in groups)
     handles = []
