@@ -33,6 +33,7 @@ from branchline.cli import main
 from branchline.errors import ExpressionError, ScanError
 from branchline.scan.expressions import parse_expression
 from branchline.scan.loader import load_scan, scan_from_dict
+from test_cli import GOOD
 
 SCALE = int(os.environ.get("BRANCHLINE_FUZZ_EXAMPLES", "0"))
 # A hang guard, not a speed check: no single input may take this long.
@@ -321,26 +322,13 @@ def test_scan_text_loads_or_is_refused_naming_a_key(tmp_path_factory, edits):
 
 # --------------------------------------------------------------------------- readers
 
-SMALL = """title = "small"
-[model.parameters]
-r = 1.0
-F = 0.2
-[model.equations]
-N = "r*N*(1 - N) - F*N"
-[[trace]]
-vary = "F"
-interval = [0.0, 0.5]
-start = { N = 0.8 }
-[steps]
-largest = 0.1
-"""
 
 
 @pytest.fixture(scope="module")
 def saved_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("saved")
     scan = folder / "small.toml"
-    scan.write_text(SMALL)
+    scan.write_text(GOOD)
     assert main(["run", str(scan), "--out", str(folder / "run"), "--quiet"]) == 0
     return folder / "run"
 
