@@ -23,27 +23,13 @@ from branchline.results.output_folder import (
     check_output_folder,
     reserve_output,
 )
-
-SCAN = """
-title = "logistic stock with constant-effort harvest"
-[model.parameters]
-r = 1.0
-F = 0.2
-[model.equations]
-N = "r*N*(1 - N) - F*N"
-[[trace]]
-vary = "F"
-interval = [0.0, 0.5]
-start = { N = 0.8 }
-[steps]
-largest = 0.1
-"""
+from test_cli import GOOD
 
 
 @pytest.fixture()
 def scan(tmp_path: Path) -> Path:
     path = tmp_path / "stock.toml"
-    path.write_text(SCAN)
+    path.write_text(GOOD)
     return path
 
 

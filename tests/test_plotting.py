@@ -85,7 +85,7 @@ def test_every_event_is_marked_and_labelled_in_words():
         "stable",
         "unstable",
         "start value (scan)",
-        "hysteresis window",
+        "two stable states coexist",
         "fold",
     ]
     assert top.get_legend() is None  # outside the axes: it hides no data
@@ -104,7 +104,8 @@ def test_hopf_and_switched_trace_in_the_legend():
 
 
 def test_hysteresis_band_covers_where_two_stable_states_coexist():
-    # lower branch unstable from a Hopf point at p = 0.2 to its fold: the band runs
+    # lower branch unstable from a Hopf point at p = 0.2 to its fold: the band (labelled
+    # for what it shows, not as the report's fold-to-fold hysteresis window) runs
     # from the upper branch's fold (-FOLD_P) to the Hopf point, not to the other fold
     points, events, info = s_curve_with_hopf_tables(hopf_p=0.2)
     fig = bifurcation_figure(points, events, info)
@@ -112,12 +113,12 @@ def test_hysteresis_band_covers_where_two_stable_states_coexist():
     (band,) = top.patches
     xs = top.transData.inverted().transform(band.get_verts())[:, 0]
     assert (xs.min(), xs.max()) == pytest.approx((-FOLD_P, 0.2), abs=1e-9)
-    assert "hysteresis window" in [t.get_text() for t in fig.legends[0].get_texts()]
+    assert "two stable states coexist" in [t.get_text() for t in fig.legends[0].get_texts()]
     # no fold pair, no band
     points, events, info = hopf_tables()
     fig = bifurcation_figure(points, events, info)
     assert not fig.axes[0].patches
-    assert "hysteresis window" not in [t.get_text() for t in fig.legends[0].get_texts()]
+    assert "two stable states coexist" not in [t.get_text() for t in fig.legends[0].get_texts()]
 
 
 def test_layout_is_settled_once_and_each_file_is_drawn_once(tmp_path, monkeypatch):

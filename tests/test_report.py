@@ -155,7 +155,7 @@ def test_caution_ends_every_report():
     text = render_report(points, events, info)
     assert CAUTION in text
     assert text.rstrip().endswith(CAUTION)
-    assert "not the plant" in CAUTION
+    assert "not the real system" in CAUTION
 
 
 # --------------------------------------------------------------------------- failure

@@ -9,6 +9,7 @@ trace cut short by ``steps.max_points`` exits 0 with a warning on screen.
 from __future__ import annotations
 
 import argparse
+import re
 import sys
 from pathlib import Path
 
@@ -17,6 +18,8 @@ import numpy as np
 EXIT_OK = 0
 EXIT_NUMERICS = 1
 EXIT_INVALID = 2
+# Stopped by a signal: 128 + its number, as shells report (130 SIGINT, 143 SIGTERM).
+EXIT_SIGNAL_BASE = 128
 
 PYTHON_MODEL_NOTICE = (
     "note: this scan's [model.python] section imports {source}; importing a module "
@@ -84,33 +87,44 @@ def _run_and_write(scan, out: Path, quiet: bool, confirm: bool = True) -> int:
     """Run a loaded scan and write its results into ``out`` (already reserved)."""
     from branchline.errors import ScanError
     from branchline.present.confirmations import confirmation_summary
+    from branchline.present.inspection import plural
     from branchline.present.report import CAUTION, summary_table
     from branchline.results.writers import write_results
     from branchline.runner import run_scan
+    from branchline.stopping import StopRequest, catching_signals
 
     if not quiet:
         _python_notice(scan)
     progress = _Progress(enabled=not quiet and sys.stderr.isatty())
-    try:
-        result = run_scan(scan, progress=progress, confirm=confirm)
-    except ScanError as err:
+    stop = StopRequest()
+    with catching_signals(stop):
+        try:
+            result = run_scan(scan, progress=progress, confirm=confirm, stop=stop)
+        except ScanError as err:
+            progress.close()
+            _error(str(err))
+            return EXIT_INVALID
         progress.close()
-        _error(str(err))
-        return EXIT_INVALID
-    progress.close()
-    try:
-        written = write_results(result, out, reserved=True)
-    except OSError as err:
-        _error(f"could not write the results to {out}: {err}")
-        return EXIT_NUMERICS
+        try:
+            written = write_results(result, out, reserved=True)
+        except OSError as err:
+            _error(f"could not write the results to {out}: {err}")
+            return EXIT_NUMERICS
+    if result.status == "interrupted":
+        points = sum(len(b) for b in result.branches)
+        _error(
+            f"{result.message}; the {points} points computed were written to {written}/ "
+            "(run.json says interrupted)"
+        )
+        return EXIT_SIGNAL_BASE + (stop.signal_number or 2)
     if not quiet:
         for warning in result.warnings:
             print(f"warning: {warning}", file=sys.stderr)
         points = sum(len(b) for b in result.branches)
         seconds = result.timings.get("total_seconds", float("nan"))
         print(
-            f"{scan.title}: {len(result.branches)} traces, {points} points, "
-            f"{len(result.events)} stability changes in {seconds:.2f} s"
+            f"{scan.title}: {plural(len(result.branches), 'trace')}, {plural(points, 'point')}, "
+            f"{plural(len(result.events), 'stability change')} in {seconds:.2f} s"
         )
         print(summary_table(result.event_records()))
         checked = confirmation_summary(result.confirmations, result.confirmation_note)
@@ -143,39 +157,47 @@ def cut_short(branches) -> list[str]:
     ]
 
 
-def _parse_settings(pairs: list[str], scan) -> dict[str, float]:
+# A number on the command line: ASCII digits only (float() also takes other scripts' digits).
+NUMBER = re.compile(r"[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?", re.ASCII)
+# Text from the command line is echoed at most this long in messages.
+ECHO_LIMIT = 60
+
+
+def _parse_pairs(pairs: list[str], known: tuple[str, ...], option: str, source: str):
+    """NAME=VALUE pairs as {name: float}; ScanError naming the option on bad input."""
     from branchline.errors import ScanError
 
-    known = tuple(scan.model.parameters)
     overrides = {}
     for pair in pairs:
         name, sep, value = pair.partition("=")
-        name = name.strip()
+        name, value = name.strip(), value.strip()
+        shown = f"{option} {pair[:ECHO_LIMIT]}"
         if not sep or name not in known:
+            listed = ", ".join(known)
             raise ScanError(
-                scan.source,
-                f"--set {pair}",
-                f"expected NAME=VALUE with NAME one of {', '.join(known)}",
+                source, shown, f"expected NAME=VALUE with NAME one of {listed[:300]}"
             )
-        try:
-            number = float(value)
-        except ValueError:
-            number = float("nan")
+        number = float(value) if NUMBER.fullmatch(value) else float("nan")
         if not np.isfinite(number):
-            raise ScanError(scan.source, f"--set {pair}", f"{value!r} is not a finite number")
+            raise ScanError(source, shown, f"{value[:ECHO_LIMIT]!r} is not a finite number")
         overrides[name] = number
     return overrides
 
 
 def _command_inspect(args: argparse.Namespace) -> int:
     from branchline.errors import ScanError
+    from branchline.model.build import build_model
     from branchline.present.inspection import describe_equilibrium
 
     try:
         scan = _load(args.scan)
-        overrides = _parse_settings(args.set or [], scan)
+        overrides = _parse_pairs(args.set or [], tuple(scan.model.parameters), "--set", scan.source)
         _python_notice(scan)
-        text, converged = describe_equilibrium(scan, overrides)
+        start = None
+        if args.start:
+            states = build_model(scan.model, source=scan.source).states
+            start = _parse_pairs(args.start, tuple(states), "--start", scan.source)
+        text, converged = describe_equilibrium(scan, overrides, trace=args.trace, start=start)
     except ScanError as err:
         _error(str(err))
         return EXIT_INVALID
@@ -229,11 +251,22 @@ def _read_saved(folder: str):
         return None
 
 
+def _damaged(folder: str, error: Exception) -> int:
+    """A saved folder whose content the readers could not use: say so, exit 2."""
+    text = str(error)[:200]
+    _error(f"{folder}: the results there cannot be used ({type(error).__name__}: {text})")
+    return EXIT_INVALID
+
+
 def _command_plot(args: argparse.Namespace) -> int:
     from branchline.present.plotting import bifurcation_figure, save_figure
 
     saved = _read_saved(args.folder)
     if saved is None:
+        return EXIT_INVALID
+    target = Path(args.output) if args.output else saved.folder / f"diagram.{args.format}"
+    if not target.parent.is_dir():
+        _error(f"--output {target}: the folder {target.parent} does not exist")
         return EXIT_INVALID
     try:
         figure = bifurcation_figure(
@@ -242,8 +275,13 @@ def _command_plot(args: argparse.Namespace) -> int:
     except ValueError as err:
         _error(str(err))
         return EXIT_INVALID
-    target = Path(args.output) if args.output else saved.folder / f"diagram.{args.format}"
-    save_figure(figure, target)
+    except Exception as err:  # a damaged folder must not end in a traceback
+        return _damaged(args.folder, err)
+    try:
+        save_figure(figure, target)
+    except OSError as err:
+        _error(f"--output {target}: cannot write it ({err.strerror or err})")
+        return EXIT_INVALID
     print(f"diagram written to {target}")
     return EXIT_OK
 
@@ -254,7 +292,11 @@ def _command_report(args: argparse.Namespace) -> int:
     saved = _read_saved(args.folder)
     if saved is None:
         return EXIT_INVALID
-    print(render_report(saved.points, saved.events, saved.info, cycles=saved.cycles))
+    try:
+        text = render_report(saved.points, saved.events, saved.info, cycles=saved.cycles)
+    except Exception as err:  # a damaged folder must not end in a traceback
+        return _damaged(args.folder, err)
+    print(text)
     return EXIT_OK
 
 
@@ -271,6 +313,9 @@ def build_parser() -> argparse.ArgumentParser:
         description="Follow equilibria of an ODE model through a parameter and report "
         "where their stability changes.",
     )
+    from branchline import __version__
+
+    parser.add_argument("--version", action="version", version=f"branchline {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
 
     run = sub.add_parser("run", help="run a scan file and write its results folder")
@@ -288,6 +333,15 @@ def build_parser() -> argparse.ArgumentParser:
     inspect.add_argument("scan")
     inspect.add_argument(
         "--set", action="append", metavar="NAME=VALUE", help="override a parameter (repeatable)"
+    )
+    inspect.add_argument(
+        "--trace", metavar="NAME", help="use this trace's settings and start guess (default: first)"
+    )
+    inspect.add_argument(
+        "--start",
+        action="append",
+        metavar="STATE=VALUE",
+        help="replace the start guess of a state (repeatable)",
     )
     inspect.set_defaults(handler=_command_inspect)
 
@@ -344,6 +398,10 @@ def main(argv: list[str] | None = None) -> int:
     args = build_parser().parse_args(argv)
     try:
         return args.handler(args)
+    except KeyboardInterrupt:
+        # Ctrl-C outside a run's own handling (loading, a second Ctrl-C): stop, no traceback.
+        print("\nbranchline: interrupted; nothing more was written", file=sys.stderr)
+        return EXIT_SIGNAL_BASE + 2
     except BrokenPipeError:
         # The reader (e.g. `| head`) closed the pipe; that is not an error of ours.
         import os

@@ -21,9 +21,10 @@ from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.problems.start_guess import start_distance
 from branchline.problems.window_search import run_search, search_box
-from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
+from branchline.results.records import STATUS_FAILED, STATUS_INTERRUPTED, Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
 from branchline.scan.search_section import SEARCH_START
+from branchline.stopping import Interrupted, StopRequest, watched_model
 
 # Branch points closer than this (relative, in state and parameter) to one
 # already switched at are the same point met again from a child branch.
@@ -94,16 +95,54 @@ def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
     return marked
 
 
+def _interrupted(branch: Branch, stop: StopRequest | None) -> Branch:
+    """``branch`` marked interrupted if a stop cut it short (its points are kept)."""
+    if stop is None or not stop.requested or branch.status != STATUS_FAILED:
+        return branch
+    where = ""
+    if len(branch):
+        where = f", the last at {branch.vary} = {branch.parameter_values[-1]:.10g}"
+    return replace(
+        branch,
+        status=STATUS_INTERRUPTED,
+        message=f"stopped by {stop.signal_name} after {len(branch)} points{where}",
+    )
+
+
 def _follow(
     model: Model,
     spec: TraceSpec,
     parameters: np.ndarray,
     x0: np.ndarray,
     progress: Progress | None,
+    stop: StopRequest | None = None,
 ) -> _TraceOutcome:
-    callback = (lambda count: progress(spec.name, count)) if progress else None
+    """The trace of ``spec`` and the branches switched from it, with their events.
+
+    The branches are followed with the model watched by ``stop`` (a stop request
+    ends them at once, keeping their points); events are located with the plain
+    model, so a stop does not cut a location short (it takes milliseconds for
+    dense models; large sparse ones skip it once stopped).
+    """
+    traced = watched_model(model, stop) if stop is not None else model
+    done = [0]  # points of this trace's earlier branches: the progress count runs on
+
+    def counter(label: str):
+        if progress is None:
+            return None
+        return lambda count: progress(label, done[0] + count)
+
+    def stopped() -> bool:
+        return stop is not None and stop.requested
+
+    def located(branch: Branch) -> list[Event]:
+        done[0] += len(branch)
+        if stopped() and model.sparse:
+            return []
+        return _mark_edge_events(locate_events(model, branch), spec.interval)
+
     root = trace_branch(
-        model,
+        traced,
         spec.name,
         spec.vary,
         parameters,
@@ -111,18 +150,20 @@ def _follow(
         spec.interval,
         spec.direction,
         spec.steps,
-        progress=callback,
+        progress=counter(spec.name),
         limits=spec.limits,
     )
-    root = resolve_crowded_steps(model, root)
-    branches, events = [root], _mark_edge_events(locate_events(model, root), spec.interval)
+    root = _interrupted(root, stop)
+    if not stopped():
+        root = resolve_crowded_steps(model, root)
+    branches, events = [root], located(root)
     if not spec.switch_branches:
         return _TraceOutcome(branches, events)
     visited: list[Event] = []
     started: dict[str, int] = {}  # parent name -> children started so far
     queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
     skipped = 0
-    while queue:
+    while queue and not stopped():
         parent, event, depth = queue.pop(0)
         if _seen(event, visited) or depth > MAX_SWITCH_DEPTH or _on_edge(event, spec.interval):
             continue
@@ -130,22 +171,23 @@ def _follow(
             skipped += 1
             continue
         visited.append(event)
-        child_progress = (lambda count, n=parent.name: progress(n, count)) if progress else None
         children = trace_switched(
-            model,
+            traced,
             parent,
             event,
             spec.steps,
             spec.interval,
-            progress=child_progress,
+            progress=counter(f"{spec.name}, branches switched at {parent.name}"),
             first_number=started.get(parent.name, 0) + 1,
             limits=spec.limits,
         )
         started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
-            child = resolve_crowded_steps(model, child)
+            child = _interrupted(child, stop)
+            if not stopped():
+                child = resolve_crowded_steps(model, child)
             branches.append(child)
-            found = _mark_edge_events(locate_events(model, child), spec.interval)
+            found = located(child)
             events.extend(found)
             queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
     notes = []
@@ -167,12 +209,65 @@ def _start_warning(model: Model, name: str, guess: np.ndarray, root: Branch) -> 
     return f"trace {name}: {found.text}" if found.far else ""
 
 
+def _recheck_jacobian(model: Model, branches: list[Branch]) -> list[str]:
+    """Compare a user Jacobian with differences again where the corrector struggled.
+
+    The check at the start sees one point only; a Jacobian wrong elsewhere (a
+    transposed one, say) shows where Newton needs many iterations or fails:
+    the point with the most corrector iterations and the last point of each branch.
+    """
+    found = []
+    for branch in branches:
+        if len(branch) == 0:
+            continue
+        rows = {int(np.argmax(branch.newton_iterations)), len(branch) - 1}
+        k = model.parameter_index(branch.vary)
+        for row in sorted(rows):
+            params = np.array(branch.parameters, dtype=float)
+            params[k] = branch.parameter_values[row]
+            with np.errstate(all="ignore"):
+                check = check_jacobian(model, branch.states[row], params)
+            if not check.ok and np.isfinite(check.max_relative_error):
+                found.append(
+                    f"trace {branch.name} at {branch.vary} = {params[k]:.10g} "
+                    f"({int(branch.newton_iterations[row])} corrector iterations): {check.message}"
+                )
+                break
+    return found
+
+
+def _observable_trouble(model: Model, branches: list[Branch]) -> str:
+    """A warning when the observables cannot be computed at some points (their cells are empty)."""
+    if not model.observable_names:
+        return ""
+    failures, first = 0, ""
+    for branch in branches:
+        params = np.array(branch.parameters, dtype=float)
+        k = model.parameter_index(branch.vary)
+        for x, value in zip(branch.states, branch.parameter_values):
+            params[k] = value
+            try:
+                model.observables(x, params)
+            except (ArithmeticError, ValueError) as error:
+                failures += 1
+                if not first:
+                    first = f"first at {branch.vary} = {value:.10g} on trace {branch.name}: {error}"
+    if not failures:
+        return ""
+    names = ", ".join(model.observable_names)
+    return (
+        f"the observables ({names}) could not be computed at {failures} points ({first}); "
+        "those cells are empty"
+    )
+
+
 def run_scan(
     scan: Scan,
     *,
     progress: Progress | None = None,
     model: Model | None = None,
     confirm: bool = True,
+    stop: StopRequest | None = None,
 ) -> RunResult:
     """Run everything a validated scan asks for.
 
@@ -189,6 +284,10 @@ def run_scan(
         Confirm each located event by a short simulation
         (:func:`branchline.simulation.confirm.confirm_events`); models with more
         than ``confirm.MAX_STATES`` states are skipped with a note.
+    stop : branchline.stopping.StopRequest, optional
+        Once it is requested (the command line's Ctrl-C / SIGTERM handler), the
+        branch being followed ends at once with its points kept, nothing further
+        is started, and the result has status ``"interrupted"``.
 
     Returns
     -------
@@ -216,7 +315,11 @@ def run_scan(
     branches: list[Branch] = []
     events: list[Event] = []
     searches = []
+    skipped = []
     for spec in scan.traces:
+        if stop is not None and stop.requested:
+            skipped.append(spec.name)
+            continue
         parameters = model.parameter_vector(spec.set)
         guessed = spec.start != SEARCH_START
         x0 = start_vector(model, spec, parameters, scan.source) if guessed else None
@@ -226,37 +329,56 @@ def run_scan(
             if not check.ok:
                 warnings.append(check.message)
         if guessed:
-            outcome = _follow(model, spec, parameters, x0, progress)
+            try:
+                outcome = _follow(model, spec, parameters, x0, progress, stop)
+            except Interrupted:  # cut off outside the engine (e.g. at a start): nothing to keep
+                skipped.append(spec.name)
+                continue
             found = _start_warning(model, spec.name, x0, outcome.branches[0])
             if found:
                 warnings.append(found)
             warnings.extend(outcome.warnings)
             branches.extend(outcome.branches)
             events.extend(outcome.events)
+            if model.jacobian_source:
+                warnings.extend(_recheck_jacobian(model, outcome.branches))
         if spec.search is not None:
 
             def follow(found_spec, found_parameters, root):
-                found = _follow(model, found_spec, found_parameters, root, progress)
+                found = _follow(model, found_spec, found_parameters, root, progress, stop)
                 warnings.extend(found.warnings)
                 return found.branches, found.events
 
-            search = run_search(model, spec, parameters, branches, follow, progress)
+            try:
+                search = run_search(model, spec, parameters, branches, follow, progress)
+            except Interrupted:
+                skipped.append(f"{spec.name} (search)")
+                continue
             branches.extend(search.branches)
             events.extend(search.events)
             searches.append(search.record)
-    families, cycle_events = run_cycles(model, scan.cycles, events, progress)
+    stopped = stop is not None and stop.requested
+    families, cycle_events = run_cycles(model, scan.cycles, events, progress) if not stopped else ((), ())
     events.extend(cycle_events)
-    failed = [b for b in (*branches, *families) if b.status == STATUS_FAILED]
+    trouble = _observable_trouble(model, branches)
+    if trouble:
+        warnings.append(trouble)
+    failed = [b for b in (*branches, *families) if b.status in (STATUS_FAILED, STATUS_INTERRUPTED)]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
+    status = STATUS_FAILED if failed else "done"
+    if stopped:
+        status = STATUS_INTERRUPTED
+        not_started = f"; not started: {', '.join(skipped)}" if skipped else ""
+        message = f"{stop.reason}{': ' + message if message else ''}{not_started}"
     traced = time.perf_counter()
-    confirmations, note = _confirm(model, branches, events) if confirm else ((), "")
+    confirmations, note = _confirm(model, branches, events) if confirm and not stopped else ((), "")
     finished = time.perf_counter()
     return RunResult(
         scan=scan,
         model=model,
         branches=tuple(branches),
         events=tuple(events),
-        status=STATUS_FAILED if failed else "done",
+        status=status,
         message=message,
         timings={
             "compile_seconds": compiled - started,

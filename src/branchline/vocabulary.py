@@ -62,6 +62,7 @@ class Status(_Word):
     MAX_POINTS = "max_points"  # stopped at steps.max_points
     FAILED = "failed"  # numerical trouble; the message says where and why
     HOMOCLINIC = "homoclinic"  # a family of periodic orbits whose period grows without bound
+    INTERRUPTED = "interrupted"  # stopped by Ctrl-C or SIGTERM; the points so far are kept
     CONVERGED = "converged"
     NOT_CONVERGED = "not_converged"
     SINGULAR_JACOBIAN = "singular_jacobian"
@@ -78,6 +79,8 @@ _HINTS = {
     "fewer points",
     Status.FAILED: "try a smaller steps.smallest or steps.initial, or narrow the interval "
     "to stop before the trouble",
+    Status.INTERRUPTED: "run the scan again to compute the rest (the points so far are kept "
+    "in the results folder)",
     Status.NOT_CONVERGED: "give a start guess closer to an equilibrium (branchline inspect "
     "shows the residual there)",
     Status.SINGULAR_JACOBIAN: "start the trace at another parameter value, away from a fold "

@@ -441,7 +441,13 @@ def _least_squares_on_edge(
         if message or linalg.is_sparse(jac):
             return _failed(u, iteration, math.nan, message or "sparse Jacobian")
         residual = linalg.norm(g)
-        step = np.linalg.lstsq(np.asarray(jac)[:, free], -g, rcond=None)[0]
+        matrix = np.asarray(jac)[:, free]
+        if not (math.isfinite(residual) and np.all(np.isfinite(matrix))):
+            return _failed(u, iteration, math.nan, "the model is not finite on the edge")
+        try:
+            step = np.linalg.lstsq(matrix, -g, rcond=None)[0]
+        except np.linalg.LinAlgError as exc:  # SVD did not converge
+            return _failed(u, iteration, residual, f"least squares failed on the edge ({exc})")
         counts.factorizations += 1
         u[free] += step
         if _converged(residual, linalg.norm(step), 1.0 + linalg.norm(u)):

@@ -37,6 +37,7 @@ from branchline.events.defining_systems import (
 )
 from branchline.events.detection import TEST_FUNCTIONS, Bracket, bordered_determinant
 from branchline.events.normal_forms import (
+    L1_ZERO_NOTE,
     branch_point_normal_form,
     branch_tangent,
     dense,
@@ -416,7 +417,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         form = hopf_normal_form(
             model, x, full, omega, q if q is not None and z[n + 1] > 0 else None, k=k
         )
-        lyapunov, criticality = form.lyapunov, form.criticality
+        lyapunov, criticality = form.lyapunov, form.criticality or None
         details["eigenvectors"] = {
             "right": _json_complex(form.right_vector),
             "left": _json_complex(form.left_vector),
@@ -429,7 +430,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
             "amplitude_coefficient": form.amplitude_coefficient,
         }
         if form.near_bautin:
-            notes.append("close to a Bautin point; criticality uncertain")
+            notes.append(L1_ZERO_NOTE)
         elif form.cycle_side:
             relation = "<" if form.cycle_side == "below" else ">"
             stability = "stable" if form.criticality == "supercritical" else "unstable"

@@ -62,6 +62,14 @@ BAUTIN_RELATIVE = 1e-7
 # models): those are good to about 1e-6 relative (see branchline.numerics.differences).
 BAUTIN_RELATIVE_DIFFERENCES = 1e-5
 
+# The located Hopf value is trusted to this relative accuracy (the defining
+# system is solved to a residual near 1e-14; the tests check 1e-10 or better).
+# An l1 that moves through zero within this distance along the branch is zero
+# to rounding: its sign says nothing (the van der Pol oscillator at mu = 0).
+HOPF_LOCATION_RTOL = 1e-12
+# Words for an l1 that is zero to rounding, in events and the report.
+L1_ZERO_NOTE = "criticality not determined (l1 = 0 to rounding)"
+
 # |a| below this fraction of ||B(q, q)||: the fold is close to a cusp point.
 CUSP_RELATIVE = 1e-7
 
@@ -351,9 +359,13 @@ class HopfNormalForm:
     terms : tuple of three complex
         <p, C(q, q, qbar)>, -2 <p, B(q, A^-1 B(q, qbar))>, <p, B(qbar, (2 i omega - A)^-1 B(q, q))>.
     criticality : str
-        ``"supercritical"`` (l1 < 0) or ``"subcritical"`` (l1 > 0).
+        ``"supercritical"`` (l1 < 0), ``"subcritical"`` (l1 > 0), or ``""`` when
+        l1 is zero to rounding (see ``near_bautin``).
     near_bautin : bool
-        |l1| is within rounding of zero relative to its terms: the sign is not trusted.
+        l1 is zero to rounding: |l1| is within rounding of zero relative to its
+        terms, or below the change of l1 along the branch over the located
+        point's own uncertainty (``HOPF_LOCATION_RTOL``; needs ``k``). Then
+        ``criticality`` is ``""`` and no cycle side or amplitude is given.
     growth_rate : float or None
         alpha'(p0) = d Re(lambda)/dp of the critical pair along the branch,
         Re <p, (A_p + B(q, x_p)) q> with x_p = -A^-1 f_p (Kuznetsov, section 3.5;
@@ -382,6 +394,40 @@ class HopfNormalForm:
 def _inner(a: Array, b: Array) -> complex:
     """<a, b> = sum conj(a_i) b_i."""
     return complex(np.vdot(a, b))
+
+
+def _lyapunov_terms(model, x, params, omega, q, p, a_matrix, eye) -> tuple[complex, ...]:
+    """The three terms of 2 c1 in the invariant formula (see :func:`hopf_normal_form`)."""
+    qbar = q.conj()
+    h11 = solve(a_matrix, model.second(x, params, q, qbar))
+    h20 = solve(2j * omega * eye - a_matrix, model.second(x, params, q, q))
+    return (
+        _inner(p, model.third(x, params, q, q, qbar)),
+        -2.0 * _inner(p, model.second(x, params, q, h11)),
+        _inner(p, model.second(x, params, qbar, h20)),
+    )
+
+
+def _lyapunov_rounding(model, x, params, omega, q, p, a_matrix, eye, k, x_p) -> float:
+    """How far l1 moves over the located point's uncertainty along the branch.
+
+    The slope of l1 along the branch direction (x_p, 1) is estimated by a central
+    difference of the nonlinear terms (A, q, p held fixed: only the order of
+    magnitude matters), then scaled by HOPF_LOCATION_RTOL * max(1, |p_k|).
+    An l1 below this is zero to rounding, whatever its relative size.
+    """
+    scale = max(1.0, abs(float(params[k])))
+    step = CENTRAL_STEP * scale
+    values = []
+    for sign in (1.0, -1.0):
+        shifted = np.array(params, dtype=float)
+        shifted[k] += sign * step
+        terms = _lyapunov_terms(model, x + sign * step * x_p, shifted, omega, q, p, a_matrix, eye)
+        values.append(0.5 * sum(terms).real / omega)
+    slope = abs(values[0] - values[1]) / (2.0 * step)
+    if not np.isfinite(slope):
+        return 0.0
+    return slope * HOPF_LOCATION_RTOL * scale
 
 
 def hopf_normal_form(
@@ -427,23 +473,13 @@ def hopf_normal_form(
     q = _orient(np.asarray(q, dtype=complex))
     q = q / np.sqrt(2.0 * _inner(q, q).real)
     p = p / np.conj(_inner(p, q))
-    qbar = q.conj()
-    bqqbar = model.second(x, params, q, qbar)
-    bqq = model.second(x, params, q, q)
-    h11 = solve(a_matrix, bqqbar)
-    h20 = solve(2j * omega * eye - a_matrix, bqq)
-    terms = (
-        _inner(p, model.third(x, params, q, q, qbar)),
-        -2.0 * _inner(p, model.second(x, params, q, h11)),
-        _inner(p, model.second(x, params, qbar, h20)),
-    )
+    terms = _lyapunov_terms(model, x, params, omega, q, p, a_matrix, eye)
     c1 = 0.5 * sum(terms)
     lyapunov = c1.real / omega
     size = 0.5 * sum(abs(t) for t in terms) / omega
     exact = getattr(model, "exact_derivatives", True)
     threshold = BAUTIN_RELATIVE if exact else BAUTIN_RELATIVE_DIFFERENCES
     near_bautin = abs(lyapunov) <= threshold * size
-    criticality = "supercritical" if lyapunov < 0 else "subcritical"
     growth, side, coefficient = None, "", None
     if k is not None:
         x_p = -solve(a_matrix, model.parameter_jacobian(x, params)[:, k])
@@ -451,9 +487,12 @@ def hopf_normal_form(
             x, params, q, x_p
         )
         growth = _inner(p, moved).real
-        if growth != 0.0 and lyapunov != 0.0:
+        floor = _lyapunov_rounding(model, x, params, omega, q, p, a_matrix, eye, k, x_p)
+        near_bautin = near_bautin or abs(lyapunov) <= floor
+        if growth != 0.0 and not near_bautin:
             side = "below" if growth * lyapunov > 0 else "above"
             coefficient = float(np.sqrt(abs(growth / (omega * lyapunov))))
+    criticality = "" if near_bautin else ("supercritical" if lyapunov < 0 else "subcritical")
     return HopfNormalForm(
         omega, lyapunov, c1, q, p, terms, criticality, near_bautin, growth, side, coefficient
     )

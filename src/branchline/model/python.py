@@ -13,7 +13,7 @@ from __future__ import annotations
 import importlib
 import os
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from typing import Any
 
 import numpy as np
@@ -123,7 +123,20 @@ def python_observables(
 
     def observables(x: Array, p: Array) -> dict[str, float]:
         values = user_observables(x, p)
-        return {str(name): float(value) for name, value in dict(values).items()}
+        key = "model.python.observables"
+        if not isinstance(values, Mapping):
+            raise ModelOutputError(
+                source,
+                key,
+                f"'{spec.observables}' returned {type(values).__name__}; expected a dict "
+                "of names to numbers",
+            )
+        try:
+            return {str(name): float(value) for name, value in values.items()}
+        except (TypeError, ValueError) as error:
+            raise ModelOutputError(
+                source, key, f"'{spec.observables}' returned a value that is not a number: {error}"
+            ) from None
 
     sample = probe(observables, probe_point, defaults)
     return observables, tuple(sample) if sample else ()
@@ -133,15 +146,53 @@ def probe(function: Callable, x: Array, p: Array) -> Any:
     """Call a user function once at build time; shape errors surface, other failures wait.
 
     The probe point (all states 1, default parameters) is arbitrary, so an
-    exception there is not held against the model; a ScanError (wrong shape) is.
+    exception there is not held against the model; a wrong shape or type is
+    (a ScanError naming the key). Later in a run the same fault is numerical
+    trouble at a point (ModelCodeError): the trace stops there, keeping its points.
     """
     try:
         with np.errstate(all="ignore"):
             return function(x, p)
+    except ModelOutputError as error:
+        raise ScanError(error.source, error.key, str(error)) from None
     except ScanError:
         raise
     except Exception:
         return None
+
+
+class ModelOutputError(ModelCodeError):
+    """A user function returned the wrong shape or type (key and source kept for probes)."""
+
+    def __init__(self, source: str, key: str, problem: str) -> None:
+        super().__init__(problem)
+        self.source, self.key = source, key
+
+
+def as_real_array(values: Any, reference: str, source: str, key: str) -> Array:
+    """A user function's result as a float array; ModelOutputError for non-numbers or complex."""
+    if isinstance(values, Mapping | str | bytes):
+        raise ModelOutputError(
+            source, key, f"'{reference}' returned {type(values).__name__}; expected an array"
+        )
+    try:
+        array = np.asarray(values)
+        if np.iscomplexobj(array):
+            if np.any(array.imag != 0):
+                raise ModelOutputError(
+                    source, key, f"'{reference}' returned complex values; the model must be real"
+                )
+            array = array.real
+        return np.asarray(array, dtype=float)
+    except (TypeError, ValueError) as error:
+        if isinstance(error, ModelOutputError):
+            raise
+        raise ModelOutputError(
+            source,
+            key,
+            f"'{reference}' returned {type(values).__name__} that is not an array of numbers "
+            f"({error})",
+        ) from None
 
 
 def _with_parameter_dict(
@@ -159,6 +210,8 @@ def _with_parameter_dict(
             return user_function(x, dict(zip(parameters, p.tolist(), strict=True)))
         except (ArithmeticError, ValueError):
             raise
+        except SystemExit as error:  # user code must not end branchline's process
+            raise ModelCodeError(f"'{reference}' called sys.exit({error.code!r})") from None
         except Exception as error:
             raise ModelCodeError(f"'{reference}' raised {type(error).__name__}: {error}") from None
 
@@ -170,9 +223,9 @@ def _wrap_rhs(user_rhs: Callable, spec: PythonModelSpec, source: str) -> Callabl
     expected = (n,)
 
     def rhs(x: Array, p: Array) -> Array:
-        values = np.asarray(user_rhs(x, p), dtype=float)
+        values = as_real_array(user_rhs(x, p), spec.rhs, source, "model.python.rhs")
         if values.shape != expected:
-            raise ScanError(
+            raise ModelOutputError(
                 source,
                 "model.python.rhs",
                 f"'{spec.rhs}' returned an array of shape {values.shape}; expected ({n},), "
@@ -194,11 +247,11 @@ def _wrap_jacobian(
         if scipy.sparse.issparse(matrix):
             matrix = matrix.tocsr() if sparse else matrix.toarray()
         else:
-            matrix = np.asarray(matrix, dtype=float)
+            matrix = as_real_array(matrix, spec.jacobian, source, "model.python.jacobian")
             if sparse:
                 matrix = scipy.sparse.csr_matrix(matrix)
         if matrix.shape != expected:
-            raise ScanError(
+            raise ModelOutputError(
                 source,
                 "model.python.jacobian",
                 f"'{spec.jacobian}' returned a matrix of shape {matrix.shape}; expected {expected}",

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from branchline.errors import ScanError
 from branchline.model.build import build_model
 from branchline.problems.equilibrium import (
     HYPERBOLIC_RTOL,
@@ -18,14 +19,24 @@ from branchline.scan.loader import Scan
 
 # Print the full Jacobian only for models small enough to read it.
 MAX_PRINTED_JACOBIAN = 12
+# Entries below this fraction of the largest are rounding noise (an exact zero
+# computed as 5.55e-17, say) and print as 0.
+PRINT_ZERO_RTOL = 1e-14
 
 
 def _matrix_text(matrix: np.ndarray, names: tuple[str, ...]) -> str:
     width = max(12, *(len(n) for n in names)) + 2
+    floor = PRINT_ZERO_RTOL * float(np.max(np.abs(matrix), initial=0.0))
+    shown = np.where(np.abs(matrix) <= floor, 0.0, matrix)
     lines = [" " * width + "".join(f"{('d/d' + n):>{width}}" for n in names)]
-    for name, row in zip(names, matrix):
+    for name, row in zip(names, shown):
         lines.append(f"{('f_' + name):>{width}}" + "".join(f"{v:>{width}.6g}" for v in row))
     return "\n".join(lines)
+
+
+def plural(count: int, word: str) -> str:
+    """'1 trace', '2 traces'."""
+    return f"{count} {word}" if count == 1 else f"{count} {word}s"
 
 
 def _eigen_text(eigenvalues: np.ndarray) -> str:
@@ -36,6 +47,17 @@ def _eigen_text(eigenvalues: np.ndarray) -> str:
         else:
             lines.append(f"  {lam.real:+.10g}")
     return "\n".join(lines)
+
+
+def scan_trace(scan: Scan, name: str | None):
+    """The trace called ``name`` (the first when None); ScanError listing the names otherwise."""
+    if name is None:
+        return scan.traces[0]
+    for spec in scan.traces:
+        if spec.name == name:
+            return spec
+    names = ", ".join(spec.name for spec in scan.traces)
+    raise ScanError(scan.source, f"--trace {name[:60]}", f"no such trace; traces: {names[:300]}")
 
 
 def hyperbolicity_lines(lin: Linearization) -> list[str]:
@@ -61,14 +83,21 @@ def hyperbolicity_lines(lin: Linearization) -> list[str]:
     return [verdict, rule]
 
 
-def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, bool]:
-    """Solve for the equilibrium at the first trace's start guess and describe it.
+def describe_equilibrium(
+    scan: Scan,
+    overrides: dict[str, float],
+    trace: str | None = None,
+    start: dict[str, float] | None = None,
+) -> tuple[str, bool]:
+    """Solve for the equilibrium at a trace's start guess and describe it.
 
-    Parameters are the model defaults with the first trace's ``set`` and then
-    ``overrides`` applied. Returns the text and whether Newton converged.
+    Parameters are the model defaults with the trace's ``set`` and then
+    ``overrides`` applied. ``trace`` names the trace (default: the first);
+    ``start`` replaces entries of its start guess (state name -> value).
+    Returns the text and whether Newton converged.
     """
     model = build_model(scan.model, source=scan.source)
-    spec = scan.traces[0]
+    spec = scan_trace(scan, trace)
     settings = {**spec.set, **overrides}
     p = model.parameter_vector(settings)
     searched = None
@@ -76,6 +105,8 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
         x0, searched = search_start(model, spec, p)  # the first equilibrium a search finds
     else:
         x0 = start_vector(model, spec, p, scan.source)
+    for name, value in (start or {}).items():
+        x0[model.states.index(name)] = value
     solution = solve_equilibrium(model, x0, p)
     lines = [f"{scan.title}", ""]
     lines.append("parameters: " + ", ".join(f"{n} = {v:.10g}" for n, v in zip(model.parameters, p)))
@@ -90,7 +121,7 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
         )
         return "\n".join(lines), False
     lines.append(
-        f"equilibrium (Newton: {solution.iterations} iterations, "
+        f"equilibrium (Newton: {plural(solution.iterations, 'iteration')}, "
         f"residual {solution.residual_norm:.2e}):"
     )
     found = start_distance(tuple(model.states), x0, solution.state)

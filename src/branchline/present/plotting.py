@@ -52,6 +52,13 @@ TRACE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9
 # One marker shape per event kind; unknown kinds get a plus.
 EVENT_MARKERS = {"fold": "D", "hopf": "s", "branch_point": "^"}
 DEFAULT_MARKER = "P"
+# An event value below this fraction of its parameter's range is zero to rounding in labels.
+LABEL_ZERO_RTOL = 1e-12
+# Said under the event kinds whenever a Hopf point is drawn: this diagram holds
+# equilibria only; the periodic orbits born there were not followed.
+HOPF_CYCLES_NOTE = "cycles at Hopf points: not computed"
+# Share of the viridis map used for many traces: its light yellow end is lost on white.
+VIRIDIS_SPAN = 0.85
 FIGURE_SIZE = (7.0, 6.5)  # inches: fits a journal page at full width
 PNG_DPI = 200
 FONT_SIZE = 9
@@ -301,8 +308,16 @@ def bifurcation_figure(
     -----
     The layout is settled once, when the figure is built: the event labels are
     placed against it, so it is kept as it is (no layout engine is left on the
-    figure). Draw another figure rather than resizing this one.
+    figure). Draw another figure rather than resizing this one. Every text is
+    drawn literally (no mathtext): titles and names come from the user, and a
+    ``$`` in them must not be parsed as a formula.
     """
+    with mpl.rc_context({"text.parse_math": False}):
+        return _diagram(points, events, info, x, y)
+
+
+def _diagram(points, events, info, x, y) -> Figure:
+    """:func:`bifurcation_figure`'s body (under its rc settings)."""
     if points.empty or "trace" not in points.columns:
         return _empty_figure(info)
     default_x, default_y = _default_names(points, info)
@@ -334,7 +349,9 @@ def bifurcation_figure(
             marks += draw_cycles(top, period_axis, cycles, events, x, y, styles)
         _draw_context(top, bottom, *context)
         top.set_ylabel(_axis_label(y, info))
-        bottom.set_ylabel("leading eigenvalue,\nreal part (> 0: unstable)")
+        bottom.set_ylabel(
+            "leading eigenvalue,\nreal part (> 0: unstable)\nmarks at 0: the crossing one"
+        )
         drawn = points[points["trace"].astype(str).isin(_drawn_traces(points, info, x))]
         _eigenvalue_scale(bottom, drawn["leading_real"].to_numpy(dtype=float))
         _shade_unstable(bottom)
@@ -400,14 +417,23 @@ _STYLE = {
 }
 
 
+def trace_colour(k: int, count: int) -> Any:
+    """The colour of the k-th of ``count`` traces: the fixed palette while it lasts,
+    else evenly spaced hues of a perceptually ordered map, so that no two repeat."""
+    if count <= len(TRACE_COLOURS):
+        return TRACE_COLOURS[k]
+    return mpl.colormaps["viridis"](VIRIDIS_SPAN * k / max(count - 1, 1))
+
+
 def _draw(top, bottom, points, events, info, names, states):
     """Draw every trace (runs and event markers) in both panels; return the
     event marks still to be labelled: (x, y, text, colour)."""
     vary_of = {str(t.get("name")): str(t.get("vary")) for t in trace_entries(info)}
     marks = []
     bottom.axhline(0.0, color="#333333", lw=0.9, zorder=1)
-    for k, name in enumerate(_drawn_traces(points, info, names[0])):
-        colour = TRACE_COLOURS[k % len(TRACE_COLOURS)]
+    drawn = _drawn_traces(points, info, names[0])
+    for k, name in enumerate(drawn):
+        colour = trace_colour(k, len(drawn))
         rows = trace_rows(points, name)
         if rows.empty:
             continue
@@ -437,14 +463,28 @@ def _draw(top, bottom, points, events, info, names, states):
                     ls="none",
                     zorder=5,
                 )
-            value = event_value(event, names[0])
-            text = event_label(event)
-            if value is not None:
-                text += f"\n{names[0]} = {fmt(value, 5)}"
-            marks.append((ex, ey, text, colour))
+            marks.append((ex, ey, _mark_text(event, rows), colour))
     top.margins(x=0.03, y=0.08)
     bottom.margins(x=0.03)  # shared x: both panels must ask for the same room
     return marks
+
+
+def _mark_text(event: Mapping[str, Any], rows: pd.DataFrame) -> str:
+    """An event's label: its kind and the varied parameter's value (whatever the x axis is).
+
+    A value within rounding of zero (relative to the parameter's range on the
+    trace) prints as 0, not as 7.7e-33.
+    """
+    text = event_label(event)
+    vary, value = event.get("vary"), event.get("value")
+    if vary is None or value is None:
+        return text
+    value = float(value)
+    if vary in rows.columns and len(rows):
+        scale = float(np.nanmax(np.abs(rows[vary].to_numpy(dtype=float))))
+        if abs(value) <= LABEL_ZERO_RTOL * scale:
+            value = 0.0
+    return f"{text}\n{vary} = {fmt(value, 5)}"
 
 
 def _context(points, events, info, x) -> tuple[list[float], list[tuple[float, float]]]:
@@ -507,7 +547,7 @@ def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=())
         Line2D(
             [],
             [],
-            color=TRACE_COLOURS[k % len(TRACE_COLOURS)],
+            color=trace_colour(k, len(drawn)),
             lw=LINE_WIDTH,
             label=_trace_legend_label(name, info),
         )
@@ -534,7 +574,9 @@ def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=())
         )
     if windows:
         styles.append(
-            Patch(color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="hysteresis window")
+            Patch(
+                color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="two stable states coexist"
+            )
         )
     kinds: dict[str, Line2D] = {}
     for event in events:
@@ -553,6 +595,8 @@ def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=())
             ls="none",
             label=label,
         )
+    if any(str(e.get("kind")) == "hopf" and e.get("trace") in drawn for e in events):
+        kinds[HOPF_CYCLES_NOTE] = Line2D([], [], alpha=0.0, label=HOPF_CYCLES_NOTE)
     groups = [g for g in (traces, styles, list(kinds.values())) if g]
     rows = max(len(g) for g in groups)
     handles = []

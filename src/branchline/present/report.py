@@ -45,9 +45,12 @@ from branchline.results.reading import (
 )
 
 CAUTION = (
-    "Results describe the model, not the plant: a safety decision must follow local codes "
-    "and licensed engineering practice, never these numbers alone."
+    "Results describe the model, not the real system it stands for: a safety decision must "
+    "follow local codes and licensed practice, never these numbers alone."
 )
+
+# Significant digits of a relative margin (in %), the same wherever it is printed.
+MARGIN_DIGITS = 4
 
 # Values read off the computed points (grid accuracy only) get fewer digits than
 # located events (VALUE_DIGITS).
@@ -60,6 +63,7 @@ STATUS_WORDS = {
     "max_points": "stopped at the point limit (steps.max_points)",
     "closed": "closed on itself (an isola)",
     "failed": "stopped by numerical trouble",
+    "interrupted": "was interrupted (Ctrl-C or SIGTERM)",
 }
 
 
@@ -343,7 +347,11 @@ def _events_section(events: Sequence[Mapping[str, Any]]) -> list[str]:
     out += [_table(header, rows), ""]
     out += [
         f"Values are shown to {VALUE_DIGITS} significant digits; events.csv and events.json "
-        "hold them to full precision. Frequencies are angular (radians per time unit).",
+        "hold them to full precision. Frequencies are angular (radians per time unit). "
+        "The first Lyapunov coefficient is computed with the critical eigenvector scaled to "
+        "<q, q> = 1/2, so that the complex amplitude is the oscillation's amplitude; with a "
+        "unit-norm eigenvector it would be twice as large (only its sign is independent of the "
+        "scaling).",
         "",
     ]
     return out
@@ -363,11 +371,13 @@ def _interval_row(part: StabilityInterval) -> tuple[str, ...]:
     counts = "–".join(str(c) for c in (part.unstable_counts[0], part.unstable_counts[-1]))
     if len(set(part.unstable_counts)) == 1:
         counts = str(part.unstable_counts[0])
+    # The range covered reaches the located folds and ends, not only the computed points.
+    reached = [part.low, part.high, *part.folds_inside, part.start_value, part.end_value]
     return (
         "stable" if part.stable else "unstable",
         _boundary_text(part.start_value, part.start_exact, part.start_kind),
         _boundary_text(part.end_value, part.end_exact, part.end_kind),
-        f"[{fmt(part.low)}, {fmt(part.high)}]",
+        f"[{fmt(min(reached))}, {fmt(max(reached))}]",
         counts,
         remark,
     )
@@ -410,7 +420,7 @@ def _margin_side_text(margin: OperatingMargin, side: SideMargin) -> str:
         where = "the edge of the interval" if side.reached_edge else "where the trace ended"
         return f"none within the traced part (followed to {vary} = {fmt(side.reach)}, {where})"
     relative = (
-        f"{fmt(100.0 * side.relative, 4)} % of the start value"
+        f"{fmt(100.0 * side.relative, MARGIN_DIGITS)} % of the start value"
         if side.relative is not None
         else "start value is 0: no relative margin"
     )
@@ -485,11 +495,12 @@ def _readings_section(points, events, info, windows: Sequence[HysteresisWindow])
 
 def _failure_section(points: pd.DataFrame, info: Mapping[str, Any]) -> list[str]:
     stopped = [t for t in trace_entries(info) if t.get("status") not in (None, "done", "closed")]
-    if info.get("status") != "failed" and not stopped:
+    if info.get("status") not in ("failed", "interrupted") and not stopped:
         return []
-    title = "## The run stopped early" if info.get("status") == "failed" else "## Incomplete traces"
+    title = {"failed": "## The run stopped early", "interrupted": "## The run was interrupted"}
+    title = title.get(str(info.get("status")), "## Incomplete traces")
     out = [title, ""]
-    if info.get("message") and not stopped:
+    if info.get("message") and (not stopped or info.get("status") == "interrupted"):
         out += [str(info["message"]), ""]
     for entry in stopped:
         name = str(entry.get("name"))
@@ -541,7 +552,7 @@ def _brief_section(
         if sides:
             near = min(sides, key=lambda s: s.absolute)
             relative = (
-                f", {fmt(100.0 * near.relative, 3)} % of the start value"
+                f", {fmt(100.0 * near.relative, MARGIN_DIGITS)} % of the start value"
                 if near.relative is not None
                 else ""
             )
@@ -554,7 +565,8 @@ def _brief_section(
         out.append(line + ".")
         if m.coexisting:
             out.append(
-                f"- At that value another stable state exists ({_targets_text(m.coexisting)}): "
+                f"- At the start value {m.vary} = {fmt(m.start_value)} another stable state "
+                f"exists ({_targets_text(m.coexisting)}): "
                 "a disturbance or a past excursion can leave the system there."
             )
     for window in windows:
@@ -563,7 +575,7 @@ def _brief_section(
                 f"- Hysteresis between {window.vary} = {fmt(window.low)} and {fmt(window.high)} "
                 f"(trace {window.trace}): two stable states coexist there."
             )
-    if info.get("status") == "failed":
+    if info.get("status") in ("failed", "interrupted"):
         out.append("- **The run stopped early**; see the next section for where and why.")
     out.append("")
     return out

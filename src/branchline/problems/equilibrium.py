@@ -168,6 +168,16 @@ def _evaluate(function, x: Array, p: Array) -> Array | None:
     return value
 
 
+def _start_trouble(model: Model, x: Array, p: Array) -> str:
+    """Why f cannot be used at the start guess: the model's own exception, or "not finite"."""
+    try:
+        with np.errstate(all="ignore"):
+            model.rhs(x, p)
+    except (ArithmeticError, ValueError) as error:
+        return f"evaluating f raised {type(error).__name__}: {error}"
+    return "f is not finite"
+
+
 def _jacobian_dense_or_sparse(model: Model, x: Array, p: Array):
     try:
         with np.errstate(all="ignore"):
@@ -247,7 +257,7 @@ def solve_equilibrium(
 def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
     f = _evaluate(model.rhs, x, p)
     if f is None:
-        message = f"f is not finite {_where(x, p, model)} (start guess)"
+        message = f"{_start_trouble(model, x, p)} {_where(x, p, model)} (start guess)"
         return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE, message)
     residual = linalg.norm(f)
     history = [residual]

@@ -114,7 +114,9 @@ def events_frame(result: RunResult) -> pd.DataFrame:
                 {name: float(values.get(name, np.nan)) for name in result.model.observable_names}
             )
         row["frequency"] = _optional(event.frequency)
+        row["period"] = _optional(event.period)
         row["lyapunov"] = _optional(event.lyapunov)
+        row["fold_coefficient"] = _optional(event.fold_coefficient)
         row["criticality"] = event.criticality or ""
         row["branching"] = event.branching or ""
         row["note"] = event.note
@@ -122,7 +124,8 @@ def events_frame(result: RunResult) -> pd.DataFrame:
     columns = ["trace", "kind", *varying]
     columns += ["norm"] if wide_states(result) else list(result.model.states)
     columns += [*result.model.observable_names]
-    columns += ["frequency", "lyapunov", "criticality", "branching", "note"]
+    columns += ["frequency", "period", "lyapunov", "criticality", "fold_coefficient"]
+    columns += ["branching", "note"]
     return pd.DataFrame(rows, columns=columns)
 
 

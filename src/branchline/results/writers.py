@@ -178,9 +178,47 @@ def read_results(folder: str | Path) -> SavedRun:
         )
     try:
         points = _read_points(folder / "points.csv")
-        events = json.loads((folder / "events.json").read_text(encoding="utf-8"))["events"]
+        events = json.loads((folder / "events.json").read_text(encoding="utf-8"))
         info = json.loads((folder / "run.json").read_text(encoding="utf-8"))
         cycles = _read_points(folder / "cycles.csv") if (folder / "cycles.csv").is_file() else None
-    except (ValueError, KeyError, OSError) as err:
-        raise ResultsFolderError(f"{folder}: cannot read the results ({err})") from None
-    return SavedRun(folder=folder, points=points, events=events, info=info, cycles=cycles)
+    except (ValueError, KeyError, OSError, RecursionError, UnicodeDecodeError) as err:
+        raise ResultsFolderError(f"{folder}: cannot read the results ({_short(err)})") from None
+    problem = _layout_problem(points, events, info)
+    if problem:
+        raise ResultsFolderError(f"{folder}: not a readable results folder: {problem}")
+    return SavedRun(folder=folder, points=points, events=events["events"], info=info, cycles=cycles)
+
+
+# Error texts from parsers can quote whole files; this much is enough to locate trouble.
+MESSAGE_LIMIT = 200
+
+
+def _short(error: BaseException) -> str:
+    text = str(error)
+    return text if len(text) <= MESSAGE_LIMIT else text[:MESSAGE_LIMIT] + " ..."
+
+
+def _layout_problem(points: pd.DataFrame, events: Any, info: Any) -> str:
+    """What is wrong with the saved tables' layout, or "" (what report and plot rely on)."""
+    if not isinstance(info, dict):
+        return f"run.json holds {type(info).__name__}, not an object"
+    traces = info.get("traces", [])
+    if not isinstance(traces, list) or not all(
+        isinstance(t, dict) and isinstance(t.get("name"), str) and isinstance(t.get("vary"), str)
+        for t in traces
+    ):
+        return "run.json: traces must be a list of objects with a name and a vary"
+    if not isinstance(events, dict) or not isinstance(events.get("events"), list):
+        return "events.json must be an object with a list under 'events'"
+    if not all(isinstance(e, dict) for e in events["events"]):
+        return "events.json: every event must be an object"
+    for column in ("trace", "stable"):
+        if column not in points.columns:
+            return f"points.csv has no column '{column}'"
+    for entry in traces:
+        vary = entry["vary"]
+        if vary not in points.columns:
+            return f"points.csv has no column '{vary[:60]}' (the varied parameter)"
+        if not pd.api.types.is_numeric_dtype(points[vary]):
+            return f"points.csv: column '{vary[:60]}' holds values that are not numbers"
+    return ""

@@ -17,6 +17,7 @@ import json
 import keyword
 import math
 import re
+import unicodedata
 from collections.abc import Iterable
 from typing import NoReturn
 
@@ -72,13 +73,27 @@ _IMPORT_PATH = re.compile(
 _NAMES_SHOWN = 12
 # How many characters of a bad value a message shows: one line stays readable.
 _VALUE_SHOWN = 60
+# Longest name (state, parameter, trace, ...) and title accepted: names become
+# table columns, legend entries and file text; far longer ones are mistakes
+# (and a 10^5-character name once took minutes to lay out in a figure).
+MAX_NAME_LENGTH = 80
+MAX_TITLE_LENGTH = 200
+# Unicode categories refused in names and titles: control and format characters
+# (newlines, escapes, bidirectional overrides) would be written raw to the
+# terminal, the CSV tables and the markdown report.
+_CONTROL_CATEGORIES = ("Cc", "Cf", "Zl", "Zp")
 
 
 def key_path(parent: str, child: object) -> str:
     """Dotted key path ``parent.child``, quoting a child that is not a plain name."""
     text = str(child)
-    if not _NAME.match(text):
-        text = json.dumps(text, ensure_ascii=False)
+    if not _NAME.match(text) or len(text) > _VALUE_SHOWN:
+        if len(text) > _VALUE_SHOWN:
+            text = text[: _VALUE_SHOWN - 3] + "..."
+        text = "".join(
+            f"\\u{ord(c):04x}" if unicodedata.category(c) in _CONTROL_CATEGORIES else c
+            for c in json.dumps(text, ensure_ascii=False)
+        )
     return f"{parent}.{text}" if parent else text
 
 
@@ -125,7 +140,7 @@ class Checker:
             if not path and key in NOT_YET_AVAILABLE:
                 self.fail(where, f"{NOT_YET_AVAILABLE[key]} are not available in this version")
             hint = suggestion(str(key), allowed) or f"; valid keys here: {', '.join(allowed)}"
-            self.fail(where, f"unknown key '{key}'{hint}")
+            self.fail(where, f"unknown key {shown(str(key))}{hint}")
 
     def table(self, value: object, key: str, what: str = "a table (name = value entries)") -> dict:
         """``value`` if it is a table (dict), else refuse it as not ``what``."""
@@ -170,13 +185,28 @@ class Checker:
             )
         return text
 
+    def plain_text(self, value: object, key: str, limit: int) -> str:
+        """Text of at most ``limit`` characters with no control characters (names, titles)."""
+        text = self.text(value, key)
+        if len(text) > limit:
+            self.fail(key, f"is {len(text)} characters long; at most {limit} are allowed")
+        bad = sorted({c for c in text if unicodedata.category(c) in _CONTROL_CATEGORIES})
+        if bad:
+            codes = ", ".join(f"U+{ord(c):04X}" for c in bad[:5])
+            self.fail(key, f"contains control characters ({codes}); use plain text")
+        return text
+
     def name(self, name: object, key: str, what: str, expression_model: bool) -> str:
         """A state/parameter/definition/observable name: a plain identifier, not reserved."""
         text = str(name)
+        if len(text) > MAX_NAME_LENGTH:
+            self.fail(
+                key, f"a {what} name of {len(text)} characters; at most {MAX_NAME_LENGTH}"
+            )
         if not _NAME.match(text) or keyword.iskeyword(text):
             self.fail(
                 key,
-                f"'{text}' is not a valid {what} name: use letters, digits and '_', "
+                f"{shown(text)} is not a valid {what} name: use letters, digits and '_', "
                 "not starting with a digit, and not a Python keyword",
             )
         if text.startswith("__"):

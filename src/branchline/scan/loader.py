@@ -52,6 +52,7 @@ Rules beyond the layout in ``interface.md``:
 from __future__ import annotations
 
 import copy
+import math
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -59,6 +60,8 @@ from typing import Any
 from branchline.errors import ScanError
 from branchline.scan.checks import (
     FILE_KEY,
+    MAX_NAME_LENGTH,
+    MAX_TITLE_LENGTH,
     RESERVED_COLUMNS,
     Checker,
     key_path,
@@ -207,8 +210,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         check.fail(FILE_KEY, "the scan must be a table of keys")
     check.keys(data, "", TOP_KEYS)
     title = data.get("title", Path(source).stem if source != "<dict>" else "scan")
-    if not isinstance(title, str):
-        check.fail("title", f"must be text, got {shown(title)}")
+    title = check.plain_text(title, "title", MAX_TITLE_LENGTH)
     if "model" not in data:
         check.fail("model", "missing: the scan needs a [model] with its parameters and equations")
     model = read_model(check, data["model"])
@@ -389,7 +391,7 @@ _TRACE_REQUIRED = {
 
 
 def _trace_name(check: Checker, value: object, key: str) -> str:
-    name = check.text(value, key)
+    name = check.plain_text(value, key, MAX_NAME_LENGTH)
     if not name.strip():
         check.fail(key, "must not be empty")
     if "." in name:
@@ -424,12 +426,21 @@ def _overrides(
     return overrides
 
 
-def _window(check: Checker, value: object, key: str, hint: str) -> tuple[float, float]:
-    """Two numbers [low, high] with low < high, or a ScanError naming ``key``."""
+def _window(
+    check: Checker, value: object, key: str, hint: str, open_ends: bool = False
+) -> tuple[float, float]:
+    """Two numbers [low, high] with low < high, or a ScanError naming ``key``.
+
+    With ``open_ends``, low may be -inf and high +inf (TOML's ``-inf`` / ``inf``): no bound.
+    """
     if not isinstance(value, list) or len(value) != 2:
         check.fail(key, f"must be two numbers [low, high]{hint}, got {shown(value)}")
-    low = check.number(value[0], f"{key}[1]")
-    high = check.number(value[1], f"{key}[2]")
+    low, high = (
+        end
+        if open_ends and isinstance(end, float) and end == bound
+        else check.number(end, f"{key}[{i + 1}]")
+        for i, (end, bound) in enumerate(zip(value, (-math.inf, math.inf)))
+    )
     if low > high:
         check.fail(key, f"is reversed: write [{high:g}, {low:g}] (low first)")
     if low == high:
@@ -501,7 +512,7 @@ def _limits(
                 f"'{name}' is not a state{suggestion(str(name), states)} "
                 f"(states: {listed(states)})",
             )
-        low, high = _window(check, bounds, key, " (a very large number for no bound)")
+        low, high = _window(check, bounds, key, " (-inf or inf for no bound)", open_ends=True)
         if isinstance(start, dict) and not low <= start[name] <= high:
             check.fail(
                 key,

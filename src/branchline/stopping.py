@@ -1,0 +1,124 @@
+"""Clean stops on Ctrl-C (SIGINT) and SIGTERM: keep every point, then write.
+
+The command line installs :func:`catching_signals` around a run. The first
+signal only *requests* a stop: from then on every call into the model raises
+:class:`Interrupted`, which the continuation engine treats like any numerical
+trouble at a point, so the curve ends at once with every accepted point kept
+(no change to the engine loop is needed). A signal that arrives while the
+model itself is computing (a slow Python rhs, say) interrupts that call
+directly, so the stop takes effect within the current step. The runner then
+skips what is left and marks the run ``interrupted``; the command line writes
+what was computed and exits 128 + the signal number (130 for SIGINT, 143 for
+SIGTERM). A second signal stops at once (KeyboardInterrupt), nothing written.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import signal
+import threading
+from collections.abc import Callable, Iterator
+from typing import Any
+
+from branchline.continuation.engine import ObservationFailed
+
+# The model's callables that a stop request cuts off (every hot-path and
+# normal-form derivative, and the observables).
+WATCHED_CALLABLES = (
+    "rhs",
+    "jacobian",
+    "parameter_jacobian",
+    "derivatives",
+    "second",
+    "third",
+    "jacobian_parameter_derivative",
+    "observables",
+)
+HANDLED_SIGNALS = ("SIGINT", "SIGTERM")
+
+
+class Interrupted(ObservationFailed):
+    """Raised inside model calls once a stop was requested (ends the curve there)."""
+
+
+class StopRequest:
+    """Whether a stop was requested, by which signal, and whether the model is running."""
+
+    def __init__(self) -> None:
+        self.signal_name: str | None = None
+        self.signal_number: int | None = None
+        self.inside_model = 0
+
+    @property
+    def requested(self) -> bool:
+        """True once a stop was requested."""
+        return self.signal_name is not None
+
+    def request(self, name: str = "SIGINT", number: int = int(signal.SIGINT)) -> None:
+        """Ask the run to stop (what the signal handler does; tests call it directly)."""
+        self.signal_name, self.signal_number = name, number
+
+    @property
+    def reason(self) -> str:
+        """Plain words for messages: 'interrupted (SIGINT)'."""
+        return f"interrupted ({self.signal_name})"
+
+    def raise_if_requested(self) -> None:
+        """Raise :class:`Interrupted` if a stop was requested."""
+        if self.signal_name is not None:
+            raise Interrupted(self.reason)
+
+
+def _watch(function: Callable | None, stop: StopRequest) -> Callable | None:
+    if function is None:
+        return None
+
+    def call(*args: Any) -> Any:
+        stop.raise_if_requested()
+        stop.inside_model += 1
+        try:
+            return function(*args)
+        finally:
+            stop.inside_model -= 1
+
+    return call
+
+
+def watched_model(model: Any, stop: StopRequest) -> Any:
+    """A copy of ``model`` whose callables raise :class:`Interrupted` once ``stop`` is requested."""
+    changes = {
+        name: _watch(getattr(model, name), stop)
+        for name in WATCHED_CALLABLES
+        if hasattr(model, name)
+    }
+    return dataclasses.replace(model, **changes)
+
+
+@contextlib.contextmanager
+def catching_signals(stop: StopRequest) -> Iterator[StopRequest]:
+    """Turn SIGINT and SIGTERM into stop requests while the block runs.
+
+    Only in the main thread (Python delivers signals there); elsewhere the
+    block runs unchanged. The previous handlers are restored afterwards.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        yield stop
+        return
+
+    def handler(number: int, frame: Any) -> None:
+        if stop.requested:
+            raise KeyboardInterrupt  # a second signal: stop at once
+        stop.request(signal.Signals(number).name, number)
+        if stop.inside_model:
+            raise Interrupted(stop.reason)
+
+    previous = {}
+    for name in HANDLED_SIGNALS:
+        number = getattr(signal, name)
+        previous[number] = signal.signal(number, handler)
+    try:
+        yield stop
+    finally:
+        for number, old in previous.items():
+            signal.signal(number, old)

@@ -1,0 +1,206 @@
+"""Numerical fault injection: models that break part-way along a branch.
+
+For every fault the trace must stop gracefully where it happens, keep every
+point computed before it, say where and why in run.json and the report, exit
+with code 1 (numerical trouble), print no traceback, and let the other traces
+of the scan run. Faults in what a user function *returns at the start*
+(wrong type, complex values) are bad input: exit 2 naming the key.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from branchline.cli import main
+from faulty_models import FAULT_AT
+
+PYTHON_SCAN = """
+title = "stock model with an injected fault"
+[model.parameters]
+F = 0.0
+[model.python]
+rhs = "faulty_models:{rhs}"
+{extra}
+size = 2
+[[trace]]
+name = "faulty"
+vary = "F"
+interval = [0.0, 0.9]
+start = {{ x0 = 1.0, x1 = 0.0 }}
+[[trace]]
+name = "healthy"
+vary = "F"
+interval = [0.0, 0.25]
+start = {{ x0 = 1.0, x1 = 0.0 }}
+direction = "increasing"
+"""
+
+# (id, rhs, extra [model.python] lines, words the failure message must contain)
+PART_WAY_FAULTS = [
+    ("nan", "nan_past", "", ["not finite"]),
+    ("infinity", "inf_past", "", ["not finite"]),
+    ("raises", "raise_past", "", ["RuntimeError", "the sensor table ends here"]),
+    ("sys-exit", "exit_past", "", ["sys.exit(3)"]),
+    ("wrong-shape", "wrong_shape_past", "", ["shape (3,)"]),
+    ("dict", "dict_past", "", ["returned dict"]),
+    ("object-array", "object_array_past", "", ["not an array of numbers"]),
+    (
+        "jacobian-wrong-shape",
+        "healthy",
+        'jacobian = "faulty_models:jacobian_wrong_shape_past"',
+        ["shape (3, 3)"],
+    ),
+    (
+        "sparse-jacobian-wrong-shape",
+        "healthy",
+        'jacobian = "faulty_models:sparse_jacobian_wrong_shape_past"',
+        ["shape (3, 3)"],
+    ),
+    (
+        "singular-jacobian",
+        "healthy",
+        'jacobian = "faulty_models:singular_jacobian_past"',
+        ["singular"],
+    ),
+]
+
+
+def _run(tmp_path: Path, text: str) -> tuple[int, str, Path]:
+    scan = tmp_path / "fault.toml"
+    scan.write_text(text)
+    out = tmp_path / "out"
+    code = main(["run", str(scan), "--out", str(out), "--quiet"])
+    return code, out
+
+
+@pytest.mark.parametrize("case", PART_WAY_FAULTS, ids=[c[0] for c in PART_WAY_FAULTS])
+def test_fault_part_way_stops_gracefully_and_keeps_points(tmp_path, capsys, case):
+    _, rhs, extra, words = case
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs=rhs, extra=extra))
+    err = capsys.readouterr().err
+    assert code == 1, err
+    assert "Traceback" not in err
+    info = json.loads((out / "run.json").read_text())
+    assert info["status"] == "failed"
+    traces = {t["name"]: t for t in info["traces"]}
+    assert traces["faulty"]["status"] == "failed"
+    assert traces["healthy"]["status"] == "done"  # the other trace still ran
+    for word in words:
+        assert word in traces["faulty"]["message"], traces["faulty"]["message"]
+    points = pd.read_csv(out / "points.csv")
+    faulty = points[points["trace"] == "faulty"]
+    # Every point before the fault is kept: the healthy part runs from F = 0 to
+    # within a step or two of the fault (largest step 0.05 by default).
+    assert faulty["F"].min() == 0.0
+    assert FAULT_AT - 0.1 < faulty["F"].max() <= FAULT_AT + 0.05
+    # The stop is said in the report, with where the trace got to.
+    report = (out / "report.md").read_text()
+    assert "The run stopped early" in report and "faulty" in report
+
+
+def test_nan_on_part_of_the_range_stops_there(tmp_path, capsys):
+    # x = F is an equilibrium everywhere, but sqrt(0.4 - F) is NaN past F = 0.4.
+    text = (
+        'title = "fault"\n[model.parameters]\nF = 0.0\n[model.equations]\n'
+        'x = "F - x + 1e-30*sqrt(0.4 - F)"\n'
+        '[[trace]]\nname = "t"\nvary = "F"\ninterval = [0.0, 1.0]\nstart = { x = 0.0 }\n'
+    )
+    code, out = _run(tmp_path, text)
+    err = capsys.readouterr().err
+    assert code == 1, err
+    assert "Traceback" not in err
+    (trace,) = json.loads((out / "run.json").read_text())["traces"]
+    assert trace["status"] == "failed" and "not finite" in trace["message"]
+    points = pd.read_csv(out / "points.csv")
+    assert 0.4 - 1e-6 < points["F"].max() <= 0.4
+    assert ((points["x"] - points["F"]).abs() < 1e-12).all()
+
+
+def test_escape_to_infinity_stops_with_a_message(tmp_path, capsys):
+    text = (
+        'title = "escape"\n[model.parameters]\nF = 1.0\n[model.equations]\nx = "F*x - 1"\n'
+        '[[trace]]\nname = "t"\nvary = "F"\ninterval = [0.0, 1.0]\nstart = { x = 1.0 }\n'
+    )
+    code, out = _run(tmp_path, text)
+    capsys.readouterr()
+    info = json.loads((out / "run.json").read_text())
+    points = pd.read_csv(out / "points.csv")
+    # The equilibrium x = 1/F is followed exactly while it exists (F > 0).
+    assert ((points["x"] * points["F"] - 1.0).abs() < 1e-9).all()
+    assert points["F"].max() == 1.0
+    (trace,) = info["traces"]
+    assert trace["status"] in ("failed", "max_points")
+    assert code in (0, 1) and (code == 1) == (trace["status"] == "failed")
+
+
+def test_newton_cycling_at_start_is_reported(tmp_path, capsys):
+    text = (
+        'title = "cycling"\n[model.parameters]\nF = 0.5\n[model.equations]\n'
+        'x = "atan(x) + 0*F"\n[[trace]]\nname = "t"\nvary = "F"\ninterval = [0.0, 1.0]\n'
+        "start = { x = 1.5 }\n"
+    )
+    code, out = _run(tmp_path, text)
+    err = capsys.readouterr().err
+    info = json.loads((out / "run.json").read_text())
+    if code == 1:  # the damped Newton may also rescue it; then x = 0 is found
+        assert "no equilibrium found at the start" in info["traces"][0]["message"]
+    else:
+        assert code == 0, err
+        assert abs(pd.read_csv(out / "points.csv")["x"]).max() < 1e-9
+
+
+@pytest.mark.parametrize(
+    "rhs, extra, words",
+    [
+        ("complex_rhs", "", ["model.python.rhs", "complex"]),
+        (
+            "healthy",
+            'observables = "faulty_models:observables_list"',
+            ["model.python.observables", "list"],
+        ),
+    ],
+    ids=["complex-rhs", "observables-list"],
+)
+def test_wrong_type_at_the_start_is_bad_input(tmp_path, capsys, rhs, extra, words):
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs=rhs, extra=extra))
+    err = capsys.readouterr().err
+    assert code == 2, err
+    assert "Traceback" not in err
+    for word in words:
+        assert word in err
+    assert not out.exists()
+
+
+def test_user_exception_at_the_start_keeps_its_message(tmp_path, capsys):
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="raises_at_start", extra=""))
+    capsys.readouterr()
+    assert code == 1
+    info = json.loads((out / "run.json").read_text())
+    assert "calibration 'K7' missing" in info["traces"][0]["message"]
+
+
+def test_observables_that_raise_are_said(tmp_path, capsys):
+    extra = 'observables = "faulty_models:observables_raise_past"'
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="healthy", extra=extra))
+    err = capsys.readouterr().err
+    info = json.loads((out / "run.json").read_text())
+    assert code == 0, err
+    assert any("flow is zero" in w and "biomass" in w for w in info["warnings"])
+    points = pd.read_csv(out / "points.csv")
+    assert points.loc[points["F"] > FAULT_AT, "biomass"].isna().all()
+    assert points.loc[points["F"] <= FAULT_AT, "biomass"].notna().all()
+
+
+def test_jacobian_wrong_away_from_the_start_is_said(tmp_path, capsys):
+    extra = 'jacobian = "faulty_models:coupled_jacobian_transposed"'
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="coupled", extra=extra))
+    capsys.readouterr()
+    info = json.loads((out / "run.json").read_text())
+    # No warning at the start (the transpose is right there), one from the re-check.
+    rechecks = [w for w in info["warnings"] if "disagrees with finite differences" in w]
+    assert rechecks and all("corrector iterations" in w for w in rechecks)
+    assert code in (0, 1)
