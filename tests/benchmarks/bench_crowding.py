@@ -29,7 +29,7 @@ sys.path.insert(0, str(ROOT / "tests"))
 import numpy as np  # noqa: E402
 
 from branchline import runner  # noqa: E402
-from branchline.events import switching  # noqa: E402
+from branchline.problems import switching  # noqa: E402
 from branchline.scan.loader import load_scan, scan_from_dict  # noqa: E402
 from cell_chains import brusselator_equations, cubic_equations  # noqa: E402
 
