@@ -42,12 +42,13 @@ from branchline.results.reading import (
     trace_names,
     trace_rows,
 )
+from branchline.vocabulary import EventKind
 
 # Okabe & Ito, "Color Universal Design" (2008): distinguishable under the common
 # colour-vision deficiencies. Yellow is left out (too pale on white).
 TRACE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
 # One marker shape per event kind; unknown kinds get a plus.
-EVENT_MARKERS = {"fold": "D", "hopf": "s", "branch_point": "^"}
+EVENT_MARKERS = {EventKind.FOLD: "D", EventKind.HOPF: "s", EventKind.BRANCH_POINT: "^"}
 DEFAULT_MARKER = "P"
 FIGURE_SIZE = (7.0, 6.5)  # inches: fits a journal page at full width
 PNG_DPI = 200
