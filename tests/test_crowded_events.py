@@ -237,7 +237,7 @@ def test_refinement_is_capped_and_says_so(monkeypatch):
     # A budget of 4 points cannot separate 8 cells' modes: the run still ends, within the
     # budget, and run.json counts the steps left crowded. (The cap is what keeps a dense
     # cluster from hanging a run.)
-    from branchline.events import crowding
+    from branchline.problems import crowding
 
     monkeypatch.setattr(crowding, "MAX_REFINEMENT_POINTS", 4)
     cells = 8

@@ -212,7 +212,7 @@ def _command_portrait(args: argparse.Namespace) -> int:
 
     try:
         scan = _load(args.scan)
-        settings = _parse_settings(args.set or [], scan)
+        settings = _parse_pairs(args.set or [], tuple(scan.model.parameters), "--set", scan.source)
         if not args.quiet:
             _python_notice(scan)
         portrait = compute_portrait(

@@ -13,18 +13,18 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from branchline.errors import ScanError
-from branchline.events.crowding import resolve_crowded_steps
-from branchline.events.locate import locate_events
-from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
+from branchline.problems.crowding import resolve_crowded_steps
 from branchline.problems.cycle_runs import run_cycles
-from branchline.problems.equilibrium_branch import trace_branch
+from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.problems.start_guess import start_distance
+from branchline.problems.switching import trace_switched
 from branchline.problems.window_search import run_search, search_box
-from branchline.results.records import STATUS_FAILED, STATUS_INTERRUPTED, Branch, Event, RunResult
+from branchline.results.records import Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
 from branchline.scan.search_section import SEARCH_START
 from branchline.stopping import Interrupted, StopRequest, watched_model
+from branchline.vocabulary import EventKind, Status
 
 # Branch points closer than this (relative, in state and parameter) to one
 # already switched at are the same point met again from a child branch.
@@ -88,7 +88,7 @@ def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
     """Say so in the note of every branch point on the interval's edge."""
     marked = []
     for event in events:
-        if event.kind == "branch_point" and _on_edge(event, interval):
+        if event.kind == EventKind.BRANCH_POINT and _on_edge(event, interval):
             words = "on the edge of the parameter interval; the crossing branches were not followed"
             event = replace(event, note=f"{event.note}; {words}" if event.note else words)
         marked.append(event)
@@ -97,14 +97,14 @@ def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
 
 def _interrupted(branch: Branch, stop: StopRequest | None) -> Branch:
     """``branch`` marked interrupted if a stop cut it short (its points are kept)."""
-    if stop is None or not stop.requested or branch.status != STATUS_FAILED:
+    if stop is None or not stop.requested or branch.status != Status.FAILED:
         return branch
     where = ""
     if len(branch):
         where = f", the last at {branch.vary} = {branch.parameter_values[-1]:.10g}"
     return replace(
         branch,
-        status=STATUS_INTERRUPTED,
+        status=Status.INTERRUPTED,
         message=f"stopped by {stop.signal_name} after {len(branch)} points{where}",
     )
 
@@ -161,7 +161,7 @@ def _follow(
         return _TraceOutcome(branches, events)
     visited: list[Event] = []
     started: dict[str, int] = {}  # parent name -> children started so far
-    queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
+    queue = [(root, e, 1) for e in events if e.kind == EventKind.BRANCH_POINT]
     skipped = 0
     while queue and not stopped():
         parent, event, depth = queue.pop(0)
@@ -189,7 +189,7 @@ def _follow(
             branches.append(child)
             found = located(child)
             events.extend(found)
-            queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
+            queue.extend((child, e, depth + 1) for e in found if e.kind == EventKind.BRANCH_POINT)
     notes = []
     if skipped:
         notes.append(
@@ -363,11 +363,11 @@ def run_scan(
     trouble = _observable_trouble(model, branches)
     if trouble:
         warnings.append(trouble)
-    failed = [b for b in (*branches, *families) if b.status in (STATUS_FAILED, STATUS_INTERRUPTED)]
+    failed = [b for b in (*branches, *families) if b.status in (Status.FAILED, Status.INTERRUPTED)]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
-    status = STATUS_FAILED if failed else "done"
+    status = Status.FAILED if failed else Status.DONE
     if stopped:
-        status = STATUS_INTERRUPTED
+        status = Status.INTERRUPTED
         not_started = f"; not started: {', '.join(skipped)}" if skipped else ""
         message = f"{stop.reason}{': ' + message if message else ''}{not_started}"
     traced = time.perf_counter()

@@ -17,13 +17,17 @@ from enum import Enum
 
 
 class _Word(str, Enum):
-    """A str-valued member that prints and formats as its value (on every Python)."""
+    """A str-valued member that prints, formats and shows as its value (on every Python)."""
 
     def __str__(self) -> str:
         return str(self.value)
 
     def __format__(self, spec: str) -> str:
         return format(str(self.value), spec)
+
+    def __repr__(self) -> str:
+        # Lists of kinds and statuses read as the strings they stand for.
+        return repr(str(self.value))
 
 
 class EventKind(_Word):
@@ -52,7 +56,8 @@ class EventKind(_Word):
 class Status(_Word):
     """How a computation ended; :attr:`hint` suggests the fix when it did not end well.
 
-    Curves and branches end ``done``, ``closed``, ``max_points`` or ``failed``;
+    Curves and branches end ``done``, ``closed``, ``max_points``, ``failed`` or
+    ``interrupted``;
     a single equilibrium solve ends ``converged``, ``not_converged``,
     ``singular_jacobian`` or ``non_finite``.
     """

@@ -1,6 +1,7 @@
 """Location of one bracketed event, and its description as an :class:`Event`.
 
-Each bracket from :func:`branchline.events.detection.find_brackets` is refined by
+Each bracket of an equilibrium branch
+(:func:`branchline.problems.equilibrium_branch.find_brackets`) is refined by
 Newton's method on the event's defining system
 (:mod:`branchline.events.defining_systems`), then described with its normal form
 (:mod:`branchline.events.normal_forms`). Only when Newton fails, or converges outside
@@ -9,9 +10,9 @@ branch (the event's ``note`` says so); if that fails too, the locator raises
 :class:`LocationFailed` and :func:`unrefined_event` reports the event placed by
 interpolation, with the reason in ``note``.
 
-Models with more than ``normal_forms.LARGE_MODEL_SIZE`` states are located with
-sparse linear algebra (SuperLU, shift-invert Arnoldi); their branch points by
-bisection on the sparse bordered determinant (Moore's system needs a dense
+Models the linear-algebra policy calls large (``Model.linear_algebra``,
+:mod:`branchline.numerics.policy`) are located with sparse linear algebra
+(SuperLU, shift-invert Arnoldi); their branch points by bisection on the sparse bordered determinant (Moore's system needs a dense
 Hessian).
 """
 
@@ -26,6 +27,7 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
+from branchline.events.brackets import Bracket, LocationFailed
 from branchline.events.defining_systems import (
     NewtonOutcome,
     branch_point_system,
@@ -35,21 +37,19 @@ from branchline.events.defining_systems import (
     on_branch_system,
     with_value,
 )
-from branchline.events.detection import TEST_FUNCTIONS, Bracket, bordered_determinant
+from branchline.events.detection import bordered_determinant
 from branchline.events.normal_forms import (
     L1_ZERO_NOTE,
     branch_point_normal_form,
     branch_tangent,
-    dense,
-    eigenvector_near,
     fold_normal_form,
     hopf_normal_form,
-    is_large,
     leading_eigenvalues,
-    null_vectors,
-    state_jacobian,
 )
+from branchline.numerics.eigenvalues import eigenvector_near, null_vectors
+from branchline.numerics.linalg import dense
 from branchline.results.records import Branch, Event
+from branchline.vocabulary import EventKind
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -80,10 +80,6 @@ BISECTION_MAX_ITERATIONS = 200
 # If the branch cannot be corrected at a bisection point, a bracket already
 # shorter than this fraction of the step is still reported (with its width).
 BISECTION_GIVE_UP_WIDTH = 1e-6
-
-
-class LocationFailed(Exception):
-    """Neither Newton on the defining system nor bisection placed the event."""
 
 
 # ----------------------------------------------------------------------------
@@ -230,7 +226,7 @@ def _bracket_details(branch: Branch, bracket: Bracket) -> dict:
         "test_values": {
             "before": [float(v) for v in branch.test_values[bracket.row]],
             "after": [float(v) for v in branch.test_values[bracket.row + 1]],
-            "order": list(TEST_FUNCTIONS),
+            "order": [str(name) for name in branch.test_names],
         },
     }
 
@@ -286,7 +282,7 @@ def unrefined_event(model: Model, branch: Branch, k: int, bracket: Bracket, reas
         "tangent": [float(v) for v in branch.tangents[bracket.row]],
         "eigenvalues": _json_complex(branch.eigenvalues[bracket.row]),
     }
-    omega = bracket.hint.get("omega") if bracket.kind == "hopf" else None
+    omega = bracket.hint.get("omega") if bracket.kind == EventKind.HOPF else None
     return Event(
         trace=branch.name,
         kind=bracket.kind,
@@ -312,7 +308,7 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
     """Refine a fold bracket on the minimally augmented fold system."""
     u0 = _seed(branch, bracket)
     full0 = with_value(branch.parameters, k, u0[-1])
-    left, right = null_vectors(state_jacobian(model, u0[:-1], full0))
+    left, right = null_vectors(model.state_jacobian(u0[:-1], full0))
     system = fold_system(model, branch.parameters, k, left.real, right.real)
     outcome = newton(system, u0)
     note = ""
@@ -324,7 +320,7 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         method = "bisection on the tangent's parameter component"
         note = _bisection_note("fold", outcome)
     x, full = u[:-1], with_value(branch.parameters, k, u[-1])
-    a_matrix = state_jacobian(model, x, full)
+    a_matrix = model.state_jacobian(x, full)
     form = fold_normal_form(model, x, full, k)
     details = _base_details(branch, bracket, a_matrix, method, outcome)
     details["eigenvectors"] = {
@@ -354,7 +350,15 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         )
     note = "; ".join(s for s in (side_note, note) if s)
     return _make_event(
-        model, branch, k, bracket, u, "fold", details, fold_coefficient=form.coefficient, note=note
+        model,
+        branch,
+        k,
+        bracket,
+        u,
+        EventKind.FOLD,
+        details,
+        fold_coefficient=form.coefficient,
+        note=note,
     )
 
 
@@ -372,7 +376,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
     u0 = _seed(branch, bracket)
     n = u0.shape[0] - 1
     full0 = with_value(branch.parameters, k, u0[-1])
-    a0 = state_jacobian(model, u0[:-1], full0)
+    a0 = model.state_jacobian(u0[:-1], full0)
     omega_guess = float(bracket.hint.get("omega", 0.0))
     value, q0 = eigenvector_near(a0, 1j * omega_guess)
     if abs(value.imag) <= 0.0:
@@ -404,7 +408,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
     omega = abs(omega)
     x, full = u[:-1], with_value(branch.parameters, k, u[-1])
-    a_matrix = state_jacobian(model, x, full)
+    a_matrix = model.state_jacobian(x, full)
     details = _base_details(branch, bracket, a_matrix, method, outcome)
     notes = []
     lyapunov, criticality = None, None
@@ -446,7 +450,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         k,
         bracket,
         u,
-        "hopf",
+        EventKind.HOPF,
         details,
         frequency=omega,
         lyapunov=lyapunov,
@@ -476,7 +480,7 @@ def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
 
 def _crossing_eigenvalue(model: Model, u: Array, full: Array, omega_guess: float) -> complex:
     """The upper-half-plane eigenvalue nearest i * omega_guess at u (NaN if none)."""
-    a_matrix = state_jacobian(model, u[:-1], full)
+    a_matrix = model.state_jacobian(u[:-1], full)
     if sps.issparse(a_matrix):
         value, _ = eigenvector_near(a_matrix, 1j * omega_guess)
         return complex(value.real, abs(value.imag)) if value.imag != 0 else complex(math.nan)
@@ -505,7 +509,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
     n = u0.shape[0] - 1
     full0 = with_value(branch.parameters, k, u0[-1])
     chord = _chord(branch, bracket.row)
-    large = is_large(n)
+    large = model.linear_algebra.sparse_location(n)
     if large:
         # Moore's system needs the dense (n+1)^2 Hessian of psi^T f: too costly
         outcome = NewtonOutcome(False, u0, [], "not used for large models")
@@ -532,7 +536,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
     form = branch_point_normal_form(model, x, full, k, psi, traced_tangent=traced_guess)
     overlap = np.abs(form.tangents @ chord)
     traced = int(np.argmax(overlap))
-    details = _base_details(branch, bracket, state_jacobian(model, x, full), method, outcome)
+    details = _base_details(branch, bracket, model.state_jacobian(x, full), method, outcome)
     details["eigenvectors"] = {"left": [float(v) for v in form.left_vector]}
     details["tangents"] = [[float(v) for v in t] for t in form.tangents]
     details["traced_tangent_index"] = traced
@@ -554,7 +558,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
         k,
         bracket,
         u,
-        "branch_point",
+        EventKind.BRANCH_POINT,
         details,
         branching=form.branching or None,
         note=note,
@@ -563,10 +567,8 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
 
 def _branch_point_test(model: Model, branch: Branch, k: int, u: Array, chord: Array) -> float:
     full = with_value(branch.parameters, k, u[-1])
-    a_matrix = state_jacobian(model, u[:-1], full)
+    a_matrix = model.state_jacobian(u[:-1], full)
     fp = model.parameter_jacobian(u[:-1], full)[:, k]
     t = branch_tangent(model, u[:-1], full, k, chord)
-    return bordered_determinant(a_matrix, fp, t)
+    return bordered_determinant(a_matrix, fp, t, model.linear_algebra)
 
-
-LOCATORS = {"fold": locate_fold, "hopf": locate_hopf, "branch_point": locate_branch_point}

@@ -45,12 +45,13 @@ from branchline.results.reading import (
     trace_names,
     trace_rows,
 )
+from branchline.vocabulary import EventKind
 
 # Okabe & Ito, "Color Universal Design" (2008): distinguishable under the common
 # colour-vision deficiencies. Yellow is left out (too pale on white).
 TRACE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000")
 # One marker shape per event kind; unknown kinds get a plus.
-EVENT_MARKERS = {"fold": "D", "hopf": "s", "branch_point": "^"}
+EVENT_MARKERS = {EventKind.FOLD: "D", EventKind.HOPF: "s", EventKind.BRANCH_POINT: "^"}
 DEFAULT_MARKER = "P"
 # An event value below this fraction of its parameter's range is zero to rounding in labels.
 LABEL_ZERO_RTOL = 1e-12
@@ -313,10 +314,10 @@ def bifurcation_figure(
     ``$`` in them must not be parsed as a formula.
     """
     with mpl.rc_context({"text.parse_math": False}):
-        return _diagram(points, events, info, x, y)
+        return _diagram(points, events, info, x, y, cycles)
 
 
-def _diagram(points, events, info, x, y) -> Figure:
+def _diagram(points, events, info, x, y, cycles) -> Figure:
     """:func:`bifurcation_figure`'s body (under its rc settings)."""
     if points.empty or "trace" not in points.columns:
         return _empty_figure(info)

@@ -43,6 +43,7 @@ from branchline.results.reading import (
     trace_names,
     trace_rows,
 )
+from branchline.vocabulary import EventKind
 
 CAUTION = (
     "Results describe the model, not the real system it stands for: a safety decision must "
@@ -216,11 +217,11 @@ def _read_branch_point(points, event, info) -> str:
 def read_event(points: pd.DataFrame, event: Mapping[str, Any], info: Mapping[str, Any]) -> str:
     """A plain-language reading of one event (markdown)."""
     kind = event.get("kind")
-    if kind == "fold":
+    if kind == EventKind.FOLD:
         return _read_fold(points, event, info)
-    if kind == "hopf":
+    if kind == EventKind.HOPF:
         return _read_hopf(points, event, info)
-    if kind == "branch_point":
+    if kind == EventKind.BRANCH_POINT:
         return _read_branch_point(points, event, info)
     return f"**{event_label(event)} at {event.get('vary')} = {fmt(event.get('value'))}**."
 
@@ -313,7 +314,7 @@ def _events_section(events: Sequence[Mapping[str, Any]]) -> list[str]:
         return [*out, "None: no fold, Hopf point or branch point was located on any trace.", ""]
     rows = []
     for number, event in enumerate(events, start=1):
-        hopf = event.get("kind") == "hopf"
+        hopf = event.get("kind") == EventKind.HOPF
         rows.append(
             (
                 number,
@@ -643,7 +644,7 @@ def summary_table(events: Sequence[Mapping[str, Any]]) -> str:
     rows = []
     for event in events:
         details = []
-        if event.get("kind") == "hopf" and event_period(event):
+        if event.get("kind") == EventKind.HOPF and event_period(event):
             details.append(f"period {fmt(event_period(event), 6)}")
         if event.get("fold_coefficient") is not None:
             details.append(f"coefficient {fmt(event['fold_coefficient'], 4)}")

@@ -22,6 +22,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from branchline.numerics import linalg
+from branchline.numerics.eigenvalues import (
+    count_by_half_plane,
+    dense_eigenvalues,
+    leading_eigenvalues,
+)
+from branchline.numerics.policy import LinearAlgebraPolicy, policy_of
+from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
+from branchline.vocabulary import Status
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -29,16 +37,9 @@ if TYPE_CHECKING:
 Array = np.ndarray
 
 # --- Newton settings -------------------------------------------------------
-# Residual norm (Euclidean) accepted as zero. Tests demand 1e-10 residuals on
-# O(1) models; models whose terms are much larger than 1 reach the roundoff
-# floor first and are accepted by the update test (STAGNATION_RTOL) instead.
-RESIDUAL_TOL = 1e-10
 # Newton update accepted as converged relative to 1 + |x|. Quadratic
 # convergence makes the next error about the square of this.
 UPDATE_RTOL = 1e-8
-# An update this small (relative) means the iteration has reached roundoff:
-# further steps cannot reduce the residual.
-STAGNATION_RTOL = 16 * np.finfo(float).eps
 MAX_NEWTON_ITERATIONS = 50
 # Backtracking: halve the step until the residual norm drops by at least this
 # fraction of the step length (Armijo's sufficient-decrease constant, common practice).
@@ -63,10 +64,6 @@ REPEATED_RTOL = 1e-8
 # Number of leading eigenvalues reported.
 LEADING_COUNT = 3
 
-STATUS_CONVERGED = "converged"
-STATUS_NOT_CONVERGED = "not_converged"
-STATUS_SINGULAR = "singular_jacobian"
-STATUS_NONFINITE = "non_finite"
 
 
 @dataclass(frozen=True)
@@ -199,9 +196,9 @@ def _where(x: Array, p: Array, model) -> str:
     return f"at {shown}"
 
 
-def _singular(jac) -> bool:
+def _singular(jac, policy: LinearAlgebraPolicy) -> bool:
     """True when a dense Jacobian is numerically singular (sparse: left to the LU)."""
-    if linalg.is_sparse(jac) or jac.shape[0] > linalg.CONDITION_CHECK_LIMIT:
+    if linalg.is_sparse(jac) or jac.shape[0] > policy.condition_check_up_to:
         return False
     with np.errstate(all="ignore"):
         condition = np.linalg.cond(jac)
@@ -258,29 +255,29 @@ def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> Eq
     f = _evaluate(model.rhs, x, p)
     if f is None:
         message = f"{_start_trouble(model, x, p)} {_where(x, p, model)} (start guess)"
-        return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE, message)
+        return _failed(x, p, 0, math.nan, (math.nan,), Status.NON_FINITE, message)
     residual = linalg.norm(f)
     history = [residual]
     if residual == 0.0:
-        return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), STATUS_CONVERGED)
+        return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), Status.CONVERGED)
     for iteration in range(1, max_iterations + 1):
         status, message, step = _newton_direction(model, x, p, f, residual)
         damping = 1.0
         if not status:
             damping, trial, f_trial, residual_trial = _backtrack(model, x, p, step, residual)
             if trial is None:
-                status = STATUS_NOT_CONVERGED
+                status = Status.NOT_CONVERGED
                 message = (
                     f"Newton's method stalled {_where(x, p, model)} with residual "
                     f"{residual:.3g}: no step along the Newton direction reduces |f|; "
                     "there may be no equilibrium near the guess, try another guess"
                 )
         if status:
-            if residual <= residual_tol and status != STATUS_NONFINITE:
+            if residual <= residual_tol and status != Status.NON_FINITE:
                 # Already a solution to roundoff; Newton cannot polish it further here
                 # (for instance at a turning point, where df/dx is singular).
                 return EquilibriumSolution(
-                    x, p, True, iteration - 1, residual, tuple(history), STATUS_CONVERGED
+                    x, p, True, iteration - 1, residual, tuple(history), Status.CONVERGED
                 )
             return _failed(x, p, iteration - 1, residual, history, status, message)
         x, f, residual = trial, f_trial, residual_trial
@@ -291,26 +288,26 @@ def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> Eq
             update <= STAGNATION_RTOL * scale and damping == 1.0
         ):
             return EquilibriumSolution(
-                x, p, True, iteration, residual, tuple(history), STATUS_CONVERGED
+                x, p, True, iteration, residual, tuple(history), Status.CONVERGED
             )
     message = (
         f"no convergence in {max_iterations} Newton iterations; last iterate "
         f"{_where(x, p, model)} with residual {residual:.3g}"
     )
-    return _failed(x, p, max_iterations, residual, history, STATUS_NOT_CONVERGED, message)
+    return _failed(x, p, max_iterations, residual, history, Status.NOT_CONVERGED, message)
 
 
 def _newton_direction(model: Model, x, p, f, residual):
     """(status, message, step): status "" and the Newton step, or why there is none."""
     jac = _jacobian_dense_or_sparse(model, x, p)
     if jac is None:
-        return STATUS_NONFINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
-    if _singular(jac):
-        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+        return Status.NON_FINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
+    if _singular(jac, policy_of(model)):
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
     try:
         return "", "", -linalg.solve_square(jac, f)
     except linalg.SingularMatrixError:
-        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
 
 
 def _backtrack(model: Model, x, p, step, residual):
@@ -364,12 +361,13 @@ def linearize(model: Model, x: Array, p: Array) -> Linearization:
     p = np.asarray(p, dtype=float)
     with np.errstate(all="ignore"):
         jac = model.jacobian(x, p)
-    if linalg.is_sparse(jac) and jac.shape[0] > linalg.SPARSE_DENSE_LIMIT:
-        eigenvalues = linalg.leading_eigenvalues(jac)
+    policy = policy_of(model)
+    if linalg.is_sparse(jac) and jac.shape[0] > policy.eigenvalues_dense_up_to:
+        eigenvalues = leading_eigenvalues(jac, policy=policy)
         jac_dense = None
     else:
         jac_dense = jac.toarray() if linalg.is_sparse(jac) else np.asarray(jac, dtype=float)
-        eigenvalues = linalg.dense_eigenvalues(jac_dense)
+        eigenvalues = dense_eigenvalues(jac_dense)
     scale = rate_scale(jac, model.parameter_jacobian(x, p), x, p)
     return classify(jac_dense if jac_dense is not None else jac, eigenvalues, scale)
 
@@ -401,12 +399,12 @@ def classify(
     are described by half-plane counts.
     """
     if eigenvalues is None:
-        eigenvalues = linalg.dense_eigenvalues(np.asarray(jacobian, dtype=float))
+        eigenvalues = dense_eigenvalues(np.asarray(jacobian, dtype=float))
     eigenvalues = np.asarray(eigenvalues, dtype=complex)
     if scale is None:
         scale = jacobian_norm(jacobian)
     zero_tol = HYPERBOLIC_RTOL * scale
-    positive, zero, negative = linalg.count_by_half_plane(eigenvalues, zero_tol)
+    positive, zero, negative = count_by_half_plane(eigenvalues, zero_tol)
     hyperbolic = zero == 0 and scale > 0.0
     leading = eigenvalues[:LEADING_COUNT]
     n = eigenvalues.shape[0]

@@ -32,6 +32,7 @@ from branchline.results.reading import (
     trace_rows,
     vary_of,
 )
+from branchline.vocabulary import EventKind
 
 # A trace end this close (relative to the interval width) to an interval edge
 # counts as "reached the edge".
@@ -198,7 +199,7 @@ def hysteresis_windows(
     """
     windows = []
     for name in trace_names(points, events):
-        folds = [e for e in trace_events(events, name) if e["kind"] == "fold"]
+        folds = [e for e in trace_events(events, name) if e["kind"] == EventKind.FOLD]
         rows = trace_rows(points, name)
         for first, second in itertools.pairwise(folds):
             a, b = float(first["value"]), float(second["value"])

@@ -22,6 +22,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from branchline.vocabulary import EventKind
+
 # Located event values are refined to near machine precision; ten significant
 # digits is what a reader can use (events.csv keeps all 17).
 VALUE_DIGITS = 10
@@ -33,9 +35,9 @@ ARCLENGTH_SLACK = 1e-9
 SAME_START_TOLERANCE = 1e-6
 
 KIND_WORDS = {
-    "fold": "fold",
-    "hopf": "Hopf",
-    "branch_point": "branch point",
+    EventKind.FOLD: "fold",
+    EventKind.HOPF: "Hopf",
+    EventKind.BRANCH_POINT: "branch point",
     "cusp": "cusp",
     "bogdanov_takens": "Bogdanov-Takens",
     "bautin": "Bautin",
@@ -329,7 +331,7 @@ def stability_intervals(
         folds = tuple(
             float(e["value"])
             for e in located
-            if e["kind"] == "fold" and start[3] < event_arclength(e) < end[3]
+            if e["kind"] == EventKind.FOLD and start[3] < event_arclength(e) < end[3]
         )
         intervals.append(
             StabilityInterval(
@@ -362,7 +364,7 @@ def origin_event(
     parent = entry.get("parent")
     if not parent:
         return None
-    points = [e for e in trace_events(events, str(parent)) if e.get("kind") == "branch_point"]
+    points = [e for e in trace_events(events, str(parent)) if e.get("kind") == EventKind.BRANCH_POINT]
     if not points:
         return None
     start = entry.get("start_value")
