@@ -22,8 +22,8 @@ import numpy as np
 
 from branchline.continuation import correctors
 from branchline.continuation import engine as continuation
-from branchline.events.normal_forms import eigenvector_near, state_jacobian
 from branchline.numerics import collocation, linalg
+from branchline.numerics.eigenvalues import eigenvector_near
 from branchline.problems.cycles import OrbitPoint, PeriodicOrbitProblem
 from branchline.problems.equilibrium import linearize, solve_equilibrium
 from branchline.results.records import STATUS_FAILED, CycleFamily, Event
@@ -127,7 +127,7 @@ def _critical_vector(model: Model, hopf: Event) -> Array:
     if stored:
         q = np.array([complex(re, im) for re, im in stored])
     else:
-        a_matrix = state_jacobian(model, hopf.state, hopf.parameters)
+        a_matrix = model.state_jacobian(hopf.state, hopf.parameters)
         _, q = eigenvector_near(a_matrix, 1j * float(hopf.frequency))
     return q / math.sqrt(2.0 * float(np.vdot(q, q).real))
 
