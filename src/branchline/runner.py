@@ -19,8 +19,10 @@ from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.problems.start_guess import start_distance
+from branchline.problems.window_search import run_search, search_box
 from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
+from branchline.scan.search_section import SEARCH_START
 
 # Branch points closer than this (relative, in state and parameter) to one
 # already switched at are the same point met again from a child branch.
@@ -204,20 +206,35 @@ def run_scan(
     warnings = []
     branches: list[Branch] = []
     events: list[Event] = []
+    searches = []
     for spec in scan.traces:
         parameters = model.parameter_vector(spec.set)
-        x0 = start_vector(model, spec, parameters, scan.source)
+        guessed = spec.start != SEARCH_START
+        x0 = start_vector(model, spec, parameters, scan.source) if guessed else None
         if model.jacobian_source:
-            check = check_jacobian(model, x0, parameters)
+            where = x0 if guessed else search_box(model, spec).centre
+            check = check_jacobian(model, where, parameters)
             if not check.ok:
                 warnings.append(check.message)
-        outcome = _follow(model, spec, parameters, x0, progress)
-        found = _start_warning(model, spec.name, x0, outcome.branches[0])
-        if found:
-            warnings.append(found)
-        warnings.extend(outcome.warnings)
-        branches.extend(outcome.branches)
-        events.extend(outcome.events)
+        if guessed:
+            outcome = _follow(model, spec, parameters, x0, progress)
+            found = _start_warning(model, spec.name, x0, outcome.branches[0])
+            if found:
+                warnings.append(found)
+            warnings.extend(outcome.warnings)
+            branches.extend(outcome.branches)
+            events.extend(outcome.events)
+        if spec.search is not None:
+
+            def follow(found_spec, found_parameters, root):
+                found = _follow(model, found_spec, found_parameters, root, progress)
+                warnings.extend(found.warnings)
+                return found.branches, found.events
+
+            search = run_search(model, spec, parameters, branches, follow, progress)
+            branches.extend(search.branches)
+            events.extend(search.events)
+            searches.append(search.record)
     failed = [b for b in branches if b.status == STATUS_FAILED]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
     finished = time.perf_counter()
@@ -234,4 +251,5 @@ def run_scan(
             "total_seconds": finished - started,
         },
         warnings=tuple(warnings),
+        searches=tuple(searches),
     )

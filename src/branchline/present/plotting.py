@@ -26,6 +26,7 @@ from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
 from branchline.present.labels import GUIDE_GID, LABEL_FONT_SIZE, place_labels
+from branchline.present.search_strip import STRIP_HEIGHT, draw_search_strip, search_counts
 from branchline.results.margins import bistable_ranges, hysteresis_windows
 from branchline.results.reading import (
     BOOKKEEPING_COLUMNS,
@@ -33,6 +34,7 @@ from branchline.results.reading import (
     event_label,
     event_value,
     fmt,
+    has_operating_point,
     origin_event,
     state_names,
     state_norm,
@@ -219,6 +221,8 @@ def _trace_legend_label(name: str, info: Mapping[str, Any]) -> str:
     label = name if name.lower().startswith("trace") else f"trace {name}"
     if entry.get("parent"):
         return f"{label} (branches off {entry['parent']})"
+    if entry.get("found_by_search"):
+        return f"{label} (found by the search)"
     return label
 
 
@@ -305,9 +309,12 @@ def bifurcation_figure(
     if "norm" in (x, y) and "norm" not in points.columns and not states:
         raise ValueError("cannot compute 'norm': the results hold no state columns")
     with mpl.rc_context(_STYLE):
-        fig = Figure(figsize=FIGURE_SIZE, layout="constrained")
+        strip = search_counts(info, x)  # equilibria found by a search: a third panel
+        ratios = (*HEIGHT_RATIOS, STRIP_HEIGHT) if strip else HEIGHT_RATIOS
+        size = (FIGURE_SIZE[0], FIGURE_SIZE[1] * sum(ratios) / sum(HEIGHT_RATIOS))
+        fig = Figure(figsize=size, layout="constrained")
         FigureCanvasAgg(fig)
-        top, bottom = fig.subplots(2, 1, sharex=True, height_ratios=HEIGHT_RATIOS)
+        top, bottom, *rest = fig.subplots(len(ratios), 1, sharex=True, height_ratios=ratios)
         context = _context(points, events, info, x)
         marks = _draw(top, bottom, points, events, info, (x, y), states)
         _draw_context(top, bottom, *context)
@@ -316,7 +323,9 @@ def bifurcation_figure(
         drawn = points[points["trace"].astype(str).isin(_drawn_traces(points, info, x))]
         _eigenvalue_scale(bottom, drawn["leading_real"].to_numpy(dtype=float))
         _shade_unstable(bottom)
-        bottom.set_xlabel(_axis_label(x, info))
+        if strip:
+            draw_search_strip(rest[0], strip, (float(drawn[x].min()), float(drawn[x].max())))
+        (rest or [bottom])[-1].set_xlabel(_axis_label(x, info))
         title = info.get("title")
         if title:
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
@@ -431,7 +440,7 @@ def _context(points, events, info, x) -> tuple[list[float], list[tuple[float, fl
         float(t["start_value"])
         for t in trace_entries(info)
         if t.get("name") in drawn
-        and not t.get("parent")
+        and has_operating_point(t)
         and t.get("vary") == x
         and t.get("start_value") is not None
     ]

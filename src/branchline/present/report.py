@@ -13,6 +13,7 @@ from typing import Any
 
 import pandas as pd
 
+from branchline.present.search_report import search_section
 from branchline.results.margins import (
     HysteresisWindow,
     JumpTarget,
@@ -266,6 +267,14 @@ def _trace_ending(entry: Mapping[str, Any]) -> str:
     return f"{words}: {message}" if message else words
 
 
+def _origin(entry: Mapping[str, Any]) -> str:
+    if entry.get("parent"):
+        return f"switched from {entry['parent']}"
+    if entry.get("found_by_search"):
+        return f"found by the search at {entry.get('vary')} = {fmt(entry.get('found_at'))}"
+    return "scan file"
+
+
 def _scan_section(info: Mapping[str, Any]) -> list[str]:
     out = ["## What was scanned", ""]
     rows = []
@@ -279,7 +288,7 @@ def _scan_section(info: Mapping[str, Any]) -> list[str]:
                 f"[{fmt(interval[0])}, {fmt(interval[1])}]",
                 fmt(entry.get("start_value")),
                 overrides or "—",
-                f"switched from {entry['parent']}" if entry.get("parent") else "scan file",
+                _origin(entry),
                 entry.get("points", "—"),
                 _trace_ending(entry),
             )
@@ -593,6 +602,7 @@ def render_report(
     out += _failure_section(points, info)
     out += _model_section(info)
     out += _scan_section(info)
+    out += search_section(points, events, info)
     out += _events_section(events)
     out += _intervals_section(points, events, info)
     out += _margins_section(margins)

@@ -23,6 +23,7 @@ from branchline.results.reading import (
     ARCLENGTH_SLACK,
     BOOKKEEPING_COLUMNS,
     event_arclength,
+    has_operating_point,
     stability_intervals,
     state_names,
     trace_entries,
@@ -143,7 +144,7 @@ def operating_margins(
     """
     margins = []
     for entry in trace_entries(info):
-        if entry.get("parent"):
+        if not has_operating_point(entry):
             continue
         name = str(entry["name"])
         rows = trace_rows(points, name)

@@ -132,6 +132,12 @@ def trace_entries(info: Mapping[str, Any]) -> list[Mapping[str, Any]]:
     return list(info.get("traces") or [])
 
 
+def has_operating_point(entry: Mapping[str, Any]) -> bool:
+    """True for a trace started at the scan's start value: not a switched branch,
+    nor a branch a search found at another value of the parameter."""
+    return not entry.get("parent") and entry.get("at_start_value", True)
+
+
 def trace_entry(info: Mapping[str, Any], name: str) -> Mapping[str, Any]:
     """The run.json entry of one trace (empty when the trace is not listed)."""
     return next((t for t in trace_entries(info) if t.get("name") == name), {})

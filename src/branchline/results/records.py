@@ -17,6 +17,7 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
     from branchline.model.build import Model
+    from branchline.results.search_records import SearchRecord
     from branchline.scan.loader import Scan
 
 Array = np.ndarray
@@ -143,6 +144,7 @@ class RunResult:
     message: str
     timings: dict[str, float] = field(default_factory=dict)
     warnings: tuple[str, ...] = ()
+    searches: tuple[SearchRecord, ...] = ()  # equilibria found without a start guess
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""

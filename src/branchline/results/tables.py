@@ -9,6 +9,8 @@ import pandas as pd
 
 from branchline import __version__
 from branchline.results.records import Branch, Event, RunResult
+from branchline.results.search_records import root_trace_name
+from branchline.results.search_tables import found_by, search_entry
 
 # Models with more states than this put `norm` in the tables instead of every
 # state (the contract); full state vectors then go to states.npz.
@@ -183,7 +185,10 @@ def _steps_dict(steps) -> dict[str, Any]:
 
 
 def _trace_entry(result: RunResult, branch: Branch) -> dict[str, Any]:
-    spec = next((s for s in result.scan.traces if s.name == branch.name), None)
+    # a branch found by a search (<trace>#k) keeps its trace's settings
+    spec = next((s for s in result.scan.traces if s.name == root_trace_name(branch.name)), None)
+    if spec is not None and branch.parent:
+        spec = None  # switched branches: no settings of their own
     start = int(np.argmin(np.abs(branch.arclength))) if len(branch) else None
     entry = {
         "name": branch.name,
@@ -203,13 +208,14 @@ def _trace_entry(result: RunResult, branch: Branch) -> dict[str, Any]:
         "points": len(branch),
         "start_value": float(branch.parameter_values[start]) if start is not None else None,
         "counts": dict(branch.counts),
+        **found_by(result, branch.name),
     }
     return _jsonable(entry)
 
 
 def _limits_of(result: RunResult, branch: Branch) -> dict[str, list[float]]:
     """The state limits of a branch: its trace's, inherited by branches started at branch points."""
-    root = branch.name.split(".")[0]  # trace names contain no "."; children are <trace>.k
+    root = root_trace_name(branch.name)  # children are <trace>.k, found ones <trace>#k
     spec = next((s for s in result.scan.traces if s.name == root), None)
     limits = getattr(spec, "limits", None) or {}
     return {name: [float(lo), float(hi)] for name, (lo, hi) in limits.items()}
@@ -250,6 +256,7 @@ def run_info(result: RunResult) -> dict[str, Any]:
             "message": result.message,
             "warnings": list(result.warnings),
             "timings": dict(result.timings),
+            "searches": [search_entry(record) for record in result.searches],
             "counts": {
                 "traces": len(result.branches),
                 "points": sum(len(b) for b in result.branches),

@@ -2,7 +2,8 @@
 
 Files follow the interface contract: points.csv, events.csv, events.json,
 report.md, diagram.png, diagram.svg, run.json (and states.npz for models with
-more than ``tables.MAX_STATE_COLUMNS`` states).
+more than ``tables.MAX_STATE_COLUMNS`` states; search.csv when a trace searched
+for equilibria without a start guess).
 """
 
 from __future__ import annotations
@@ -108,6 +109,10 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
     _csv(points, staging / "points.csv")
     _csv(result.events_frame(), staging / "events.csv")
     _json({"events": events}, staging / "events.json")
+    if result.searches:
+        from branchline.results.search_tables import search_frame
+
+        _csv(search_frame(result), staging / "search.csv")
     if result.model.size > 20:
         np.savez_compressed(
             staging / "states.npz",

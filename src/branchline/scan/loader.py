@@ -42,6 +42,9 @@ Rules beyond the layout in ``interface.md``:
   shape here; importing them is :mod:`branchline.model.python`' job.
 - ``[ensemble]`` (run the scan for many parameter sets with ``branchline
   batch``) is read by :mod:`branchline.scan.ensemble_section`.
+- ``start = "search"`` and the ``search_*`` keys: see
+  :mod:`branchline.scan.search_section`. Trace names contain no ``#`` (kept
+  for branches found by a search: ``<trace>#1``, ...).
 - ``[[boundary]]`` and ``[[cycles]]`` are refused as not available in this version.
 """
 
@@ -69,6 +72,7 @@ from branchline.scan.model_section import (
     model_states,
     read_model,
 )
+from branchline.scan.search_section import SEARCH_KEYS, SEARCH_START, SearchSpec, read_search
 
 try:
     import tomllib
@@ -106,6 +110,8 @@ class TraceSpec:
     switch_branches: bool = True  # follow branches crossing at branch points
     # state -> (lo, hi): the trace stops on a limit (inherited by switched branches)
     limits: dict[str, tuple[float, float]] = field(default_factory=dict)
+    # equilibria found without a start guess (start = "search" or a search_box)
+    search: SearchSpec | None = None
 
 
 @dataclass(frozen=True)
@@ -240,6 +246,7 @@ TRACE_KEYS = (
     "steps",
     "switch_branches",
     "limits",
+    *SEARCH_KEYS,
 )
 STEP_KEYS = ("initial", "smallest", "largest", "max_points")
 DIRECTIONS = ("both", "increasing", "decreasing")
@@ -339,6 +346,9 @@ def _trace(
     )
     start = _start(check, table["start"], f"{path}.start", model)
     limits = _limits(check, table.get("limits", {}), f"{path}.limits", model, start)
+    search = read_search(
+        check, table, path, model_states(model), interval, wanted=start == SEARCH_START
+    )
     direction = table.get("direction", "both")
     if direction not in DIRECTIONS:
         check.fail(
@@ -361,13 +371,15 @@ def _trace(
         steps=trace_steps,
         switch_branches=switch,
         limits=limits,
+        search=search,
     )
 
 
 _TRACE_REQUIRED = {
     "vary": "name the parameter to vary",
     "interval": "give the parameter window as [low, high]",
-    "start": "give a guess of the equilibrium's states, e.g. { x = 1.0, y = 0.5 }",
+    "start": "give a guess of the equilibrium's states, e.g. { x = 1.0, y = 0.5 }, "
+    'or start = "search" with a search_box to find every equilibrium',
 }
 
 
@@ -380,6 +392,12 @@ def _trace_name(check: Checker, value: object, key: str) -> str:
             key,
             f"'{name}' contains '.', which is kept for branches started at branch points "
             "(<trace>.1, <trace>.2, ...)",
+        )
+    if "#" in name:
+        check.fail(
+            key,
+            f"'{name}' contains '#', which is kept for branches found by a search "
+            "(<trace>#1, <trace>#2, ...)",
         )
     return name
 
@@ -430,6 +448,8 @@ def _interval(
 def _start(
     check: Checker, value: object, path: str, model: ExpressionModelSpec | PythonModelSpec
 ) -> dict[str, float] | str:
+    if value == SEARCH_START:
+        return SEARCH_START
     if isinstance(value, str):
         if isinstance(model, ExpressionModelSpec):
             check.fail(
@@ -494,6 +514,7 @@ __all__ = [
     "PythonModelSpec",
     "Scan",
     "ScanError",
+    "SearchSpec",
     "StepSettings",
     "TraceSpec",
     "load_scan",
