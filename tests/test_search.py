@@ -39,12 +39,20 @@ def _matched(found: np.ndarray, reference: np.ndarray, tol: float) -> bool:
     if found.shape != reference.shape:
         return False
     distances = np.linalg.norm(found[:, None, :] - reference[None, :, :], axis=2)
-    return bool(np.all((distances < tol).sum(axis=0) == 1) and np.all((distances < tol).sum(1) == 1))
+    return bool(
+        np.all((distances < tol).sum(axis=0) == 1) and np.all((distances < tol).sum(1) == 1)
+    )
 
 
 def _search_scan(equations, parameters, vary, interval, box, **extra):
-    trace = {"name": "all", "vary": vary, "interval": interval, "start": "search",
-             "search_box": box, **extra}
+    trace = {
+        "name": "all",
+        "vary": vary,
+        "interval": interval,
+        "start": "search",
+        "search_box": box,
+        **extra,
+    }
     return branchline.scan_from_dict(
         {"model": {"parameters": parameters, "equations": equations}, "trace": [trace]}
     )
@@ -61,8 +69,9 @@ FIFTH_POWER = {
 
 def test_fifth_roots_of_unity_all_found_once_from_no_guess():
     # de Moivre: z^5 = 1 has exactly five roots exp(2 pi i k / 5); numpy.roots is the reference.
-    scan = _search_scan(FIFTH_POWER, {"c": 1.0}, "c", [0.5, 2.0],
-                        {"x": [-2.0, 2.0], "y": [-2.0, 2.0]}, search_at=0)
+    scan = _search_scan(
+        FIFTH_POWER, {"c": 1.0}, "c", [0.5, 2.0], {"x": [-2.0, 2.0], "y": [-2.0, 2.0]}, search_at=0
+    )
     result = branchline.run_scan(scan)
     (search,) = result.searches
     (at_start,) = search.values
@@ -76,7 +85,7 @@ def test_fifth_roots_of_unity_all_found_once_from_no_guess():
     assert len(set(at_start.traces)) == 5
     for branch in result.branches:
         radius = np.hypot(branch.states[:, 0], branch.states[:, 1])
-        assert np.max(np.abs(radius - branch.parameter_values ** 0.2)) < 1e-9
+        assert np.max(np.abs(radius - branch.parameter_values**0.2)) < 1e-9
         assert branch.parameter_values.min() == 0.5 and branch.parameter_values.max() == 2.0
 
 
@@ -87,8 +96,14 @@ def test_circle_and_hyperbola_meet_in_four_points():
     exact = sp.solve([x**2 + y**2 - 4, x * y - 1], [x, y], dict=True)
     reference = np.array([[float(s[x]), float(s[y])] for s in exact])
     assert len(reference) == 4
-    scan = _search_scan({"x": "x^2 + y^2 - r", "y": "x*y - 1"}, {"r": 4.0}, "r", [3.0, 5.0],
-                        {"x": [-3.0, 3.0], "y": [-3.0, 3.0]}, search_at=[3.0, 5.0])
+    scan = _search_scan(
+        {"x": "x^2 + y^2 - r", "y": "x*y - 1"},
+        {"r": 4.0},
+        "r",
+        [3.0, 5.0],
+        {"x": [-3.0, 3.0], "y": [-3.0, 3.0]},
+        search_at=[3.0, 5.0],
+    )
     result = branchline.run_scan(scan)
     (search,) = result.searches
     assert [v.count for v in search.values] == [4, 4, 4]
@@ -102,8 +117,15 @@ def test_circle_and_hyperbola_meet_in_four_points():
 def test_seven_roots_of_a_chebyshev_polynomial_in_one_state():
     # T_7(x) = 64x^7 - 112x^5 + 56x^3 - 7x has the seven roots cos((2k - 1) pi / 14)
     # (Abramowitz and Stegun, Handbook of Mathematical Functions, 22.16.4); numpy.roots agrees.
-    scan = _search_scan({"x": "64*x^7 - 112*x^5 + 56*x^3 - 7*x - c"}, {"c": 0.0}, "c",
-                        [-0.5, 0.5], {"x": [-1.5, 1.5]}, search_at=0, search_samples=8)
+    scan = _search_scan(
+        {"x": "64*x^7 - 112*x^5 + 56*x^3 - 7*x - c"},
+        {"c": 0.0},
+        "c",
+        [-0.5, 0.5],
+        {"x": [-1.5, 1.5]},
+        search_at=0,
+        search_samples=8,
+    )
     (search,) = branchline.run_scan(scan).searches
     found = np.sort(search.values[0].roots[:, 0])
     closed = np.sort(np.cos((2 * np.arange(1, 8) - 1) * np.pi / 14))
@@ -117,12 +139,16 @@ def test_seven_roots_of_a_chebyshev_polynomial_in_one_state():
 def test_deflation_never_returns_a_known_root():
     # x^3 - x: roots -1, 0, 1 (elementary). With 0 and 1 deflated from the start, only -1 is new.
     spec = branchline.scan_from_dict(
-        {"model": {"parameters": {"a": 0.0}, "equations": {"x": "x^3 - x + a"}},
-         "trace": [{"vary": "a", "interval": [-1, 1], "start": {"x": 1.0}}]}).model
+        {
+            "model": {"parameters": {"a": 0.0}, "equations": {"x": "x^3 - x + a"}},
+            "trace": [{"vary": "a", "interval": [-1, 1], "start": {"x": 1.0}}],
+        }
+    ).model
     model = build_model(spec)
     box = Box(np.array([-2.0]), np.array([2.0]))
-    found = find_equilibria(model, model.defaults, box, sobol_starts(box, 16, seed=3),
-                            known=np.array([[0.0], [1.0]]))
+    found = find_equilibria(
+        model, model.defaults, box, sobol_starts(box, 16, seed=3), known=np.array([[0.0], [1.0]])
+    )
     assert found.roots[:, 0].tolist() == [-1.0]
     assert found.returned == 0
 
@@ -130,13 +156,29 @@ def test_deflation_never_returns_a_known_root():
 @pytest.mark.parametrize("jacobian", ["jacobian", "sparse_jacobian"])
 def test_python_models_dense_and_sparse(jacobian):
     # The same z^5 = 1 as a [model.python], with its dense and its scipy.sparse Jacobian.
-    scan = branchline.scan_from_dict({
-        "model": {"parameters": {"c": 1.0},
-                  "python": {"rhs": "search_models:rhs", "jacobian": f"search_models:{jacobian}",
-                             "size": 2, "states": ["re", "im"]}},
-        "trace": [{"name": "z", "vary": "c", "interval": [0.5, 2.0], "start": "search",
-                   "search_box": {"re": [-2.0, 2.0], "im": [-2.0, 2.0]}, "search_at": 0}],
-    })
+    scan = branchline.scan_from_dict(
+        {
+            "model": {
+                "parameters": {"c": 1.0},
+                "python": {
+                    "rhs": "search_models:rhs",
+                    "jacobian": f"search_models:{jacobian}",
+                    "size": 2,
+                    "states": ["re", "im"],
+                },
+            },
+            "trace": [
+                {
+                    "name": "z",
+                    "vary": "c",
+                    "interval": [0.5, 2.0],
+                    "start": "search",
+                    "search_box": {"re": [-2.0, 2.0], "im": [-2.0, 2.0]},
+                    "search_at": 0,
+                }
+            ],
+        }
+    )
     result = branchline.run_scan(scan)
     assert result.model.sparse == (jacobian == "sparse_jacobian")
     reference = np.roots([1, 0, 0, 0, 0, -1])
@@ -160,8 +202,15 @@ K2 = 0.05
 
 
 def _autocatalator_run(**extra):
-    scan = _search_scan(AUTOCATALATOR, {"tau": 3.0, "k2": K2, "b0": 0.0}, "tau", [2.0, 70.0],
-                        {"a": [-0.5, 1.5], "b": [-0.5, 1.5]}, steps={"largest": 1.0}, **extra)
+    scan = _search_scan(
+        AUTOCATALATOR,
+        {"tau": 3.0, "k2": K2, "b0": 0.0},
+        "tau",
+        [2.0, 70.0],
+        {"a": [-0.5, 1.5], "b": [-0.5, 1.5]},
+        steps={"largest": 1.0},
+        **extra,
+    )
     return branchline.run_scan(scan)
 
 
@@ -183,7 +232,9 @@ def test_the_autocatalator_isola_is_found_and_closes(autocatalator):
     low = ((1 - 8 * K2) - math.sqrt(1 - 16 * K2)) / (8 * K2**2)
     high = ((1 - 8 * K2) + math.sqrt(1 - 16 * K2)) / (8 * K2**2)
     assert len(folds) == 2
-    assert math.isclose(folds[0], low, rel_tol=1e-10) and math.isclose(folds[1], high, rel_tol=1e-10)
+    assert math.isclose(folds[0], low, rel_tol=1e-10) and math.isclose(
+        folds[1], high, rel_tol=1e-10
+    )
 
 
 def test_autocatalator_counts_match_the_roots_of_its_cubic(autocatalator):
@@ -219,30 +270,38 @@ SIV_WINDOW = [1.3, 1.68]
 
 
 def _siv_reference():
-    """Endemic states and the fold, from the equations by sympy (no branchline code)."""
-    S, I, V, beta = sp.symbols("S I V beta")
-    values = {sp.Symbol(k): sp.Rational(str(v)) for k, v in SIV_PARAMETERS.items() if k != "beta"}
-    mu, gamma, phi, theta, sigma = (values[sp.Symbol(k)] for k in
-                                    ("mu", "gamma", "phi", "theta", "sigma"))
+    """Endemic states' quadratic in I, the fold and R_vac = 1, from the equations by sympy."""
+    s, i, v, beta = sp.symbols("S I V beta")
+    mu, gamma, phi, theta, sigma = (
+        sp.Rational(str(SIV_PARAMETERS[k])) for k in ("mu", "gamma", "phi", "theta", "sigma")
+    )
     # I != 0: beta (S + sigma V) = mu + gamma; S + I + V = 1; V' = 0.
-    linear = sp.solve([beta * (S + sigma * V) - (mu + gamma), S + I + V - 1], [S, V], dict=True)[0]
-    quadratic = sp.numer(sp.together(phi * linear[S] - (sigma * beta * I + mu + theta) * linear[V]))
-    poly = sp.Poly(sp.expand(quadratic), I)
-    fold = sp.solve(sp.discriminant(poly, I), beta)
+    linear = sp.solve([beta * (s + sigma * v) - (mu + gamma), s + i + v - 1], [s, v], dict=True)[0]
+    quadratic = sp.numer(sp.together(phi * linear[s] - (sigma * beta * i + mu + theta) * linear[v]))
+    poly = sp.Poly(sp.expand(quadratic), i)
+    fold = sp.solve(sp.discriminant(poly, i), beta)
     r_vac_one = (mu + gamma) * (mu + theta + phi) / ((mu + theta) + sigma * phi)
-    return poly, linear, [float(b) for b in fold if b.is_real and b > 0], float(r_vac_one)
+    return poly, [float(b) for b in fold if b.is_real and b > 0], float(r_vac_one)
 
 
 def test_backward_bifurcation_endemic_branch_found_only_by_the_search():
-    poly, linear, folds, beta_one = _siv_reference()
+    poly, folds, beta_one = _siv_reference()
     lo, hi = SIV_WINDOW
     assert hi < beta_one  # the whole window lies below R_vac = 1
-    scan = branchline.scan_from_dict({
-        "model": {"parameters": SIV_PARAMETERS, "equations": SIV},
-        "trace": [{"name": "free", "vary": "beta", "interval": SIV_WINDOW,
-                   "start": {"S": 0.13, "I": 0.0, "V": 0.87},
-                   "search_box": {"S": [-0.1, 1.1], "I": [-0.1, 1.1], "V": [-0.1, 1.1]}}],
-    })
+    scan = branchline.scan_from_dict(
+        {
+            "model": {"parameters": SIV_PARAMETERS, "equations": SIV},
+            "trace": [
+                {
+                    "name": "free",
+                    "vary": "beta",
+                    "interval": SIV_WINDOW,
+                    "start": {"S": 0.13, "I": 0.0, "V": 0.87},
+                    "search_box": {"S": [-0.1, 1.1], "I": [-0.1, 1.1], "V": [-0.1, 1.1]},
+                }
+            ],
+        }
+    )
     result = branchline.run_scan(scan)
     free = result.branch("free")
     assert np.max(np.abs(free.states[:, 1])) < 1e-12  # the traced branch is disease-free
@@ -306,18 +365,36 @@ def _scan_text(trace_lines: str) -> str:
     [
         ('start = "search"\n', "trace[1].search_box", "range for every state"),
         ('start = "search"\nsearch_box = { x = [0, 1] }\n', "trace[1].search_box", "missing y"),
-        ('start = "search"\nsearch_box = { x = [1, 0], y = [0, 1] }\n',
-         "trace[1].search_box.x", "low < high"),
-        ('start = "search"\nsearch_box = { x = [0, 1], z = [0, 1] }\n',
-         "trace[1].search_box.z", "not a state"),
-        ('start = "search"\nsearch_box = { x = [0, 1], y = [0, 1] }\nsearch_samples = 0\n',
-         "trace[1].search_samples", "whole number"),
-        ('start = "search"\nsearch_box = { x = [0, 1], y = [0, 1] }\nsearch_seed = -1\n',
-         "trace[1].search_seed", "whole number"),
-        ('start = "search"\nsearch_box = { x = [0, 1], y = [0, 1] }\nsearch_at = [0.5, 3.0]\n',
-         "trace[1].search_at[2]", "outside the trace's interval"),
-        ("start = { x = 1.0, y = -1.0 }\nsearch_samples = 8\n", "trace[1].search_samples",
-         "only used with a search_box"),
+        (
+            'start = "search"\nsearch_box = { x = [1, 0], y = [0, 1] }\n',
+            "trace[1].search_box.x",
+            "low < high",
+        ),
+        (
+            'start = "search"\nsearch_box = { x = [0, 1], z = [0, 1] }\n',
+            "trace[1].search_box.z",
+            "not a state",
+        ),
+        (
+            'start = "search"\nsearch_box = { x = [0, 1], y = [0, 1] }\nsearch_samples = 0\n',
+            "trace[1].search_samples",
+            "whole number",
+        ),
+        (
+            'start = "search"\nsearch_box = { x = [0, 1], y = [0, 1] }\nsearch_seed = -1\n',
+            "trace[1].search_seed",
+            "whole number",
+        ),
+        (
+            'start = "search"\nsearch_box = { x = [0, 1], y = [0, 1] }\nsearch_at = [0.5, 3.0]\n',
+            "trace[1].search_at[2]",
+            "outside the trace's interval",
+        ),
+        (
+            "start = { x = 1.0, y = -1.0 }\nsearch_samples = 8\n",
+            "trace[1].search_samples",
+            "only used with a search_box",
+        ),
         ('name = "a#1"\nstart = { x = 1.0, y = -1.0 }\n', "trace[1].name", "kept for branches"),
     ],
 )
@@ -332,12 +409,27 @@ def test_invalid_search_keys_name_the_file_and_key(tmp_path, lines, key, words):
 
 def test_command_line_run_of_a_search_scan(tmp_path):
     path = tmp_path / "roots.toml"
-    path.write_text(_scan_text(
-        'start = "search"\nsearch_box = { x = [-3, 3], y = [-3, 3] }\nsearch_at = 3\n'
-        "search_samples = 8\n"))
+    path.write_text(
+        _scan_text(
+            'start = "search"\nsearch_box = { x = [-3, 3], y = [-3, 3] }\nsearch_at = 3\n'
+            "search_samples = 8\n"
+        )
+    )
     done = subprocess.run(
-        [sys.executable, "-m", "branchline", "run", str(path), "--out", str(tmp_path / "out"),
-         "--quiet"], capture_output=True, text=True, check=False)
+        [
+            sys.executable,
+            "-m",
+            "branchline",
+            "run",
+            str(path),
+            "--out",
+            str(tmp_path / "out"),
+            "--quiet",
+        ],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
     assert done.returncode == 0, done.stderr
     info = json.loads((tmp_path / "out" / "run.json").read_text())
     # x^2 = c, y = -x: two equilibria for c > 0, one (double) at c = 0, on the edge
