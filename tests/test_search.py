@@ -437,3 +437,15 @@ def test_command_line_run_of_a_search_scan(tmp_path):
     assert counts == {1.0: 2, 0.0: 1, 2.0: 2}
     # one branch through both equilibria, turning at the fold c = 0 on the edge
     assert [t["name"] for t in info["traces"]] == ["trace1#1"]
+
+
+def test_inspect_describes_an_equilibrium_the_search_finds(tmp_path):
+    # x^2 = c, y = -x at c = 1: the equilibria (1, -1) and (-1, 1) (elementary algebra).
+    from branchline.present.inspection import describe_equilibrium
+
+    path = tmp_path / "roots.toml"
+    path.write_text(
+        _scan_text('start = "search"\nsearch_box = { x = [-3, 3], y = [-3, 3] }\nsearch_at = 0\n')
+    )
+    text, converged = describe_equilibrium(load_scan(path), {})
+    assert converged and "2 distinct equilibria found in the search box" in text

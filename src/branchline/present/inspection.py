@@ -12,6 +12,7 @@ from branchline.problems.equilibrium import (
     solve_equilibrium,
 )
 from branchline.problems.start_guess import start_distance
+from branchline.problems.window_search import search_start
 from branchline.runner import start_vector
 from branchline.scan.loader import Scan
 
@@ -70,10 +71,19 @@ def describe_equilibrium(scan: Scan, overrides: dict[str, float]) -> tuple[str, 
     spec = scan.traces[0]
     settings = {**spec.set, **overrides}
     p = model.parameter_vector(settings)
-    x0 = start_vector(model, spec, p, scan.source)
+    searched = None
+    if spec.search is not None and spec.start == "search":
+        x0, searched = search_start(model, spec, p)  # the first equilibrium a search finds
+    else:
+        x0 = start_vector(model, spec, p, scan.source)
     solution = solve_equilibrium(model, x0, p)
     lines = [f"{scan.title}", ""]
     lines.append("parameters: " + ", ".join(f"{n} = {v:.10g}" for n, v in zip(model.parameters, p)))
+    if searched is not None:
+        lines.append(
+            f'start = "search": {searched} distinct equilibria found in the search box; the '
+            "first one found is described (run the scan to trace them all)"
+        )
     if not solution.converged:
         lines.append(
             f"no equilibrium found from the start guess of trace {spec.name}: {solution.message}"

@@ -223,6 +223,14 @@ class _WindowSearch:
         )
 
 
+def search_start(model: Model, spec: TraceSpec, p: Array) -> tuple[Array, int]:
+    """The first equilibrium the trace's search finds at ``p`` and how many it finds
+    (the box centre and 0 when it finds none): ``branchline inspect`` for a search."""
+    box = search_box(model, spec)
+    found = find_equilibria(model, p, box, sobol_starts(box, spec.search.samples, spec.search.seed))
+    return (found.roots[0] if len(found) else box.centre), len(found)
+
+
 def run_search(
     model: Model,
     spec: TraceSpec,
@@ -277,4 +285,12 @@ def run_search(
     return SearchOutcome(state.branches, state.events, record)
 
 
-__all__ = ["SearchOutcome", "crossings", "on_branch", "run_search", "same_slice", "search_box"]
+__all__ = [
+    "SearchOutcome",
+    "crossings",
+    "on_branch",
+    "run_search",
+    "same_slice",
+    "search_box",
+    "search_start",
+]
