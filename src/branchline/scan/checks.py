@@ -59,6 +59,9 @@ RESERVED_COLUMNS = frozenset(
         "status",
         "seconds",
         "error",
+        "search",  # search.csv
+        "found_by_search",
+        "in_box",
     }
 )
 
