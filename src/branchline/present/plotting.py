@@ -324,7 +324,7 @@ def bifurcation_figure(
         _eigenvalue_scale(bottom, drawn["leading_real"].to_numpy(dtype=float))
         _shade_unstable(bottom)
         if strip:
-            draw_search_strip(rest[0], strip, (float(drawn[x].min()), float(drawn[x].max())))
+            draw_search_strip(rest[0], strip)
         (rest or [bottom])[-1].set_xlabel(_axis_label(x, info))
         title = info.get("title")
         if title:

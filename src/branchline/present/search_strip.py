@@ -61,12 +61,12 @@ def search_counts(info: Mapping[str, Any], x: str) -> SearchCounts | None:
     )
 
 
-def draw_search_strip(ax, counts: SearchCounts, window: tuple[float, float]) -> None:
+def draw_search_strip(ax, counts: SearchCounts) -> None:
     """Draw the strip into ``ax`` (sharing x with the diagram above)."""
     values = counts.values
     gaps = np.diff(np.unique(values))
-    span = window[1] - window[0]
-    width = BAR_FRACTION * (gaps.min() if gaps.size else span * 0.05)
+    # one value alone: a bar a twentieth of the x range the panels above show
+    width = BAR_FRACTION * (gaps.min() if gaps.size else np.ptp(ax.get_xlim()) / 10.0)
     known = counts.totals - counts.new
     ax.bar(
         values, known, width=width, color=KNOWN_COLOUR, zorder=3, label="on branches traced before"
