@@ -22,6 +22,7 @@ from branchline.errors import ScanError
 from branchline.model.build import build_model
 from branchline.present.plotting import bifurcation_figure
 from branchline.problems.deflation import Box, find_equilibria, sobol_starts
+from branchline.results.reading import fmt
 from branchline.results.writers import read_results, write_results
 from branchline.scan.loader import load_scan
 
@@ -344,7 +345,10 @@ def test_results_folder_report_and_strip(autocatalator, tmp_path):
     assert [v["equilibria"] for v in entry["values"]][:3] == [1, 1, 3]
     report = (folder / "report.md").read_text()
     assert "## Equilibria found without a start guess" in report
-    assert "an isola: a closed branch" in report
+    # the isola's extent, to the digits shown, is the closed form of its ends (see above)
+    low = ((1 - 8 * K2) - math.sqrt(1 - 16 * K2)) / (8 * K2**2)
+    high = ((1 - 8 * K2) + math.sqrt(1 - 16 * K2)) / (8 * K2**2)
+    assert f"an isola: a closed branch, tau from {fmt(low)} to {fmt(high)} (its folds)" in report
     assert "No search can prove" in report and "Caution" in report
     figure = bifurcation_figure(saved.points, saved.events, saved.info)
     strip = figure.axes[2]

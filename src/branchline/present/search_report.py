@@ -15,7 +15,7 @@ from typing import Any
 
 import pandas as pd
 
-from branchline.results.reading import fmt, trace_entries, trace_rows
+from branchline.results.reading import fmt, trace_entries, trace_events, trace_rows
 from branchline.results.search_records import root_trace_name
 
 # A trace end this close to an interval edge (relative to the interval's width)
@@ -40,15 +40,27 @@ def found_traces(info: Mapping[str, Any], search: str) -> list[Mapping[str, Any]
     ]
 
 
-def branch_shape(rows: pd.DataFrame, entry: Mapping[str, Any]) -> str:
-    """How a branch lies in its window, in words: isola, leaves the window, ends inside."""
+def branch_shape(
+    rows: pd.DataFrame, entry: Mapping[str, Any], events: Sequence[Mapping[str, Any]] = ()
+) -> str:
+    """How a branch lies in its window, in words: isola, leaves the window, ends inside.
+
+    An isola's extent is read off its located folds when it has them (exact), else
+    off its rows.
+    """
     vary = str(entry.get("vary"))
     if entry.get("status") == "closed":
-        if not rows.empty and vary in rows.columns:
-            values = rows[vary].to_numpy(dtype=float)
+        folds = [
+            float(e["value"])
+            for e in trace_events(events, str(entry.get("name")))
+            if e.get("kind") == "fold"
+        ]
+        if folds or (not rows.empty and vary in rows.columns):
+            values = folds or rows[vary].to_numpy(dtype=float).tolist()
+            ends = " (its folds)" if folds else ""
             return (
-                f"an isola: a closed branch, {vary} from {fmt(values.min())} to "
-                f"{fmt(values.max())}, meeting no other branch"
+                f"an isola: a closed branch, {vary} from {fmt(min(values))} to "
+                f"{fmt(max(values))}{ends}, meeting no other branch"
             )
         return "an isola: a closed branch"
     if rows.empty or vary not in rows.columns or not entry.get("interval"):
@@ -139,7 +151,8 @@ def search_section(
                     else f"found at {search.get('vary')} = {fmt(entry.get('found_at'))}"
                 )
                 rows = trace_rows(points, str(entry["name"]))
-                out.append(f"- **{entry['name']}** ({origin}): {branch_shape(rows, entry)}.")
+                shape = branch_shape(rows, entry, events)
+                out.append(f"- **{entry['name']}** ({origin}): {shape}.")
             out.append("")
         else:
             out += ["The search found no branch that was not traced already.", ""]
@@ -152,7 +165,7 @@ def search_section(
             out += ["Branches traced from the start guess:", ""]
         for entry in others:
             rows = trace_rows(points, str(entry["name"]))
-            out.append(f"- Trace **{entry['name']}**: {branch_shape(rows, entry)}.")
+            out.append(f"- Trace **{entry['name']}**: {branch_shape(rows, entry, events)}.")
         if others:
             out.append("")
         incomplete = [v for v in search.get("values") or [] if not v.get("complete", True)]
