@@ -254,7 +254,8 @@ def run_search(
     follow : callable (spec, parameters, x0) -> (branches, events)
         Traces one branch, with events and switched branches.
     progress : callable (name, count), optional
-        Called with ``"<trace> (search)"`` and the number of values searched so far.
+        Called with ``"<trace> (search)"`` and the number of equilibria found so far
+        (over all values searched).
 
     Returns
     -------
@@ -267,10 +268,10 @@ def run_search(
     start_value = float(state.parameters[state.vary_index])
     values = [start_value, *(v for v in spec.search.at if v != start_value)]
     searched = []
-    for number, value in enumerate(values, start=1):
+    for value in values:
         searched.append(state.at(value))
-        if progress is not None:
-            progress(f"{spec.name} (search)", number)
+        if progress is not None:  # the equilibria found so far are the search's points
+            progress(f"{spec.name} (search)", sum(len(v.roots) for v in searched))
     record = SearchRecord(
         trace=spec.name,
         vary=spec.vary,
