@@ -343,6 +343,9 @@ def test_results_folder_report_and_strip(autocatalator, tmp_path):
     (entry,) = saved.info["searches"]
     assert entry["box"] == {"a": [-0.5, 1.5], "b": [-0.5, 1.5]} and entry["samples"] == 32
     assert [v["equilibria"] for v in entry["values"]][:3] == [1, 1, 3]
+    found = {t["name"]: t for t in saved.info["traces"]}
+    assert found["all#2"]["found_at"] == 10.5 and found["all#2"]["start"] == "search"
+    assert found["all#1"]["at_start_value"] and not found["all#2"]["at_start_value"]
     report = (folder / "report.md").read_text()
     assert "## Equilibria found without a start guess" in report
     # the isola's extent, to the digits shown, is the closed form of its ends (see above)

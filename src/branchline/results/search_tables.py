@@ -102,6 +102,7 @@ def found_by(result: RunResult, name: str) -> dict[str, Any]:
                 "found_at": value,
                 "at_start_value": value == record.values[0].value,  # the scan's start value
                 "direction": "both",  # found branches are traced to both sides
+                "start": "search",  # from a root the search found, not the trace's guess
             }
     return {}
 
