@@ -26,8 +26,9 @@ import pytest
 import scipy.sparse as sp
 from scipy.optimize import brentq
 
-from branchline.continuation import engine as continuation
-from branchline.continuation.engine import StepControl, follow_curve
+from branchline.continuation import step_control
+from branchline.continuation.correctors import COUNT_KEYS
+from branchline.continuation.engine import follow_curve
 from branchline.model.build import build_model
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
@@ -421,22 +422,22 @@ def test_two_close_events_are_not_stepped_over(monkeypatch):
     problem = LineWithCloseZeros()
     # Constant steps of 0.1 in arclength (0.0707 in p) put both zeros (0.3, 0.302) inside
     # the step from p = 0.2828 to p = 0.3536.
-    settings = StepControl(initial=0.1, smallest=1e-8, largest=0.1, max_points=10_000)
+    settings = StepSettings(initial=0.1, smallest=1e-8, largest=0.1, max_points=10_000)
     u0, t0 = np.array([0.0, 0.0]), np.array([1.0, 1.0])
     curve = follow_curve(problem, u0, t0, settings, (0.0, 1.0))
     assert curve.status == "done"
     assert sign_changes(curve.test_values[:, 0]) == 2
     # Without the test-function rule the same steps jump over both zeros: the rule matters.
-    monkeypatch.setattr(continuation, "TEST_CHANGE_LIMIT", math.inf)
+    monkeypatch.setattr(step_control, "TEST_CHANGE_LIMIT", math.inf)
     plain = follow_curve(problem, u0, t0, settings, (0.0, 1.0))
     assert sign_changes(plain.test_values[:, 0]) == 0
 
 
 def test_engine_counts_and_curve_fields():
     problem = LineWithCloseZeros()
-    curve = follow_curve(problem, np.zeros(2), np.array([1.0, 1.0]), StepControl(), (0.0, 1.0))
+    curve = follow_curve(problem, np.zeros(2), np.array([1.0, 1.0]), StepSettings(), (0.0, 1.0))
     assert curve.points[-1, 1] == 1.0 and curve.points[0, 1] == 0.0
-    assert set(curve.counts) == set(continuation.COUNT_KEYS)
+    assert set(curve.counts) == set(COUNT_KEYS)
     # Totals include the attempts of rejected steps.
     assert curve.counts["newton_iterations"] >= curve.newton_iterations.sum()
     assert curve.counts["rhs_evaluations"] >= curve.counts["newton_iterations"] + len(curve)
@@ -457,7 +458,7 @@ def test_engine_chord_and_full_agree_on_circle():
 
     for newton in ("full", "chord"):
         curve = follow_curve(
-            Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepControl(), newton=newton
+            Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepSettings(), newton=newton
         )
         assert curve.status == "closed"
         assert sign_changes(curve.test_values[:, 0]) == 2
@@ -495,7 +496,7 @@ class WrappedPhase:
 @pytest.mark.parametrize("newton", ["full", "chord"])
 def test_adapt_is_called_between_accepted_steps(newton):
     problem = WrappedPhase()
-    settings = StepControl(initial=0.05, largest=0.05, max_points=12)
+    settings = StepSettings(initial=0.05, largest=0.05, max_points=12)
     curve = follow_curve(problem, np.zeros(2), np.array([1.0, 1.0]), settings, newton=newton)
     assert curve.status == "max_points" and len(curve) == 12
     # Called once per accepted step with the point and tangent just recorded ...

@@ -19,16 +19,15 @@ import sympy as sp
 
 from branchline.events import location
 from branchline.events.defining_systems import NewtonOutcome
-from branchline.events.detection import (
+from branchline.events.detection import bordered_determinant, hopf_test
+from branchline.model.build import build_model
+from branchline.problems.equilibrium_branch import (
     TEST_FUNCTIONS,
-    bordered_determinant,
     equilibrium_tests,
     find_brackets,
-    hopf_test,
+    locate_events,
+    trace_branch,
 )
-from branchline.events.locate import locate_events
-from branchline.model.build import build_model
-from branchline.problems.equilibrium_branch import trace_branch
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 PARAMETER_RTOL = 1e-10
@@ -585,6 +584,7 @@ def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
         status="done",
         message="",
         interval=(1.9, 2.1),
+        test_names=TEST_FUNCTIONS,
     )
     (hopf,) = locate_events(model, branch)
     assert hopf.value == pytest.approx(1.0 + a * a, rel=1e-12)

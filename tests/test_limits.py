@@ -12,7 +12,7 @@ import pytest
 
 from branchline import run_scan, scan_from_dict
 from branchline.cli import main
-from branchline.continuation import engine as continuation
+from branchline.continuation.engine import follow_curve
 from branchline.continuation.step_control import LIMIT_SLACK, Limit
 from branchline.errors import ScanError
 from branchline.model.build import build_model
@@ -165,11 +165,11 @@ def test_engine_limits_by_index_on_a_circle():
         def observe(self, u, t, jac):
             return None, np.array([t[-1]])
 
-    curve = continuation.follow_curve(
+    curve = follow_curve(
         Circle(),
         np.array([1.0, 0.0]),
         np.array([0.0, 1.0]),
-        continuation.StepControl(),
+        StepSettings(),
         limits={0: (0.5, 2.0)},
     )
     assert curve.status == "done"
@@ -177,11 +177,11 @@ def test_engine_limits_by_index_on_a_circle():
     assert curve.points[-1, 0] == 0.5
     assert curve.points[-1, 1] == pytest.approx(math.sqrt(3.0) / 2.0, abs=LANDING_TOL)
     # With the parameter edge reached first along the chord, the edge wins.
-    curve = continuation.follow_curve(
+    curve = follow_curve(
         Circle(),
         np.array([1.0, 0.0]),
         np.array([0.0, 1.0]),
-        continuation.StepControl(),
+        StepSettings(),
         (-1.0, 0.5),
         limits=[Limit(0, 0.5, 2.0, "x")],
     )
@@ -189,8 +189,8 @@ def test_engine_limits_by_index_on_a_circle():
     assert curve.points[-1, 1] == 0.5
     assert curve.points[-1, 0] == pytest.approx(math.sqrt(0.75), abs=LANDING_TOL)
     with pytest.raises(ValueError):
-        continuation.follow_curve(
-            Circle(), np.zeros(2), np.ones(2), continuation.StepControl(), limits={0: (1, 0)}
+        follow_curve(
+            Circle(), np.zeros(2), np.ones(2), StepSettings(), limits={0: (1, 0)}
         )
 
 

@@ -13,11 +13,13 @@ from pathlib import Path
 import pytest
 
 from branchline.errors import ScanError
-from branchline.scan.loader import (
+from branchline.numerics.tolerances import (
     DEFAULT_INITIAL_STEP,
     DEFAULT_LARGEST_STEP,
     DEFAULT_MAX_POINTS,
     DEFAULT_SMALLEST_STEP,
+)
+from branchline.scan.loader import (
     ExpressionModelSpec,
     PythonModelSpec,
     Scan,

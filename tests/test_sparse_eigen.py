@@ -40,12 +40,11 @@ import numpy as np
 import pytest
 import scipy.sparse as sp
 
-from branchline.continuation import engine as continuation
-from branchline.events.locate import locate_events
 from branchline.model.build import build_model
 from branchline.numerics import linalg
-from branchline.problems.equilibrium_branch import EIGENVALUES_FAILED, trace_branch
+from branchline.problems.equilibrium_branch import EIGENVALUES_FAILED, locate_events, trace_branch
 from branchline.scan.loader import PythonModelSpec, StepSettings
+from branchline.vocabulary import Status
 
 A = 1.0
 D1, D2 = 0.001, 0.002
@@ -216,7 +215,7 @@ def test_a_branch_stops_where_its_eigenvalues_cannot_be_computed(monkeypatch):
         "increasing",
         StepSettings(initial=0.02, largest=0.05, max_points=40),
     )
-    assert branch.status == continuation.STATUS_FAILED
+    assert branch.status == Status.FAILED
     assert EIGENVALUES_FAILED in branch.message
     assert "ARPACK did not converge" in branch.message
     assert "at b=" in branch.message and "|x|=" in branch.message

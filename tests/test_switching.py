@@ -7,10 +7,9 @@ import math
 import numpy as np
 import pytest
 
-from branchline.events.locate import locate_events
-from branchline.events.switching import SWITCH_OFFSET, branch_starts, trace_switched
 from branchline.model.build import build_model
-from branchline.problems.equilibrium_branch import trace_branch
+from branchline.problems.equilibrium_branch import locate_events, trace_branch
+from branchline.problems.switching import SWITCH_OFFSET, branch_starts, trace_switched
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 INTERVAL = (-0.5, 0.5)

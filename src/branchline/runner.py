@@ -13,16 +13,16 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from branchline.errors import ScanError
-from branchline.events.crowding import resolve_crowded_steps
-from branchline.events.locate import locate_events
-from branchline.events.switching import trace_switched
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
-from branchline.problems.equilibrium_branch import trace_branch
+from branchline.problems.crowding import resolve_crowded_steps
+from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.problems.start_guess import start_distance
+from branchline.problems.switching import trace_switched
 from branchline.problems.window_search import run_search, search_box
-from branchline.results.records import STATUS_FAILED, Branch, Event, RunResult
+from branchline.results.records import Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
 from branchline.scan.search_section import SEARCH_START
+from branchline.vocabulary import EventKind, Status
 
 # Branch points closer than this (relative, in state and parameter) to one
 # already switched at are the same point met again from a child branch.
@@ -86,7 +86,7 @@ def _mark_edge_events(events, interval: tuple[float, float]) -> list[Event]:
     """Say so in the note of every branch point on the interval's edge."""
     marked = []
     for event in events:
-        if event.kind == "branch_point" and _on_edge(event, interval):
+        if event.kind == EventKind.BRANCH_POINT and _on_edge(event, interval):
             words = "on the edge of the parameter interval; the crossing branches were not followed"
             event = replace(event, note=f"{event.note}; {words}" if event.note else words)
         marked.append(event)
@@ -119,7 +119,7 @@ def _follow(
         return _TraceOutcome(branches, events)
     visited: list[Event] = []
     started: dict[str, int] = {}  # parent name -> children started so far
-    queue = [(root, e, 1) for e in events if e.kind == "branch_point"]
+    queue = [(root, e, 1) for e in events if e.kind == EventKind.BRANCH_POINT]
     skipped = 0
     while queue:
         parent, event, depth = queue.pop(0)
@@ -146,7 +146,7 @@ def _follow(
             branches.append(child)
             found = _mark_edge_events(locate_events(model, child), spec.interval)
             events.extend(found)
-            queue.extend((child, e, depth + 1) for e in found if e.kind == "branch_point")
+            queue.extend((child, e, depth + 1) for e in found if e.kind == EventKind.BRANCH_POINT)
     notes = []
     if skipped:
         notes.append(
@@ -235,7 +235,7 @@ def run_scan(
             branches.extend(search.branches)
             events.extend(search.events)
             searches.append(search.record)
-    failed = [b for b in branches if b.status == STATUS_FAILED]
+    failed = [b for b in branches if b.status == Status.FAILED]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
     finished = time.perf_counter()
     return RunResult(
@@ -243,7 +243,7 @@ def run_scan(
         model=model,
         branches=tuple(branches),
         events=tuple(events),
-        status=STATUS_FAILED if failed else "done",
+        status=Status.FAILED if failed else Status.DONE,
         message=message,
         timings={
             "compile_seconds": compiled - started,

@@ -17,13 +17,17 @@ from enum import Enum
 
 
 class _Word(str, Enum):
-    """A str-valued member that prints and formats as its value (on every Python)."""
+    """A str-valued member that prints, formats and shows as its value (on every Python)."""
 
     def __str__(self) -> str:
         return str(self.value)
 
     def __format__(self, spec: str) -> str:
         return format(str(self.value), spec)
+
+    def __repr__(self) -> str:
+        # Lists of kinds and statuses read as the strings they stand for.
+        return repr(str(self.value))
 
 
 class EventKind(_Word):
@@ -52,7 +56,8 @@ class EventKind(_Word):
 class Status(_Word):
     """How a computation ended; :attr:`hint` suggests the fix when it did not end well.
 
-    Curves and branches end ``done``, ``closed``, ``max_points`` or ``failed``;
+    Curves and branches end ``done``, ``closed``, ``max_points``, ``failed`` or
+    ``interrupted``;
     a single equilibrium solve ends ``converged``, ``not_converged``,
     ``singular_jacobian`` or ``non_finite``.
     """
@@ -61,6 +66,7 @@ class Status(_Word):
     CLOSED = "closed"  # the curve closed on itself (an isola)
     MAX_POINTS = "max_points"  # stopped at steps.max_points
     FAILED = "failed"  # numerical trouble; the message says where and why
+    INTERRUPTED = "interrupted"  # stopped by Ctrl-C or SIGTERM; the points so far are kept
     CONVERGED = "converged"
     NOT_CONVERGED = "not_converged"
     SINGULAR_JACOBIAN = "singular_jacobian"
@@ -77,6 +83,7 @@ _HINTS = {
     "fewer points",
     Status.FAILED: "try a smaller steps.smallest or steps.initial, or narrow the interval "
     "to stop before the trouble",
+    Status.INTERRUPTED: "run the scan again to compute the rest",
     Status.NOT_CONVERGED: "give a start guess closer to an equilibrium (branchline inspect "
     "shows the residual there)",
     Status.SINGULAR_JACOBIAN: "start the trace at another parameter value, away from a fold "

@@ -38,9 +38,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 
-from branchline.events import locate as events
 from branchline.model.build import build_model
-from branchline.problems.equilibrium_branch import trace_branch
+from branchline.problems import equilibrium_branch
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 REPEATS = 5
@@ -108,7 +107,7 @@ CASES = [
 def _timed_tests():
     """Wrap the engine's test functions to time them (detection cost)."""
     spent = [0.0]
-    original = events.equilibrium_tests
+    original = equilibrium_branch.equilibrium_tests
 
     def timed(*args):
         started = time.perf_counter()
@@ -124,10 +123,10 @@ def run_branchline(model, case):
     params = model.parameter_vector()
     params[k] = case["parameters"][case["vary"]]
     timed, spent, original = _timed_tests()
-    events.equilibrium_tests = timed
+    equilibrium_branch.equilibrium_tests = timed
     try:
         started = time.perf_counter()
-        branch = trace_branch(
+        branch = equilibrium_branch.trace_branch(
             model,
             "b",
             case["vary"],
@@ -138,10 +137,10 @@ def run_branchline(model, case):
             StepSettings(),
         )
         traced = time.perf_counter()
-        found = events.locate_events(model, branch)
+        found = equilibrium_branch.locate_events(model, branch)
         located = time.perf_counter()
     finally:
-        events.equilibrium_tests = original
+        equilibrium_branch.equilibrium_tests = original
     total = located - started
     wanted = [e for e in found if e.kind == case["kind"]]
     error = min((abs(e.value - case["exact"]) for e in wanted), default=math.nan)

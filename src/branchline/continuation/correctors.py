@@ -12,16 +12,11 @@ Introduction to Numerical Continuation Methods, chapter 2), whose residual
 stays zero since every update is orthogonal to b; with a number it fixes
 b . u, e.g. the parameter on an interval edge.
 
-The correctors are plain functions returning a *correction*, the tuple
-
-    (converged, iterations, u, residual_norm, g, jacobian, message)
-
-converged : bool; iterations : int, updates applied; u : ndarray (N + 1,), the
-solution when converged, else the last iterate; residual_norm : float, |G(u)|
-(NaN when not known); g, jacobian : G(u) (N,) and G_u(u) (N, N + 1, dense or
-sparse) when converged, else None; message : str, "" when converged, else why
-not. A plain tuple (as scipy's ODE solvers return from their Newton
-iterations): the engine calls a corrector at every step and unpacks the result.
+The correctors are plain functions returning a :class:`Correction`, a named
+tuple (as cheap as a plain one on the engine's hot path, and read by name):
+whether it converged, the updates applied, the solution (or last iterate), its
+residual norm, G and G_u there (when converged) and why it failed ("" when
+converged). The correctors are:
 The correctors are:
 
 - :func:`correct_newton`, full Newton: the Jacobian at every iterate. The
@@ -50,28 +45,23 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import scipy.sparse.linalg as spla
 
 from branchline.numerics import linalg
+from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
 
 Array = np.ndarray
-# (converged, iterations, u, residual_norm, g, jacobian, message); see the module docstring.
-Correction = tuple[bool, int, Array, float, Any, Any, str]
 # u -> (G(u) (N,), G_u(u) (N, N + 1), dense or sparse): see :func:`evaluator`.
 Evaluate = Callable[[Array], tuple[Array, Any]]
 
-# Residual norm accepted as zero (Euclidean); see equilibrium.RESIDUAL_TOL.
-RESIDUAL_TOL = 1e-10
 # Newton update accepted as converged, relative to 1 + |u|. Quadratic
 # convergence makes the error after an update of size d about C d^2, so
 # 1e-6 leaves ~1e-12; together with the residual test it stops after two
 # iterations on a well-predicted step instead of three.
 UPDATE_RTOL = 1e-6
-# Updates this small (relative) are roundoff: the residual cannot drop further.
-STAGNATION_RTOL = 16 * np.finfo(float).eps
 MAX_CORRECTOR_ITERATIONS = 6
 # A Newton update larger than this times the previous one means divergence.
 DIVERGENCE_RATIO = 1.0
@@ -96,6 +86,33 @@ COUNT_KEYS = (
 # x @ y, bit for bit, at well under half the call overhead for N of a few (numpy 2.x).
 
 NOT_FINITE = "the right-hand side, its Jacobian or the Newton update is not finite (NaN/overflow)"
+
+
+class Correction(NamedTuple):
+    """The outcome of one corrector run.
+
+    Attributes
+    ----------
+    converged : bool
+    iterations : int
+        Newton (or chord) updates applied.
+    u : ndarray (N + 1,)
+        The solution when converged, else the last iterate.
+    residual_norm : float
+        |G(u)| (NaN when not known).
+    g, jacobian : ndarray (N,), ndarray (N, N + 1) or scipy.sparse matrix, or None
+        G(u) and G_u(u) when converged, else None.
+    message : str
+        "" when converged, else why not.
+    """
+
+    converged: bool
+    iterations: int
+    u: Array
+    residual_norm: float
+    g: Any
+    jacobian: Any
+    message: str
 
 
 class EvaluationCounts:
@@ -144,7 +161,7 @@ def _raised(what: str, exc: Exception) -> str:
 
 
 def _failed(u: Array, iterations: int, residual: float, message: str) -> Correction:
-    return False, iterations, u, residual, None, None, message
+    return Correction(False, iterations, u, residual, None, None, message)
 
 
 def _converged(residual: float, update: float, scale: float) -> bool:
@@ -202,7 +219,7 @@ def correct_newton(
             return _failed(u, iteration, residual, NOT_FINITE)
         if iteration:
             if _converged(residual, update, 1.0 + sqrt(u.dot(u))):
-                return True, iteration, u, residual, g, jac, ""
+                return Correction(True, iteration, u, residual, g, jac, "")
             if iteration >= max_iterations:
                 message = (
                     f"no convergence in {max_iterations} Newton iterations "
@@ -295,12 +312,18 @@ def correct_chord(
             except (ArithmeticError, ValueError) as exc:
                 return _failed(u, iteration, residual, _raised("the Jacobian", exc))
             counts.jacobian += 1
-            return True, iteration, u, residual, g, jac, ""
+            return Correction(True, iteration, u, residual, g, jac, "")
     return _failed(u, MAX_CHORD_ITERATIONS, math.nan, "no convergence of the chord iteration")
 
 
 def correct_on_edge(
-    evaluate: Evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
+    evaluate: Evaluate,
+    guess: Array,
+    edge: float,
+    counts: EvaluationCounts,
+    index: int = -1,
+    *,
+    sparse: bool = False,
 ) -> Correction:
     """Solve G(u) = 0 with the component u[index] fixed at ``edge`` (full Newton).
 
@@ -309,9 +332,10 @@ def correct_on_edge(
     bordered matrix is [G_u; e_index^T]. The bordered solve may leave roundoff in
     the fixed component; the solution's component is then set to ``edge`` exactly
     and G, G_u are evaluated there again. ``iterations`` counts the Newton updates only.
+    ``sparse`` (the curve's Jacobians are sparse) skips the dense least-squares fallback.
     """
     correction = _newton_with_fixed(evaluate, guess, edge, index, counts)
-    if not correction[0] and not linalg.is_sparse(correction[5]):
+    if not correction.converged and not sparse:
         # At an edge where the Jacobian without the fixed column is singular (a line of
         # equilibria at a zero dilution rate, say) Newton's square solve fails although
         # the point exists; Gauss-Newton with least-squares steps still converges there.
@@ -334,7 +358,7 @@ def _newton_with_fixed(
 
 def _exactly_on(evaluate, correction: Correction, edge: float, index: int, counts) -> Correction:
     """A converged correction with u[index] set to ``edge`` exactly (G, G_u evaluated again)."""
-    converged, iterations, u = correction[:3]
+    converged, iterations, u = correction.converged, correction.iterations, correction.u
     if not converged or u[index] == edge:
         return correction
     u = u.copy()
@@ -344,7 +368,7 @@ def _exactly_on(evaluate, correction: Correction, edge: float, index: int, count
     counts.jacobian += 1
     if message:
         return _failed(u, iterations, math.nan, message)
-    return True, iterations, u, linalg.norm(g), g, jac, ""
+    return Correction(True, iterations, u, linalg.norm(g), g, jac, "")
 
 
 def correct_on_limit(
@@ -371,9 +395,9 @@ def correct_on_limit(
     guess = u_in + fraction * (u_out - u_in)
     guess[index] = bound
     correction = _newton_with_fixed(evaluate, guess, bound, index, counts)
-    if not correction[0]:
+    if not correction.converged:
         interpolated = _limit_by_interpolation(evaluate, u_in, u_out, bound, index, counts)
-        if interpolated[0]:
+        if interpolated.converged:
             correction = interpolated
     return _exactly_on(evaluate, correction, bound, index, counts)
 
@@ -400,10 +424,10 @@ def _limit_by_interpolation(
             else:
                 guess = u_in + (value - u_in[index]) / (u_out[index] - u_in[index]) * (u_out - u_in)
                 correction = correct_newton(evaluate, guess, border, value, counts)
-                total += correction[1]
-                if not correction[0]:
-                    return _failed(correction[2], total, correction[3], correction[6])
-                point = correction[2]
+                total += correction.iterations
+                if not correction.converged:
+                    return _failed(correction.u, total, correction.residual_norm, correction.message)
+                point = correction.u
             nodes.append(value)
             points.append(point)
     # Imported here: scipy.interpolate costs ~0.3 s of start-up and this
@@ -422,7 +446,7 @@ def _limit_by_interpolation(
     residual = linalg.norm(g) if g is not None else math.nan
     if message or not residual <= INTERPOLATED_RESIDUAL:
         return _failed(u, total, residual, message or f"interpolated residual {residual:.3g}")
-    return True, total, u, residual, g, jac, ""
+    return Correction(True, total, u, residual, g, jac, "")
 
 
 def _least_squares_on_edge(
@@ -448,7 +472,7 @@ def _least_squares_on_edge(
             g, jac, message = safe_evaluate(evaluate, u)
             if message:
                 return _failed(u, iteration, math.nan, message)
-            return True, iteration, u, linalg.norm(g), g, jac, ""
+            return Correction(True, iteration, u, linalg.norm(g), g, jac, "")
     return _failed(u, iteration, residual, "least-squares Newton did not converge on the edge")
 
 

@@ -76,47 +76,21 @@ from __future__ import annotations
 import math
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import TYPE_CHECKING, Any, Protocol
+from typing import Any, Protocol
 
 import numpy as np
 
 from branchline.continuation import correctors, step_control
-from branchline.continuation.correctors import (  # noqa: F401  (re-exported: tuning values of the engine)
-    CHORD_CONTRACTION,
-    COUNT_KEYS,
-    DIVERGENCE_RATIO,
-    MAX_CHORD_ITERATIONS,
-    MAX_CORRECTOR_ITERATIONS,
-    RESIDUAL_TOL,
-    STAGNATION_RTOL,
-    UPDATE_RTOL,
-)
-from branchline.continuation.step_control import (  # noqa: F401  (re-exported; TEST_CHANGE_LIMIT also used)
-    EASY_ITERATIONS,
-    GROW_FACTOR,
-    LIMIT_SLACK,
-    LOOP_DISTANCE_FRACTION,
-    MAX_TANGENT_ANGLE,
-    SHRINK_FACTOR,
-    TEST_CHANGE_LIMIT,
-    TEST_SCALE_FLOOR,
-    TEST_STEP_FLOOR,
-    Limit,
-)
+from branchline.continuation.correctors import Correction, EvaluationCounts
+from branchline.continuation.step_control import Limit
 from branchline.numerics import linalg
-
-if TYPE_CHECKING:
-    from branchline.scan.loader import StepSettings
+from branchline.numerics.tolerances import StepSettings
+from branchline.vocabulary import Status
 
 Array = np.ndarray
 
 # The progress callback is called every this many accepted points.
 PROGRESS_INTERVAL = 50
-
-STATUS_DONE = "done"
-STATUS_MAX_POINTS = "max_points"
-STATUS_CLOSED = "closed"
-STATUS_FAILED = "failed"
 
 
 class ObservationFailed(ArithmeticError):
@@ -144,20 +118,6 @@ class CurveProblem(Protocol):
 
 
 @dataclass(frozen=True)
-class StepControl:
-    """Step lengths of one curve (pseudo-arclength units).
-
-    Mirrors :class:`branchline.scan.loader.StepSettings`; any object with the
-    attributes ``initial``, ``smallest``, ``largest``, ``max_points`` works.
-    """
-
-    initial: float = 0.01
-    smallest: float = 1e-8
-    largest: float = 0.05
-    max_points: int = 2000
-
-
-@dataclass(frozen=True)
 class Curve:
     """A followed curve, rows in the order of travel (the start point first).
 
@@ -176,7 +136,7 @@ class Curve:
     test_values : ndarray (k, T)
     payloads : ndarray (k, ...) or tuple
         What ``observe`` returned per point, stacked when possible.
-    status : str
+    status : Status
         ``done`` (left the bounds, last point on the edge), ``max_points``,
         ``closed`` (isola), ``failed``.
     message : str
@@ -193,7 +153,7 @@ class Curve:
     residual_norms: Array
     test_values: Array
     payloads: Any
-    status: str
+    status: Status
     message: str
     counts: dict[str, int] = field(default_factory=dict)
 
@@ -212,7 +172,7 @@ def failed_curve(u: Array, message: str, counts: dict[str, int] | None = None) -
         residual_norms=np.empty(0),
         test_values=np.empty((0, 0)),
         payloads=(),
-        status=STATUS_FAILED,
+        status=Status.FAILED,
         message=message,
         counts={} if counts is None else counts,
     )
@@ -232,7 +192,7 @@ def follow_curve(
     problem: CurveProblem,
     u0: Array,
     tangent0: Array,
-    settings: StepControl | StepSettings,
+    settings: StepSettings,
     bounds: tuple[float, float] = (-math.inf, math.inf),
     *,
     newton: str = "full",
@@ -251,7 +211,7 @@ def follow_curve(
     tangent0 : ndarray (N + 1,)
         Direction of travel. Unless ``start_tangent_exact``, the tangent at
         ``u0`` is recomputed from the Jacobian and oriented like ``tangent0``.
-    settings : StepControl or branchline.scan.loader.StepSettings
+    settings : branchline.numerics.tolerances.StepSettings
         ``initial``, ``smallest``, ``largest`` step (pseudo-arclength units)
         and ``max_points`` (including the start point).
     bounds : (lo, hi)
@@ -289,24 +249,25 @@ def follow_curve(
     ...     def residual(self, u): return np.array([u[0] ** 2 + u[1] ** 2 - 1.0])
     ...     def jacobian(self, u): return np.array([[2 * u[0], 2 * u[1]]])
     ...     def observe(self, u, t, jac): return None, np.array([t[-1]])
-    >>> curve = follow_curve(Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepControl())
+    >>> curve = follow_curve(Circle(), np.array([1.0, 0.0]), np.array([0.0, 1.0]), StepSettings())
     >>> curve.status, round(float(curve.arclength[-1]), 2)
     ('closed', 6.28)
     """
     if newton not in ("full", "chord"):
         raise ValueError(f"newton must be 'full' or 'chord', not {newton!r}")
+    u0 = np.array(u0, dtype=float)
     with np.errstate(all="ignore"):
-        return _follow(
-            problem,
-            np.array(u0, dtype=float),
-            np.array(tangent0, dtype=float),
-            settings,
-            bounds,
-            newton,
-            progress,
-            start_tangent_exact,
-            _as_limits(limits, np.shape(u0)[0]),
-        )
+        walk = _Walk(problem, settings, bounds, newton, _as_limits(limits, u0.shape[0]))
+        why_not = walk.start(u0, np.array(tangent0, dtype=float), start_tangent_exact)
+        if why_not:
+            return failed_curve(u0, why_not, walk.counts.as_dict())
+        while not walk.status:
+            if _step(walk) is _Step.ACCEPT:
+                if progress is not None and len(walk.rows) % PROGRESS_INTERVAL == 0:
+                    progress(len(walk.rows))
+    if progress is not None:
+        progress(len(walk.rows))
+    return _curve_from_rows(walk.rows, walk.status, walk.message, walk.counts.as_dict())
 
 
 def _as_limits(limits, size: int) -> tuple[Limit, ...]:
@@ -327,158 +288,229 @@ def _as_limits(limits, size: int) -> tuple[Limit, ...]:
     return tuple(normalized)
 
 
-def _follow(
-    problem, u, t, settings, bounds, newton, progress, start_tangent_exact, limits
-) -> Curve:
-    """The engine loop: predict, correct, accept or shrink, record, test (under errstate)."""
-    lo, hi = float(bounds[0]), float(bounds[1])
-    smallest, largest = float(settings.smallest), float(settings.largest)
-    max_points = int(settings.max_points)
-    step = step_control.first_step(float(settings.initial), smallest, largest)
-    tests_floor = step_control.tests_step_floor(smallest, largest)
-    evaluate = correctors.evaluator(problem)
-    residual_fn, jacobian_fn, observe = problem.residual, problem.jacobian, problem.observe
-    adapt = getattr(problem, "adapt", None)
-    counts = correctors.EvaluationCounts()
+class _Step:
+    """What one step of the engine did (compared by identity)."""
 
-    start = _start(problem, evaluate, u, t, start_tangent_exact, counts)
-    if isinstance(start, str):
-        return failed_curve(u, start, counts.as_dict())
-    g0, jac, t = start
-    sparse = linalg.is_sparse(jac)
-    try:
-        payload, tests = observe(u, t, jac)
-    except ObservationFailed as exc:
-        return failed_curve(
-            u, f"cannot start {describe_point(problem, u)}: {exc}", counts.as_dict()
-        )
-    tests = np.asarray(tests, dtype=float)
-    # One tuple per accepted point, in the order of Curve's columns (one append per point).
-    rows = [(u, t, 0.0, 0, linalg.norm(g0), tests, payload)]
-    tracked = step_control.track_tests(tests.tolist())
-    u_start, t_start = u, t
-    arclength = 0.0
-    status, message = "", ""
-    if not lo <= u[-1] <= hi:
-        status = STATUS_FAILED
-        message = (
-            f"the start point {describe_point(problem, u)} lies outside the parameter "
-            f"interval [{lo:.10g}, {hi:.10g}]"
-        )
-    outside = [limit for limit in limits if step_control.beyond_limit(u[limit.index], limit)]
-    if outside and not status:
-        limit = outside[0]
-        status = STATUS_FAILED
-        message = (
-            f"the start point {describe_point(problem, u)} lies outside the limit "
-            f"{limit.name} in [{limit.lo:.10g}, {limit.hi:.10g}]"
-        )
+    ACCEPT = "accept"  # a new point was recorded
+    REJECT = "reject"  # the step was shrunk; try again from the same point
+    STOP = "stop"  # the curve ended; ``status`` and ``message`` say how
 
-    while not status:
-        if len(rows) >= max_points:
-            status = STATUS_MAX_POINTS
-            message = (
-                f"stopped after {max_points} points (steps.max_points) {describe_point(problem, u)}"
-            )
-            break
-        # Predict and correct.
-        predicted = u + step * t
-        if newton == "chord":
-            correction = correctors.correct_chord(
-                evaluate, residual_fn, jacobian_fn, predicted, t, counts
-            )
-        else:
-            correction = correctors.correct_newton(evaluate, predicted, t, None, counts)
-        converged, iterations, u_new, residual, _, jac_new, failure = correction
-        counts.newton += iterations
-        if converged:
-            t_new, failure = _tangent_at(
-                jac_new,
+
+class _Walk:
+    """The state of one curve being followed: the last point, its tangent, the step,
+    the rows recorded so far and how the curve ended (``status`` "" while it runs)."""
+
+    __slots__ = (
+        "adapt",
+        "arclength",
+        "counts",
+        "evaluate",
+        "hi",
+        "largest",
+        "limits",
+        "lo",
+        "max_points",
+        "message",
+        "newton",
+        "problem",
+        "rows",
+        "smallest",
+        "sparse",
+        "status",
+        "step",
+        "t",
+        "t_start",
+        "tests_floor",
+        "tracked",
+        "u",
+        "u_start",
+    )
+
+    def __init__(self, problem, settings, bounds, newton: str, limits) -> None:
+        self.problem = problem
+        self.evaluate = correctors.evaluator(problem)
+        self.adapt = getattr(problem, "adapt", None)
+        self.newton = newton
+        self.lo, self.hi = float(bounds[0]), float(bounds[1])
+        self.limits = limits
+        self.smallest, self.largest = float(settings.smallest), float(settings.largest)
+        self.max_points = int(settings.max_points)
+        self.step = step_control.first_step(float(settings.initial), self.smallest, self.largest)
+        self.tests_floor = step_control.tests_step_floor(self.smallest, self.largest)
+        self.counts = EvaluationCounts()
+        self.rows: list[tuple] = []
+        self.status, self.message = "", ""
+        self.arclength = 0.0
+
+    def start(self, u: Array, t: Array, tangent_exact: bool) -> str:
+        """Record the start point; "" or why the curve cannot start there."""
+        problem = self.problem
+        g0, jac, reason = correctors.safe_evaluate(self.evaluate, u)
+        self.counts.rhs += 1
+        self.counts.jacobian += 1
+        if reason:
+            return f"cannot start {describe_point(problem, u)}: {reason}"
+        t = t / linalg.norm(t)
+        self.sparse = linalg.is_sparse(jac)
+        if not tangent_exact:
+            t, reason = self.tangent_at(
+                jac,
                 t,
-                sparse,
-                counts,
-                "the tangent is undefined at the corrected point (singular bordered matrix)",
+                "the tangent is undefined there (singular bordered Jacobian; a branch point?)",
             )
-        # Accept or shrink.
-        if failure:
-            if step <= smallest:
-                status = STATUS_FAILED
-                message = (
-                    f"the corrector failed at the smallest step ({smallest:g}) after the "
-                    f"point {describe_point(problem, u)}: {failure}"
-                )
-                break
-            counts.rejected += 1
-            step = step_control.shrunk(step, smallest)
-            continue
-        if step_control.tangent_turns_too_far(t_new, t, step, smallest):
-            counts.rejected += 1
-            step = step_control.shrunk(step, smallest)
-            continue
-        edge = step_control.crossed_edge(u_new[-1], lo, hi)
-        if limits:
-            hit = step_control.first_limit(u, u_new, limits)
-            if hit is not None and (
-                edge is None or hit[2] <= step_control.edge_fraction(u, u_new, edge)
-            ):
-                limit, bound, _ = hit
-                status, message = _finish_on_edge(
-                    problem,
-                    evaluate,
-                    rows,
-                    u,
-                    u_new,
-                    t,
-                    bound,
-                    arclength,
-                    counts,
-                    sparse,
-                    limit,
-                )
-                break
-        if edge is not None:
-            status, message = _finish_on_edge(
-                problem, evaluate, rows, u, u_new, t, edge, arclength, counts, sparse
-            )
-            break
-        # Test events.
+            if reason:
+                return f"cannot start {describe_point(problem, u)}: {reason}"
         try:
-            payload, tests = observe(u_new, t_new, jac_new)
+            payload, tests = problem.observe(u, t, jac)
         except ObservationFailed as exc:
-            status = STATUS_FAILED
-            message = f"stopped {describe_point(problem, u_new)}: {exc}"
-            break
+            return f"cannot start {describe_point(problem, u)}: {exc}"
         tests = np.asarray(tests, dtype=float)
-        chord = u_new - u
-        chord_length = math.sqrt(chord.dot(chord))  # .dot: see correctors
-        values = tests.tolist()
-        # The limit is read from this module at run time, so that it can be tuned (or switched
-        # off, as tests/test_continuation.py does) in one place: continuation.TEST_CHANGE_LIMIT.
-        if step_control.tests_unresolved(
-            tracked, values, chord_length, step, tests_floor, TEST_CHANGE_LIMIT
+        # One tuple per accepted point, in the order of Curve's columns (one append per point).
+        self.rows.append((u, t, 0.0, 0, linalg.norm(g0), tests, payload))
+        self.tracked = step_control.track_tests(tests.tolist())
+        self.u, self.t = self.u_start, self.t_start = u, t
+        self.status, self.message = _outside_at_start(self, u)
+        return ""
+
+    def tangent_at(self, jac, previous: Array, singular_message: str):
+        """(unit tangent, "") at a corrected point with Jacobian ``jac``, or (None, why not)."""
+        try:
+            self.counts.factorizations += 1
+            return correctors.unit_tangent(jac, previous, self.sparse), ""
+        except linalg.SingularMatrixError:
+            return None, singular_message
+
+    def stop(self, status: Status, message: str) -> str:
+        self.status, self.message = status, message
+        return _Step.STOP
+
+    def reject(self, floor: float) -> str:
+        self.counts.rejected += 1
+        self.step = step_control.shrunk(self.step, floor)
+        return _Step.REJECT
+
+
+def _outside_at_start(walk: _Walk, u: Array) -> tuple[str, str]:
+    """("", "") or (failed, why) when the start point lies outside the bounds or a limit."""
+    where = describe_point(walk.problem, u)
+    if not walk.lo <= u[-1] <= walk.hi:
+        return Status.FAILED, (
+            f"the start point {where} lies outside the parameter "
+            f"interval [{walk.lo:.10g}, {walk.hi:.10g}]"
+        )
+    for limit in walk.limits:
+        if step_control.beyond_limit(u[limit.index], limit) is not None:
+            return Status.FAILED, (
+                f"the start point {where} lies outside the limit "
+                f"{limit.name} in [{limit.lo:.10g}, {limit.hi:.10g}]"
+            )
+    return "", ""
+
+
+def _correct(walk: _Walk) -> Correction:
+    """The corrector's run from the predicted point u + h t (pseudo-arclength border t)."""
+    predicted = walk.u + walk.step * walk.t
+    if walk.newton == "chord":
+        problem = walk.problem
+        return correctors.correct_chord(
+            walk.evaluate, problem.residual, problem.jacobian, predicted, walk.t, walk.counts
+        )
+    return correctors.correct_newton(walk.evaluate, predicted, walk.t, None, walk.counts)
+
+
+def _step(walk: _Walk) -> str:
+    """One step: predict, correct, accept or shrink, stop on an edge, observe, record."""
+    if len(walk.rows) >= walk.max_points:
+        return walk.stop(
+            Status.MAX_POINTS,
+            f"stopped after {walk.max_points} points (steps.max_points) "
+            f"{describe_point(walk.problem, walk.u)}",
+        )
+    correction = _correct(walk)
+    walk.counts.newton += correction.iterations
+    failure = correction.message
+    if correction.converged:
+        t_new, failure = walk.tangent_at(
+            correction.jacobian,
+            walk.t,
+            "the tangent is undefined at the corrected point (singular bordered matrix)",
+        )
+    if failure:
+        if walk.step <= walk.smallest:
+            return walk.stop(
+                Status.FAILED,
+                f"the corrector failed at the smallest step ({walk.smallest:g}) after the "
+                f"point {describe_point(walk.problem, walk.u)}: {failure}",
+            )
+        return walk.reject(walk.smallest)
+    if step_control.tangent_turns_too_far(t_new, walk.t, walk.step, walk.smallest):
+        return walk.reject(walk.smallest)
+    u_new = correction.u
+    if _leaves_window(walk, u_new):
+        return _Step.STOP
+    try:
+        payload, tests = walk.problem.observe(u_new, t_new, correction.jacobian)
+    except ObservationFailed as exc:
+        return walk.stop(Status.FAILED, f"stopped {describe_point(walk.problem, u_new)}: {exc}")
+    tests = np.asarray(tests, dtype=float)
+    u = walk.u
+    chord = u_new - u
+    chord_length = math.sqrt(chord.dot(chord))  # .dot: see correctors
+    values = tests.tolist()
+    # The limit is read from step_control at run time, so that it can be tuned (or
+    # switched off, as tests/test_continuation.py does) in one place.
+    if step_control.tests_unresolved(
+        walk.tracked,
+        values,
+        chord_length,
+        walk.step,
+        walk.tests_floor,
+        step_control.TEST_CHANGE_LIMIT,
+    ):
+        return walk.reject(walk.tests_floor)
+    if step_control.closes_loop(
+        walk.u_start, walk.t_start, u, walk.t, chord, chord_length, len(walk.rows)
+    ):
+        walk.arclength += linalg.norm(walk.u_start - u)
+        walk.rows.append(_start_again(walk.rows[0], walk.arclength))
+        return walk.stop(
+            Status.CLOSED, "the branch closed on itself (an isola) back at its start point"
+        )
+    _record(walk, u_new, t_new, chord_length, values, correction, tests, payload)
+    return _Step.ACCEPT
+
+
+def _record(walk, u_new, t_new, chord_length, values, correction, tests, payload) -> None:
+    """Accept the corrected point: remember it, adapt it (optional hook), grow the step."""
+    walk.tracked = step_control.tracked_after(walk.tracked, values, chord_length)
+    walk.arclength += chord_length
+    iterations = correction.iterations
+    walk.rows.append(
+        (u_new, t_new, walk.arclength, iterations, correction.residual_norm, tests, payload)
+    )
+    if walk.adapt is not None:
+        u_new, t_new = _adapted(walk.adapt, u_new, t_new)
+    walk.u, walk.t = u_new, t_new
+    walk.step = step_control.grown(walk.step, iterations, walk.largest)
+
+
+def _leaves_window(walk: _Walk, u_new: Array) -> bool:
+    """True (the curve then ends on the edge or limit) when the step leaves the parameter
+    bounds or a state limit; the first one reached along the chord wins."""
+    u = walk.u
+    edge = step_control.crossed_edge(u_new[-1], walk.lo, walk.hi)
+    if walk.limits:
+        hit = step_control.first_limit(u, u_new, walk.limits)
+        if hit is not None and (
+            edge is None or hit[2] <= step_control.edge_fraction(u, u_new, edge)
         ):
-            counts.rejected += 1
-            step = step_control.shrunk(step, tests_floor)
-            continue
-        if step_control.closes_loop(u_start, t_start, u, t, chord, chord_length, len(rows)):
-            arclength += linalg.norm(u_start - u)
-            rows.append(_start_again(rows[0], arclength))
-            status = STATUS_CLOSED
-            message = "the branch closed on itself (an isola) back at its start point"
-            break
-        # Record.
-        tracked = step_control.tracked_after(tracked, values, chord_length)
-        arclength += chord_length
-        u, t = u_new, t_new
-        rows.append((u, t, arclength, iterations, residual, tests, payload))
-        if adapt is not None:
-            u, t = _adapted(adapt, u, t)
-        if progress is not None and len(rows) % PROGRESS_INTERVAL == 0:
-            progress(len(rows))
-        step = step_control.grown(step, iterations, largest)
-    if progress is not None:
-        progress(len(rows))
-    return _curve_from_rows(rows, status, message, counts.as_dict())
+            limit, bound, _ = hit
+            walk.status, walk.message = _finish_on_edge(walk, u_new, bound, limit)
+            return True
+    if edge is not None:
+        walk.status, walk.message = _finish_on_edge(walk, u_new, edge)
+        return True
+    return False
 
 
 def _adapted(adapt, u: Array, t: Array) -> tuple[Array, Array]:
@@ -494,83 +526,57 @@ def _adapted(adapt, u: Array, t: Array) -> tuple[Array, Array]:
     return u_new, t_new / linalg.norm(t_new)
 
 
-def _tangent_at(jac, previous, sparse, counts, singular_message):
-    """(unit tangent, "") at a corrected point with Jacobian ``jac``, or (None, why not)."""
-    try:
-        counts.factorizations += 1
-        return correctors.unit_tangent(jac, previous, sparse), ""
-    except linalg.SingularMatrixError:
-        return None, singular_message
+def _finish_on_edge(walk: _Walk, u_out: Array, edge: float, limit=None) -> tuple[str, str]:
+    """Append the point exactly on the interval edge to the rows; returns (status, message).
 
-
-def _start(problem, evaluate, u, t, start_tangent_exact, counts):
-    """(G, G_u, unit tangent) at the start point, or why the curve cannot start there."""
-    g0, jac, reason = correctors.safe_evaluate(evaluate, u)
-    counts.rhs += 1
-    counts.jacobian += 1
-    if reason:
-        return f"cannot start {describe_point(problem, u)}: {reason}"
-    t = t / linalg.norm(t)
-    if not start_tangent_exact:
-        t, reason = _tangent_at(
-            jac,
-            t,
-            linalg.is_sparse(jac),
-            counts,
-            "the tangent is undefined there (singular bordered Jacobian; a branch point?)",
-        )
-        if reason:
-            return f"cannot start {describe_point(problem, u)}: {reason}"
-    return g0, jac, t
-
-
-def _finish_on_edge(
-    problem, evaluate, rows, u, u_out, t, edge, arclength, counts, sparse, limit=None
-) -> tuple[str, str]:
-    """Append the point exactly on the interval edge to ``rows``; returns (status, message).
-
-    ``u`` is the last accepted point, ``u_out`` the corrected point beyond ``edge``.
+    ``walk.u`` is the last accepted point, ``u_out`` the corrected point beyond ``edge``.
     With a ``limit`` (a :class:`Limit`), ``edge`` is its bound and the point is put
     exactly on that limit of the state instead.
     """
+    problem, u, counts = walk.problem, walk.u, walk.counts
     if limit is None:
         index, where = -1, f"the edge {edge:.10g} of the parameter interval"
     else:
         index, where = limit.index, f"the limit {limit.name} = {edge:.10g} of trace limits"
-    reached = STATUS_DONE, f"reached {where}"
+    reached = Status.DONE, f"reached {where}"
     if u[index] == edge:
         return reached
     if limit is None:
+        guess = step_control.edge_guess(u, u_out, edge)
         correction = correctors.correct_on_edge(
-            evaluate, step_control.edge_guess(u, u_out, edge), edge, counts
+            walk.evaluate, guess, edge, counts, sparse=walk.sparse
         )
     else:
-        correction = correctors.correct_on_limit(evaluate, u, u_out, edge, index, counts)
-    converged, iterations, u_edge, _, g_edge, jac_edge, failure = correction
-    counts.newton += iterations
-    if converged:
-        t_edge, singular = _tangent_at(jac_edge, t, sparse, counts, "undefined")
-        if singular:
-            # The edge point is a solution but a singular one (a branch point or a
-            # line of equilibria lies on the edge): keep the last tangent for its row.
-            t_edge = t
-            reached = (
-                STATUS_DONE,
-                reached[1] + " (a singular point: the tangent there is undefined)",
-            )
-    if failure:
-        return STATUS_FAILED, (
+        correction = correctors.correct_on_limit(walk.evaluate, u, u_out, edge, index, counts)
+    counts.newton += correction.iterations
+    if not correction.converged:
+        return Status.FAILED, (
             f"could not put the last point on {where} (after the point "
-            f"{describe_point(problem, u)}): {failure}"
+            f"{describe_point(problem, u)}): {correction.message}"
         )
+    u_edge = correction.u
+    t_edge, singular = walk.tangent_at(correction.jacobian, walk.t, "undefined")
+    if singular:
+        # The edge point is a solution but a singular one (a branch point or a
+        # line of equilibria lies on the edge): keep the last tangent for its row.
+        t_edge = walk.t
+        reached = Status.DONE, reached[1] + " (a singular point: the tangent there is undefined)"
     try:
-        payload, tests = problem.observe(u_edge, t_edge, jac_edge)
+        payload, tests = problem.observe(u_edge, t_edge, correction.jacobian)
     except ObservationFailed as exc:
-        return STATUS_FAILED, f"stopped {describe_point(problem, u_edge)}: {exc}"
-    arclength += linalg.norm(u_edge - u)
-    residual = linalg.norm(g_edge)
-    rows.append(
-        (u_edge, t_edge, arclength, iterations, residual, np.asarray(tests, float), payload)
+        return Status.FAILED, f"stopped {describe_point(problem, u_edge)}: {exc}"
+    arclength = walk.arclength + linalg.norm(u_edge - u)
+    residual = linalg.norm(correction.g)
+    walk.rows.append(
+        (
+            u_edge,
+            t_edge,
+            arclength,
+            correction.iterations,
+            residual,
+            np.asarray(tests, float),
+            payload,
+        )
     )
     return reached
 

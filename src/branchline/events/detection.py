@@ -1,9 +1,8 @@
-"""Test functions along equilibrium branches, and the brackets where they change sign.
+"""The equilibrium branch's test functions, and its Hopf brackets from eigenvalue pairs.
 
-Test functions (evaluated at every accepted point, in this order):
+The test functions an equilibrium-branch problem evaluates at every accepted
+point (:mod:`branchline.problems.equilibrium_branch` names them):
 
-- ``fold``: the parameter component of the unit tangent; changes sign at a
-  turning point of the branch.
 - ``hopf``: a function that vanishes when a pair of eigenvalues sums to zero:
   the determinant of the bialternate product 2A (.) I, i.e.
   prod_{i<j} (lambda_i + lambda_j) (Kuznetsov, Elements of Applied Bifurcation
@@ -15,21 +14,22 @@ Test functions (evaluated at every accepted point, in this order):
   which changes sign where two branches cross (Allgower & Georg, Introduction
   to Numerical Continuation Methods, section 8.1).
 
-:func:`find_brackets` turns the sign changes between consecutive rows into
-:class:`Bracket` records with seeds for location (:mod:`branchline.events.location`);
-Hopf brackets also come from matching complex eigenvalues between rows
-(:mod:`branchline.events.eigenvalue_pairs`).
+(The ``fold`` test, the tangent's parameter component, needs no code.)
+:func:`hopf_brackets` turns sign changes of the Hopf test, and complex pairs
+crossing the imaginary axis between rows (:mod:`branchline.events.eigenvalue_pairs`,
+two pairs crossing in one step leave the test's sign unchanged), into
+brackets with a frequency seed for location (:mod:`branchline.events.location`).
 """
 
 from __future__ import annotations
 
 import cmath
 import math
-from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.sparse as sps
 
+from branchline.events.brackets import Bracket, sign_changes
 from branchline.events.eigenvalue_pairs import (
     COMPLEX_RTOL,
     complex_count_changes,
@@ -43,13 +43,10 @@ from branchline.numerics.linalg import (
     from_signed_log,
     signed_product,
     sparse_slogdet,
-    zero_crossing_fraction,
 )
-from branchline.results.records import Branch
+from branchline.vocabulary import EventKind
 
 Array = np.ndarray
-
-TEST_FUNCTIONS = ("fold", "hopf", "branch_point")
 
 # Rows with up to this many eigenvalues use the full bialternate product
 # (n (n - 1) / 2 factors); longer rows use the leading eigenvalues only.
@@ -58,10 +55,6 @@ BIALTERNATE_MAX_SIZE = 50
 # Up to this many eigenvalues the pair product is a plain Python loop (faster
 # than numpy's per-call overhead for a handful of factors).
 PYTHON_PRODUCT_MAX_SIZE = 8
-# An end row whose branch-point test is this small relative to its neighbour's
-# sits on a zero (roundoff of either sign), e.g. a trace that landed on a state
-# limit exactly where another branch crosses.
-END_ZERO_RTOL = 1e-9
 
 
 # ----------------------------------------------------------------------------
@@ -114,33 +107,6 @@ def _leading_pairs_test(eigenvalues: Array) -> float:
     return (-1.0) ** unstable * float(np.min(np.abs(upper.real)))
 
 
-def equilibrium_tests(
-    jac_x: np.ndarray, jac_p: np.ndarray, tangent: np.ndarray, eigenvalues: np.ndarray
-) -> np.ndarray:
-    """Test-function values at one point of an equilibrium branch.
-
-    Parameters
-    ----------
-    jac_x : ndarray (n, n) or scipy.sparse matrix
-        df/dx at the point.
-    jac_p : ndarray (n,)
-        df/dp for the varied parameter.
-    tangent : ndarray (n + 1,)
-        Unit tangent (states, then parameter).
-    eigenvalues : ndarray (r,) complex
-        Eigenvalues of ``jac_x`` (all, or the r leading ones), NaN-padded allowed.
-
-    Returns
-    -------
-    ndarray (3,)
-        Values in the order of :data:`TEST_FUNCTIONS`. Only their signs, zeros
-        and local smoothness carry meaning.
-    """
-    return np.array(
-        [float(tangent[-1]), hopf_test(eigenvalues), bordered_determinant(jac_x, jac_p, tangent)]
-    )
-
-
 def bordered_determinant(jac_x: object, jac_p: Array, tangent: Array) -> float:
     """det [[f_x, f_p], [t^T]]: explicit for n <= 2, LAPACK LU, or sparse SuperLU.
 
@@ -172,72 +138,40 @@ def bordered_determinant(jac_x: object, jac_p: Array, tangent: Array) -> float:
 
 
 # ----------------------------------------------------------------------------
-# brackets
+# Hopf brackets
 
 
-@dataclass(frozen=True)
-class Bracket:
-    """Two consecutive rows of a branch between which a test function changes sign."""
+def hopf_brackets(hopf_values: Array, eigenvalues: Array) -> list[Bracket]:
+    """Hopf brackets along a curve of equilibria, with a frequency seed in ``hint``.
 
-    kind: str
-    row: int  # the first of the two rows
-    fraction: float  # linear-interpolation estimate of the crossing within the step
-    hint: dict = field(default_factory=dict)  # kind-specific seed information
+    Parameters
+    ----------
+    hopf_values : ndarray (k,)
+        The ``hopf`` test per row.
+    eigenvalues : ndarray (k, r) complex
+        The rows' eigenvalues, sorted by decreasing real part.
 
-
-def _sign_changes(values: Array) -> list[int]:
-    signs = np.sign(values)
-    rows = []
-    for row in range(values.shape[0] - 1):
-        a, b = signs[row], signs[row + 1]
-        if a != b and not (a == 0 and row > 0):  # a zero row is counted once, from before
-            if np.isfinite(values[row]) and np.isfinite(values[row + 1]):
-                rows.append(row)
-    return rows
-
-
-def _vanishing_ends(values: Array) -> list[tuple[int, float]]:
-    """(row, fraction) brackets for a trace that ends (or starts) on a zero of ``values``.
-
-    A trace that lands on a state limit exactly where another branch crosses
-    ends with a test value that is zero up to roundoff, of either sign: no
-    sign change between rows, yet an event sits on the end point.
+    Each complex pair crossing the imaginary axis between two rows is a bracket
+    (``hint``: ``omega``, and ``tentative`` when inferred from counts only). A
+    sign change of the test with no pair crossing is a neutral saddle, unless a
+    pair turned complex within the step (then one tentative bracket).
     """
-    found = []
-    if values.shape[0] < 2:
-        return found
-    for end, neighbour, row, fraction in ((-1, -2, values.shape[0] - 2, 1.0), (0, 1, 0, 0.0)):
-        a, b = values[end], values[neighbour]
-        if a != 0.0 and np.sign(a) == np.sign(b) and abs(a) <= END_ZERO_RTOL * abs(b):
-            found.append((row, fraction))
-    return found
-
-
-def find_brackets(branch: Branch) -> list[Bracket]:
-    """Every sign change of a test function between consecutive rows, with seeds."""
-    tests = branch.test_values
     brackets: list[Bracket] = []
-    for column, kind in ((0, "fold"), (2, "branch_point")):
-        for row in _sign_changes(tests[:, column]):
-            fraction = zero_crossing_fraction(tests[row, column], tests[row + 1, column])
-            brackets.append(Bracket(kind, row, fraction))
-    for row, fraction in _vanishing_ends(tests[:, 2]):
-        brackets.append(Bracket("branch_point", row, fraction))
-    hopf_rows = set(_sign_changes(tests[:, 1]))
-    candidates = sorted(hopf_rows | set(complex_count_changes(branch.eigenvalues)))
+    hopf_rows = set(sign_changes(hopf_values))
+    candidates = sorted(hopf_rows | set(complex_count_changes(eigenvalues)))
     for row in candidates:
-        crossings = hopf_crossings(branch.eigenvalues[row], branch.eigenvalues[row + 1])
+        crossings = hopf_crossings(eigenvalues[row], eigenvalues[row + 1])
         for fraction, omega, tentative in crossings:
             hint = {"omega": omega, "tentative": tentative}
-            brackets.append(Bracket("hopf", row, fraction, hint))
+            brackets.append(Bracket(EventKind.HOPF, row, fraction, hint))
         if row in hopf_rows and not crossings:
             # the test changed sign but no tracked complex pair crossed: a neutral
             # saddle (kappa < 0) unless a pair turned complex within the step
             for end in (row, row + 1):
-                first, second = nearest_pair(branch.eigenvalues[end])
+                first, second = nearest_pair(eigenvalues[end])
                 kappa = (first * second).real
                 if kappa > 0.0 and abs(first.imag) > 0.0:
                     hint = {"omega": math.sqrt(kappa), "tentative": True}
-                    brackets.append(Bracket("hopf", row, 0.5, hint))
+                    brackets.append(Bracket(EventKind.HOPF, row, 0.5, hint))
                     break
     return brackets

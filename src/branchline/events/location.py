@@ -1,6 +1,7 @@
 """Location of one bracketed event, and its description as an :class:`Event`.
 
-Each bracket from :func:`branchline.events.detection.find_brackets` is refined by
+Each bracket of an equilibrium branch
+(:func:`branchline.problems.equilibrium_branch.find_brackets`) is refined by
 Newton's method on the event's defining system
 (:mod:`branchline.events.defining_systems`), then described with its normal form
 (:mod:`branchline.events.normal_forms`). Only when Newton fails, or converges outside
@@ -26,6 +27,7 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
+from branchline.events.brackets import Bracket, LocationFailed
 from branchline.events.defining_systems import (
     NewtonOutcome,
     branch_point_system,
@@ -35,7 +37,7 @@ from branchline.events.defining_systems import (
     on_branch_system,
     with_value,
 )
-from branchline.events.detection import TEST_FUNCTIONS, Bracket, bordered_determinant
+from branchline.events.detection import bordered_determinant
 from branchline.events.normal_forms import (
     branch_point_normal_form,
     branch_tangent,
@@ -49,6 +51,7 @@ from branchline.events.normal_forms import (
     state_jacobian,
 )
 from branchline.results.records import Branch, Event
+from branchline.vocabulary import EventKind
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -79,10 +82,6 @@ BISECTION_MAX_ITERATIONS = 200
 # If the branch cannot be corrected at a bisection point, a bracket already
 # shorter than this fraction of the step is still reported (with its width).
 BISECTION_GIVE_UP_WIDTH = 1e-6
-
-
-class LocationFailed(Exception):
-    """Neither Newton on the defining system nor bisection placed the event."""
 
 
 # ----------------------------------------------------------------------------
@@ -229,7 +228,7 @@ def _bracket_details(branch: Branch, bracket: Bracket) -> dict:
         "test_values": {
             "before": [float(v) for v in branch.test_values[bracket.row]],
             "after": [float(v) for v in branch.test_values[bracket.row + 1]],
-            "order": list(TEST_FUNCTIONS),
+            "order": [str(name) for name in branch.test_names],
         },
     }
 
@@ -285,7 +284,7 @@ def unrefined_event(model: Model, branch: Branch, k: int, bracket: Bracket, reas
         "tangent": [float(v) for v in branch.tangents[bracket.row]],
         "eigenvalues": _json_complex(branch.eigenvalues[bracket.row]),
     }
-    omega = bracket.hint.get("omega") if bracket.kind == "hopf" else None
+    omega = bracket.hint.get("omega") if bracket.kind == EventKind.HOPF else None
     return Event(
         trace=branch.name,
         kind=bracket.kind,
@@ -353,7 +352,15 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         )
     note = "; ".join(s for s in (side_note, note) if s)
     return _make_event(
-        model, branch, k, bracket, u, "fold", details, fold_coefficient=form.coefficient, note=note
+        model,
+        branch,
+        k,
+        bracket,
+        u,
+        EventKind.FOLD,
+        details,
+        fold_coefficient=form.coefficient,
+        note=note,
     )
 
 
@@ -445,7 +452,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         k,
         bracket,
         u,
-        "hopf",
+        EventKind.HOPF,
         details,
         frequency=omega,
         lyapunov=lyapunov,
@@ -553,7 +560,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
         k,
         bracket,
         u,
-        "branch_point",
+        EventKind.BRANCH_POINT,
         details,
         branching=form.branching or None,
         note=note,
@@ -567,5 +574,3 @@ def _branch_point_test(model: Model, branch: Branch, k: int, u: Array, chord: Ar
     t = branch_tangent(model, u[:-1], full, k, chord)
     return bordered_determinant(a_matrix, fp, t)
 
-
-LOCATORS = {"fold": locate_fold, "hopf": locate_hopf, "branch_point": locate_branch_point}

@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from branchline.numerics import linalg
+from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -29,16 +30,9 @@ if TYPE_CHECKING:
 Array = np.ndarray
 
 # --- Newton settings -------------------------------------------------------
-# Residual norm (Euclidean) accepted as zero. Tests demand 1e-10 residuals on
-# O(1) models; models whose terms are much larger than 1 reach the roundoff
-# floor first and are accepted by the update test (STAGNATION_RTOL) instead.
-RESIDUAL_TOL = 1e-10
 # Newton update accepted as converged relative to 1 + |x|. Quadratic
 # convergence makes the next error about the square of this.
 UPDATE_RTOL = 1e-8
-# An update this small (relative) means the iteration has reached roundoff:
-# further steps cannot reduce the residual.
-STAGNATION_RTOL = 16 * np.finfo(float).eps
 MAX_NEWTON_ITERATIONS = 50
 # Backtracking: halve the step until the residual norm drops by at least this
 # fraction of the step length (Armijo's sufficient-decrease constant, common practice).

@@ -1,37 +1,79 @@
-"""Equilibrium branches: the problem f(x, p) = 0 in u = (x, p) and ``trace_branch``.
+"""The equilibrium branch as one unit: f(x, p) = 0 followed in u = (x, p).
 
-``EquilibriumBranch`` is the problem handed to the continuation engine
-(:func:`branchline.continuation.engine.follow_curve`); ``trace_branch`` solves the
-start equilibrium, follows the branch to one or both sides and assembles the
-:class:`branchline.results.records.Branch` record in trace order.
+Everything that makes an equilibrium branch is declared here:
+
+- unknowns u = (x, p_vary), residual f(x, p), Jacobian [f_x, f_p]
+  (:class:`EquilibriumBranch`, the problem handed to the continuation engine);
+- its test functions, by name (:data:`TEST_FUNCTIONS`: ``fold``, the tangent's
+  parameter component; ``hopf`` and ``branch_point`` from
+  :mod:`branchline.events.detection`), evaluated in ``observe``;
+- how each event is located (:data:`LOCATORS`, defining systems and normal
+  forms in :mod:`branchline.events.location`), in which order, and when two are
+  one (:func:`branchline.events.locate.same_event`): :func:`locate_events`;
+- its record (:class:`branchline.results.records.Branch`, assembled by
+  :func:`trace_branch`) and the stability columns of its table
+  (:func:`stability_columns`).
+
+Tracing both sides, joining them in trace order, finding sign changes of named
+test functions and dispatching brackets are problem-independent
+(:mod:`branchline.problems.tracing`, :mod:`branchline.events.brackets`).
+
+Example
+-------
+>>> import numpy as np
+>>> from branchline.model.build import build_model
+>>> from branchline.scan.loader import ExpressionModelSpec, StepSettings
+>>> model = build_model(ExpressionModelSpec(parameters={"h": 0.1},
+...                                         equations={"N": "N*(1 - N) - h"}))
+>>> branch = trace_branch(model, "t", "h", model.defaults, np.array([0.9]),
+...                       (0.0, 0.4), "both", StepSettings())
+>>> [(str(e.kind), e.value) for e in locate_events(model, branch)]
+[('fold', 0.25)]
 """
 
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from functools import partial
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from branchline.continuation import engine as continuation
 from branchline.continuation import step_control
-from branchline.events import locate as events
+from branchline.continuation.engine import ObservationFailed
+from branchline.events import location
+from branchline.events.brackets import (
+    Bracket,
+    locate_brackets,
+    sign_change_brackets,
+    vanishing_end_brackets,
+)
+from branchline.events.detection import bordered_determinant, hopf_brackets, hopf_test
+from branchline.events.locate import same_event
 from branchline.numerics import linalg
 from branchline.problems.equilibrium import solve_equilibrium
-from branchline.results.records import (
-    STATUS_CLOSED,
-    STATUS_DONE,
-    STATUS_FAILED,
-    STATUS_MAX_POINTS,
-    Branch,
+from branchline.problems.tracing import (
+    DIRECTIONS,
+    TraceRequest,
+    in_trace_order,
+    summarize,
+    total_counts,
+    trace_sides,
 )
+from branchline.results.records import Branch, Event
+from branchline.vocabulary import EventKind, Status
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
-    from branchline.scan.loader import StepSettings
+    from branchline.numerics.tolerances import StepSettings
 
 Array = np.ndarray
 
+# The test functions, by name: the columns of Branch.test_values in this order.
+TEST_FUNCTIONS = (EventKind.FOLD, EventKind.HOPF, EventKind.BRANCH_POINT)
+# Brackets are located in this order, so that a fold that is really a branch
+# point is met after the branch point and dropped as its duplicate.
+LOCATION_ORDER = (EventKind.BRANCH_POINT, EventKind.HOPF, EventKind.FOLD)
 # An eigenvalue counts as unstable when its real part exceeds this fraction of
 # the spectral radius: roundoff in LAPACK eigenvalues is about eps * |J|, so a
 # zero eigenvalue (a conserved quantity, say) never flickers into "unstable".
@@ -42,7 +84,30 @@ EIGENVALUES_FAILED = "eigenvalues near the imaginary axis could not be computed"
 # is below this (it is a located branch point, where Newton in x alone is singular).
 SWITCH_START_RESIDUAL = 1e-8
 
-DIRECTIONS = ("both", "increasing", "decreasing")
+
+def equilibrium_tests(jac_x: Any, jac_p: Array, tangent: Array, eigenvalues: Array) -> Array:
+    """Test-function values at one point of an equilibrium branch.
+
+    Parameters
+    ----------
+    jac_x : ndarray (n, n) or scipy.sparse matrix
+        df/dx at the point.
+    jac_p : ndarray (n,)
+        df/dp for the varied parameter.
+    tangent : ndarray (n + 1,)
+        Unit tangent (states, then parameter), in trace order.
+    eigenvalues : ndarray (r,) complex
+        Eigenvalues of ``jac_x`` (all, or the r leading ones), NaN-padded allowed.
+
+    Returns
+    -------
+    ndarray (3,)
+        Values in the order of :data:`TEST_FUNCTIONS`. Only their signs, zeros
+        and local smoothness carry meaning.
+    """
+    return np.array(
+        [float(tangent[-1]), hopf_test(eigenvalues), bordered_determinant(jac_x, jac_p, tangent)]
+    )
 
 
 class EquilibriumBranch:
@@ -78,7 +143,6 @@ class EquilibriumBranch:
         self._derivatives = getattr(model, "derivatives", None)
         self._jacobian_x = model.jacobian
         self._jacobian_p = model.parameter_jacobian
-        self._tests = events.equilibrium_tests
 
     def _parameters(self, u: Array) -> Array:
         # One buffer, updated in place: the model functions read p and keep no
@@ -123,7 +187,7 @@ class EquilibriumBranch:
 
         Raises
         ------
-        continuation.ObservationFailed
+        ObservationFailed
             When a large sparse model's leading eigenvalues cannot be computed
             (the engine then stops the branch there, status ``failed``): a row
             of unknown stability would hide stability changes.
@@ -138,14 +202,14 @@ class EquilibriumBranch:
             else:
                 search = linalg.search_leading_eigenvalues(fx)
                 if not search.found:
-                    raise continuation.ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
+                    raise ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
                 eigenvalues = search.values
         else:
             fx = jacobian[:, :n]
             fp = jacobian[:, n]
             eigenvalues = linalg.sort_eigenvalues(linalg.eigvals_unchecked(fx))
         oriented = tangent if self.orientation > 0 else -tangent
-        return eigenvalues, self._tests(fx, fp, oriented, eigenvalues)
+        return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues)
 
     def describe(self, u: Array) -> str:
         """The point for messages: the varied parameter and the first few states."""
@@ -232,23 +296,47 @@ def trace_branch(
     vary_index = model.parameters.index(vary)
     parameters = np.array(parameters, dtype=float)
     lo, hi = sorted((float(interval[0]), float(interval[1])))
+    record = partial(_branch_record, model, name, vary, parameters, (lo, hi), parent)
+    u0, failure, start_counts = _start_point(
+        model, vary, vary_index, parameters, x_start, (lo, hi), start_tangent
+    )
+    if failure:
+        return record([], Status.FAILED, failure, start_counts)
+    for limit in state_limits:
+        if step_control.beyond_limit(u0[limit.index], limit) is not None:
+            message = (
+                f"the start equilibrium has {limit.name}={u0[limit.index]:.10g}, outside "
+                f"its limits [{limit.lo:.10g}, {limit.hi:.10g}] (trace limits)"
+            )
+            return record([], Status.FAILED, message, start_counts)
+    request = TraceRequest(
+        start=u0,
+        bounds=(lo, hi),
+        direction=direction,
+        steps=steps,
+        newton=newton,
+        limits=state_limits,
+        start_tangent=start_tangent,
+        progress=progress,
+    )
+    curves = trace_sides(
+        lambda orientation: EquilibriumBranch(model, vary_index, parameters, orientation), request
+    )
+    status, message = summarize(curves)
+    return record(curves, status, message, start_counts)
+
+
+def _start_point(model, vary, vary_index, parameters, x_start, interval, start_tangent):
+    """(u0, "", counts) of the start equilibrium, or (None, why there is none, counts)."""
+    lo, hi = interval
     start_value = float(parameters[vary_index])
-    n = len(model.states)
-    counts = dict.fromkeys(continuation.COUNT_KEYS, 0)
-
-    def record(curves, status, message):
-        return _assemble(
-            model, name, vary, parameters, (lo, hi), curves, status, message, counts, parent
-        )
-
+    counts = {"rhs_evaluations": 0, "jacobian_evaluations": 0, "newton_iterations": 0}
     if not lo <= start_value <= hi:
-        return record(
-            [],
-            STATUS_FAILED,
+        message = (
             f"the start value {vary}={start_value:.10g} lies outside the interval "
-            f"[{lo:.10g}, {hi:.10g}]",
+            f"[{lo:.10g}, {hi:.10g}]"
         )
-
+        return None, message, counts
     x_start = np.array(x_start, dtype=float).reshape(-1)
     start_ok = False
     if start_tangent is not None:
@@ -262,61 +350,12 @@ def trace_branch(
         counts["jacobian_evaluations"] += solution.iterations
         counts["newton_iterations"] += solution.iterations
         if not solution.converged:
-            return record(
-                [],
-                STATUS_FAILED,
-                f"no equilibrium found at the start {vary}={start_value:.10g}: {solution.message}",
+            message = (
+                f"no equilibrium found at the start {vary}={start_value:.10g}: {solution.message}"
             )
+            return None, message, counts
         x_start = solution.state
-    u0 = np.append(x_start, start_value)
-    for limit in state_limits:
-        if step_control.beyond_limit(u0[limit.index], limit) is not None:
-            return record(
-                [],
-                STATUS_FAILED,
-                f"the start equilibrium has {limit.name}={u0[limit.index]:.10g}, outside "
-                f"its limits [{limit.lo:.10g}, {limit.hi:.10g}] (trace limits)",
-            )
-    sides = _sides(direction, start_tangent, n)
-    curves: list[tuple[int, continuation.Curve]] = []
-    done_points = 0
-    for orientation, tangent0, exact in sides:
-        problem = EquilibriumBranch(model, vary_index, parameters, orientation)
-        if tangent0 is None:
-            # One tangent for both sides, reversed for the decreasing one, so that
-            # the two sides leave in opposite directions even at a turning point.
-            base = _initial_direction(problem, u0)
-            if isinstance(base, str):
-                curves.append((orientation, continuation.failed_curve(u0, base)))
-                continue
-            tangent0 = orientation * base
-
-        offset = max(done_points - 1, 0)  # the second side's start row is the first's
-
-        def report(count, offset=offset):
-            if progress is not None:
-                progress(offset + count)
-
-        curve = continuation.follow_curve(
-            problem,
-            u0,
-            tangent0,
-            steps,
-            (lo, hi),
-            newton=newton,
-            progress=report,
-            start_tangent_exact=exact,
-            limits=state_limits,
-        )
-        curves.append((orientation, curve))
-        done_points += len(curve)
-        if curve.status == continuation.STATUS_CLOSED:
-            break  # the other side is the same closed curve
-    for _, curve in curves:
-        for key, value in curve.counts.items():
-            counts[key] = counts.get(key, 0) + value
-    status, message = _summarize(curves, vary)
-    return record(curves, status, message)
+    return np.append(x_start, start_value), "", counts
 
 
 def state_limits_of(
@@ -354,137 +393,49 @@ def within_limits(state: Array, limits: tuple[step_control.Limit, ...]) -> bool:
     return all(step_control.beyond_limit(state[lim.index], lim) is None for lim in limits)
 
 
-def _sides(direction, start_tangent, n):
-    """(orientation, tangent0 or None, exact) for each side to trace, in trace order."""
-    if start_tangent is not None:
-        tangent = np.array(start_tangent, dtype=float).reshape(-1)
-        if tangent.shape[0] != n + 1:
-            raise ValueError(f"start_tangent must have {n + 1} components, not {tangent.shape[0]}")
-        return [(1, tangent / linalg.norm(tangent), True)]
-    if direction == "both":
-        return [(-1, None, False), (1, None, False)]
-    if direction == "decreasing":
-        return [(-1, None, False)]
-    return [(1, None, False)]
-
-
-def _initial_direction(problem, u0):
-    """The unit tangent at the start with non-negative parameter component, or a message."""
-    with np.errstate(all="ignore"):
-        jac = problem.jacobian(u0)
-    try:
-        return linalg.initial_tangent(jac, 1.0)
-    except linalg.SingularMatrixError:
-        return (
-            f"the branch direction is undefined at the start {problem.describe(u0)}: "
-            "the Jacobian [f_x, f_p] has rank below n (a branch point?)"
-        )
-
-
-_STATUS_ORDER = {STATUS_FAILED: 3, STATUS_MAX_POINTS: 2, STATUS_CLOSED: 1, STATUS_DONE: 0}
-_SIDE_NAMES = {-1: "decreasing side", 1: "increasing side"}
-
-
-def _summarize(curves, vary):
-    if not curves:
-        return STATUS_DONE, ""
-    status = max((curve.status for _, curve in curves), key=lambda s: _STATUS_ORDER.get(s, 3))
-    if len(curves) == 1:
-        return status, curves[0][1].message
-    parts = [
-        f"{_SIDE_NAMES[orientation]}: {curve.message or curve.status}"
-        for orientation, curve in curves
-    ]
-    return status, "; ".join(parts)
-
-
-def _assemble(
-    model: Model, name, vary, parameters, interval, curves, status, message, counts, parent
-):
-    """Concatenate the sides in trace order into a Branch record."""
+def _branch_record(
+    model: Model, name, vary, parameters, interval, parent, curves, status, message, counts
+) -> Branch:
+    """The Branch record of a trace: its sides' rows joined in trace order."""
     n = len(model.states)
-    pieces = []
-    for orientation, curve in curves:
-        if len(curve) == 0:
-            continue
-        pieces.append((orientation, curve))
-    if not pieces:
+    rows = in_trace_order(curves)
+    common = {
+        "name": name,
+        "vary": vary,
+        "parameters": parameters,
+        "status": status,
+        "message": message,
+        "interval": interval,
+        "counts": total_counts(curves, counts),
+        "parent": parent,
+        "test_names": TEST_FUNCTIONS,
+    }
+    if rows is None:
         return Branch(
-            name=name,
-            vary=vary,
-            parameters=parameters,
             parameter_values=np.empty(0),
             states=np.empty((0, n)),
             arclength=np.empty(0),
             tangents=np.empty((0, n + 1)),
             eigenvalues=np.empty((0, n), dtype=complex),
             unstable_count=np.empty(0, dtype=int),
-            test_values=np.empty((0, len(events.TEST_FUNCTIONS))),
+            test_values=np.empty((0, len(TEST_FUNCTIONS))),
             newton_iterations=np.empty(0, dtype=int),
             residual_norms=np.empty(0),
-            status=status,
-            message=message,
-            interval=interval,
-            counts=dict(counts),
-            parent=parent,
+            **common,
         )
-    columns = {
-        key: []
-        for key in (
-            "points",
-            "tangents",
-            "arclength",
-            "iterations",
-            "residuals",
-            "tests",
-            "eigenvalues",
-        )
-    }
-    for index, (orientation, curve) in enumerate(pieces):
-        rows = slice(None)
-        if orientation < 0:
-            order = slice(None, None, -1)
-            sign = -1.0
-        else:
-            order = slice(None)
-            sign = 1.0
-            # The start row is already there when the decreasing side came first.
-            if index > 0 and pieces[index - 1][0] < 0:
-                rows = slice(1, None)
-        select = _compose(order, rows, len(curve))
-        columns["points"].append(curve.points[select])
-        columns["tangents"].append(sign * curve.tangents[select])
-        columns["arclength"].append(sign * curve.arclength[select])
-        columns["iterations"].append(curve.newton_iterations[select])
-        columns["residuals"].append(curve.residual_norms[select])
-        columns["tests"].append(curve.test_values[select])
-        columns["eigenvalues"].append(np.asarray(curve.payloads)[select])
-    points = np.concatenate(columns["points"])
-    eigenvalues = np.concatenate(columns["eigenvalues"]).astype(complex)
+    eigenvalues = rows.payloads.astype(complex)
     return Branch(
-        name=name,
-        vary=vary,
-        parameters=parameters,
-        parameter_values=points[:, -1].copy(),
-        states=points[:, :-1].copy(),
-        arclength=np.concatenate(columns["arclength"]),
-        tangents=np.concatenate(columns["tangents"]),
+        parameter_values=rows.points[:, -1].copy(),
+        states=rows.points[:, :-1].copy(),
+        arclength=rows.arclength,
+        tangents=rows.tangents,
         eigenvalues=eigenvalues,
         unstable_count=unstable_counts(eigenvalues),
-        test_values=np.concatenate(columns["tests"]),
-        newton_iterations=np.concatenate(columns["iterations"]).astype(int),
-        residual_norms=np.concatenate(columns["residuals"]),
-        status=status,
-        message=message,
-        interval=interval,
-        counts=dict(counts),
-        parent=parent,
+        test_values=rows.test_values,
+        newton_iterations=rows.newton_iterations,
+        residual_norms=rows.residual_norms,
+        **common,
     )
-
-
-def _compose(order: slice, rows: slice, length: int) -> np.ndarray:
-    indices = np.arange(length)[rows]
-    return indices[order]
 
 
 def unstable_counts(eigenvalues: Array) -> Array:
@@ -503,8 +454,85 @@ def unstable_counts(eigenvalues: Array) -> Array:
     return np.count_nonzero(positive, axis=1).astype(int)
 
 
+def find_brackets(branch: Branch) -> list[Bracket]:
+    """Every bracket of an equilibrium event along a traced branch, with seeds.
+
+    Sign changes of the ``fold`` and ``branch_point`` tests; a ``branch_point``
+    test vanishing on an end row; Hopf brackets from the ``hopf`` test and the
+    complex eigenvalue pairs (:func:`branchline.events.detection.hopf_brackets`).
+    """
+    brackets = sign_change_brackets(
+        branch.test_values, branch.test_names, (EventKind.FOLD, EventKind.BRANCH_POINT)
+    )
+    brackets += vanishing_end_brackets(branch.test(EventKind.BRANCH_POINT), EventKind.BRANCH_POINT)
+    brackets += hopf_brackets(branch.test(EventKind.HOPF), branch.eigenvalues)
+    return brackets
+
+
+# How each event of an equilibrium branch is located: Newton on its defining
+# system from the bracket, bisection on its test function as the fallback.
+LOCATORS = {
+    EventKind.FOLD: location.locate_fold,
+    EventKind.HOPF: location.locate_hopf,
+    EventKind.BRANCH_POINT: location.locate_branch_point,
+}
+
+
+def locate_events(model: Model, branch: Branch) -> list[Event]:
+    """Locate every stability change along a traced branch.
+
+    Each sign change of a test function between consecutive rows is refined by
+    Newton's method on the event's defining system (see
+    :mod:`branchline.events.defining_systems`); bisection on the test function is the
+    fallback, and says so in ``note``. An event neither can place is still
+    reported, placed by interpolation between its rows, with the reason in
+    ``note``. Folds that coincide with a branch point (the traced branch
+    turning back through a pitchfork) are reported once, as the branch point;
+    an event met from two brackets is reported once.
+
+    Returns
+    -------
+    list of Event, in trace order (by arclength).
+    """
+    if len(branch) < 2:
+        return []
+    k = model.parameter_index(branch.vary)
+    locators = {kind: partial(locate, model, branch, k) for kind, locate in LOCATORS.items()}
+    events = locate_brackets(
+        find_brackets(branch),
+        locators,
+        order=LOCATION_ORDER,
+        unrefined=partial(location.unrefined_event, model, branch, k),
+        duplicates=same_event,
+    )
+    forward = branch.arclength[-1] >= branch.arclength[0]
+    events.sort(key=lambda e: e.arclength if forward else -e.arclength)
+    return events
+
+
+def stability_columns(branch: Branch) -> dict[str, Array]:
+    """The stability columns of the branch's table (points.csv), one value per row."""
+    k = len(branch)
+    if k and branch.eigenvalues.shape[1]:
+        leading = branch.eigenvalues[:, 0]
+    else:
+        leading = np.full(k, np.nan, dtype=complex)
+    return {
+        "stable": branch.unstable_count == 0,
+        "unstable_count": branch.unstable_count.astype(int),
+        "leading_real": leading.real,
+        "leading_imag": leading.imag,
+    }
+
+
 __all__ = [
+    "LOCATORS",
+    "TEST_FUNCTIONS",
     "EquilibriumBranch",
+    "equilibrium_tests",
+    "find_brackets",
+    "locate_events",
+    "stability_columns",
     "state_limits_of",
     "trace_branch",
     "unstable_counts",

@@ -12,6 +12,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from branchline.vocabulary import Status
+
 if TYPE_CHECKING:
     import pandas as pd
     from matplotlib.figure import Figure
@@ -22,14 +24,13 @@ if TYPE_CHECKING:
 
 Array = np.ndarray
 
-EVENT_KINDS = ("fold", "hopf", "branch_point")
-
-# Numerical status of a branch (a failure is a status, not an exception).
-STATUS_DONE = "done"  # reached the interval edge (or direction not requested)
-STATUS_MAX_POINTS = "max_points"  # stopped at steps.max_points
-STATUS_CLOSED = "closed"  # the branch closed on itself (an isola)
-STATUS_FAILED = "failed"  # numerical trouble; message says where and why
-STATUS_INTERRUPTED = "interrupted"  # stopped by Ctrl-C or SIGTERM; points so far kept
+# Numerical status of a branch (a failure is a status, not an exception): the
+# members of the one enumeration, under the names the result code has used.
+STATUS_DONE = Status.DONE
+STATUS_MAX_POINTS = Status.MAX_POINTS
+STATUS_CLOSED = Status.CLOSED
+STATUS_FAILED = Status.FAILED
+STATUS_INTERRUPTED = Status.INTERRUPTED
 
 
 @dataclass(frozen=True)
@@ -57,8 +58,8 @@ class Branch:
         by decreasing real part.
     unstable_count : ndarray (k,) int
         Eigenvalues with positive real part.
-    test_values : ndarray (k, 3)
-        Test functions in the order of ``TEST_FUNCTIONS`` in :mod:`branchline.events.locate`.
+    test_values : ndarray (k, T)
+        Test-function values, one column per name of ``test_names``.
     newton_iterations : ndarray (k,) int
     residual_norms : ndarray (k,)
     status, message : str
@@ -68,6 +69,8 @@ class Branch:
     parent : str or None
         The branch this one was started from at a branch point.
     interval : tuple (lo, hi)
+    test_names : tuple of str
+        The names of the ``test_values`` columns (the problem's test functions).
     """
 
     name: str
@@ -87,6 +90,11 @@ class Branch:
     interval: tuple[float, float]
     counts: dict[str, int] = field(default_factory=dict)
     parent: str | None = None
+    test_names: tuple[str, ...] = ()
+
+    def test(self, name: str) -> Array:
+        """The values of the test function ``name`` per row, shape (k,)."""
+        return self.test_values[:, self.test_names.index(name)]
 
     @property
     def stable(self) -> Array:
@@ -106,7 +114,7 @@ class Event:
     """
 
     trace: str
-    kind: str  # one of EVENT_KINDS
+    kind: str  # an EventKind
     vary: str
     value: float  # the varied parameter at the event
     state: Array  # (n,)

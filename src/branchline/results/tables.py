@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from branchline import __version__
+from branchline.problems.equilibrium_branch import stability_columns
 from branchline.results.records import Branch, Event, RunResult
 from branchline.results.search_records import root_trace_name
 from branchline.results.search_tables import found_by, search_entry
@@ -71,14 +72,7 @@ def branch_frame(result: RunResult, branch: Branch) -> pd.DataFrame:
         columns[name] = params[:, result.model.parameter_index(name)]
     columns.update(_state_columns(result, branch.states))
     columns.update(_observable_rows(result, branch.states, params))
-    if k and branch.eigenvalues.shape[1]:
-        leading = branch.eigenvalues[:, 0]
-    else:
-        leading = np.full(k, np.nan, dtype=complex)
-    columns["stable"] = branch.unstable_count == 0
-    columns["unstable_count"] = branch.unstable_count.astype(int)
-    columns["leading_real"] = leading.real
-    columns["leading_imag"] = leading.imag
+    columns.update(stability_columns(branch))
     return pd.DataFrame(columns)
 
 

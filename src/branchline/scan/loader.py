@@ -56,6 +56,7 @@ from pathlib import Path
 from typing import Any
 
 from branchline.errors import ScanError
+from branchline.numerics.tolerances import StepSettings
 from branchline.scan.checks import (
     FILE_KEY,
     RESERVED_COLUMNS,
@@ -78,23 +79,6 @@ try:
     import tomllib
 except ModuleNotFoundError:  # Python < 3.11
     import tomli as tomllib
-
-# Defaults of the [steps] table: arclength units of the (state, parameter) space.
-DEFAULT_INITIAL_STEP = 0.01
-DEFAULT_SMALLEST_STEP = 1e-8
-DEFAULT_LARGEST_STEP = 0.05
-DEFAULT_MAX_POINTS = 2000
-
-
-@dataclass(frozen=True)
-class StepSettings:
-    """Step-length settings of a trace (pseudo-arclength units)."""
-
-    initial: float = DEFAULT_INITIAL_STEP
-    smallest: float = DEFAULT_SMALLEST_STEP
-    largest: float = DEFAULT_LARGEST_STEP
-    max_points: int = DEFAULT_MAX_POINTS
-
 
 @dataclass(frozen=True)
 class TraceSpec:

@@ -19,12 +19,13 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from branchline.events.crowding import with_start_point
 from branchline.events.defining_systems import newton, on_branch_system, with_value
-from branchline.events.locate import correct_on_branch
+from branchline.events.location import correct_on_branch
 from branchline.events.normal_forms import branch_point_normal_form, branch_tangent
-from branchline.problems.equilibrium_branch import state_limits_of, within_limits
+from branchline.problems.crowding import with_start_point
+from branchline.problems.equilibrium_branch import state_limits_of, trace_branch, within_limits
 from branchline.results.records import Branch, Event
+from branchline.vocabulary import EventKind
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -90,7 +91,8 @@ def branch_starts(
     branch : Branch
         The traced branch the event lies on.
     event : Event
-        A ``branch_point`` event from :func:`branchline.events.locate.locate_events`.
+        A ``branch_point`` event from
+        :func:`branchline.problems.equilibrium_branch.locate_events`.
     limits : mapping {state: (lo, hi)}, optional
         The trace's state limits: a half-branch starting outside them is dropped.
 
@@ -102,7 +104,7 @@ def branch_starts(
         parameter's value there, and the unit tangent pointing away from the
         branch point. Empty for other events or a degenerate branch point.
     """
-    if event.kind != "branch_point" or not event.branching:
+    if event.kind != EventKind.BRANCH_POINT or not event.branching:
         return []
     k = model.parameter_index(branch.vary)
     try:
@@ -206,10 +208,6 @@ def trace_switched(
         Named ``<parent>.<first_number>``, ... in the order started, each
         traced from its start point away from the branch point only.
     """
-    from branchline.problems.equilibrium_branch import (
-        trace_branch,  # the engine imports this module's siblings
-    )
-
     k = model.parameter_index(parent_branch.vary)
     children = []
     for x0, p0, tangent in branch_starts(model, parent_branch, event, limits):

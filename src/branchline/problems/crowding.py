@@ -42,8 +42,13 @@ from branchline.continuation.correctors import unit_tangent
 from branchline.events.eigenvalue_pairs import COMPLEX_RTOL, hopf_crossings
 from branchline.events.location import correct_on_branch
 from branchline.numerics import linalg
-from branchline.problems.equilibrium_branch import EquilibriumBranch, unstable_counts
+from branchline.problems.equilibrium_branch import (
+    TEST_FUNCTIONS,
+    EquilibriumBranch,
+    unstable_counts,
+)
 from branchline.results.records import Branch
+from branchline.vocabulary import EventKind
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -57,8 +62,10 @@ MAX_REFINEMENT_POINTS = 800
 # closer than that coincide to the accuracy of the points (a pitchfork where the
 # traced branch turns back, say).
 SMALLEST_SUBSTEP_RTOL = 1e-11
-# Columns of the test values (the order of detection.TEST_FUNCTIONS).
-FOLD, HOPF, BRANCH_POINT = 0, 1, 2
+# Columns of the test values, by the test functions' names.
+FOLD, HOPF, BRANCH_POINT = (
+    TEST_FUNCTIONS.index(kind) for kind in (EventKind.FOLD, EventKind.HOPF, EventKind.BRANCH_POINT)
+)
 
 
 @dataclass(frozen=True)
