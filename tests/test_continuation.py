@@ -612,7 +612,7 @@ def test_start_at_a_turning_point_leaves_both_ways():
 
 
 def test_large_sparse_model_uses_leading_eigenvalues():
-    # 300 states (above linalg.SPARSE_DENSE_LIMIT): shift-invert Arnoldi gives the six
+    # 300 states (above the policy's eigenvalues_dense_up_to): shift-invert Arnoldi gives the six
     # leading eigenvalues per row. Bratu's lower branch is stable, the upper one has one
     # unstable eigenvalue, exchanged at the fold (Bratu 1914; the stability exchange at a
     # fold is general: Kuznetsov, Elements of Applied Bifurcation Theory, section 3.3).

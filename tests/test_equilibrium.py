@@ -21,7 +21,7 @@ import math
 import numpy as np
 import pytest
 
-from branchline.numerics import linalg
+from branchline.numerics import eigenvalues
 from branchline.problems.equilibrium import (
     STATUS_CONVERGED,
     STATUS_NONFINITE,
@@ -316,6 +316,6 @@ def test_leading_eigenvalues_of_sparse_second_difference_matrix():
     lap = sp.diags([np.ones(n - 1), -2.0 * np.ones(n), np.ones(n - 1)], [-1, 0, 1]) / h**2
     k = np.arange(1, 7)
     exact = -4.0 / h**2 * np.sin(k * np.pi * h / 2.0) ** 2
-    found = linalg.leading_eigenvalues(lap.tocsc(), 6)
+    found = eigenvalues.leading_eigenvalues(lap.tocsc(), 6)
     np.testing.assert_allclose(found.real, exact, rtol=1e-9)
     np.testing.assert_allclose(found.imag, 0.0, atol=1e-9)

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -21,6 +22,7 @@ from branchline.events import location
 from branchline.events.defining_systems import NewtonOutcome
 from branchline.events.detection import bordered_determinant, hopf_test
 from branchline.model.build import build_model
+from branchline.numerics.policy import LinearAlgebraPolicy
 from branchline.problems.equilibrium_branch import (
     TEST_FUNCTIONS,
     equilibrium_tests,
@@ -457,19 +459,17 @@ SPARSE_CASES = {
 
 @pytest.mark.parametrize("case", sorted(SPARSE_CASES))
 def test_sparse_location_agrees_with_dense(case, monkeypatch):
-    # Large models (more than LARGE_MODEL_SIZE states) are located with SuperLU and
+    # Large models (more than location_sparse_above states) are located with SuperLU and
     # shift-invert Arnoldi; forcing that path on small models must give the same events.
     # A consistency check between two code paths (no external reference): the dense path
     # is itself checked against closed forms above.
-    from branchline.events import normal_forms
-
     equations, start, interval = SPARSE_CASES[case]
     parameters = {"p": interval[0], "a": 1.0, "D": 0.3} if case == "hopf" else {"p": interval[0]}
     model = expression_model(equations, parameters)
     branch = trace(model, "p", np.asarray(start) + 1e-3, interval)
     dense_events = locate_events(model, branch)
-    monkeypatch.setattr(normal_forms, "LARGE_MODEL_SIZE", 3)
-    sparse_events = locate_events(model, branch)
+    sparse_location = LinearAlgebraPolicy(location_sparse_above=3)
+    sparse_events = locate_events(replace(model, linear_algebra=sparse_location), branch)
     assert len(dense_events) == len(sparse_events) >= 1
     for d, s in zip(dense_events, sparse_events, strict=True):
         assert (d.kind, d.branching, d.criticality) == (s.kind, s.branching, s.criticality)
@@ -534,8 +534,7 @@ def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
     # its l1 is the single cell's divided by the number of cells (uniform
     # oscillations solve the single-cell equations; l1 scales as 1/|x|^2 under the
     # contract's normalization <q, q> = 1/2 over all states).
-    from branchline.events.normal_forms import LARGE_MODEL_SIZE
-    from branchline.numerics.linalg import sort_by_real_part
+    from branchline.numerics.eigenvalues import sort_by_real_part
     from branchline.results.records import Branch
     from branchline.scan.loader import PythonModelSpec
 
@@ -550,7 +549,7 @@ def test_hopf_of_a_large_sparse_python_model(tmp_path, monkeypatch):
             size=2 * cells,
         )
     )
-    assert model.size > LARGE_MODEL_SIZE and model.sparse
+    assert model.linear_algebra.sparse_location(model.size) and model.sparse
     # a two-row branch bracketing the Hopf point; rows as the engine records them
     values = np.array([1.995, 2.004])
     states, tangents, eigenvalues, tests = [], [], [], []

@@ -25,13 +25,13 @@ import sympy as sp
 import models_for_tests
 from branchline.errors import ScanError
 from branchline.model.build import (
-    DENSE_STATE_LIMIT,
     JACOBIAN_CHECK_TOLERANCE,
     build_model,
     check_jacobian,
     jacobian_dense,
     resolve_callable,
 )
+from branchline.numerics.policy import DEFAULT
 from branchline.scan.expressions import parse_expression
 from branchline.scan.loader import ExpressionModelSpec, PythonModelSpec
 
@@ -512,7 +512,8 @@ def test_sparse_jacobian_model():
     matrix = model.jacobian(x, p)
     assert scipy.sparse.issparse(matrix) and matrix.nnz == 3 * models_for_tests.CHAIN_SIZE - 2
     differences = build_model(_chain_spec(None))
-    assert models_for_tests.CHAIN_SIZE > DENSE_STATE_LIMIT and differences.sparse
+    assert models_for_tests.CHAIN_SIZE > DEFAULT.finite_differences_dense_up_to
+    assert differences.sparse
     assert _relative(jacobian_dense(model, x, p), jacobian_dense(differences, x, p)) < 1e-8
     assert check_jacobian(model, x, p).ok
     # Exchange and growth are at most quadratic: B(v, w) = -2 r v w componentwise

@@ -36,12 +36,15 @@ shift-invert Arnoldi at the origin alone went wrong.
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 import scipy.sparse as sp
 
 from branchline.model.build import build_model
-from branchline.numerics import linalg
+from branchline.numerics import eigenvalues
+from branchline.numerics.policy import LinearAlgebraPolicy
 from branchline.problems.equilibrium_branch import EIGENVALUES_FAILED, locate_events, trace_branch
 from branchline.scan.loader import PythonModelSpec, StepSettings
 from branchline.vocabulary import Status
@@ -107,6 +110,10 @@ def uniform_state(nodes: int, b: float) -> np.ndarray:
     return np.concatenate([np.full(nodes, A), np.full(nodes, b / A)])
 
 
+# The policy with the dense fallback of the eigenvalue search switched off.
+NO_DENSE_FALLBACK = LinearAlgebraPolicy(dense_fallback_up_to=0)
+
+
 def exact_leading(nodes: int, b: float, count: int = 6) -> np.ndarray:
     """The ``count`` rightmost eigenvalues from the closed-form 2 x 2 mode blocks."""
     k = np.arange(nodes)
@@ -115,7 +122,7 @@ def exact_leading(nodes: int, b: float, count: int = 6) -> np.ndarray:
     det = (b - 1.0 - D1 * mu) * (-A * A - D2 * mu) + A * A * b
     root = np.sqrt((trace * trace / 4.0 - det).astype(complex))
     values = np.concatenate([trace / 2.0 + root, trace / 2.0 - root])
-    return linalg.sort_by_real_part(values)[:count]
+    return eigenvalues.sort_by_real_part(values)[:count]
 
 
 # ---------------------------------------------------------------------------
@@ -126,7 +133,7 @@ def exact_leading(nodes: int, b: float, count: int = 6) -> np.ndarray:
 @pytest.mark.parametrize("b", [1.9, 2.0, 2.1])
 def test_leading_eigenvalues_match_the_exact_mode_eigenvalues(nodes, b):
     jacobian = brusselator_jacobian(uniform_state(nodes, b), {"a": A, "b": b, "d1": D1, "d2": D2})
-    search = linalg.search_leading_eigenvalues(jacobian, 6)
+    search = eigenvalues.search_leading_eigenvalues(jacobian, 6)
     assert search.found, search.message
     assert search.method == "shift-invert Arnoldi"  # not the dense fallback
     exact = exact_leading(nodes, b)
@@ -140,10 +147,10 @@ def test_the_clustered_case_defeats_a_single_shift_at_the_origin():
     # shift-invert run at 0 returns) miss the rightmost pair here.
     nodes, b = 200, 2.0
     jacobian = brusselator_jacobian(uniform_state(nodes, b), {"a": A, "b": b, "d1": D1, "d2": D2})
-    run = linalg._shift_invert_run(jacobian.tocsc(), 0.0, 12, 1.0)
+    run = eigenvalues._shift_invert_run(jacobian.tocsc(), 0.0, 12, 1.0)
     exact = exact_leading(nodes, b, 2)
     assert np.min(np.abs(run.values - exact[0])) > 1e-3
-    np.testing.assert_allclose(linalg.leading_eigenvalues(jacobian, 2), exact, atol=1e-8)
+    np.testing.assert_allclose(eigenvalues.leading_eigenvalues(jacobian, 2), exact, atol=1e-8)
 
 
 # ---------------------------------------------------------------------------
@@ -193,18 +200,18 @@ def test_a_branch_stops_where_its_eigenvalues_cannot_be_computed(monkeypatch):
     # with status failed, says where and why, and keeps the points before it.
     nodes = 200
     model = brusselator_model(nodes, 1.9)
-    real_run = linalg._shift_invert_run
+    real_run = eigenvalues._shift_invert_run
     failing_from = 2.0
 
     def run(matrix, sigma, nev, scale):
         # the uniform state's first diagonal entry is -(b + 1) + 2 b - 2 d1 / h^2
         b = matrix[0, 0] + 1.0 + 2.0 * D1 * (nodes - 1) ** 2
         if b >= failing_from:
-            return linalg._Run(np.empty(0, dtype=complex), complex(sigma), 0.0, False)
+            return eigenvalues._Run(np.empty(0, dtype=complex), complex(sigma), 0.0, False)
         return real_run(matrix, sigma, nev, scale)
 
-    monkeypatch.setattr(linalg, "_shift_invert_run", run)
-    monkeypatch.setattr(linalg, "DENSE_FALLBACK_LIMIT", 0)
+    monkeypatch.setattr(eigenvalues, "_shift_invert_run", run)
+    model = replace(model, linear_algebra=NO_DENSE_FALLBACK)
     branch = trace_branch(
         model,
         "uniform",
@@ -233,13 +240,11 @@ def test_a_search_that_fails_says_so_with_nan_values(monkeypatch):
     def no_convergence(operator, nev, which, tol, maxiter, retry=True):
         return np.empty(0, dtype=complex), False
 
-    monkeypatch.setattr(linalg, "_arpack", no_convergence)
-    monkeypatch.setattr(linalg, "DENSE_FALLBACK_LIMIT", 0)
-    search = linalg.search_leading_eigenvalues(jacobian, 6)
+    monkeypatch.setattr(eigenvalues, "_arpack", no_convergence)
+    search = eigenvalues.search_leading_eigenvalues(jacobian, 6, NO_DENSE_FALLBACK)
     assert not search.found and search.message == "ARPACK did not converge"
     assert np.all(np.isnan(search.values)) and search.values.shape == (6,)
-    # with the dense fallback allowed (400 states <= DENSE_FALLBACK_LIMIT), LAPACK decides
-    monkeypatch.setattr(linalg, "DENSE_FALLBACK_LIMIT", 800)
-    rescued = linalg.search_leading_eigenvalues(jacobian, 6)
+    # with the dense fallback allowed (400 states <= 800, the default), LAPACK decides
+    rescued = eigenvalues.search_leading_eigenvalues(jacobian, 6)
     assert rescued.found and rescued.method == "dense LAPACK after Arnoldi"
     np.testing.assert_allclose(rescued.values, exact_leading(nodes, b), atol=1e-8)

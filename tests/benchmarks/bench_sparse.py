@@ -9,7 +9,7 @@ The model is the 1-D Brusselator with no-flux ends of tests/test_sparse_eigen.py
 nodes (400 and 2000 states): a clustered spectrum near +-i, where shift-invert
 Arnoldi at the origin alone misses the rightmost pair. It prints, in one run,
 
-- seconds per call of ``linalg.search_leading_eigenvalues`` (the multi-shift
+- seconds per call of ``eigenvalues.search_leading_eigenvalues`` (the multi-shift
   search the engine runs at every point of a large sparse model), over
   Jacobians at several b, and its largest error against the exact mode
   eigenvalues;
@@ -34,7 +34,8 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "src"))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from branchline.numerics import linalg  # noqa: E402
+from branchline.numerics import eigenvalues  # noqa: E402
+from branchline.problems import equilibrium_branch  # noqa: E402
 from test_sparse_eigen import (  # noqa: E402
     D1,
     D2,
@@ -66,10 +67,10 @@ def eigen_costs(nodes):
     for b in B_VALUES:
         params = {"a": A, "b": b, "d1": D1, "d2": D2}
         jacobian = brusselator_jacobian(uniform_state(nodes, b), params).tocsc()
-        seconds, search = best(linalg.search_leading_eigenvalues, jacobian, 6)
+        seconds, search = best(eigenvalues.search_leading_eigenvalues, jacobian, 6)
         search_time += seconds
         worst = max(worst, float(np.max(np.abs(search.values - exact_leading(nodes, b)))))
-        seconds, _ = best(linalg._shift_invert_run, jacobian, 0.0, 12, 1.0)
+        seconds, _ = best(eigenvalues._shift_invert_run, jacobian, 0.0, 12, 1.0)
         single_time += seconds
         dense = jacobian.toarray()
         seconds, _ = best(np.linalg.eigvals, dense, repeats=1 if nodes > 500 else REPEATS)
@@ -81,22 +82,22 @@ def eigen_costs(nodes):
 def trace_cost(nodes):
     model = brusselator_model(nodes, 1.97)
     calls = {"seconds": 0.0, "count": 0}
-    search = linalg.search_leading_eigenvalues
+    search = equilibrium_branch.search_leading_eigenvalues
 
-    def timed(matrix, count=linalg.SPARSE_EIGEN_COUNT):
+    def timed(matrix, count=eigenvalues.SPARSE_EIGEN_COUNT, policy=eigenvalues.DEFAULT):
         start = time.perf_counter()
-        result = search(matrix, count)
+        result = search(matrix, count, policy)
         calls["seconds"] += time.perf_counter() - start
         calls["count"] += 1
         return result
 
-    linalg.search_leading_eigenvalues = timed
+    equilibrium_branch.search_leading_eigenvalues = timed
     try:
         start = time.perf_counter()
         branch = trace_uniform_through_hopf(model, nodes)
         seconds = time.perf_counter() - start
     finally:
-        linalg.search_leading_eigenvalues = search
+        equilibrium_branch.search_leading_eigenvalues = search
     return seconds / len(branch), calls["seconds"] / seconds, len(branch), branch.status
 
 

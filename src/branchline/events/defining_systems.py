@@ -30,14 +30,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 import scipy.sparse as sps
 
-from branchline.events.normal_forms import (
-    dense,
-    directional_jacobian,
-    parameter_second_derivative,
-    solve,
-    state_jacobian,
-)
-from branchline.numerics.linalg import bordered_square
+from branchline.events.normal_forms import directional_jacobian, parameter_second_derivative
+from branchline.numerics.linalg import bordered_square, dense, solve
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -161,7 +155,7 @@ def on_branch_system(model: Model, params: Array, k: int, guess: Array, directio
         full = with_value(params, k, u[-1])
         x = u[:-1]
         residual = np.append(model.rhs(x, full), direction @ (u - guess))
-        a_matrix = state_jacobian(model, x, full)
+        a_matrix = model.state_jacobian(x, full)
         fp = model.parameter_jacobian(x, full)[:, k]
         return residual, bordered_square(a_matrix, fp, direction)
 
@@ -175,7 +169,7 @@ def fold_system(model: Model, params: Array, k: int, border_b: Array, border_c: 
 
     def system(u: Array) -> tuple[Array, object]:
         x, full = u[:-1], with_value(params, k, u[-1])
-        a_matrix = state_jacobian(model, x, full)
+        a_matrix = model.state_jacobian(x, full)
         fp = model.parameter_jacobian(x, full)[:, k]
         bordered = bordered_square(a_matrix, border_b, border_c)
         rhs = np.zeros(n + 1)
@@ -201,7 +195,7 @@ def hopf_system(model: Model, params: Array, k: int, c: Array) -> System:
         qr, qi = z[n + 2 : 2 * n + 2], z[2 * n + 2 :]
         q = qr + 1j * qi
         full = with_value(params, k, p)
-        a_matrix = state_jacobian(model, x, full)
+        a_matrix = model.state_jacobian(x, full)
         fp = model.parameter_jacobian(x, full)[:, k]
         eigen_residual = a_matrix @ q - 1j * omega * q
         normal = np.vdot(c, q) - 1.0

@@ -44,6 +44,7 @@ from branchline.numerics.linalg import (
     signed_product,
     sparse_slogdet,
 )
+from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 from branchline.vocabulary import EventKind
 
 Array = np.ndarray
@@ -107,14 +108,17 @@ def _leading_pairs_test(eigenvalues: Array) -> float:
     return (-1.0) ** unstable * float(np.min(np.abs(upper.real)))
 
 
-def bordered_determinant(jac_x: object, jac_p: Array, tangent: Array) -> float:
+def bordered_determinant(
+    jac_x: object, jac_p: Array, tangent: Array, policy: LinearAlgebraPolicy = DEFAULT
+) -> float:
     """det [[f_x, f_p], [t^T]]: explicit for n <= 2, LAPACK LU, or sparse SuperLU.
 
+    A sparse ``jac_x`` is made dense up to ``policy.determinant_dense_up_to`` states.
     Overflow is avoided by falling back to log-determinants, clipped at exp(+-LOG_CLIP).
     """
     n = jac_x.shape[0]
     if hasattr(jac_x, "toarray"):
-        if n > BIALTERNATE_MAX_SIZE:
+        if n > policy.determinant_dense_up_to:
             column = sps.csc_matrix(np.asarray(jac_p, dtype=float).reshape(-1, 1))
             matrix = bordered_matrix(sps.hstack([jac_x, column]), np.asarray(tangent, dtype=float))
             sign, log_det = sparse_slogdet(matrix)

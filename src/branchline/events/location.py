@@ -10,9 +10,9 @@ branch (the event's ``note`` says so); if that fails too, the locator raises
 :class:`LocationFailed` and :func:`unrefined_event` reports the event placed by
 interpolation, with the reason in ``note``.
 
-Models with more than ``normal_forms.LARGE_MODEL_SIZE`` states are located with
-sparse linear algebra (SuperLU, shift-invert Arnoldi); their branch points by
-bisection on the sparse bordered determinant (Moore's system needs a dense
+Models the linear-algebra policy calls large (``Model.linear_algebra``,
+:mod:`branchline.numerics.policy`) are located with sparse linear algebra
+(SuperLU, shift-invert Arnoldi); their branch points by bisection on the sparse bordered determinant (Moore's system needs a dense
 Hessian).
 """
 
@@ -41,15 +41,12 @@ from branchline.events.detection import bordered_determinant
 from branchline.events.normal_forms import (
     branch_point_normal_form,
     branch_tangent,
-    dense,
-    eigenvector_near,
     fold_normal_form,
     hopf_normal_form,
-    is_large,
     leading_eigenvalues,
-    null_vectors,
-    state_jacobian,
 )
+from branchline.numerics.eigenvalues import eigenvector_near, null_vectors
+from branchline.numerics.linalg import dense
 from branchline.results.records import Branch, Event
 from branchline.vocabulary import EventKind
 
@@ -310,7 +307,7 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
     """Refine a fold bracket on the minimally augmented fold system."""
     u0 = _seed(branch, bracket)
     full0 = with_value(branch.parameters, k, u0[-1])
-    left, right = null_vectors(state_jacobian(model, u0[:-1], full0))
+    left, right = null_vectors(model.state_jacobian(u0[:-1], full0))
     system = fold_system(model, branch.parameters, k, left.real, right.real)
     outcome = newton(system, u0)
     note = ""
@@ -322,7 +319,7 @@ def locate_fold(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         method = "bisection on the tangent's parameter component"
         note = _bisection_note("fold", outcome)
     x, full = u[:-1], with_value(branch.parameters, k, u[-1])
-    a_matrix = state_jacobian(model, x, full)
+    a_matrix = model.state_jacobian(x, full)
     form = fold_normal_form(model, x, full, k)
     details = _base_details(branch, bracket, a_matrix, method, outcome)
     details["eigenvectors"] = {
@@ -378,7 +375,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
     u0 = _seed(branch, bracket)
     n = u0.shape[0] - 1
     full0 = with_value(branch.parameters, k, u0[-1])
-    a0 = state_jacobian(model, u0[:-1], full0)
+    a0 = model.state_jacobian(u0[:-1], full0)
     omega_guess = float(bracket.hint.get("omega", 0.0))
     value, q0 = eigenvector_near(a0, 1j * omega_guess)
     if abs(value.imag) <= 0.0:
@@ -410,7 +407,7 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
     omega = abs(omega)
     x, full = u[:-1], with_value(branch.parameters, k, u[-1])
-    a_matrix = state_jacobian(model, x, full)
+    a_matrix = model.state_jacobian(x, full)
     details = _base_details(branch, bracket, a_matrix, method, outcome)
     notes = []
     lyapunov, criticality = None, None
@@ -482,7 +479,7 @@ def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
 
 def _crossing_eigenvalue(model: Model, u: Array, full: Array, omega_guess: float) -> complex:
     """The upper-half-plane eigenvalue nearest i * omega_guess at u (NaN if none)."""
-    a_matrix = state_jacobian(model, u[:-1], full)
+    a_matrix = model.state_jacobian(u[:-1], full)
     if sps.issparse(a_matrix):
         value, _ = eigenvector_near(a_matrix, 1j * omega_guess)
         return complex(value.real, abs(value.imag)) if value.imag != 0 else complex(math.nan)
@@ -511,7 +508,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
     n = u0.shape[0] - 1
     full0 = with_value(branch.parameters, k, u0[-1])
     chord = _chord(branch, bracket.row)
-    large = is_large(n)
+    large = model.linear_algebra.sparse_location(n)
     if large:
         # Moore's system needs the dense (n+1)^2 Hessian of psi^T f: too costly
         outcome = NewtonOutcome(False, u0, [], "not used for large models")
@@ -538,7 +535,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
     form = branch_point_normal_form(model, x, full, k, psi, traced_tangent=traced_guess)
     overlap = np.abs(form.tangents @ chord)
     traced = int(np.argmax(overlap))
-    details = _base_details(branch, bracket, state_jacobian(model, x, full), method, outcome)
+    details = _base_details(branch, bracket, model.state_jacobian(x, full), method, outcome)
     details["eigenvectors"] = {"left": [float(v) for v in form.left_vector]}
     details["tangents"] = [[float(v) for v in t] for t in form.tangents]
     details["traced_tangent_index"] = traced
@@ -569,8 +566,8 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
 
 def _branch_point_test(model: Model, branch: Branch, k: int, u: Array, chord: Array) -> float:
     full = with_value(branch.parameters, k, u[-1])
-    a_matrix = state_jacobian(model, u[:-1], full)
+    a_matrix = model.state_jacobian(u[:-1], full)
     fp = model.parameter_jacobian(u[:-1], full)[:, k]
     t = branch_tangent(model, u[:-1], full, k, chord)
-    return bordered_determinant(a_matrix, fp, t)
+    return bordered_determinant(a_matrix, fp, t, model.linear_algebra)
 

@@ -15,7 +15,7 @@ Pure functions of a model and a located point:
 
 Also the derivative helpers the defining systems in :mod:`branchline.events.defining_systems`
 share (directional Jacobians, the second derivative of the (n, n + 1)
-equilibrium map).
+equilibrium map). Linear algebra comes from :mod:`branchline.numerics`.
 """
 
 from __future__ import annotations
@@ -25,29 +25,15 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.sparse as sp
-import scipy.sparse.linalg as spla
+
+from branchline.numerics import eigenvalues
+from branchline.numerics.eigenvalues import eigenvector_near, null_vectors
+from branchline.numerics.linalg import identity, solve
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
 
 Array = np.ndarray
-
-# Up to this many states the directional Jacobian B(v, .) is built from the
-# model's exact bilinear form, one column per call; above it a central
-# difference of the Jacobian along v costs two Jacobian calls instead of n.
-EXACT_SECOND_MAX_SIZE = 60
-
-# Above this many states the location and normal-form linear algebra is sparse
-# (SuperLU, shift-invert Arnoldi); below it dense LAPACK, which is faster there.
-LARGE_MODEL_SIZE = 300
-
-# Eigenvalues asked of shift-invert Arnoldi around a shift: more than one, so
-# that a conjugate pair at equal distance from a real shift does not stall it.
-ARNOLDI_COUNT = 4
-
-# Shift-invert Arnoldi at an exactly singular shift fails to factorize; retry
-# this far (relative to the matrix's largest entry) from it.
-SHIFT_OFFSET = 1e-10
 
 # Relative step of the central difference used for d2f/dp2 (the model has no
 # exact form for it) and for large-model directional Jacobians: eps**(1/3)
@@ -79,93 +65,11 @@ PITCHFORK_TANGENT_TOLERANCE = 1e-7
 # derivative helpers
 
 
-def dense(matrix: object) -> Array:
-    """A Jacobian as a dense ndarray (scipy.sparse input is converted)."""
-    return matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix)
-
-
-def is_large(size: int) -> bool:
-    """Whether a model of ``size`` states is handled with sparse linear algebra here."""
-    return size > LARGE_MODEL_SIZE
-
-
-def state_jacobian(model: Model, x: Array, params: Array) -> object:
-    """df/dx: a dense ndarray, or scipy.sparse CSC for more than ``LARGE_MODEL_SIZE`` states."""
-    matrix = model.jacobian(x, params)
-    if is_large(x.shape[0]):
-        return sp.csc_matrix(matrix)
-    return dense(matrix)
-
-
-def solve(matrix: object, rhs: Array) -> Array:
-    """matrix^-1 rhs for a dense or sparse square matrix; ``rhs`` may be complex.
-
-    Raises ``np.linalg.LinAlgError`` when the matrix is singular.
-    """
-    if not sp.issparse(matrix):
-        return np.linalg.solve(matrix, rhs)
-    matrix = sp.csc_matrix(matrix)
-    try:
-        factor = spla.splu(matrix)
-    except RuntimeError as exc:  # SuperLU: "Factor is exactly singular"
-        raise np.linalg.LinAlgError(str(exc)) from exc
-    if np.iscomplexobj(rhs) and not np.iscomplexobj(matrix.data):
-        return factor.solve(np.ascontiguousarray(rhs.real)) + 1j * factor.solve(
-            np.ascontiguousarray(rhs.imag)
-        )
-    return factor.solve(rhs)
-
-
-def identity(size: int, like: object) -> object:
-    """The identity, sparse when ``like`` is."""
-    return sp.identity(size, format="csc") if sp.issparse(like) else np.eye(size)
-
-
-def eigenvector_near(matrix: object, shift: complex) -> tuple[complex, Array]:
-    """The eigenvalue of ``matrix`` nearest ``shift`` and a unit eigenvector (dense LAPACK or
-    shift-invert Arnoldi, ``scipy.sparse.linalg.eigs``)."""
-    if sp.issparse(matrix):
-        scale = max(float(abs(matrix).max()), 1.0)
-        if complex(shift).imag != 0.0:
-            # scipy's eigs returns zeros for a real matrix with a complex shift
-            # (observed with scipy 1.17): factorize in complex arithmetic instead
-            matrix = sp.csc_matrix(matrix, dtype=complex)
-        count = max(1, min(ARNOLDI_COUNT, matrix.shape[0] - 2))
-        for offset in (0.0, SHIFT_OFFSET * scale):
-            try:
-                values, vectors = spla.eigs(matrix, k=count, sigma=shift + offset)
-            except (RuntimeError, spla.ArpackNoConvergence, spla.ArpackError):
-                continue
-            index = int(np.argmin(np.abs(values - shift)))
-            return complex(values[index]), vectors[:, index] / np.linalg.norm(vectors[:, index])
-        raise np.linalg.LinAlgError(f"no eigenvalue found near {shift}")
-    values, vectors = np.linalg.eig(matrix)
-    index = int(np.argmin(np.abs(values - shift)))
-    return complex(values[index]), vectors[:, index] / np.linalg.norm(vectors[:, index])
-
-
-def null_vectors(matrix: object) -> tuple[Array, Array]:
-    """Unit (left, right) vectors of the smallest singular value of a square matrix.
-
-    Dense: SVD. Sparse: shift-invert Arnoldi near 0 for the matrix and its
-    transpose (the eigenvectors of the eigenvalue nearest zero, which for a
-    nearly singular matrix span the same near-null spaces).
-    """
-    if sp.issparse(matrix):
-        _, right = eigenvector_near(matrix, 0.0)
-        _, left = eigenvector_near(sp.csc_matrix(matrix.T), 0.0)
-        return left, right
-    u, _, vh = np.linalg.svd(matrix)
-    return u[:, -1], vh[-1].conj()
-
-
 def leading_eigenvalues(matrix: object) -> Array:
     """Eigenvalues sorted by decreasing real part (all of them for dense matrices; the
     leading few, as the engine computes them, for sparse ones)."""
     if sp.issparse(matrix):
-        from branchline.numerics.linalg import leading_eigenvalues as sparse_leading
-
-        values = sparse_leading(matrix)
+        values = eigenvalues.leading_eigenvalues(matrix)
         return values[np.isfinite(values)]
     values = np.linalg.eigvals(matrix).astype(complex)
     return values[np.lexsort((-values.imag, -values.real))]
@@ -174,7 +78,7 @@ def leading_eigenvalues(matrix: object) -> Array:
 def branch_tangent(model: Model, x: Array, params: Array, k: int, like: Array) -> Array:
     """Unit null vector of [f_x, f_p] oriented along ``like`` (dense SVD, or for large
     models the bordered solve [f_x, f_p; like^T] t = e_(n+1))."""
-    a_matrix = state_jacobian(model, x, params)
+    a_matrix = model.state_jacobian(x, params)
     fp = model.parameter_jacobian(x, params)[:, k]
     if sp.issparse(a_matrix):
         bordered = sp.vstack(
@@ -206,7 +110,7 @@ def directional_jacobian(model: Model, x: Array, params: Array, v: Array) -> obj
     (a central difference of the Jacobian along v).
     """
     n = x.shape[0]
-    if n <= EXACT_SECOND_MAX_SIZE:
+    if n <= model.linear_algebra.exact_second_up_to:
         columns = [model.second(x, params, v, unit) for unit in np.eye(n)]
         return np.array(columns).T
     if np.iscomplexobj(v):
@@ -215,8 +119,8 @@ def directional_jacobian(model: Model, x: Array, params: Array, v: Array) -> obj
         )
     size = float(np.linalg.norm(v))
     h = CENTRAL_STEP * max(1.0, float(np.linalg.norm(x))) / max(size, 1e-300)
-    plus = state_jacobian(model, x + h * v, params)
-    minus = state_jacobian(model, x - h * v, params)
+    plus = model.state_jacobian(x + h * v, params)
+    minus = model.state_jacobian(x - h * v, params)
     if size == 0.0:
         return plus * 0.0
     return (plus - minus) / (2.0 * h)
@@ -312,7 +216,7 @@ def fold_normal_form(model: Model, x: Array, params: Array, k: int) -> FoldNorma
     k : int
         Index of the varied parameter.
     """
-    left, right = null_vectors(state_jacobian(model, x, params))
+    left, right = null_vectors(model.state_jacobian(x, params))
     q = _orient(right.real / np.linalg.norm(right.real))
     p = left.real / float(left.real @ q)
     bqq = np.asarray(model.second(x, params, q, q), dtype=float)
@@ -416,7 +320,7 @@ def hopf_normal_form(
         on which side the cycles are.
     """
     omega = abs(float(omega))
-    a_matrix = state_jacobian(model, x, params)
+    a_matrix = model.state_jacobian(x, params)
     eye = identity(a_matrix.shape[0], a_matrix)
     if q is None:
         _, q = eigenvector_near(a_matrix, 1j * omega)
@@ -519,7 +423,7 @@ def branch_point_normal_form(
         null space is found from the bordered matrix [f_x, f_p; t^T] (singular
         exactly at the branch point) by shift-invert Arnoldi instead of an SVD.
     """
-    a_matrix = state_jacobian(model, x, params)
+    a_matrix = model.state_jacobian(x, params)
     fp = model.parameter_jacobian(x, params)[:, k]
     if sp.issparse(a_matrix):
         if traced_tangent is None:

@@ -35,7 +35,6 @@ from branchline.model.codegen import (
     split_function,
 )
 from branchline.model.python import (
-    DENSE_STATE_LIMIT,
     probe,
     python_jacobian,
     python_observables,
@@ -43,6 +42,7 @@ from branchline.model.python import (
     resolve_callable,
 )
 from branchline.numerics.differences import central_jacobian, directional_derivative
+from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 from branchline.scan.expressions import parse_expression
 from branchline.scan.loader import ExpressionModelSpec, PythonModelSpec
 
@@ -97,6 +97,10 @@ class Model:
         df/dx and df/dp from one compiled call (expression models only).
     jacobian_source : str or None
         ``"module:function"`` of a Python model's own Jacobian, if it has one.
+    linear_algebra : LinearAlgebraPolicy
+        Where dense linear algebra ends and sparse begins for this model (tests
+        give :data:`branchline.numerics.policy.DENSE` or ``SPARSE`` to run a case
+        both ways).
     """
 
     states: tuple[str, ...]
@@ -117,11 +121,20 @@ class Model:
     exact_derivatives: bool = True
     derivatives: Callable[[Array, Array], tuple[Array, Array]] | None = None
     jacobian_source: str | None = None
+    linear_algebra: LinearAlgebraPolicy = DEFAULT
 
     @property
     def size(self) -> int:
         """Number of states n."""
         return len(self.states)
+
+    def state_jacobian(self, x: Array, p: Array) -> object:
+        """df/dx for location and normal forms: dense, or scipy.sparse CSC when the
+        model's policy says sparse for its size."""
+        matrix = self.jacobian(x, p)
+        if self.linear_algebra.sparse_location(x.shape[0]):
+            return scipy.sparse.csc_matrix(matrix)
+        return matrix.toarray() if scipy.sparse.issparse(matrix) else np.asarray(matrix)
 
     def parameter_index(self, name: str) -> int:
         """Position of parameter ``name`` in the parameter vector p."""
@@ -315,7 +328,8 @@ def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
 def check_jacobian(model: Model, x: Array, p: Array) -> JacobianCheck:
     """Compare the model's Jacobian at (x, p) with central differences of its rhs.
 
-    For up to ``DENSE_STATE_LIMIT`` states every entry is compared; above, the
+    For up to ``model.linear_algebra.finite_differences_dense_up_to`` states every
+    entry is compared; above, the
     products with ``JACOBIAN_CHECK_DIRECTIONS`` seeded random directions (a
     wrong entry shows in almost every random product, at two rhs calls each).
     The error of an entry is |J - D| / (max(|J|, |D|) + floor), the floor being
@@ -328,7 +342,7 @@ def check_jacobian(model: Model, x: Array, p: Array) -> JacobianCheck:
     x = np.asarray(x, dtype=float)
     p = np.asarray(p, dtype=float)
     n = x.shape[0]
-    if n <= DENSE_STATE_LIMIT:
+    if n <= model.linear_algebra.finite_differences_dense_up_to:
         given = jacobian_dense(model, x, p)
         differences = central_jacobian(lambda z: model.rhs(z, p), x)
         what = "every entry"
@@ -376,7 +390,6 @@ def _compare(given: Array, differences: Array, model: Model, what: str) -> Jacob
 
 
 __all__ = [
-    "DENSE_STATE_LIMIT",
     "JacobianCheck",
     "Model",
     "build_model",

@@ -21,14 +21,14 @@ import scipy.sparse
 
 from branchline.errors import ModelCodeError, ScanError
 from branchline.numerics.differences import central_jacobian, directional_derivative
+from branchline.numerics.policy import DEFAULT
 from branchline.scan.loader import PythonModelSpec
 
 Array = np.ndarray
 
-# Above this many states a finite-difference Jacobian is returned as a
-# scipy.sparse matrix (its exact zeros dropped), so that the linear algebra
-# switches to sparse LU; below it dense LAPACK is faster.
-DENSE_STATE_LIMIT = 200
+# Above DEFAULT.finite_differences_dense_up_to states a finite-difference
+# Jacobian is returned as a scipy.sparse matrix (its exact zeros dropped), so that
+# the linear algebra switches to sparse LU; below it dense LAPACK is faster.
 
 
 def resolve_callable(reference: str, source: str, key: str) -> Callable:
@@ -97,16 +97,20 @@ def python_jacobian(
 
     The user's Jacobian (wrapped; sparse if it returns scipy.sparse at the
     probe point) when the spec names one, else central differences of ``rhs``
-    (sparse above ``DENSE_STATE_LIMIT`` states).
+    (sparse above ``DEFAULT.finite_differences_dense_up_to`` states).
     """
     n = int(spec.size)
     if spec.jacobian is None:
-        sparse = n > DENSE_STATE_LIMIT
+        sparse = n > DEFAULT.finite_differences_dense_up_to
         return _difference_jacobian(rhs, sparse), sparse, DifferenceDerivatives(rhs, None, 1)
     user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
     user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters), spec.jacobian)
     sample = probe(user_jacobian, probe_point, defaults)
-    sparse = scipy.sparse.issparse(sample) if sample is not None else n > DENSE_STATE_LIMIT
+    sparse = (
+        scipy.sparse.issparse(sample)
+        if sample is not None
+        else n > DEFAULT.finite_differences_dense_up_to
+    )
     jacobian = _wrap_jacobian(user_jacobian, spec, sparse, source)
     probe(jacobian, probe_point, defaults)
     return jacobian, sparse, DifferenceDerivatives(rhs, jacobian, 0)
@@ -270,7 +274,6 @@ class DifferenceDerivatives:
 
 
 __all__ = [
-    "DENSE_STATE_LIMIT",
     "DifferenceDerivatives",
     "probe",
     "python_jacobian",

@@ -22,6 +22,12 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from branchline.numerics import linalg
+from branchline.numerics.eigenvalues import (
+    count_by_half_plane,
+    dense_eigenvalues,
+    leading_eigenvalues,
+)
+from branchline.numerics.policy import LinearAlgebraPolicy, policy_of
 from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
 
 if TYPE_CHECKING:
@@ -183,9 +189,9 @@ def _where(x: Array, p: Array, model) -> str:
     return f"at {shown}"
 
 
-def _singular(jac) -> bool:
+def _singular(jac, policy: LinearAlgebraPolicy) -> bool:
     """True when a dense Jacobian is numerically singular (sparse: left to the LU)."""
-    if linalg.is_sparse(jac) or jac.shape[0] > linalg.CONDITION_CHECK_LIMIT:
+    if linalg.is_sparse(jac) or jac.shape[0] > policy.condition_check_up_to:
         return False
     with np.errstate(all="ignore"):
         condition = np.linalg.cond(jac)
@@ -289,7 +295,7 @@ def _newton_direction(model: Model, x, p, f, residual):
     jac = _jacobian_dense_or_sparse(model, x, p)
     if jac is None:
         return STATUS_NONFINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
-    if _singular(jac):
+    if _singular(jac, policy_of(model)):
         return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
     try:
         return "", "", -linalg.solve_square(jac, f)
@@ -348,12 +354,13 @@ def linearize(model: Model, x: Array, p: Array) -> Linearization:
     p = np.asarray(p, dtype=float)
     with np.errstate(all="ignore"):
         jac = model.jacobian(x, p)
-    if linalg.is_sparse(jac) and jac.shape[0] > linalg.SPARSE_DENSE_LIMIT:
-        eigenvalues = linalg.leading_eigenvalues(jac)
+    policy = policy_of(model)
+    if linalg.is_sparse(jac) and jac.shape[0] > policy.eigenvalues_dense_up_to:
+        eigenvalues = leading_eigenvalues(jac, policy=policy)
         jac_dense = None
     else:
         jac_dense = jac.toarray() if linalg.is_sparse(jac) else np.asarray(jac, dtype=float)
-        eigenvalues = linalg.dense_eigenvalues(jac_dense)
+        eigenvalues = dense_eigenvalues(jac_dense)
     scale = rate_scale(jac, model.parameter_jacobian(x, p), x, p)
     return classify(jac_dense if jac_dense is not None else jac, eigenvalues, scale)
 
@@ -385,12 +392,12 @@ def classify(
     are described by half-plane counts.
     """
     if eigenvalues is None:
-        eigenvalues = linalg.dense_eigenvalues(np.asarray(jacobian, dtype=float))
+        eigenvalues = dense_eigenvalues(np.asarray(jacobian, dtype=float))
     eigenvalues = np.asarray(eigenvalues, dtype=complex)
     if scale is None:
         scale = jacobian_norm(jacobian)
     zero_tol = HYPERBOLIC_RTOL * scale
-    positive, zero, negative = linalg.count_by_half_plane(eigenvalues, zero_tol)
+    positive, zero, negative = count_by_half_plane(eigenvalues, zero_tol)
     hyperbolic = zero == 0 and scale > 0.0
     leading = eigenvalues[:LEADING_COUNT]
     n = eigenvalues.shape[0]

@@ -51,6 +51,12 @@ from branchline.events.brackets import (
 from branchline.events.detection import bordered_determinant, hopf_brackets, hopf_test
 from branchline.events.locate import same_event
 from branchline.numerics import linalg
+from branchline.numerics.eigenvalues import (
+    dense_eigenvalues,
+    search_leading_eigenvalues,
+    sort_eigenvalues,
+)
+from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy, policy_of
 from branchline.problems.equilibrium import solve_equilibrium
 from branchline.problems.tracing import (
     DIRECTIONS,
@@ -85,7 +91,13 @@ EIGENVALUES_FAILED = "eigenvalues near the imaginary axis could not be computed"
 SWITCH_START_RESIDUAL = 1e-8
 
 
-def equilibrium_tests(jac_x: Any, jac_p: Array, tangent: Array, eigenvalues: Array) -> Array:
+def equilibrium_tests(
+    jac_x: Any,
+    jac_p: Array,
+    tangent: Array,
+    eigenvalues: Array,
+    policy: LinearAlgebraPolicy = DEFAULT,
+) -> Array:
     """Test-function values at one point of an equilibrium branch.
 
     Parameters
@@ -98,6 +110,8 @@ def equilibrium_tests(jac_x: Any, jac_p: Array, tangent: Array, eigenvalues: Arr
         Unit tangent (states, then parameter), in trace order.
     eigenvalues : ndarray (r,) complex
         Eigenvalues of ``jac_x`` (all, or the r leading ones), NaN-padded allowed.
+    policy : LinearAlgebraPolicy
+        The model's dense/sparse policy.
 
     Returns
     -------
@@ -106,7 +120,11 @@ def equilibrium_tests(jac_x: Any, jac_p: Array, tangent: Array, eigenvalues: Arr
         and local smoothness carry meaning.
     """
     return np.array(
-        [float(tangent[-1]), hopf_test(eigenvalues), bordered_determinant(jac_x, jac_p, tangent)]
+        [
+            float(tangent[-1]),
+            hopf_test(eigenvalues),
+            bordered_determinant(jac_x, jac_p, tangent, policy),
+        ]
     )
 
 
@@ -143,6 +161,9 @@ class EquilibriumBranch:
         self._derivatives = getattr(model, "derivatives", None)
         self._jacobian_x = model.jacobian
         self._jacobian_p = model.parameter_jacobian
+        self.policy = policy_of(model)
+        # Only a policy that forces dense or sparse changes what the model returns.
+        self._forced = self.policy.force is not None
 
     def _parameters(self, u: Array) -> Array:
         # One buffer, updated in place: the model functions read p and keep no
@@ -161,6 +182,8 @@ class EquilibriumBranch:
             fx, fp_all = self._derivatives(x, p)
         else:
             fx, fp_all = self._jacobian_x(x, p), self._jacobian_p(x, p)
+        if self._forced:
+            fx = self._as_policy_says(fx)
         if linalg.is_sparse(fx):
             import scipy.sparse as sp
 
@@ -171,6 +194,17 @@ class EquilibriumBranch:
         jac[:, :n] = fx
         jac[:, n] = fp_all[:, self.vary_index]
         return jac
+
+    def _as_policy_says(self, fx: Any) -> Any:
+        """f_x converted to sparse CSC or dense, as the model's policy forces."""
+        sparse = linalg.is_sparse(fx)
+        if self.policy.sparse_curve(self.size, sparse) == sparse:
+            return fx
+        if sparse:
+            return fx.toarray()
+        import scipy.sparse as sp
+
+        return sp.csc_matrix(fx)
 
     def jacobian(self, u: Array) -> Any:
         """[f_x, f_p] at u, shape (n, n + 1): ndarray, or scipy.sparse CSC for sparse models."""
@@ -197,19 +231,19 @@ class EquilibriumBranch:
             jac = jacobian.tocsc()
             fx = jac[:, :n]
             fp = np.asarray(jac[:, n].toarray()).ravel()
-            if n <= linalg.SPARSE_DENSE_LIMIT:
-                eigenvalues = linalg.dense_eigenvalues(fx.toarray())
+            if n <= self.policy.eigenvalues_dense_up_to:
+                eigenvalues = dense_eigenvalues(fx.toarray())
             else:
-                search = linalg.search_leading_eigenvalues(fx)
+                search = search_leading_eigenvalues(fx, policy=self.policy)
                 if not search.found:
                     raise ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
                 eigenvalues = search.values
         else:
             fx = jacobian[:, :n]
             fp = jacobian[:, n]
-            eigenvalues = linalg.sort_eigenvalues(linalg.eigvals_unchecked(fx))
+            eigenvalues = sort_eigenvalues(linalg.eigvals_unchecked(fx))
         oriented = tangent if self.orientation > 0 else -tangent
-        return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues)
+        return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues, self.policy)
 
     def describe(self, u: Array) -> str:
         """The point for messages: the varied parameter and the first few states."""

@@ -1,0 +1,96 @@
+"""The one place that decides dense or sparse linear algebra for a model.
+
+Every size threshold that switches between dense LAPACK and sparse methods
+(SuperLU, shift-invert Arnoldi) is a field of :class:`LinearAlgebraPolicy`.
+A model carries its policy (``Model.linear_algebra``); the code that decides
+asks the model's policy, never a module constant. Tests run a case both ways
+by giving the model :data:`DENSE` or :data:`SPARSE`:
+
+>>> from dataclasses import replace
+>>> SPARSE.sparse_curve(3, jacobian_is_sparse=False), DEFAULT.sparse_curve(3, False)
+(True, False)
+>>> DEFAULT.sparse_location(301), replace(DEFAULT, location_sparse_above=3).sparse_location(4)
+(True, True)
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+# ARPACK finds k eigenvalues of an n x n matrix only for k < n - 1, so shift-invert
+# Arnoldi (k >= 1) needs at least three states.
+ARNOLDI_SMALLEST_SIZE = 3
+
+
+@dataclass(frozen=True)
+class LinearAlgebraPolicy:
+    """Size thresholds (numbers of states n) between dense and sparse linear algebra.
+
+    Attributes
+    ----------
+    force : {None, "dense", "sparse"}
+        None decides by the thresholds below and by what the model's Jacobian
+        returns; "sparse" makes every decision sparse (bordered solves with
+        SuperLU, location with SuperLU and shift-invert Arnoldi), "dense" every
+        one dense.
+    location_sparse_above : int
+        Location and normal forms use sparse linear algebra above this many
+        states; below it dense LAPACK is faster.
+    eigenvalues_dense_up_to : int
+        A sparse Jacobian up to this size is converted to dense for its
+        eigenvalues: LAPACK on 200 x 200 takes ~20 ms, less than a few
+        Arnoldi runs, and gives them all.
+    dense_fallback_up_to : int
+        When the leading-eigenvalue search cannot confirm its values, a dense
+        eigenvalue computation is the fallback up to this size.
+    condition_check_up_to : int
+        The equilibrium solve checks the condition number of dense Jacobians
+        up to this size (an SVD, O(n^3): ~0.05 s at 400).
+    exact_second_up_to : int
+        Directional Jacobians B(v, .) from the model's exact bilinear form up
+        to this size (one call per column); above, a central difference of the
+        Jacobian (two calls).
+    finite_differences_dense_up_to : int
+        A Python model without a Jacobian gets a dense finite-difference
+        Jacobian up to this size, a sparse one above.
+    determinant_dense_up_to : int
+        The branch-point test (a bordered determinant) of a sparse Jacobian is
+        computed densely up to this size, with SuperLU above.
+    """
+
+    force: str | None = None
+    location_sparse_above: int = 300
+    eigenvalues_dense_up_to: int = 200
+    dense_fallback_up_to: int = 800
+    condition_check_up_to: int = 400
+    exact_second_up_to: int = 60
+    finite_differences_dense_up_to: int = 200
+    determinant_dense_up_to: int = 50
+
+    def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
+        """Whether a curve of a model with ``size`` states is continued with sparse LU."""
+        if self.force is not None:
+            return self.force == "sparse"
+        return jacobian_is_sparse
+
+    def sparse_location(self, size: int) -> bool:
+        """Whether events and normal forms of a ``size``-state model use sparse methods.
+
+        Forced sparse applies from ``ARNOLDI_SMALLEST_SIZE`` states: shift-invert
+        Arnoldi (ARPACK) cannot work on smaller matrices.
+        """
+        if self.force is not None:
+            return self.force == "sparse" and size >= ARNOLDI_SMALLEST_SIZE
+        return size > self.location_sparse_above
+
+
+# Decide by size and by the model's own Jacobian (what every scan uses).
+DEFAULT = LinearAlgebraPolicy()
+# Every decision dense, or every one sparse: for tests that run a case both ways.
+DENSE = LinearAlgebraPolicy(force="dense")
+SPARSE = LinearAlgebraPolicy(force="sparse")
+
+
+def policy_of(model: object) -> LinearAlgebraPolicy:
+    """The model's policy (:data:`DEFAULT` for a stand-in model without one)."""
+    return getattr(model, "linear_algebra", DEFAULT)
