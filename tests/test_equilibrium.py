@@ -23,13 +23,11 @@ import pytest
 
 from branchline.numerics import eigenvalues
 from branchline.problems.equilibrium import (
-    STATUS_CONVERGED,
-    STATUS_NONFINITE,
-    STATUS_SINGULAR,
     classify,
     linearize,
     solve_equilibrium,
 )
+from branchline.vocabulary import Status
 from models_for_tests import hand_model
 
 
@@ -190,7 +188,7 @@ def test_competition_model_fixed_points(guess, expected, kind, eigenvalues):
     # Strogatz, Nonlinear Dynamics and Chaos, section 6.4 (rabbits versus sheep).
     model = competition_model()
     solution = solve_equilibrium(model, np.array(guess), model.defaults)
-    assert solution.converged and solution.status == STATUS_CONVERGED
+    assert solution.converged and solution.status == Status.CONVERGED
     assert solution.message == ""
     np.testing.assert_allclose(solution.state, expected, atol=1e-12)
     assert solution.residual_norm <= 1e-10
@@ -230,7 +228,7 @@ def test_no_root_gives_status_and_message():
     model = make_model(lambda x, p: x**2 + 1.0, lambda x, p: np.diag(2.0 * x))
     solution = solve_equilibrium(model, np.array([1.0]), model.defaults)
     assert not solution.converged
-    assert solution.status == STATUS_SINGULAR
+    assert solution.status == Status.SINGULAR_JACOBIAN
     assert "singular" in solution.message and "x=0" in solution.message
     assert solution.residual_norm == pytest.approx(1.0)
 
@@ -247,7 +245,7 @@ def test_nan_at_the_guess_gives_status_and_message():
     model = make_model(lambda x, p: np.log(x) + 1.0, lambda x, p: np.diag(1.0 / x))
     solution = solve_equilibrium(model, np.array([-1.0]), model.defaults)
     assert not solution.converged
-    assert solution.status == STATUS_NONFINITE
+    assert solution.status == Status.NON_FINITE
     assert "not finite" in solution.message and "x=-1" in solution.message
 
 
@@ -255,7 +253,7 @@ def test_overflow_gives_status_and_message():
     model = make_model(lambda x, p: np.exp(np.exp(x)), lambda x, p: np.diag(np.exp(x)))
     solution = solve_equilibrium(model, np.array([800.0]), model.defaults)
     assert not solution.converged
-    assert solution.status == STATUS_NONFINITE
+    assert solution.status == Status.NON_FINITE
 
 
 def test_singular_jacobian_gives_status_and_message():
@@ -267,7 +265,7 @@ def test_singular_jacobian_gives_status_and_message():
     )
     solution = solve_equilibrium(model, np.array([0.0, 0.0]), model.defaults)
     assert not solution.converged
-    assert solution.status == STATUS_SINGULAR
+    assert solution.status == Status.SINGULAR_JACOBIAN
     assert "singular" in solution.message
 
 
@@ -277,7 +275,7 @@ def test_python_exception_in_model_is_reported():
 
     model = make_model(rhs, lambda x, p: np.array([[1.0 / x[0]]]))
     solution = solve_equilibrium(model, np.array([-2.0]), model.defaults)
-    assert solution.status == STATUS_NONFINITE
+    assert solution.status == Status.NON_FINITE
 
 
 def test_sparse_jacobian_newton():

@@ -29,6 +29,7 @@ from branchline.numerics.eigenvalues import (
 )
 from branchline.numerics.policy import LinearAlgebraPolicy, policy_of
 from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
+from branchline.vocabulary import Status
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -63,10 +64,6 @@ REPEATED_RTOL = 1e-8
 # Number of leading eigenvalues reported.
 LEADING_COUNT = 3
 
-STATUS_CONVERGED = "converged"
-STATUS_NOT_CONVERGED = "not_converged"
-STATUS_SINGULAR = "singular_jacobian"
-STATUS_NONFINITE = "non_finite"
 
 
 @dataclass(frozen=True)
@@ -248,29 +245,29 @@ def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> Eq
     f = _evaluate(model.rhs, x, p)
     if f is None:
         message = f"f is not finite {_where(x, p, model)} (start guess)"
-        return _failed(x, p, 0, math.nan, (math.nan,), STATUS_NONFINITE, message)
+        return _failed(x, p, 0, math.nan, (math.nan,), Status.NON_FINITE, message)
     residual = linalg.norm(f)
     history = [residual]
     if residual == 0.0:
-        return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), STATUS_CONVERGED)
+        return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), Status.CONVERGED)
     for iteration in range(1, max_iterations + 1):
         status, message, step = _newton_direction(model, x, p, f, residual)
         damping = 1.0
         if not status:
             damping, trial, f_trial, residual_trial = _backtrack(model, x, p, step, residual)
             if trial is None:
-                status = STATUS_NOT_CONVERGED
+                status = Status.NOT_CONVERGED
                 message = (
                     f"Newton's method stalled {_where(x, p, model)} with residual "
                     f"{residual:.3g}: no step along the Newton direction reduces |f|; "
                     "there may be no equilibrium near the guess, try another guess"
                 )
         if status:
-            if residual <= residual_tol and status != STATUS_NONFINITE:
+            if residual <= residual_tol and status != Status.NON_FINITE:
                 # Already a solution to roundoff; Newton cannot polish it further here
                 # (for instance at a turning point, where df/dx is singular).
                 return EquilibriumSolution(
-                    x, p, True, iteration - 1, residual, tuple(history), STATUS_CONVERGED
+                    x, p, True, iteration - 1, residual, tuple(history), Status.CONVERGED
                 )
             return _failed(x, p, iteration - 1, residual, history, status, message)
         x, f, residual = trial, f_trial, residual_trial
@@ -281,26 +278,26 @@ def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> Eq
             update <= STAGNATION_RTOL * scale and damping == 1.0
         ):
             return EquilibriumSolution(
-                x, p, True, iteration, residual, tuple(history), STATUS_CONVERGED
+                x, p, True, iteration, residual, tuple(history), Status.CONVERGED
             )
     message = (
         f"no convergence in {max_iterations} Newton iterations; last iterate "
         f"{_where(x, p, model)} with residual {residual:.3g}"
     )
-    return _failed(x, p, max_iterations, residual, history, STATUS_NOT_CONVERGED, message)
+    return _failed(x, p, max_iterations, residual, history, Status.NOT_CONVERGED, message)
 
 
 def _newton_direction(model: Model, x, p, f, residual):
     """(status, message, step): status "" and the Newton step, or why there is none."""
     jac = _jacobian_dense_or_sparse(model, x, p)
     if jac is None:
-        return STATUS_NONFINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
+        return Status.NON_FINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
     if _singular(jac, policy_of(model)):
-        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
     try:
         return "", "", -linalg.solve_square(jac, f)
     except linalg.SingularMatrixError:
-        return STATUS_SINGULAR, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
 
 
 def _backtrack(model: Model, x, p, step, residual):
