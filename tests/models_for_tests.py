@@ -127,9 +127,3 @@ def hand_model(rhs, jacobian, parameter_jacobian, states, parameters, defaults, 
         observables=lambda x, p: {},
         **extra,
     )
-
-
-def uniform_start(p):
-    """The uniform state of the 200-node Brusselator of test_sparse_eigen (400 states)."""
-    nodes = 200
-    return np.concatenate([np.full(nodes, p["a"]), np.full(nodes, p["b"] / p["a"])])

@@ -115,21 +115,65 @@ b = 1.97
 d1 = 0.001
 d2 = 0.002
 [model.python]
-rhs = "test_sparse_eigen:brusselator_rhs"
-jacobian = "test_sparse_eigen:brusselator_jacobian"
+rhs = "brusselator_line:rhs"
+jacobian = "brusselator_line:jacobian"
 size = 400
 [[trace]]
 vary = "b"
 interval = [1.97, 2.02]
 direction = "increasing"
-start = "models_for_tests:uniform_start"
+start = "brusselator_line:uniform_start"
 steps = { initial = 0.02, largest = 0.5, max_points = 40 }
 """,
 }
 
 
+# The Python model of the sparse case, written beside the scan files so that both
+# trees import the same code (the model of tests/test_sparse_eigen.py: a Brusselator
+# on a line with Neumann ends, 200 nodes, its uniform state as the start).
+BRUSSELATOR_LINE = """
+import numpy as np
+import scipy.sparse as sp
+
+
+def _laplacian(nodes):
+    h = 1.0 / (nodes - 1)
+    lap = sp.diags([np.ones(nodes - 1), -2.0 * np.ones(nodes), np.ones(nodes - 1)], [-1, 0, 1],
+                   format="lil")
+    lap[0, 1] = 2.0
+    lap[nodes - 1, nodes - 2] = 2.0
+    return (lap.tocsr() / h**2).tocsr()
+
+
+def rhs(x, p):
+    nodes = x.shape[0] // 2
+    lap = _laplacian(nodes)
+    u, v = x[:nodes], x[nodes:]
+    return np.concatenate([
+        p["a"] - (p["b"] + 1.0) * u + u * u * v + p["d1"] * (lap @ u),
+        p["b"] * u - u * u * v + p["d2"] * (lap @ v),
+    ])
+
+
+def jacobian(x, p):
+    nodes = x.shape[0] // 2
+    lap = _laplacian(nodes)
+    u, v = x[:nodes], x[nodes:]
+    b = p["b"]
+    return sp.bmat([
+        [sp.diags(-(b + 1.0) + 2.0 * u * v) + p["d1"] * lap, sp.diags(u * u)],
+        [sp.diags(b - 2.0 * u * v), sp.diags(-u * u) + p["d2"] * lap],
+    ], format="csc")
+
+
+def uniform_start(p):
+    return np.concatenate([np.full(200, p["a"]), np.full(200, p["b"] / p["a"])])
+"""
+
+
 def scan_files(folder: Path) -> list[Path]:
     """The demo scans and the test models written as scan files into ``folder``."""
+    (folder / "brusselator_line.py").write_text(BRUSSELATOR_LINE)
     paths = sorted((ROOT / "scans").glob("*.toml"))
     for name, text in TEST_MODELS.items():
         path = folder / f"{name}.toml"
@@ -140,7 +184,7 @@ def scan_files(folder: Path) -> list[Path]:
 
 def run(source: Path, scan: Path, out: Path) -> int:
     env = dict(os.environ, MPLBACKEND="Agg")
-    env["PYTHONPATH"] = os.pathsep.join([str(source), str(ROOT / "tests")])
+    env["PYTHONPATH"] = os.pathsep.join([str(source), str(scan.parent)])
     command = [sys.executable, "-m", "branchline", "run", str(scan), "--out", str(out), "--quiet"]
     done = subprocess.run(command, env=env, capture_output=True, text=True, check=False)
     return done.returncode
