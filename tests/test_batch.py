@@ -357,7 +357,7 @@ def toml_text(scan: dict) -> str:
         return json.dumps(v)
 
     lines = [f"title = {json.dumps(scan.get('title', 'scan'))}"]
-    for section in ("model.parameters", "model.equations", "steps", "ensemble"):
+    for section in ("model.parameters", "model.equations", "model.python", "steps", "ensemble"):
         table = scan
         for part in section.split("."):
             table = table.get(part, {})
@@ -399,3 +399,19 @@ def test_batch_command_runs_fails_clearly_and_resumes(tmp_path, monkeypatch, cap
     assert not (tmp_path / "runs" / "bad-batch").exists()
     code, out, err = cli(capsys, "batch", "fragile.toml", "--jobs", "0", "--out", "zero")
     assert code == 2 and "--jobs must be at least 1" in err
+
+
+def test_batch_command_says_a_python_model_runs_its_module(tmp_path, monkeypatch, capsys):
+    monkeypatch.chdir(tmp_path)
+    scan = {
+        "model": {
+            "parameters": {"a": 1.0, "mu": 0.0, "doom": 0.0},
+            "python": {"rhs": "batch_models:rhs", "size": 1},
+        },
+        "trace": [{"vary": "mu", "interval": [-1.0, 1.0], "start": {"x0": 1.0}}],
+        "ensemble": {"grid": {"a": [1.0, 4.0]}},
+    }
+    (tmp_path / "python.toml").write_text(toml_text(scan))
+    code, _out, err = cli(capsys, "batch", "python.toml", "--jobs", "1")
+    assert code == 0, err
+    assert "imports batch_models" in err and "only run scan files you trust" in err

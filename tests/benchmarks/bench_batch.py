@@ -55,7 +55,9 @@ def ensemble(members: int) -> dict:
 def timed_batch(scan: dict, folder: Path, **backend) -> tuple[float, branchline.BatchResult]:
     started = time.perf_counter()
     result = branchline.run_batch([scan], folder, **backend)
-    return time.perf_counter() - started, result
+    seconds = time.perf_counter() - started
+    print(f"  {backend}: {seconds:.1f} s (load average {os.getloadavg()[0]:.1f})", flush=True)
+    return seconds, result
 
 
 def bare_runs(scan: dict, folder: Path) -> float:

@@ -12,7 +12,7 @@ import sys
 import time
 from pathlib import Path
 
-from branchline.cli import EXIT_INVALID, EXIT_NUMERICS, EXIT_OK, _error
+from branchline.cli import EXIT_INVALID, EXIT_NUMERICS, EXIT_OK, _error, _python_notice
 
 # The progress line is redrawn at most this often (seconds): a terminal
 # flooded with a line per millisecond member slows the batch down.
@@ -57,12 +57,21 @@ def command_batch(args: argparse.Namespace) -> int:
     from branchline.batch.folder import BatchFolderError
     from branchline.errors import ScanError
     from branchline.present.report import CAUTION
+    from branchline.scan.loader import load_scan
 
     out = Path(args.out) if args.out else Path("runs") / f"{Path(args.scans[0]).stem}-batch"
+    try:
+        scans = [load_scan(path) for path in args.scans]
+    except ScanError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    if not args.quiet:
+        for scan in scans:
+            _python_notice(scan)
     progress = BatchProgressLine(enabled=not args.quiet and sys.stderr.isatty())
     try:
         result = run_batch(
-            args.scans,
+            scans,
             out,
             jobs=args.jobs,
             cluster=args.cluster,

@@ -86,7 +86,8 @@ def _finite(value: Any) -> Any:
 def _margin_rows(result) -> tuple[dict[str, Any], ...]:
     rows = []
     info = result.info()
-    for margin in operating_margins(result.points_frame(), result.event_records(), info):
+    points, events = result.points_frame(), result.event_records()
+    for margin in operating_margins(points, events, info, coexisting=False):
         sides = {"below": margin.decreasing, "above": margin.increasing}
         distances = {k: side.absolute for k, side in sides.items()}
         near = min((k for k in sides if distances[k] is not None), key=distances.get, default=None)

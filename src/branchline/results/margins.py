@@ -132,7 +132,11 @@ def _side_margin(
 
 
 def operating_margins(
-    points: pd.DataFrame, events: Sequence[Mapping[str, Any]], info: Mapping[str, Any]
+    points: pd.DataFrame,
+    events: Sequence[Mapping[str, Any]],
+    info: Mapping[str, Any],
+    *,
+    coexisting: bool = True,
 ) -> list[OperatingMargin]:
     """Stability at each scanned trace's start value and the distance to the
     first event met along the branch in each direction.
@@ -141,7 +145,8 @@ def operating_margins(
     skipped. The start point is the row with arclength 0; the negative-arclength
     side is the side traced with decreasing parameter first (the contract).
     Distances are in the parameter's units; ``relative`` divides by the start
-    value's magnitude.
+    value's magnitude. ``coexisting=False`` skips the search for other stable
+    equilibria at the start value (the costly part; a batch needs only distances).
     """
     margins = []
     for entry in trace_entries(info):
@@ -167,7 +172,9 @@ def operating_margins(
                 unstable_count=count,
                 decreasing=_side_margin("decreasing", rows, located, vary, start_value, interval),
                 increasing=_side_margin("increasing", rows, located, vary, start_value, interval),
-                coexisting=_coexisting(points, rows, start, name, vary, start_value, info),
+                coexisting=_coexisting(points, rows, start, name, vary, start_value, info)
+                if coexisting
+                else (),
             )
         )
     return margins
