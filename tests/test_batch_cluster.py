@@ -22,6 +22,8 @@ from branchline.cli import main
 from test_batch import FRAGILE, STOCK, comparable
 
 SRC = Path(__file__).resolve().parents[1] / "src"
+# Every listening socket of the test clusters (HTTP servers included) stays on loopback.
+LOOPBACK_ANY_PORT = "127.0.0.1:0"
 # Seconds allowed for a scheduler to come up and a worker to join it.
 STARTUP_SECONDS = 90
 # A member that fails on purpose rides along: failures must match too.
@@ -42,7 +44,8 @@ def test_local_cluster_gives_the_local_backend_tables(tmp_path):
         n_workers=2,
         threads_per_worker=1,
         host="127.0.0.1",
-        dashboard_address=None,
+        dashboard_address=LOOPBACK_ANY_PORT,
+        worker_dashboard_address=LOOPBACK_ANY_PORT,
         processes=True,
     ) as cluster:
         remote = branchline.run_batch(SCANS, tmp_path / "dask", cluster=cluster.scheduler_address)
@@ -91,6 +94,8 @@ def test_separate_scheduler_and_worker_processes_through_the_command_line(
                     "--port",
                     address.rsplit(":", 1)[1],
                     "--no-dashboard",
+                    "--dashboard-address",
+                    LOOPBACK_ANY_PORT,
                 ],
                 env=env,
                 stdout=log,
@@ -110,6 +115,8 @@ def test_separate_scheduler_and_worker_processes_through_the_command_line(
                     "--nthreads",
                     "1",
                     "--no-dashboard",
+                    "--dashboard-address",
+                    LOOPBACK_ANY_PORT,
                     "--local-directory",
                     str(tmp_path),
                 ],

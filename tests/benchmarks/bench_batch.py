@@ -87,7 +87,11 @@ def main() -> None:
         two, pool = timed_batch(scan, root / "two", jobs=2)
         assert pool.complete
         with LocalCluster(
-            n_workers=2, threads_per_worker=1, host="127.0.0.1", dashboard_address=None
+            n_workers=2,
+            threads_per_worker=1,
+            host="127.0.0.1",
+            dashboard_address="127.0.0.1:0",
+            worker_dashboard_address="127.0.0.1:0",
         ) as cluster:
             dask, remote = timed_batch(scan, root / "dask", cluster=cluster.scheduler_address)
         assert remote.complete
