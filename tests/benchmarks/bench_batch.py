@@ -1,4 +1,5 @@
-"""Batch throughput and overhead, run by hand: python3 tests/benchmarks/bench_batch.py [MEMBERS]
+"""Batch throughput and overhead, run by hand:
+python3 tests/benchmarks/bench_batch.py [MEMBERS] [--overhead]   (--overhead: part 2 only)
 
 1. Throughput (members per second) of one sampled ensemble of a small model
    (the harvested-stock scan of the tests, MEMBERS members, default 1000) in
@@ -24,6 +25,7 @@ import os
 import sys
 import tempfile
 import time
+from dataclasses import replace
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
@@ -36,8 +38,10 @@ from branchline.results.writers import write_results
 from branchline.runner import run_scan
 from test_batch import STOCK
 
-# Members of the bare-run comparison (the overhead is per member; fewer suffice).
-OVERHEAD_MEMBERS = 200
+# Members of the bare-run comparison per round, and rounds (the overhead is per
+# member; fewer members suffice).
+OVERHEAD_MEMBERS = 100
+OVERHEAD_ROUNDS = 4
 
 
 def ensemble(members: int) -> dict:
@@ -67,48 +71,60 @@ def bare_runs(scan: dict, folder: Path) -> float:
     started = time.perf_counter()
     for plan in plan_batch([loaded]):
         own = member_scan(loaded, plan.values)
-        from dataclasses import replace
-
         result = run_scan(own, model=replace(model, defaults=model.parameter_vector(plan.values)))
         write_results(result, folder / str(plan.member), figures=False)
     return time.perf_counter() - started
 
 
+def throughput(members: int, root: Path) -> None:
+    """Members per second on each backend, as ratios to this process."""
+    from distributed import LocalCluster
+
+    scan = ensemble(members)
+    serial, result = timed_batch(scan, root / "serial", jobs=1)
+    assert result.complete
+    two, pool = timed_batch(scan, root / "two", jobs=2)
+    assert pool.complete
+    with LocalCluster(
+        n_workers=2,
+        threads_per_worker=1,
+        host="127.0.0.1",
+        dashboard_address="127.0.0.1:0",
+        worker_dashboard_address="127.0.0.1:0",
+    ) as cluster:
+        dask, remote = timed_batch(scan, root / "dask", cluster=cluster.scheduler_address)
+    assert remote.complete
+    print(f"\n{members} members, harvested-stock model, {result.failed} failed members")
+    print(f"{'backend':<28} {'seconds':>9} {'members/s':>10} {'vs serial':>10}")
+    for name, seconds in (
+        ("1 worker (this process)", serial),
+        ("2 local processes", two),
+        ("Dask LocalCluster, 2 x 1", dask),
+    ):
+        print(f"{name:<28} {seconds:9.2f} {members / seconds:10.1f} {serial / seconds:9.2f}x")
+
+
 def main() -> None:
     members = int(sys.argv[1]) if len(sys.argv) > 1 else 1000
-    from distributed import LocalCluster
+    only_overhead = "--overhead" in sys.argv
 
     print(f"load average before: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
     with tempfile.TemporaryDirectory() as scratch:
         root = Path(scratch)
-        scan = ensemble(members)
-        serial, result = timed_batch(scan, root / "serial", jobs=1)
-        assert result.complete
-        two, pool = timed_batch(scan, root / "two", jobs=2)
-        assert pool.complete
-        with LocalCluster(
-            n_workers=2,
-            threads_per_worker=1,
-            host="127.0.0.1",
-            dashboard_address="127.0.0.1:0",
-            worker_dashboard_address="127.0.0.1:0",
-        ) as cluster:
-            dask, remote = timed_batch(scan, root / "dask", cluster=cluster.scheduler_address)
-        assert remote.complete
-        print(f"\n{members} members, harvested-stock model, {result.failed} failed members")
-        print(f"{'backend':<28} {'seconds':>9} {'members/s':>10} {'vs serial':>10}")
-        for name, seconds in (
-            ("1 worker (this process)", serial),
-            ("2 local processes", two),
-            ("Dask LocalCluster, 2 x 1", dask),
-        ):
-            print(f"{name:<28} {seconds:9.2f} {members / seconds:10.1f} {serial / seconds:9.2f}x")
+        if not only_overhead:
+            throughput(members, root)
 
-        small = ensemble(OVERHEAD_MEMBERS)
-        bare = bare_runs(small, root / "bare")
-        batch, _ = timed_batch(small, root / "overhead", jobs=1)
-        per_bare, per_batch = bare / OVERHEAD_MEMBERS, batch / OVERHEAD_MEMBERS
-        print(f"\noverhead, {OVERHEAD_MEMBERS} members in this process:")
+        # Alternate bare and batch rounds so that a change of machine load
+        # during the run hits both alike.
+        bare = batch = 0.0
+        for round_ in range(OVERHEAD_ROUNDS):
+            small = ensemble(OVERHEAD_MEMBERS)
+            small["ensemble"]["seed"] = 100 + round_
+            bare += bare_runs(small, root / f"bare{round_}")
+            batch += timed_batch(small, root / f"overhead{round_}", jobs=1)[0]
+        count = OVERHEAD_MEMBERS * OVERHEAD_ROUNDS
+        per_bare, per_batch = bare / count, batch / count
+        print(f"\noverhead, {count} members in this process, {OVERHEAD_ROUNDS} alternating rounds:")
         print(f"  bare single runs   {per_bare * 1e3:8.2f} ms per member")
         print(f"  batch (--jobs 1)   {per_batch * 1e3:8.2f} ms per member")
         print(f"  overhead           {(per_batch / per_bare - 1) * 100:8.1f} %")

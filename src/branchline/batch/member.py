@@ -22,9 +22,12 @@ from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
+
 from branchline.batch.plan import MemberPlan
 from branchline.model.build import Model, build_model
 from branchline.results.margins import operating_margins
+from branchline.results.records import RunResult
 from branchline.results.writers import write_results
 from branchline.runner import run_scan
 from branchline.scan.loader import Scan
@@ -74,6 +77,36 @@ def compiled_model(scan: Scan) -> tuple[Model, bool]:
         return model, True
 
 
+class _TablesOnce:
+    """A RunResult whose tables are computed once: a member needs each of them
+    for its folder, its events rows and its margins (a third of a small
+    member's time went to computing them again)."""
+
+    def __init__(self, result: RunResult) -> None:
+        self._result = result
+        self._tables: dict[str, Any] = {}
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._result, name)
+
+    def _once(self, name: str) -> Any:
+        if name not in self._tables:
+            self._tables[name] = getattr(self._result, name)()
+        return self._tables[name]
+
+    def points_frame(self) -> pd.DataFrame:
+        return self._once("points_frame")
+
+    def events_frame(self) -> pd.DataFrame:
+        return self._once("events_frame")
+
+    def event_records(self) -> list[dict[str, Any]]:
+        return self._once("event_records")
+
+    def info(self) -> dict[str, Any]:
+        return self._once("info")
+
+
 def _finite(value: Any) -> Any:
     """NaN -> None, numpy scalars -> Python ones: a JSON-ready table cell."""
     if hasattr(value, "item"):
@@ -86,8 +119,9 @@ def _finite(value: Any) -> Any:
 def _margin_rows(result) -> tuple[dict[str, Any], ...]:
     rows = []
     info = result.info()
-    points, events = result.points_frame(), result.event_records()
-    for margin in operating_margins(points, events, info, coexisting=False):
+    for margin in operating_margins(
+        result.points_frame(), result.event_records(), info, coexisting=False
+    ):
         sides = {"below": margin.decreasing, "above": margin.increasing}
         distances = {k: side.absolute for k, side in sides.items()}
         near = min((k for k in sides if distances[k] is not None), key=distances.get, default=None)
@@ -136,8 +170,12 @@ def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
         model, built = compiled_model(scan)
         own = member_scan(scan, plan.values)
         # members are not confirmed by simulation: that would add its cost to every member
-        result = run_scan(
-            own, model=replace(model, defaults=model.parameter_vector(plan.values)), confirm=False
+        result = _TablesOnce(
+            run_scan(
+                own,
+                model=replace(model, defaults=model.parameter_vector(plan.values)),
+                confirm=False,
+            )
         )
         events = tuple(
             {k: _finite(v) for k, v in row.items()}
