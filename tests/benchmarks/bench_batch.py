@@ -105,7 +105,8 @@ def throughput(members: int, root: Path) -> None:
 
 
 def main() -> None:
-    members = int(sys.argv[1]) if len(sys.argv) > 1 else 1000
+    numbers = [arg for arg in sys.argv[1:] if arg.isdigit()]
+    members = int(numbers[0]) if numbers else 1000
     only_overhead = "--overhead" in sys.argv
 
     print(f"load average before: {os.getloadavg()[0]:.2f} on {os.cpu_count()} cores")
