@@ -247,6 +247,11 @@ def test_samples_are_seeded_and_respect_their_laws(method):
     again = plan_batch([branchline.scan_from_dict(sampled(method))])
     other = plan_batch([branchline.scan_from_dict(sampled(method, seed=12))])
     assert plan == again and plan != other
+    unseeded = sampled(method, seed=0)
+    del unseeded["ensemble"]["seed"]  # the default seed: resume needs the same members
+    assert plan_batch([branchline.scan_from_dict(unseeded)]) == plan_batch(
+        [branchline.scan_from_dict(sampled(method, seed=0))]
+    )
     r = np.array([m.values["r"] for m in plan])
     m = np.array([m.values["m"] for m in plan])
     h = np.array([m.values["h"] for m in plan])

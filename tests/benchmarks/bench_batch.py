@@ -115,8 +115,11 @@ def main() -> None:
         if not only_overhead:
             throughput(members, root)
 
-        # Alternate bare and batch rounds so that a change of machine load
-        # during the run hits both alike.
+        # Warm up both (first imports of the report's and figures' modules),
+        # then alternate bare and batch rounds so that a change of machine
+        # load during the run hits both alike.
+        bare_runs(ensemble(10), root / "warm-bare")
+        timed_batch(ensemble(10), root / "warm-batch", jobs=1)
         bare = batch = 0.0
         for round_ in range(OVERHEAD_ROUNDS):
             small = ensemble(OVERHEAD_MEMBERS)

@@ -40,7 +40,7 @@ def grid_values(spec: EnsembleSpec) -> list[dict[str, float]]:
     return [dict(zip(names, combination)) for combination in itertools.product(*axes)]
 
 
-def unit_points(count: int, dimension: int, method: str, seed: int | None) -> np.ndarray:
+def unit_points(count: int, dimension: int, method: str, seed: int) -> np.ndarray:
     """``count`` points in the open unit cube, shape (count, dimension).
 
     ``method``: "random" (numpy's PCG64 generator), "latin_hypercube"

@@ -64,8 +64,7 @@ def _ensemble_words(scan: Scan) -> str:
         axes = ", ".join(f"{name} ({len(values)} values)" for name, values in spec.grid)
         return f"a grid of {spec.size} members over {axes}"
     laws = ", ".join(f"{d.name} ~ {d.law}({d.a:g}, {d.b:g})" for d in spec.draws)
-    seed = f", seed {spec.seed}" if spec.seed is not None else ""
-    return f"{spec.samples} samples ({spec.sampling}{seed}): {laws}"
+    return f"{spec.samples} samples ({spec.sampling}, seed {spec.seed}): {laws}"
 
 
 def _failed_lines(members: pd.DataFrame) -> list[str]:

@@ -15,7 +15,8 @@ Rules:
   mean m and standard deviation s); ``within = [low, high]`` truncates it
   (a uniform law's own window is already its support).
 - ``sampling`` is ``"random"`` (default), ``"latin_hypercube"`` or ``"sobol"``
-  (scipy.stats.qmc; scrambled, seeded).
+  (scipy.stats.qmc; scrambled); every method is seeded (``seed``, default 0),
+  so a scan file always gives the same members.
 - ``margin_threshold`` (in the units of each trace's varied parameter) asks the
   batch report for the probability that the operating margin is below it.
 """
@@ -27,6 +28,9 @@ from dataclasses import dataclass
 
 from branchline.scan.checks import Checker, key_path, listed, shown, suggestion
 
+# Samples are always seeded: the same scan file gives the same members, which
+# is what lets --resume check and continue a batch. Change `seed` for new draws.
+DEFAULT_SEED = 0
 ENSEMBLE_KEYS = ("grid", "samples", "seed", "draw", "sampling", "margin_threshold")
 RANGE_KEYS = ("from", "to", "count")
 DRAW_KEYS = ("uniform", "normal", "lognormal", "within")
@@ -62,7 +66,7 @@ class EnsembleSpec:
 
     grid: tuple[tuple[str, tuple[float, ...]], ...] = ()
     samples: int = 0
-    seed: int | None = None
+    seed: int = 0
     draws: tuple[Draw, ...] = ()
     sampling: str = "random"
     margin_threshold: float | None = None
@@ -191,7 +195,7 @@ def _samples(
     threshold: float | None,
 ) -> EnsembleSpec:
     samples = check.count(table["samples"], "ensemble.samples")
-    seed = None
+    seed = DEFAULT_SEED
     if "seed" in table:
         seed = table["seed"]
         if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
