@@ -368,19 +368,6 @@ def test_unknown_key_in_trace_steps_and_python_table():
     refused(data, "model.python.jacobain", "did you mean 'jacobian'?")
 
 
-@pytest.mark.parametrize(
-    ("key", "words"),
-    [
-        ("boundary", "two-parameter boundaries"),
-    ],
-)
-def test_later_capabilities_are_not_available_yet(key, words):
-    data = bioreactor()
-    data[key] = [{"from": "washout"}]
-    err = refused(data, key, words, "not available in this version")
-    assert "unknown key" not in str(err)
-
-
 # --------------------------------------------------------------------------- missing keys
 
 

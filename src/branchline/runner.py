@@ -13,7 +13,9 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from branchline.errors import ScanError
+from branchline.events.sensitivities import with_sensitivities
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
+from branchline.problems.boundary import follow_boundaries
 from branchline.problems.crowding import resolve_crowded_steps
 from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import locate_events, trace_branch
@@ -360,12 +362,23 @@ def run_scan(
     stopped = stop is not None and stop.requested
     families, cycle_events = run_cycles(model, scan.cycles, events, progress) if not stopped else ((), ())
     events.extend(cycle_events)
+    if not stopped:
+        events = with_sensitivities(model, events)
+    boundaries, boundary_events, boundary_warnings = (
+        follow_boundaries(model, scan, events, progress) if not stopped else ((), [], [])
+    )
+    events.extend(boundary_events)
+    warnings.extend(boundary_warnings)
     trouble = _observable_trouble(model, branches)
     if trouble:
         warnings.append(trouble)
     failed = [b for b in (*branches, *families) if b.status in (Status.FAILED, Status.INTERRUPTED)]
     message = "; ".join(f"trace {b.name}: {b.message}" for b in failed)
-    status = Status.FAILED if failed else Status.DONE
+    failed_boundaries = [b for b in boundaries if b.status == Status.FAILED]
+    message = "; ".join(
+        [message] * bool(message) + [f"boundary {b.name}: {b.message}" for b in failed_boundaries]
+    )
+    status = Status.FAILED if failed or failed_boundaries else Status.DONE
     if stopped:
         status = Status.INTERRUPTED
         not_started = f"; not started: {', '.join(skipped)}" if skipped else ""
@@ -391,6 +404,7 @@ def run_scan(
         confirmation_note=note,
         cycles=tuple(families),
         searches=tuple(searches),
+        boundaries=tuple(boundaries),
     )
 
 

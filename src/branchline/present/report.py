@@ -13,6 +13,7 @@ from typing import Any
 
 import pandas as pd
 
+from branchline.present.boundary_report import boundaries_section, sensitivities_section
 from branchline.present.confirmations import confirmation_section
 from branchline.present.oscillations import oscillation_section
 from branchline.present.search_report import search_section
@@ -630,6 +631,8 @@ def render_report(
     out += _readings_section(points, events, info, windows)
     out += confirmation_section(info)
     out += oscillation_section(events, info, cycles)
+    out += boundaries_section(events, info)
+    out += sensitivities_section(events)
     for warning in info.get("warnings") or []:
         out += [f"> Warning: {warning}", ""]
     out += ["---", "", f"**Caution.** {CAUTION}", ""]

@@ -24,6 +24,9 @@ if TYPE_CHECKING:
 
 Array = np.ndarray
 
+# Points found on two-parameter boundaries (rows of events.csv whose trace is the boundary).
+CODIMENSION_TWO_KINDS = ("cusp", "bogdanov_takens", "bautin", "zero_hopf", "double_hopf")
+
 # Numerical status of a branch (a failure is a status, not an exception): the
 # members of the one enumeration, under the names the result code has used.
 STATUS_DONE = Status.DONE
@@ -182,6 +185,54 @@ class CycleFamily:
 
 
 @dataclass(frozen=True)
+class Boundary:
+    """A fold or Hopf curve followed in two parameters, rows in boundary order.
+
+    Attributes
+    ----------
+    name, kind : str
+        The boundary's name and ``"fold"`` or ``"hopf"``.
+    first, second : str
+        The starting trace's parameter and the second parameter.
+    source : str
+        ``"<trace> <kind> <index>"``: the event it was started from.
+    parameters : ndarray (m,)
+        The parameter vector of the starting event (other parameters stay fixed).
+    first_values, second_values : ndarray (k,)
+    states : ndarray (k, n)
+    frequency : ndarray (k,)
+        omega along a Hopf curve; NaN on a fold curve.
+    arclength : ndarray (k,)
+        Signed pseudo-arclength from the starting event (negative on the side traced first).
+    unstable_count : ndarray (k,) int
+        Eigenvalues with positive real part (the critical ones excluded: they are on the axis).
+    status, message : str
+        How the curve ended on each side (window edge, state limit, Bogdanov-Takens
+        point, trouble).
+    counts : dict
+    """
+
+    name: str
+    kind: str
+    first: str
+    second: str
+    source: str
+    parameters: Array
+    first_values: Array
+    second_values: Array
+    states: Array
+    frequency: Array
+    arclength: Array
+    unstable_count: Array
+    status: str
+    message: str
+    counts: dict[str, int] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return len(self.first_values)
+
+
+@dataclass(frozen=True)
 class RunResult:
     """Everything one scan produced.
 
@@ -205,6 +256,7 @@ class RunResult:
     confirmation_note: str = ""
     cycles: tuple[CycleFamily, ...] = ()
     searches: tuple[SearchRecord, ...] = ()  # equilibria found without a start guess
+    boundaries: tuple[Boundary, ...] = ()
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""
@@ -231,6 +283,11 @@ class RunResult:
         from branchline.results.tables import varying_parameters
 
         return cycles_frame(self, varying_parameters(self))
+    def boundaries_frame(self) -> pd.DataFrame:
+        """boundaries.csv as a pandas DataFrame (two-parameter fold and Hopf curves)."""
+        from branchline.results.boundary_tables import boundaries_frame
+
+        return boundaries_frame(self)
 
     def info(self) -> dict[str, Any]:
         """run.json content: what was run, settings with defaults filled in, timings."""

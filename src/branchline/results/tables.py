@@ -24,6 +24,7 @@ def varying_parameters(result: RunResult) -> list[str]:
     names = {spec.vary for spec in result.scan.traces}
     for spec in result.scan.traces:
         names.update(spec.set)
+    names.update(spec.second for spec in getattr(result.scan, "boundaries", ()))
     return [name for name in result.model.parameters if name in names]
 
 
@@ -243,6 +244,15 @@ def _confirmations(result: RunResult) -> dict[str, Any] | None:
     return confirmation_info(result.confirmations, result.confirmation_note)
 
 
+def _boundaries_entry(result: RunResult) -> dict[str, Any]:
+    """run.json's ``boundaries`` key, present when the scan has any ``[[boundary]]``."""
+    if not getattr(result.scan, "boundaries", ()):
+        return {}
+    from branchline.results.boundary_tables import boundary_entries
+
+    return {"boundaries": boundary_entries(result)}
+
+
 def run_info(result: RunResult) -> dict[str, Any]:
     """run.json: package version, settings with defaults filled in, timings, counts."""
     counts: dict[str, int] = {}
@@ -257,6 +267,7 @@ def run_info(result: RunResult) -> dict[str, Any]:
             "model": model_info(result),
             "steps": _steps_dict(result.scan.steps),
             "traces": [_trace_entry(result, branch) for branch in result.branches],
+            **_boundaries_entry(result),
             "status": result.status,
             "message": result.message,
             "warnings": list(result.warnings),

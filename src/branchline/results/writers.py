@@ -109,6 +109,8 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
     info = result.info()
     _csv(points, staging / "points.csv")
     _csv(result.events_frame(), staging / "events.csv")
+    if result.scan.boundaries:
+        _csv(result.boundaries_frame(), staging / "boundaries.csv")
     _json({"events": events}, staging / "events.json")
     cycles = None
     if result.cycles:

@@ -28,9 +28,7 @@ from branchline.scan.expressions import CONSTANTS, RESERVED
 FILE_KEY = "(file)"
 
 # Keys of later capabilities, refused with a plain statement rather than "unknown key".
-NOT_YET_AVAILABLE = {
-    "boundary": "two-parameter boundaries ([[boundary]])",
-}
+NOT_YET_AVAILABLE: dict[str, str] = {}
 
 # Column names of the result tables; a state, parameter or observable of the same
 # name would make a table ambiguous.

@@ -46,7 +46,7 @@ Rules beyond the layout in ``interface.md``:
 - ``start = "search"`` and the ``search_*`` keys: see
   :mod:`branchline.scan.search_section`. Trace names contain no ``#`` (kept
   for branches found by a search: ``<trace>#1``, ...).
-- ``[[boundary]]`` is refused as not available in this version.
+- ``[[boundary]]`` is read by :mod:`branchline.scan.boundary_section`.
 """
 
 from __future__ import annotations
@@ -59,6 +59,7 @@ from typing import Any
 
 from branchline.errors import ScanError
 from branchline.numerics.tolerances import StepSettings
+from branchline.scan.boundary_section import BoundarySpec, read_boundaries
 from branchline.scan.checks import (
     FILE_KEY,
     MAX_NAME_LENGTH,
@@ -115,6 +116,7 @@ class Scan:
     raw: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
     ensemble: EnsembleSpec | None = None  # [ensemble]: run with `branchline batch`
     cycles: tuple[CycleSpec, ...] = ()
+    boundaries: tuple[BoundarySpec, ...] = ()
 
     @property
     def stem(self) -> str:
@@ -204,6 +206,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
     if "ensemble" in data:
         ensemble = read_ensemble(check, data["ensemble"], model.parameters, _fixed(traces))
     cycles = read_cycles(check, data.get("cycles"), traces, steps, _steps, _window)
+    boundaries = read_boundaries(check, data.get("boundary"), traces, model.parameters, _steps)
     return Scan(
         source=str(source),
         title=title,
@@ -213,6 +216,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         raw=copy.deepcopy(data),
         ensemble=ensemble,
         cycles=cycles,
+        boundaries=boundaries,
     )
 
 
@@ -226,7 +230,7 @@ def _fixed(traces: tuple[TraceSpec, ...]) -> dict[str, str]:
     return fixed
 
 
-TOP_KEYS = ("title", "model", "trace", "steps", "ensemble", "cycles")
+TOP_KEYS = ("title", "model", "trace", "steps", "ensemble", "cycles", "boundary")
 TRACE_KEYS = (
     "name",
     "vary",
@@ -510,6 +514,7 @@ def _limits(
 __all__ = [
     "DIRECTIONS",
     "RESERVED_COLUMNS",
+    "BoundarySpec",
     "CycleSpec",
     "ExpressionModelSpec",
     "PythonModelSpec",

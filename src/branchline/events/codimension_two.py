@@ -1,0 +1,162 @@
+"""Codimension-two points on fold and Hopf curves: brackets, then their defining systems.
+
+A curve problem (:class:`branchline.problems.fold_curve.FoldCurve`,
+:class:`branchline.problems.hopf_curve.HopfCurve`) reports test functions at
+every point; a sign change between two rows brackets a point of that kind. It
+is located by Newton's method on its own defining system: the curve's
+equations G(u) = 0 (exact Jacobian) together with the point's scalar
+condition phi(u) = 0 (``problem.condition(kind, u)``: the fold's quadratic
+coefficient for a cusp, w^T v or kappa for a Bogdanov-Takens point, l1 for a
+Bautin point, an eigenvalue's real part for zero-Hopf and double-Hopf points;
+Kuznetsov, Elements of Applied Bifurcation Theory, sections 8.2-8.6 and 10.3).
+The gradient of phi comes from central differences of that exactly computed
+scalar: the residual, and so the located point, stay exact; Newton converges
+linearly with a tiny rate instead of quadratically.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from branchline.events.defining_systems import NewtonOutcome, newton
+from branchline.events.hopf_coefficients import hopf_coefficients
+
+Array = np.ndarray
+
+# Relative step of the central differences of phi: eps**(1/3) balances
+# truncation (h^2) against rounding (eps/h) (Nocedal & Wright, Numerical
+# Optimization, 2nd ed., section 8.1).
+CONDITION_STEP = float(np.finfo(float).eps) ** (1.0 / 3.0)
+# A located point farther than this many bracket lengths from its bracket was
+# found on another part of the curve: not accepted.
+BRACKET_REACH = 3.0
+
+
+@dataclass(frozen=True)
+class CurveBracket:
+    """Two consecutive points of a boundary curve between which ``kind`` lies."""
+
+    kind: str
+    row: int  # index of the first row (in the order the side was traced)
+    u_before: Array
+    u_after: Array
+    value_before: float
+    value_after: float
+
+
+def find_curve_brackets(problem, points: Array, tests: Array) -> list[CurveBracket]:
+    """Sign changes of each of ``problem.tests`` between consecutive rows.
+
+    Parameters
+    ----------
+    problem : FoldCurve or HopfCurve
+    points : ndarray (k, N + 1)
+    tests : ndarray (k, T), columns in the order of ``problem.tests``
+    """
+    brackets = []
+    if len(points) < 2 or tests.ndim != 2:
+        return brackets
+    for column, kind in enumerate(problem.tests):
+        values = tests[:, column]
+        for row in range(len(values) - 1):
+            a, b = values[row], values[row + 1]
+            if np.isfinite(a) and np.isfinite(b) and a * b < 0.0:
+                brackets.append(CurveBracket(kind, row, points[row], points[row + 1], a, b))
+    return brackets
+
+
+def locate_on_curve(problem, bracket: CurveBracket) -> NewtonOutcome:
+    """Newton on (G(u), phi(u)) = 0 from the secant guess inside ``bracket``."""
+    a, b = bracket.value_before, bracket.value_after
+    share = a / (a - b) if np.isfinite(a) and np.isfinite(b) and a != b else 0.5
+    guess = bracket.u_before + min(max(share, 0.0), 1.0) * (bracket.u_after - bracket.u_before)
+    problem.reset_borders(bracket.u_before)
+
+    def system(u: Array):
+        residual, jacobian = problem.evaluate(u)
+        jacobian = jacobian.toarray() if hasattr(jacobian, "toarray") else np.asarray(jacobian)
+        phi = problem.condition(bracket.kind, u)
+        return np.append(residual, phi), np.vstack(
+            [jacobian, condition_gradient(problem, bracket.kind, u)]
+        )
+
+    outcome = newton(system, guess)
+    if outcome.converged:
+        reach = BRACKET_REACH * float(np.linalg.norm(bracket.u_after - bracket.u_before))
+        if float(np.linalg.norm(outcome.solution - guess)) > max(reach, 1e-12):
+            return NewtonOutcome(False, guess, outcome.residual_norms, "Newton left the bracket")
+    return outcome
+
+
+def condition_gradient(problem, kind: str, u: Array) -> Array:
+    """Central-difference gradient of ``problem.condition(kind, .)`` at u."""
+    gradient = np.empty(u.shape[0])
+    for i in range(u.shape[0]):
+        h = CONDITION_STEP * max(1.0, abs(float(u[i])))
+        up, down = u.copy(), u.copy()
+        up[i] += h
+        down[i] -= h
+        gradient[i] = (problem.condition(kind, up) - problem.condition(kind, down)) / (
+            up[i] - down[i]
+        )
+    return gradient
+
+
+@dataclass(frozen=True)
+class PointReading:
+    """What a located codimension-two point means: columns and detail for its event."""
+
+    note: str
+    frequency: float | None = None
+    lyapunov: float | None = None
+    details: dict = None  # type: ignore[assignment]
+
+
+NOTES = {
+    "cusp": "the fold's quadratic coefficient vanishes: two fold curves meet here in a cusp",
+    "bogdanov_takens": (
+        "a double zero eigenvalue: the fold curve and the Hopf curve meet here "
+        "(beyond it the Hopf curve continues as a curve of neutral saddles)"
+    ),
+    "bautin": "the first Lyapunov coefficient vanishes: the Hopf point changes criticality",
+    "zero_hopf": "a zero eigenvalue and an imaginary pair at once: a fold and a Hopf curve meet",
+    "double_hopf": "two imaginary pairs at once: two Hopf curves cross",
+}
+
+
+def read_point(problem, kind: str, u: Array) -> PointReading:
+    """The reading of a located ``kind`` point u of ``problem``'s curve."""
+    details: dict = {"condition": float(problem.condition(kind, u))}
+    x, p = u[: problem.n], problem.parameters_at(u)
+    eigenvalues = problem.eigenvalues(problem.state_matrix(x, p))
+    if eigenvalues.size:
+        details["eigenvalues"] = eigenvalues
+    frequency = lyapunov = None
+    note = NOTES[kind]
+    if kind == "bautin":
+        frequency = problem.frequency(u)
+        coefficients = hopf_coefficients(problem.model, x, p, frequency)
+        lyapunov = float(coefficients.lyapunov)
+        l2 = float(coefficients.second_lyapunov)
+        details["second_lyapunov"] = l2
+        details["c2"] = complex(coefficients.c2)
+        side = "stable" if l2 < 0 else "unstable"
+        note += (
+            f"; second Lyapunov coefficient l2 = {l2:.6g} ({'negative' if l2 < 0 else 'positive'}: "
+            f"a fold of cycles leaves this point, the large cycles are {side})"
+        )
+    elif kind == "zero_hopf":
+        frequency = problem.frequency(u)
+        if not np.isfinite(frequency) and eigenvalues.size:
+            pairs = eigenvalues[eigenvalues.imag > 0]
+            frequency = float(pairs[int(np.argmin(np.abs(pairs.real)))].imag)
+    elif kind == "double_hopf":
+        frequency = problem.frequency(u)
+        pairs = eigenvalues[eigenvalues.imag > 0]
+        others = pairs[np.argsort(np.abs(pairs.imag - frequency))][1:]
+        if others.size:
+            other = others[int(np.argmin(np.abs(others.real)))]
+            details["frequencies"] = [frequency, float(other.imag)]
+    return PointReading(note, frequency, lyapunov, details)

@@ -1,0 +1,238 @@
+"""The Hopf curve in two parameters: f = 0 and two minimally augmented Hopf conditions.
+
+Unknowns u = (x, p2, kappa, p1), kappa = omega^2. With M = A^2 + kappa I
+(A = f_x), the bordered system
+
+    [[M, W], [V^T, 0]] [Vg; G] = [0; I_2]
+
+gives a 2 x 2 matrix G that vanishes exactly where M has a two-dimensional null
+space, i.e. where A has the eigenvalues +-i sqrt(kappa) (Govaerts, Numerical
+Methods for Bifurcations of Dynamical Equilibria, SIAM 2000, chapter 4;
+Kuznetsov, Elements of Applied Bifurcation Theory, section 10.2.2; from
+memory). Two entries of G, chosen where the whole Jacobian is best
+conditioned, are the equations besides f = 0. Their derivatives are exact:
+G_ij,z = -Wg_i^T M_z Vg_j with M_x v = B(., A v) + A B(., v), M_p likewise from
+d/dp (f_x v), M_kappa = I. The borders follow the curve.
+
+Where kappa reaches zero the curve meets a Bogdanov-Takens point and goes on
+as a curve of neutral saddles (real eigenvalues +-sqrt(-kappa)), which is no
+Hopf curve: :meth:`HopfCurve.observe` refuses such points, so the curve ends
+there and the Bogdanov-Takens point is located between its last point and the
+refused one.
+
+Test functions (Kuznetsov, sections 8.3-8.6 and 10.3.2): ``bautin`` (the first
+Lyapunov coefficient l1), ``zero_hopf`` (the product of the other real
+eigenvalues) and ``double_hopf`` (the product of the real parts of the other
+complex pairs).
+"""
+
+from __future__ import annotations
+
+import itertools
+from typing import Any
+
+import numpy as np
+import scipy.sparse as sps
+
+from branchline.continuation.engine import ObservationFailed
+from branchline.events.normal_forms import hopf_normal_form
+from branchline.numerics.eigenvalues import eigenvector_near
+from branchline.problems.boundary_curve import (
+    BoundaryCurve,
+    Factored,
+    bordered,
+    orthonormal,
+    signed_product,
+)
+
+Array = np.ndarray
+
+HOPF_CURVE_TESTS = ("bautin", "zero_hopf", "double_hopf")
+NEUTRAL_SADDLE = "the Hopf curve turns into a curve of neutral saddles (omega -> 0)"
+
+
+class HopfCurve(BoundaryCurve):
+    """The curve problem of Hopf points in (first, second) parameters.
+
+    Parameters
+    ----------
+    model, first, second, parameters
+        As :class:`branchline.problems.boundary_curve.BoundaryCurve`.
+    u0 : ndarray (n + 3,)
+        A Hopf point (x, p2, omega^2, p1); its critical eigenvectors start the borders.
+    """
+
+    kind = "hopf"
+    tests = HOPF_CURVE_TESTS
+
+    def __init__(self, model, first: int, second: int, parameters: Array, u0: Array) -> None:
+        super().__init__(model, first, second, parameters, extra=1)
+        self.neutral: Array | None = None
+        self.reset_borders(u0)
+
+    # ------------------------------------------------------------------ borders
+
+    def reset_borders(self, u: Array) -> None:
+        """Borders from the critical eigenvectors at u, and the pair of entries of G used."""
+        x, p, kappa = u[: self.n], self.parameters_at(u), float(u[self.n + 1])
+        a_matrix = self.state_matrix(x, p)
+        omega = np.sqrt(max(kappa, 0.0))
+        _, q = eigenvector_near(a_matrix, 1j * omega)
+        transposed = a_matrix.T.tocsc() if sps.issparse(a_matrix) else a_matrix.T
+        _, left = eigenvector_near(transposed, -1j * omega)
+        self.right = orthonormal(np.column_stack([q.real, q.imag]))
+        self.left = orthonormal(np.column_stack([left.real, left.imag]))
+        self.entries = ((0, 0), (1, 1))
+        self.entries = self._best_entries(u)
+
+    def _best_entries(self, u: Array) -> tuple[tuple[int, int], tuple[int, int]]:
+        """The two entries of G whose rows make the Jacobian best conditioned."""
+        x, p = u[: self.n], self.parameters_at(u)
+        a_matrix = self.state_matrix(x, p)
+        parts = self._parts(u, a_matrix)
+        pairs = list(itertools.product((0, 1), (0, 1)))
+        rows = dict(zip(pairs, self._gradients(x, p, a_matrix, parts, pairs), strict=True))
+        top = None
+        if not sps.issparse(a_matrix):
+            top = np.hstack([a_matrix, self._f_columns(x, p)])
+        best, choice = -1.0, self.entries
+        for first, second in itertools.combinations(rows, 2):
+            block = np.vstack([rows[first], rows[second]])
+            matrix = block if top is None else np.vstack([top, block])
+            smallest = float(np.linalg.svd(matrix, compute_uv=False)[-1])
+            if smallest > best:
+                best, choice = smallest, (first, second)
+        return choice
+
+    # ------------------------------------------------------------------ the system
+
+    def _f_columns(self, x: Array, p: Array) -> Array:
+        """df/d(p2, kappa, p1), shape (n, 3)."""
+        columns = self.parameter_columns(x, p)
+        return np.column_stack([columns[:, 0], np.zeros(self.n), columns[:, 1]])
+
+    def _parts(self, u: Array, a_matrix) -> tuple[Array, Array, Array]:
+        """(Vg (n, 2), G (2, 2), Wg (n, 2)) of the bordered system at u."""
+        n = self.n
+        kappa = float(u[n + 1])
+        if sps.issparse(a_matrix):
+            square = (a_matrix @ a_matrix + kappa * sps.identity(n, format="csc")).tocsc()
+        else:
+            square = a_matrix @ a_matrix + kappa * np.eye(n)
+        factored = Factored(bordered(square, self.left, self.right))
+        units = np.zeros((n + 2, 2))
+        units[n, 0] = units[n + 1, 1] = 1.0
+        solution = factored.solve(units)
+        adjoint = factored.solve(units, transposed=True)
+        return solution[:n], solution[n:], adjoint[:n]
+
+    def _gradients(self, x, p, a_matrix, parts, entries) -> Array:
+        """d G_ij / d(x, p2, kappa, p1) for each (i, j) of ``entries``, shape (len, n + 3)."""
+        vg, _, wg = parts
+        used = sorted({j for _, j in entries})
+        vectors = np.column_stack([vg[:, used], a_matrix @ vg[:, used]])
+        seconds = self.second_matrices(x, p, vectors)
+        mixed = self.mixed_blocks(x, p, vectors)
+        rows = []
+        for i, j in entries:
+            at = used.index(j)
+            plain, moved = at, at + len(used)  # columns v_j and A v_j
+            v, w = vg[:, j], wg[:, i]
+            atw = a_matrix.T @ w
+            d_x = seconds[moved].T @ w + seconds[plain].T @ atw
+            d_p = w @ mixed[moved] + atw @ mixed[plain]
+            rows.append(-np.concatenate([d_x, [d_p[0], float(w @ v), d_p[1]]]))
+        return np.array(rows)
+
+    def residual(self, u: Array) -> Array:
+        """(f, G_e1, G_e2), shape (n + 2,)."""
+        x, p = u[: self.n], self.parameters_at(u)
+        _, g, _ = self._parts(u, self.state_matrix(x, p))
+        values = [g[i, j] for i, j in self.entries]
+        return np.concatenate([self.model.rhs(x, p), values])
+
+    def evaluate(self, u: Array) -> tuple[Array, Any]:
+        """The residual and its Jacobian (n + 2, n + 3), exact derivatives."""
+        x, p = u[: self.n], self.parameters_at(u)
+        a_matrix = self.state_matrix(x, p)
+        parts = self._parts(u, a_matrix)
+        rows = self._gradients(x, p, a_matrix, parts, self.entries)
+        jacobian = self.stack(a_matrix, self._f_columns(x, p), rows)
+        values = [parts[1][i, j] for i, j in self.entries]
+        return np.concatenate([self.model.rhs(x, p), values]), jacobian
+
+    def jacobian(self, u: Array) -> Any:
+        """dG/du, shape (n + 2, n + 3); sparse for large sparse models."""
+        return self.evaluate(u)[1]
+
+    # ------------------------------------------------------------------ along the curve
+
+    def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Array, Array]:
+        """Eigenvalues and the Bautin, zero-Hopf and double-Hopf tests; borders move here.
+
+        Raises
+        ------
+        ObservationFailed
+            Where kappa <= 0: the curve has passed a Bogdanov-Takens point
+            (``self.neutral`` keeps the refused point for locating it).
+        """
+        n = self.n
+        kappa = float(u[n + 1])
+        if not kappa > 0.0:
+            self.neutral = np.array(u, dtype=float)
+            raise ObservationFailed(NEUTRAL_SADDLE)
+        x, p = u[:n], self.parameters_at(u)
+        a_matrix = self.state_matrix(x, p)
+        vg, _, wg = self._parts(u, a_matrix)
+        eigenvalues = self.eigenvalues(a_matrix)
+        rest = _other_eigenvalues(eigenvalues, np.sqrt(kappa))
+        tests = np.array(
+            [
+                self.lyapunov(u),
+                signed_product(rest[rest.imag == 0].real) if eigenvalues.size else np.nan,
+                signed_product(rest[rest.imag > 0].real) if eigenvalues.size else np.nan,
+            ]
+        )
+        self._pending = (orthonormal(vg), orthonormal(wg))
+        return eigenvalues, tests
+
+    def adapt(self, u: Array, tangent: Array) -> tuple[Array, Array]:
+        """Engine hook after an accepted point: the borders move to its null spaces."""
+        self.right, self.left = self._pending
+        return u, tangent
+
+    def lyapunov(self, u: Array) -> float:
+        """The first Lyapunov coefficient l1 at a Hopf point u (contract scaling)."""
+        x, p = u[: self.n], self.parameters_at(u)
+        omega = float(np.sqrt(max(u[self.n + 1], 0.0)))
+        return hopf_normal_form(self.model, x, p, omega).lyapunov
+
+    def condition(self, kind: str, u: Array) -> float:
+        """The scalar whose zero is a codimension-two point of ``kind`` on this curve."""
+        n = self.n
+        kappa = float(u[n + 1])
+        if kind == "bogdanov_takens":
+            return kappa
+        if kind == "bautin":
+            return self.lyapunov(u)
+        x, p = u[:n], self.parameters_at(u)
+        rest = _other_eigenvalues(self.eigenvalues(self.state_matrix(x, p)), np.sqrt(abs(kappa)))
+        if kind == "zero_hopf":
+            real = rest[np.abs(rest.imag) <= 1e-12 * (1.0 + np.abs(rest))]
+            return float(real[int(np.argmin(np.abs(real)))].real) if real.size else np.nan
+        pairs = rest[rest.imag > 0]
+        return float(pairs[int(np.argmin(np.abs(pairs.real)))].real) if pairs.size else np.nan
+
+    def frequency(self, u: Array) -> float:
+        """omega = sqrt(kappa)."""
+        return float(np.sqrt(max(u[self.n + 1], 0.0)))
+
+
+def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
+    """The eigenvalues without the critical pair nearest +-i omega."""
+    if eigenvalues.size < 2:
+        return eigenvalues[:0]
+    first = int(np.argmin(np.abs(eigenvalues - 1j * omega)))
+    rest = np.delete(eigenvalues, first)
+    second = int(np.argmin(np.abs(rest + 1j * omega)))
+    return np.delete(rest, second)
