@@ -289,3 +289,17 @@ def test_diagram_with_a_hopf_point_says_cycles_were_not_computed():
 
     figure, _ = _figure_texts(VAN_DER_POL)
     assert HOPF_CYCLES_NOTE in [t.get_text() for t in figure.legends[0].get_texts()]
+
+
+def test_report_and_plot_of_a_run_with_no_points(tmp_path, capsys):
+    # x^2 + 1 + F = 0 has no real solution: the trace fails at its start.
+    scan = tmp_path / "none.toml"
+    scan.write_text(
+        'title = "none"\n[model.parameters]\nF = 0.5\n[model.equations]\nx = "x^2 + 1 + F"\n'
+        '[[trace]]\nvary = "F"\ninterval = [0.0, 1.0]\nstart = { x = 1.0 }\n'
+    )
+    out = tmp_path / "out"
+    assert main(["run", str(scan), "--out", str(out), "--quiet"]) == 1
+    assert main(["report", str(out)]) == 0
+    assert main(["plot", str(out)]) == 0
+    assert "no equilibrium found at the start" in capsys.readouterr().out

@@ -221,6 +221,6 @@ def _layout_problem(points: pd.DataFrame, events: Any, info: Any) -> str:
         vary = entry["vary"]
         if vary not in points.columns:
             return f"points.csv has no column '{vary[:60]}' (the varied parameter)"
-        if not pd.api.types.is_numeric_dtype(points[vary]):
+        if len(points) and not pd.api.types.is_numeric_dtype(points[vary]):
             return f"points.csv: column '{vary[:60]}' holds values that are not numbers"
     return ""
