@@ -29,6 +29,7 @@ from branchline.portrait.compute import (
 from branchline.portrait.plane import Plane, eigenvector_plane, planar, state_plane
 from branchline.runner import run_scan, start_vector
 from branchline.scan.loader import Scan
+from branchline.scan.search_section import SEARCH_START
 from branchline.simulation.branches import traced_at
 
 
@@ -44,7 +45,11 @@ def _traced_guesses(scan: Scan, model, settings: dict[str, float]):
     met = [b.states for b in result.branches if len(b)]
     for spec in scan.traces:
         value = settings.get(spec.vary, model.defaults[model.parameter_index(spec.vary)])
-        own = [b for b in result.branches if b.name.split(".")[0] == spec.name]
+        own = [
+            b
+            for b in result.branches
+            if b.name == spec.name or b.name.startswith((f"{spec.name}.", f"{spec.name}#"))
+        ]
         for name, state, _ in traced_at(own, spec.vary, value):
             guesses.append((state, f"trace {name}"))
     return guesses, (np.vstack(met) if met else np.empty((0, model.size)))
@@ -119,7 +124,15 @@ def compute_portrait(
     parameters = model.parameter_vector(settings)
     spec = scan.traces[0]
     guesses, met = _traced_guesses(scan, model, settings)
-    guesses.append((start_vector(model, spec, parameters, scan.source), "start guess"))
+    if spec.start != SEARCH_START:
+        guesses.append((start_vector(model, spec, parameters, scan.source), "start guess"))
+    if not guesses:
+        raise ScanError(
+            scan.source,
+            "trace",
+            "no equilibrium was traced at these values to "
+            "start the portrait from; give the first trace a start guess",
+        )
     origin = guesses[0][0]
     frame = _plane(scan, model, parameters, origin, plane, eigenvector_plane)
     region = np.vstack([met, *(x[None, :] for x, _ in guesses)])
