@@ -16,6 +16,7 @@ from branchline.errors import ScanError
 from branchline.events.sensitivities import with_sensitivities
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
 from branchline.problems.boundary import follow_boundaries
+from branchline.problems.robust_margin import robust_margin
 from branchline.problems.crowding import resolve_crowded_steps
 from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import locate_events, trace_branch
@@ -369,6 +370,9 @@ def run_scan(
     )
     events.extend(boundary_events)
     warnings.extend(boundary_warnings)
+    margin = None
+    if scan.robust_margin is not None and not stopped:
+        margin = robust_margin(model, scan.robust_margin, events, {b.name for b in branches})
     trouble = _observable_trouble(model, branches)
     if trouble:
         warnings.append(trouble)
@@ -405,6 +409,7 @@ def run_scan(
         cycles=tuple(families),
         searches=tuple(searches),
         boundaries=tuple(boundaries),
+        robust_margin=margin,
     )
 
 

@@ -132,6 +132,21 @@ class FoldCurve(BoundaryCurve):
             return float(w @ v) / (np.linalg.norm(w) * np.linalg.norm(v))
         return _nearest_axis_pair(self.eigenvalues(a_matrix)).real
 
+    def parameter_derivatives(self, u: Array, indices: list[int]) -> Array:
+        """d(f, g)/dp for the parameters ``indices``, shape (n + 1, k), exact (g_p = -w^T
+        d/dp (A v))."""
+        x, p = u[: self.n], self.parameters_at(u)
+        v, _, w = self._null(self.state_matrix(x, p))
+        g_p = -(w @ self.mixed_columns(x, p, v, indices))
+        return np.vstack([self.parameter_columns(x, p, indices), g_p[None, :]])
+
+    def left_null(self, u: Array) -> Array:
+        """A left null vector of d(f, g)/dx at a fold point: (w, 0), so that the normal of
+        the fold surface in parameter space is w^T f_p (Dobson 1993)."""
+        x, p = u[: self.n], self.parameters_at(u)
+        _, _, w = self._null(self.state_matrix(x, p))
+        return np.append(w / np.linalg.norm(w), 0.0)
+
     def frequency(self, u: Array) -> float:
         """No frequency on a fold curve (NaN)."""
         return float("nan")

@@ -144,6 +144,35 @@ class HopfCurve(BoundaryCurve):
             rows.append(-np.concatenate([d_x, [d_p[0], float(w @ v), d_p[1]]]))
         return np.array(rows)
 
+    def parameter_derivatives(self, u: Array, indices: list[int]) -> Array:
+        """d(f, G_e1, G_e2)/dp for the parameters ``indices``, shape (n + 2, k), exact
+        (G_ij,p = -Wg_i^T M_p Vg_j with M_p v = d/dp (f_x A v) + A d/dp (f_x v))."""
+        x, p = u[: self.n], self.parameters_at(u)
+        a_matrix = self.state_matrix(x, p)
+        vg, _, wg = self._parts(u, a_matrix)
+        rows = []
+        for i, j in self.entries:
+            v, w = vg[:, j], wg[:, i]
+            moved = self.mixed_columns(x, p, a_matrix @ v, indices)
+            plain = self.mixed_columns(x, p, v, indices)
+            rows.append(-(w @ moved + (a_matrix.T @ w) @ plain))
+        return np.vstack([self.parameter_columns(x, p, indices), np.array(rows)])
+
+    def left_null(self, u: Array) -> Array:
+        """The left null vector mu of d(f, G_e1, G_e2)/d(x, kappa) at a Hopf point: its
+        G part is orthogonal to dG/dkappa, its f part -A^-T G_x^T mu_G (A is regular at
+        a Hopf point away from zero-Hopf points). mu^T dE/dp is the normal of the Hopf
+        surface in parameter space."""
+        n = self.n
+        x, p = u[:n], self.parameters_at(u)
+        a_matrix = self.state_matrix(x, p)
+        rows = self._gradients(x, p, a_matrix, self._parts(u, a_matrix), self.entries)
+        g_kappa = rows[:, n + 1]
+        mu_g = np.array([g_kappa[1], -g_kappa[0]])
+        mu_f = -Factored(a_matrix).solve(rows[:, :n].T @ mu_g, transposed=True)
+        mu = np.concatenate([mu_f, mu_g])
+        return mu / np.linalg.norm(mu)
+
     def residual(self, u: Array) -> Array:
         """(f, G_e1, G_e2), shape (n + 2,)."""
         x, p = u[: self.n], self.parameters_at(u)

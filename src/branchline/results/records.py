@@ -19,6 +19,7 @@ if TYPE_CHECKING:
     from matplotlib.figure import Figure
 
     from branchline.model.build import Model
+    from branchline.results.robust_margin_records import RobustMargin
     from branchline.results.search_records import SearchRecord
     from branchline.scan.loader import Scan
 
@@ -257,6 +258,7 @@ class RunResult:
     cycles: tuple[CycleFamily, ...] = ()
     searches: tuple[SearchRecord, ...] = ()  # equilibria found without a start guess
     boundaries: tuple[Boundary, ...] = ()
+    robust_margin: RobustMargin | None = None  # with [robust_margin]
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""
@@ -288,6 +290,12 @@ class RunResult:
         from branchline.results.boundary_tables import boundaries_frame
 
         return boundaries_frame(self)
+
+    def robust_margin_frame(self) -> pd.DataFrame:
+        """robust_margin.csv as a pandas DataFrame (no rows without [robust_margin])."""
+        from branchline.results.robust_margin_tables import robust_margin_frame
+
+        return robust_margin_frame(self)
 
     def info(self) -> dict[str, Any]:
         """run.json content: what was run, settings with defaults filled in, timings."""

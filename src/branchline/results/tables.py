@@ -253,6 +253,15 @@ def _boundaries_entry(result: RunResult) -> dict[str, Any]:
     return {"boundaries": boundary_entries(result)}
 
 
+def _robust_margin_entry(result: RunResult) -> dict[str, Any]:
+    """run.json's ``robust_margin`` key, present when the scan has ``[robust_margin]``."""
+    if getattr(result, "robust_margin", None) is None:
+        return {}
+    from branchline.results.robust_margin_tables import robust_margin_entry
+
+    return robust_margin_entry(result)
+
+
 def run_info(result: RunResult) -> dict[str, Any]:
     """run.json: package version, settings with defaults filled in, timings, counts."""
     counts: dict[str, int] = {}
@@ -268,6 +277,7 @@ def run_info(result: RunResult) -> dict[str, Any]:
             "steps": _steps_dict(result.scan.steps),
             "traces": [_trace_entry(result, branch) for branch in result.branches],
             **_boundaries_entry(result),
+            **_robust_margin_entry(result),
             "status": result.status,
             "message": result.message,
             "warnings": list(result.warnings),

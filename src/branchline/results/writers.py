@@ -111,6 +111,8 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
     _csv(result.events_frame(), staging / "events.csv")
     if result.scan.boundaries:
         _csv(result.boundaries_frame(), staging / "boundaries.csv")
+    if result.robust_margin is not None:
+        _csv(result.robust_margin_frame(), staging / "robust_margin.csv")
     _json({"events": events}, staging / "events.json")
     cycles = None
     if result.cycles:

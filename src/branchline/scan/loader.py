@@ -47,6 +47,7 @@ Rules beyond the layout in ``interface.md``:
   :mod:`branchline.scan.search_section`. Trace names contain no ``#`` (kept
   for branches found by a search: ``<trace>#1``, ...).
 - ``[[boundary]]`` is read by :mod:`branchline.scan.boundary_section`.
+- ``[robust_margin]`` is read by :mod:`branchline.scan.margin_section`.
 """
 
 from __future__ import annotations
@@ -60,6 +61,7 @@ from typing import Any
 from branchline.errors import ScanError
 from branchline.numerics.tolerances import StepSettings
 from branchline.scan.boundary_section import BoundarySpec, read_boundaries
+from branchline.scan.margin_section import RobustMarginSpec, read_robust_margin
 from branchline.scan.checks import (
     FILE_KEY,
     MAX_NAME_LENGTH,
@@ -117,6 +119,7 @@ class Scan:
     ensemble: EnsembleSpec | None = None  # [ensemble]: run with `branchline batch`
     cycles: tuple[CycleSpec, ...] = ()
     boundaries: tuple[BoundarySpec, ...] = ()
+    robust_margin: RobustMarginSpec | None = None
 
     @property
     def stem(self) -> str:
@@ -207,6 +210,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         ensemble = read_ensemble(check, data["ensemble"], model.parameters, _fixed(traces))
     cycles = read_cycles(check, data.get("cycles"), traces, steps, _steps, _window)
     boundaries = read_boundaries(check, data.get("boundary"), traces, model.parameters, _steps)
+    margin = read_robust_margin(check, data.get("robust_margin"), model.parameters)
     return Scan(
         source=str(source),
         title=title,
@@ -217,6 +221,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         ensemble=ensemble,
         cycles=cycles,
         boundaries=boundaries,
+        robust_margin=margin,
     )
 
 
@@ -230,7 +235,16 @@ def _fixed(traces: tuple[TraceSpec, ...]) -> dict[str, str]:
     return fixed
 
 
-TOP_KEYS = ("title", "model", "trace", "steps", "ensemble", "cycles", "boundary")
+TOP_KEYS = (
+    "title",
+    "model",
+    "trace",
+    "steps",
+    "ensemble",
+    "cycles",
+    "boundary",
+    "robust_margin",
+)
 TRACE_KEYS = (
     "name",
     "vary",
