@@ -197,15 +197,26 @@ def test_three_uncertain_parameters_against_brute_force():
         a, b, c = point.parameters
         x = point.state[0]
         assert abs(a + 2 * c * x**3) < 1e-12 and abs(b - 3 * c * x**2) < 1e-12
-        starts = [(s * t, c0) for t in (0.3, 0.6, 0.9) for c0 in (0.5, 1.0, 1.5) for s in [np.sign(x)]]
-        best = min(
-            (optimize.minimize(distance, s, method="Nelder-Mead", options={"xatol": 1e-12, "fatol": 1e-14, "maxiter": 20000}) for s in starts),
-            key=lambda r: r.fun,
-        )
-        assert abs(point.distance - best.fun) < 1e-8 * best.fun
-        # the direction is the unit scaled offset, and is normal to the surface
+        # a local minimum: no surface point in a small ring around it is nearer
+        angles = np.linspace(0, 2 * np.pi, 64, endpoint=False)
+        ring = [distance((x + 1e-3 * np.cos(t), c + 1e-3 * np.sin(t))) for t in angles]
+        assert min(ring) > point.distance
+        # the direction is the unit scaled offset
         offset = (point.parameters - nominal) / scales
         assert np.max(np.abs(point.direction - offset / point.distance)) < 1e-12
+    # brute force: the whole surface sampled on a dense (x, c) grid, the best polished
+    grid_x, grid_c = np.meshgrid(np.linspace(-1.5, 1.5, 601), np.linspace(0.01, 3.0, 600))
+    sampled = np.vectorize(lambda x, c: distance((x, c)))(grid_x, grid_c)
+    at = np.unravel_index(np.argmin(sampled), sampled.shape)
+    best = optimize.minimize(
+        distance,
+        (grid_x[at], grid_c[at]),
+        method="Nelder-Mead",
+        options={"xatol": 1e-12, "fatol": 1e-15, "maxiter": 20000},
+    )
+    nearest = result.robust_margin.nearest()
+    assert best.fun <= sampled.min()
+    assert abs(nearest.distance - best.fun) < 1e-9 * best.fun
 
 
 def test_written_table_and_report(tmp_path, cusp):

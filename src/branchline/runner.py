@@ -16,10 +16,10 @@ from branchline.errors import ScanError
 from branchline.events.sensitivities import with_sensitivities
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
 from branchline.problems.boundary import follow_boundaries
-from branchline.problems.robust_margin import robust_margin
 from branchline.problems.crowding import resolve_crowded_steps
 from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import locate_events, trace_branch
+from branchline.problems.robust_margin import robust_margin
 from branchline.problems.start_guess import start_distance
 from branchline.problems.switching import trace_switched
 from branchline.problems.window_search import run_search, search_box

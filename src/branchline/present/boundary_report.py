@@ -16,7 +16,7 @@ TOP_PARAMETERS = 3
 CODIMENSION_TWO = ("cusp", "bogdanov_takens", "bautin", "zero_hopf", "double_hopf")
 
 
-def _table(header: Sequence[str], rows: Sequence[Sequence[Any]]) -> list[str]:
+def markdown_table(header: Sequence[str], rows: Sequence[Sequence[Any]]) -> list[str]:
     lines = ["| " + " | ".join(header) + " |", "|" + "|".join("---" for _ in header) + "|"]
     lines += ["| " + " | ".join(str(c).replace("|", "\\|") for c in row) + " |" for row in rows]
     return [*lines, ""]
@@ -46,7 +46,7 @@ def boundaries_section(events: Sequence[Mapping[str, Any]], info: Mapping[str, A
                 entry["message"],
             )
         )
-    out += _table(("boundary", "kind", "started from", "points", "extent", "how it ended"), rows)
+    out += markdown_table(("boundary", "kind", "started from", "points", "extent", "how it ended"), rows)
     points = [e for e in events if e.get("kind") in CODIMENSION_TWO]
     if points:
         rows = []
@@ -65,7 +65,7 @@ def boundaries_section(events: Sequence[Mapping[str, Any]], info: Mapping[str, A
                 )
             )
         out += ["Points found on the boundaries:", ""]
-        out += _table(("boundary", "point", "where", "meaning"), rows)
+        out += markdown_table(("boundary", "point", "where", "meaning"), rows)
     else:
         out += ["No cusp, Bogdanov-Takens, Bautin, zero-Hopf or double-Hopf point was found.", ""]
     return out
@@ -106,4 +106,4 @@ def sensitivities_section(events: Sequence[Mapping[str, Any]]) -> list[str]:
         "the percentage the event moves for a one percent change of that parameter.",
         "",
     ]
-    return out + _table(("trace", "event", "at", "moved most by"), rows)
+    return out + markdown_table(("trace", "event", "at", "moved most by"), rows)

@@ -16,6 +16,7 @@ import pandas as pd
 from branchline.present.boundary_report import boundaries_section, sensitivities_section
 from branchline.present.confirmations import confirmation_section
 from branchline.present.oscillations import oscillation_section
+from branchline.present.robust_margin_report import robust_margin_section
 from branchline.present.search_report import search_section
 from branchline.results.margins import (
     HysteresisWindow,
@@ -633,6 +634,7 @@ def render_report(
     out += oscillation_section(events, info, cycles)
     out += boundaries_section(events, info)
     out += sensitivities_section(events)
+    out += robust_margin_section(info)
     for warning in info.get("warnings") or []:
         out += [f"> Warning: {warning}", ""]
     out += ["---", "", f"**Caution.** {CAUTION}", ""]

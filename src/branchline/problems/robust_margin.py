@@ -46,6 +46,13 @@ NORMAL_STEP = float(np.finfo(float).eps) ** (1.0 / 3.0)
 # Events whose fixed parameters differ from the nominal point's by more than this
 # (relative) lie in another slice of parameter space: not used.
 SLICE_RTOL = 1e-12
+# The descent along the surface stops when the tangential part of the scaled offset is
+# this small relative to it (Newton on the normal-vector system finishes from there),
+# after this many steps, or when a step this small (as a share of the tangential
+# part) no longer shortens the offset.
+DESCENT_RTOL = 1e-2
+DESCENT_MAX_STEPS = 200
+DESCENT_SMALLEST_SHARE = 1.0 / 64
 # Two nearest points closer than this (relative, in the unknowns) are one.
 SAME_POINT_RTOL = 1e-7
 
@@ -129,6 +136,62 @@ class NearestPointSystem:
         full[rows:, -1] = -nu
         return np.concatenate([residual, self.scaled(y) - r * nu]), full
 
+    # ------------------------------------------------------------------ descent
+
+    def onto_surface(self, y: Array, target: Array, direction: Array) -> Array | None:
+        """y on the surface at z = target + s direction (s and the states solved for by
+        Newton from y), or None when Newton fails."""
+        n, e = self.n, self.extra
+        setting = self.setting
+        moved = setting.scales * direction
+
+        def system(w: Array) -> tuple[Array, Array]:
+            trial = self._with_offset(y, w, target, direction)
+            u = self.point(trial)
+            residual, jacobian = self.problem.evaluate(u)
+            jacobian = jacobian.toarray() if sps.issparse(jacobian) else np.asarray(jacobian)
+            column = self.problem.parameter_derivatives(u, self.indices) @ moved
+            return residual, np.column_stack([jacobian[:, self.state_columns], column])
+
+        w0 = np.append(y[: n + e], float((self.scaled(y) - target) @ direction))
+        outcome = newton(system, w0)
+        if not outcome.converged:
+            return None
+        return self._with_offset(y, outcome.solution, target, direction)
+
+    def _with_offset(self, y: Array, w: Array, target: Array, direction: Array) -> Array:
+        n, e = self.n, self.extra
+        out = y.copy()
+        out[: n + e] = w[:-1]
+        z = target + w[-1] * direction
+        out[n + e : -1] = self.setting.nominal[self.indices] + self.setting.scales * z
+        return out
+
+    def descend(self, y: Array) -> Array:
+        """Steepest descent of |z| along the surface from the surface point y: a step
+        along the tangential part of z, back onto the surface along the normal,
+        accepted when |z| decreases (halved otherwise), until the tangential part is
+        below ``DESCENT_RTOL`` |z|. Newton on the full system then finishes from a
+        point near the minimum, never near a saddle of the distance."""
+        for _ in range(DESCENT_MAX_STEPS):
+            z, nu = self.scaled(y), self.normal(y)
+            tangential = z - float(nu @ z) * nu
+            size = float(np.linalg.norm(z))
+            if np.linalg.norm(tangential) <= DESCENT_RTOL * size:
+                break
+            share = 1.0
+            while share >= DESCENT_SMALLEST_SHARE:
+                moved = self.onto_surface(y, z - share * tangential, nu)
+                if moved is not None and np.linalg.norm(self.scaled(moved)) < size:
+                    y = moved
+                    break
+                share *= 0.5
+            else:
+                break
+        y = y.copy()
+        y[-1] = float(self.normal(y) @ self.scaled(y))
+        return y
+
     def _normal_derivatives(self, y: Array) -> Array:
         """d nu / d(x, [kappa], q) by central differences, shape (k, n + e + k)."""
         columns = y.shape[0] - 1
@@ -163,7 +226,7 @@ def nearest_point(model, event: Event, number: int, setting: MarginSetting) -> N
     with np.errstate(all="ignore"):
         try:
             y0 = system.start(event)
-            outcome = newton(system, y0)
+            outcome = newton(system, system.descend(y0))
         except (ArithmeticError, ValueError, np.linalg.LinAlgError, RuntimeError) as exc:
             return _failed(event, number, setting, f"the normal vector is undefined there ({exc})")
     if not outcome.converged:

@@ -61,7 +61,6 @@ from typing import Any
 from branchline.errors import ScanError
 from branchline.numerics.tolerances import StepSettings
 from branchline.scan.boundary_section import BoundarySpec, read_boundaries
-from branchline.scan.margin_section import RobustMarginSpec, read_robust_margin
 from branchline.scan.checks import (
     FILE_KEY,
     MAX_NAME_LENGTH,
@@ -75,6 +74,7 @@ from branchline.scan.checks import (
 )
 from branchline.scan.cycles_section import CycleSpec, read_cycles
 from branchline.scan.ensemble_section import EnsembleSpec, read_ensemble
+from branchline.scan.margin_section import RobustMarginSpec, read_robust_margin
 from branchline.scan.model_section import (
     ExpressionModelSpec,
     PythonModelSpec,
