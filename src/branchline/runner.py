@@ -20,6 +20,7 @@ from branchline.problems.crowding import resolve_crowded_steps
 from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.problems.robust_margin import robust_margin
+from branchline.problems.stability_regions import stability_maps
 from branchline.problems.start_guess import start_distance
 from branchline.problems.switching import trace_switched
 from branchline.problems.window_search import run_search, search_box
@@ -370,6 +371,7 @@ def run_scan(
     )
     events.extend(boundary_events)
     warnings.extend(boundary_warnings)
+    maps = stability_maps(model, scan, boundaries, branches) if not stopped else ()
     margin = None
     if scan.robust_margin is not None and not stopped:
         margin = robust_margin(model, scan.robust_margin, events, {b.name for b in branches})
@@ -410,6 +412,7 @@ def run_scan(
         searches=tuple(searches),
         boundaries=tuple(boundaries),
         robust_margin=margin,
+        stability_maps=maps,
     )
 
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import re
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -120,15 +120,15 @@ def trace_boundary(
             limits=engine_limits,
         )
         sides.append((orientation, problem, _ended_at_neutral_saddle(problem, curve)))
-    return _assemble(model, name, event, second, source, sides)
+    outcome = _assemble(model, name, event, second, source, sides)
+    extent = {event.vary: (float(lo1), float(hi1)), second: (float(lo2), float(hi2))}
+    return BoundaryOutcome(replace(outcome.boundary, window=extent), outcome.events)
 
 
 def _ended_at_neutral_saddle(problem, curve: continuation.Curve) -> continuation.Curve:
     """A Hopf curve stopped where omega -> 0 ended cleanly (at a Bogdanov-Takens point)."""
     if getattr(problem, "neutral", None) is None or NEUTRAL_SADDLE not in curve.message:
         return curve
-    from dataclasses import replace
-
     return replace(
         curve,
         status=STATUS_DONE,

@@ -211,6 +211,8 @@ class Boundary:
         How the curve ended on each side (window edge, state limit, Bogdanov-Takens
         point, trouble).
     counts : dict
+    window : dict
+        {first: (lo, hi), second: (lo, hi)}: the window it was followed in.
     """
 
     name: str
@@ -228,6 +230,7 @@ class Boundary:
     status: str
     message: str
     counts: dict[str, int] = field(default_factory=dict)
+    window: dict[str, tuple[float, float]] = field(default_factory=dict)
 
     def __len__(self) -> int:
         return len(self.first_values)
@@ -259,6 +262,7 @@ class RunResult:
     searches: tuple[SearchRecord, ...] = ()  # equilibria found without a start guess
     boundaries: tuple[Boundary, ...] = ()
     robust_margin: RobustMargin | None = None  # with [robust_margin]
+    stability_maps: tuple[Any, ...] = ()  # problems.stability_regions.StabilityMap, per plane
 
     def branch(self, name: str) -> Branch:
         """The branch called ``name``; KeyError listing the names if there is none."""
@@ -296,6 +300,16 @@ class RunResult:
         from branchline.results.robust_margin_tables import robust_margin_frame
 
         return robust_margin_frame(self)
+
+    def stability_map_figures(self) -> list[Figure]:
+        """The stability maps (one per plane of [[boundary]] curves) as Figures."""
+        from branchline.present.stability_map import stability_map_figure
+
+        info, events, frame = self.info(), self.event_records(), self.boundaries_frame()
+        return [
+            stability_map_figure(entry, frame, events, info)
+            for entry in info.get("stability_maps") or []
+        ]
 
     def info(self) -> dict[str, Any]:
         """run.json content: what was run, settings with defaults filled in, timings."""

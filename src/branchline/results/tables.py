@@ -254,12 +254,18 @@ def _boundaries_entry(result: RunResult) -> dict[str, Any]:
 
 
 def _robust_margin_entry(result: RunResult) -> dict[str, Any]:
-    """run.json's ``robust_margin`` key, present when the scan has ``[robust_margin]``."""
-    if getattr(result, "robust_margin", None) is None:
-        return {}
-    from branchline.results.robust_margin_tables import robust_margin_entry
+    """run.json's ``stability_maps`` (with boundaries) and ``robust_margin`` (with
+    ``[robust_margin]``) keys."""
+    out: dict[str, Any] = {}
+    if getattr(result, "stability_maps", ()):
+        from branchline.results.stability_map_tables import stability_map_entries
 
-    return robust_margin_entry(result)
+        out["stability_maps"] = stability_map_entries(result)
+    if getattr(result, "robust_margin", None) is not None:
+        from branchline.results.robust_margin_tables import robust_margin_entry
+
+        out.update(robust_margin_entry(result))
+    return out
 
 
 def run_info(result: RunResult) -> dict[str, Any]:

@@ -143,10 +143,25 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
         save_figure(figure, staging / "diagram.png")
         save_figure(figure, staging / "diagram.svg")
         _confirmation_figure(result, staging)
+        _stability_map_figures(result, info, events, staging)
     written = sorted(entry.name for entry in staging.iterdir() if entry.name != STAGING_MARKER)
     _json(
         {**info, MARKER_KEY: MARKER_VALUE, FILES_KEY: [*written, "run.json"]}, staging / "run.json"
     )
+
+
+def _stability_map_figures(result: RunResult, info, events, folder: Path) -> None:
+    """stability_map.png (stability_map-2.png, ... for further planes)."""
+    entries = info.get("stability_maps") or []
+    if not entries:
+        return
+    from branchline.present.plotting import save_figure
+    from branchline.present.stability_map import stability_map_figure
+
+    frame = result.boundaries_frame()
+    for number, entry in enumerate(entries, start=1):
+        name = "stability_map" if number == 1 else f"stability_map-{number}"
+        save_figure(stability_map_figure(entry, frame, events, info), folder / f"{name}.png")
 
 
 def _confirmation_figure(result: RunResult, folder: Path) -> None:
