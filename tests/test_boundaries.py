@@ -214,3 +214,65 @@ def test_missing_start_event_is_a_warning():
     result = branchline.run(data)
     assert result.boundaries == () and result.status == "done"
     assert any("no fold point" in w for w in result.warnings)
+
+
+def _switched(first_kind: str, then: str) -> branchline.RunResult:
+    import copy
+
+    data = copy.deepcopy(TAKENS)
+    data["boundary"] = [
+        {**next(b for b in TAKENS["boundary"] if b["kind"] == first_kind), "name": "given"},
+        {"name": "switched", "from": "given", "kind": then},
+    ]
+    return branchline.run(data, confirm=False)
+
+
+def test_hopf_curve_started_at_the_bogdanov_takens_point_of_a_fold_curve():
+    """From the Bogdanov-Takens point found on the fold curve b1 = b2^2/4, the Hopf curve
+    b1 = 0, omega^2 = -b2 (Kuznetsov, sec. 8.4) is started and followed to the window's
+    edge; traced back it ends at the Bogdanov-Takens point again."""
+    result = _switched("fold", "hopf")
+    assert result.warnings == ()
+    switched = next(b for b in result.boundaries if b.name == "switched")
+    assert switched.kind == "hopf" and switched.source == "given bogdanov_takens 1"
+    frame = result.boundaries_frame().query("boundary == 'switched'")
+    b1, b2, omega = frame["b1"].to_numpy(), frame["b2"].to_numpy(), frame["frequency"].to_numpy()
+    assert np.max(np.abs(b1)) < 1e-8 and np.max(np.abs(omega**2 + b2)) < 1e-8
+    assert b2.min() == -2.0 and abs(b2.max()) < 1e-8  # from the window's edge to the point
+    ends = [e for e in result.events if e.trace == "switched" and e.kind == "bogdanov_takens"]
+    assert len(ends) == 1 and np.max(np.abs(ends[0].parameters)) < 1e-8
+
+
+def test_fold_curve_started_at_the_bogdanov_takens_point_of_a_hopf_curve():
+    result = _switched("hopf", "fold")
+    frame = result.boundaries_frame().query("boundary == 'switched'")
+    b1, b2 = frame["b1"].to_numpy(), frame["b2"].to_numpy()
+    assert np.max(np.abs(b1 - b2**2 / 4)) < 1e-8  # the fold curve (Kuznetsov, sec. 8.4)
+    assert b2.min() < -1.9 and b2.max() == 1.0  # both sides of the point, to the edges
+    report = result.report()
+    assert "is followed as switched" in report
+
+
+def test_points_that_start_another_curve_are_listed_in_the_report(takens):
+    report = takens.report()
+    assert "Curves through these points:" in report
+    assert "the fold curve through the Bogdanov-Takens point of hopf" in report
+
+
+@pytest.mark.parametrize(
+    ("change", "key", "words"),
+    [
+        ({"kind": "fold"}, "boundary[2].kind", 'kind = "hopf"'),
+        ({"from": "fold"}, "boundary[2].from", "did you mean 'folds'"),
+        ({"second": "a"}, "boundary[2].second", "trace's own parameter"),
+        ({"window": {"a": [-1, 1]}}, "boundary[2].window.b", "missing"),
+    ],
+)
+def test_bad_boundary_from_a_boundary_is_refused(change, key, words):
+    import copy
+
+    data = copy.deepcopy(CUSP)
+    data["boundary"].append({"name": "other", "from": "folds", "kind": "hopf", **change})
+    with pytest.raises(ScanError) as err:
+        branchline.scan_from_dict(data, "plant.toml")
+    assert key in str(err.value) and words in str(err.value)

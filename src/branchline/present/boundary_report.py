@@ -13,6 +13,8 @@ from branchline.results.reading import fmt, kind_words
 
 # How many parameters each event's "what moves it" line names.
 TOP_PARAMETERS = 3
+# Codimension-two points of two boundaries this close (relative) are one point.
+SAME_PLACE_RTOL = 1e-6
 CODIMENSION_TWO = ("cusp", "bogdanov_takens", "bautin", "zero_hopf", "double_hopf")
 
 
@@ -46,7 +48,9 @@ def boundaries_section(events: Sequence[Mapping[str, Any]], info: Mapping[str, A
                 entry["message"],
             )
         )
-    out += markdown_table(("boundary", "kind", "started from", "points", "extent", "how it ended"), rows)
+    out += markdown_table(
+        ("boundary", "kind", "started from", "points", "extent", "how it ended"), rows
+    )
     points = [e for e in events if e.get("kind") in CODIMENSION_TWO]
     if points:
         rows = []
@@ -66,9 +70,63 @@ def boundaries_section(events: Sequence[Mapping[str, Any]], info: Mapping[str, A
             )
         out += ["Points found on the boundaries:", ""]
         out += markdown_table(("boundary", "point", "where", "meaning"), rows)
+        out += _other_curves(points, entries)
     else:
         out += ["No cusp, Bogdanov-Takens, Bautin, zero-Hopf or double-Hopf point was found.", ""]
     return out
+
+
+def _other_curves(points, entries) -> list[str]:
+    """Each Bogdanov-Takens and zero-Hopf point: the other curve through it, and whether a
+    boundary follows it (or the [[boundary]] lines that would)."""
+    kinds = {entry["name"]: entry["kind"] for entry in entries}
+    lines = []
+    for event in points:
+        kind = str(event.get("kind"))
+        host = str(event.get("trace"))
+        if kind not in ("bogdanov_takens", "zero_hopf") or host not in kinds:
+            continue
+        other = "hopf" if kinds[host] == "fold" else "fold"
+        root = host.split(".")[0]
+        followers = [
+            e["name"] for e in entries if str(e.get("from", "")).startswith(f"{root} {kind} ")
+        ]
+        followers += [
+            str(e.get("trace"))
+            for e in points
+            if e.get("kind") == kind
+            and kinds.get(str(e.get("trace"))) == other
+            and _same_place(e, event)
+            and str(e.get("trace")) not in followers
+        ]
+        where = f"{event.get('vary')} = {fmt(event.get('value'))}"
+        if followers:
+            lines.append(
+                f"- the {kind_words(other)} curve through the {kind_words(kind)} point of "
+                f"{host} ({where}) is followed as {', '.join(followers)}"
+            )
+        else:
+            lines.append(
+                f"- a {kind_words(other)} curve also passes through the {kind_words(kind)} point "
+                f'of {host} ({where}): follow it with [[boundary]] from = "{root}", '
+                f'kind = "{other}"'
+            )
+    return ["Curves through these points:", "", *lines, ""] if lines else []
+
+
+def _same_place(one: Mapping[str, Any], other: Mapping[str, Any]) -> bool:
+    """Two codimension-two points at the same two parameter values (to 1e-6, relative)."""
+    pairs = [
+        (one.get("value"), other.get("value")),
+        (
+            (one.get("details") or {}).get("second_value"),
+            (other.get("details") or {}).get("second_value"),
+        ),
+    ]
+    return all(
+        a is not None and b is not None and abs(a - b) <= SAME_PLACE_RTOL * (1.0 + abs(b))
+        for a, b in pairs
+    )
 
 
 def sensitivities_section(events: Sequence[Mapping[str, Any]]) -> list[str]:

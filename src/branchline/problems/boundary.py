@@ -26,6 +26,7 @@ from branchline.events.codimension_two import (
     read_point,
 )
 from branchline.numerics import linalg
+from branchline.problems.boundary_switching import SWITCH_POINTS, start_event
 from branchline.problems.equilibrium_branch import state_limits_of, unstable_counts
 from branchline.problems.fold_curve import FoldCurve
 from branchline.problems.hopf_curve import NEUTRAL_SADDLE, HopfCurve
@@ -286,49 +287,77 @@ def follow_boundaries(model, scan, events: list[Event], progress=None):
     """Every ``[[boundary]]`` of a scan: (boundaries, their events, warnings).
 
     A boundary whose starting event does not exist, or lies outside its window,
-    is skipped with a warning (the run itself is not numerical trouble).
+    is skipped with a warning (the run itself is not numerical trouble). A
+    boundary ``from`` another boundary starts at each Bogdanov-Takens and zero-Hopf
+    point located on it (:mod:`branchline.problems.boundary_switching`).
     """
     boundaries, found, warnings = [], [], []
     traces = {trace.name: trace for trace in scan.traces}
     for spec in scan.boundaries:
-        starts = [e for e in events if e.trace == spec.source and e.kind == spec.kind]
+        starts, words = _starts(spec, events + found)
         chosen = list(enumerate(starts, start=1))
         if spec.index is not None:
             chosen = [(spec.index, starts[spec.index - 1])] if spec.index <= len(starts) else []
         if not chosen:
             wanted = f"number {spec.index}" if spec.index else "any"
             warnings.append(
-                f"boundary {spec.name}: trace {spec.source} has no {spec.kind} point ({wanted} "
-                f"asked, {len(starts)} found); nothing to follow"
+                f"boundary {spec.name}: {words} ({wanted} asked, {len(starts)} found); "
+                "nothing to follow"
             )
             continue
         for number, event in chosen:
             name = (
                 spec.name if spec.index is not None or len(chosen) == 1 else f"{spec.name}.{number}"
             )
+            start, why = _start_of(model, spec, event)
+            if start is None:
+                warnings.append(f"boundary {name}: {why}; nothing to follow")
+                continue
             outside = [
                 key
                 for key, (lo, hi) in spec.window.items()
-                if not lo <= event.parameters[model.parameter_index(key)] <= hi
+                if not lo <= start.parameters[model.parameter_index(key)] <= hi
             ]
             if outside:
                 warnings.append(
-                    f"boundary {name}: the {spec.kind} point {number} of trace {spec.source} "
-                    f"lies outside the window in {', '.join(outside)}; nothing to follow"
+                    f"boundary {name}: the {event.kind.replace('_', '-')} point {number} of "
+                    f"{spec.source} lies outside the window in {', '.join(outside)}; nothing to "
+                    "follow"
                 )
                 continue
             callback = (lambda count, n=name: progress(n, count)) if progress else None
             outcome = trace_boundary(
                 model,
                 name,
-                event,
+                start,
                 spec.second,
                 spec.window,
                 spec.steps,
-                source=f"{spec.source} {spec.kind} {number}",
-                limits=traces[spec.source].limits,
+                source=f"{spec.source} {event.kind} {number}",
+                limits=traces[spec.trace or spec.source].limits,
                 progress=callback,
             )
             boundaries.append(outcome.boundary)
             found.extend(outcome.events)
     return boundaries, found, warnings
+
+
+def _starts(spec, events: list[Event]) -> tuple[list[Event], str]:
+    """The events that start ``spec``'s curves, and what is missing in words."""
+    if not spec.from_boundary:
+        starts = [e for e in events if e.trace == spec.source and e.kind == spec.kind]
+        return starts, f"trace {spec.source} has no {spec.kind} point"
+    on_it = [
+        e
+        for e in events
+        if (e.trace == spec.source or e.trace.startswith(spec.source + "."))
+        and e.kind in SWITCH_POINTS
+    ]
+    return on_it, f"boundary {spec.source} has no Bogdanov-Takens or zero-Hopf point"
+
+
+def _start_of(model, spec, event: Event) -> tuple[Event | None, str]:
+    """The fold or Hopf event the curve starts from."""
+    if not spec.from_boundary:
+        return event, ""
+    return start_event(model, event, spec.kind, spec.second, spec.steps.initial)

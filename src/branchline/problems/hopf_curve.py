@@ -76,12 +76,15 @@ class HopfCurve(BoundaryCurve):
         """Borders from the critical eigenvectors at u, and the pair of entries of G used."""
         x, p, kappa = u[: self.n], self.parameters_at(u), float(u[self.n + 1])
         a_matrix = self.state_matrix(x, p)
-        omega = np.sqrt(max(kappa, 0.0))
-        _, q = eigenvector_near(a_matrix, 1j * omega)
-        transposed = a_matrix.T.tocsc() if sps.issparse(a_matrix) else a_matrix.T
-        _, left = eigenvector_near(transposed, -1j * omega)
-        self.right = orthonormal(np.column_stack([q.real, q.imag]))
-        self.left = orthonormal(np.column_stack([left.real, left.imag]))
+        if kappa <= 0.0:  # a Bogdanov-Takens point: A^2 has a two-dimensional null space
+            self.right, self.left = _square_null_spaces(a_matrix)
+        else:
+            omega = np.sqrt(kappa)
+            _, q = eigenvector_near(a_matrix, 1j * omega)
+            transposed = a_matrix.T.tocsc() if sps.issparse(a_matrix) else a_matrix.T
+            _, left = eigenvector_near(transposed, -1j * omega)
+            self.right = orthonormal(np.column_stack([q.real, q.imag]))
+            self.left = orthonormal(np.column_stack([left.real, left.imag]))
         self.entries = ((0, 0), (1, 1))
         self.entries = self._best_entries(u)
 
@@ -255,6 +258,14 @@ class HopfCurve(BoundaryCurve):
     def frequency(self, u: Array) -> float:
         """omega = sqrt(kappa)."""
         return float(np.sqrt(max(u[self.n + 1], 0.0)))
+
+
+def _square_null_spaces(a_matrix) -> tuple[Array, Array]:
+    """Orthonormal bases (n, 2) of the right and left null spaces of A^2 (dense SVD): at a
+    Bogdanov-Takens point they hold the generalized eigenvectors of the double zero."""
+    dense = a_matrix.toarray() if sps.issparse(a_matrix) else np.asarray(a_matrix)
+    left, _, right_t = np.linalg.svd(dense @ dense)
+    return right_t[-2:].T.copy(), left[:, -2:].copy()
 
 
 def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:

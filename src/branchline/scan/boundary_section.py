@@ -2,7 +2,11 @@
 
 Keys (``interface.md``, extended here):
 
-- ``from`` (required): the name of a ``[[trace]]`` whose located events start it;
+- ``from`` (required): the name of a ``[[trace]]`` whose located events start it,
+  or of an earlier ``[[boundary]]``: then each Bogdanov-Takens and zero-Hopf
+  point found on that boundary starts the other curve through it (``kind`` must
+  be the other kind; ``index`` counts those points in boundary order; ``second``
+  and ``window`` default to that boundary's);
 - ``kind`` (required): ``"fold"`` or ``"hopf"``;
 - ``second`` (required): the second parameter (not the trace's own ``vary``);
 - ``window`` (required): ``{ <vary> = [lo, hi], <second> = [lo, hi] }``, both
@@ -39,6 +43,8 @@ class BoundarySpec:
     window: dict[str, tuple[float, float]]  # both parameters
     index: int | None = None  # None: every event of that kind on the trace
     steps: object = None  # StepSettings; None: the trace's
+    trace: str = ""  # the trace at the root (source itself unless from a boundary)
+    from_boundary: bool = False  # started at codimension-two points of a boundary
 
 
 def read_boundaries(check: Checker, value: object, traces, parameters, steps_reader) -> tuple:
@@ -57,7 +63,8 @@ def read_boundaries(check: Checker, value: object, traces, parameters, steps_rea
     specs = []
     for number, item in enumerate(value, start=1):
         path = f"boundary[{number}]"
-        spec = _boundary(check, item, path, number, by_name, parameters, steps_reader)
+        earlier = {spec.name: spec for spec in specs}
+        spec = _boundary(check, item, path, number, by_name, parameters, steps_reader, earlier)
         if spec.name in used:
             check.fail(f"{path}.name", f"'{spec.name}' is already the name of {used[spec.name]}")
         used[spec.name] = path
@@ -65,25 +72,57 @@ def read_boundaries(check: Checker, value: object, traces, parameters, steps_rea
     return tuple(specs)
 
 
-def _boundary(check, item, path, number, traces, parameters, steps_reader) -> BoundarySpec:
+def _boundary(check, item, path, number, traces, parameters, steps_reader, earlier) -> BoundarySpec:
     table = check.table(item, path)
     check.keys(table, path, BOUNDARY_KEYS)
-    for required in ("from", "kind", "second", "window"):
+    if "from" not in table:
+        check.fail(key_path(path, "from"), f"missing: {_REQUIRED['from']}")
+    source = check.text(table["from"], f"{path}.from")
+    parent = earlier.get(source)
+    if source not in traces and parent is None:
+        names = [*traces, *earlier]
+        check.fail(
+            f"{path}.from",
+            f"'{source}' is not a trace or an earlier boundary{suggestion(source, names)} "
+            f"(traces: {listed(traces)}; boundaries before this one: {listed(earlier) or 'none'})",
+        )
+    needed = ("kind",) if parent else ("kind", "second", "window")
+    for required in needed:
         if required not in table:
             check.fail(key_path(path, required), f"missing: {_REQUIRED[required]}")
     name = check.text(table.get("name", f"boundary{number}"), f"{path}.name")
     if not name.strip() or "." in name:
         check.fail(f"{path}.name", f"must be a non-empty name without '.', got {shown(name)}")
-    source = check.text(table["from"], f"{path}.from")
-    if source not in traces:
-        check.fail(
-            f"{path}.from",
-            f"'{source}' is not a trace{suggestion(source, traces)} (traces: {listed(traces)})",
-        )
-    trace = traces[source]
+    trace = traces[parent.trace if parent else source]
     kind = table["kind"]
     if kind not in BOUNDARY_KINDS:
         check.fail(f"{path}.kind", f'must be "fold" or "hopf", got {shown(kind)}')
+    if parent is not None and kind == parent.kind:
+        other = "hopf" if kind == "fold" else "fold"
+        check.fail(
+            f"{path}.kind",
+            f"boundary {source} is a {kind} curve: the curve started at its Bogdanov-Takens and "
+            f'zero-Hopf points is the other one, kind = "{other}"',
+        )
+    second = _second(check, table, path, trace, kind, parameters, parent)
+    index = None
+    if "index" in table:
+        index = check.count(table["index"], f"{path}.index")
+    if "window" in table or parent is None:
+        window = _window(check, table["window"], f"{path}.window", (trace.vary, second))
+    else:
+        window = dict(parent.window)
+    steps = parent.steps if parent else trace.steps
+    if "steps" in table:
+        steps = steps_reader(check, table["steps"], f"{path}.steps", steps)
+    return BoundarySpec(
+        name, source, kind, second, window, index, steps, trace.name, parent is not None
+    )
+
+
+def _second(check, table, path, trace, kind, parameters, parent) -> str:
+    if "second" not in table:
+        return parent.second
     second = check.text(table["second"], f"{path}.second")
     if second not in parameters:
         check.fail(
@@ -97,14 +136,13 @@ def _boundary(check, item, path, number, traces, parameters, steps_reader) -> Bo
             f"'{second}' is the trace's own parameter; name another one to follow the "
             f"{kind} points in",
         )
-    index = None
-    if "index" in table:
-        index = check.count(table["index"], f"{path}.index")
-    window = _window(check, table["window"], f"{path}.window", (trace.vary, second))
-    steps = trace.steps
-    if "steps" in table:
-        steps = steps_reader(check, table["steps"], f"{path}.steps", trace.steps)
-    return BoundarySpec(name, source, kind, second, window, index, steps)
+    if parent is not None and second != parent.second:
+        check.fail(
+            f"{path}.second",
+            f"a curve started on boundary {parent.name} lies in its plane: second must be "
+            f"'{parent.second}' (or left out)",
+        )
+    return second
 
 
 _REQUIRED = {
