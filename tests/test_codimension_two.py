@@ -182,3 +182,29 @@ def test_double_hopf():
     assert abs(event.parameters[0] - float(root[a])) < 1e-8
     assert abs(event.parameters[1] - float(root[b])) < 1e-8
     assert sorted(event.details["frequencies"]) == pytest.approx([1.0, 2.0], abs=1e-8)
+
+
+def test_hopf_curve_started_at_the_zero_hopf_point_of_a_fold_curve():
+    """Only the fold curve (a = 0, x = 0) is followed; its zero-Hopf point starts the Hopf
+    curve through it, a = b^2 with omega = 1 (derived above with sympy: b = -x, a = x^2)."""
+    scan = hopf_scan(
+        ZERO_HOPF,
+        {"a": 0.25, "b": -0.5},
+        "a",
+        "b",
+        {"x": 0.5, "y": 0, "z": 0},
+        [-0.5, 1.5],
+        {"a": [-0.5, 1.5], "b": [-1, 1]},
+    )
+    scan["boundary"] = [
+        {**scan["boundary"][0], "name": "folds", "kind": "fold"},
+        {"name": "onset", "from": "folds", "kind": "hopf"},
+    ]
+    result = branchline.run(scan, confirm=False)
+    onset = next(b for b in result.boundaries if b.name == "onset")
+    assert onset.source == "folds zero_hopf 1" and onset.status == "done"
+    frame = result.boundaries_frame().query("boundary == 'onset'")
+    assert np.max(np.abs(frame["a"] - frame["b"] ** 2)) < 1e-8
+    assert frame["b"].min() < -0.5 and frame["b"].max() > 0.5  # both sides of the point
+    x = frame["x"].to_numpy()
+    assert np.max(np.abs(x + frame["b"].to_numpy())) < 1e-8  # x = -b on the Hopf curve

@@ -237,7 +237,10 @@ class HopfCurve(BoundaryCurve):
         """The first Lyapunov coefficient l1 at a Hopf point u (contract scaling)."""
         x, p = u[: self.n], self.parameters_at(u)
         omega = float(np.sqrt(max(u[self.n + 1], 0.0)))
-        return hopf_normal_form(self.model, x, p, omega).lyapunov
+        try:
+            return hopf_normal_form(self.model, x, p, omega).lyapunov
+        except (np.linalg.LinAlgError, ArithmeticError):  # A singular: zero-Hopf, l1 undefined
+            return float("nan")
 
     def condition(self, kind: str, u: Array) -> float:
         """The scalar whose zero is a codimension-two point of ``kind`` on this curve."""
