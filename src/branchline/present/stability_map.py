@@ -35,6 +35,8 @@ CURVE_COLOURS = {"fold": "#0072B2", "hopf": "#D55E00"}
 CURVE_STYLES = {"fold": "-", "hopf": (0, (5.0, 2.0))}
 POINT_COLOUR = "#000000"
 MARGIN_COLOUR = "#009E73"
+# The searched state box is said under the map for models with at most this many states.
+BOX_STATES_SHOWN = 3
 
 
 def region_text(region: Mapping[str, Any]) -> str:
@@ -94,7 +96,15 @@ def stability_map_figure(
     title = info.get("title") or "Stability map"
     ax.set_title(f"{title}: stability map", fontsize=FONT_SIZE + 1)
     fixed = ", ".join(f"{k} = {fmt(v, 4)}" for k, v in (entry.get("fixed") or {}).items())
-    note = "equilibria counted in the state box at sample points of each region"
+    note = "equilibria counted at sample points of each region"
+    box = entry.get("box") or {}
+    states = info.get("model", {}).get("states") or []
+    if box and 0 < len(states) <= BOX_STATES_SHOWN:
+        ranges = ", ".join(
+            f"{name} in [{fmt(lo, 3)}, {fmt(hi, 3)}]"
+            for name, lo, hi in zip(states, box["low"], box["high"], strict=False)
+        )
+        note += f" ({ranges})"
     ax.annotate(
         f"{note}{'; ' + fixed if fixed else ''}",
         (0.0, -0.12),
