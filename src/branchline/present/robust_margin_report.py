@@ -41,8 +41,8 @@ def robust_margin_section(info: Mapping[str, Any]) -> list[str]:
         out += [
             f"The nearest stability boundary is the {kind_words(nearest['kind'])} surface reached "
             f"from {nearest['start']}: {fmt(nearest['distance'], 4)} scales of combined drift "
-            f"away, in the direction {_shift_words(nearest)} (all of them moving together), "
-            "nearer than any single parameter's drift alone may suggest. It is the nearest of "
+            f"away, in the direction {_shift_words(nearest)} (all of them moving together). "
+            "It is the nearest of "
             "the points located from the traces' events; a part of a boundary that no trace "
             "reached can lie nearer.",
             "",
