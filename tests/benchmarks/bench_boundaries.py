@@ -12,6 +12,10 @@ points found), and prints seconds per point of each and their ratio (the aim
 is under 3). Times are CPU time of this process (``time.process_time``), best
 of ``REPEATS`` runs, because the machine is shared.
 
+The Hopf curve is measured twice: with l1 on its sparse schedule (every
+``hopf_curve.LYAPUNOV_EVERY``-th point, sign changes narrowed afterwards) and,
+for comparison in the same run, with l1 at every point (the former behaviour).
+
 Models: the Lorenz equations (3 states; Hopf curve of the nontrivial
 equilibria in (rho, sigma); Lorenz, "Deterministic nonperiodic flow", J. Atmos.
 Sci. 20, 1963) and an invented chain of 100 states driven by the cusp normal
@@ -28,10 +32,9 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 
-from branchline.events.locate import locate_events
 from branchline.model.build import build_model
 from branchline.problems.boundary import trace_boundary
-from branchline.problems.equilibrium_branch import trace_branch
+from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 REPEATS = 3
@@ -110,5 +113,12 @@ def measure(name, setup, steps):
 
 
 if __name__ == "__main__":
-    measure("Lorenz, 3 states, Hopf curve", lorenz, StepSettings(0.05, 1e-8, 1.0, 2000))
+    from branchline.problems import hopf_curve
+
+    hopf_steps = StepSettings(0.05, 1e-8, 1.0, 2000)
+    sparse = hopf_curve.LYAPUNOV_EVERY
+    hopf_curve.LYAPUNOV_EVERY = 1
+    measure("Lorenz, 3 states, Hopf curve, l1 at every point", lorenz, hopf_steps)
+    hopf_curve.LYAPUNOV_EVERY = sparse
+    measure(f"Lorenz, 3 states, Hopf curve, l1 at every {sparse}th point", lorenz, hopf_steps)
     measure("chain, 100 states, fold curve", chain, StepSettings(0.05, 1e-8, 0.5, 2000))

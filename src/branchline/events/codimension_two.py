@@ -16,6 +16,7 @@ linearly with a tiny rate instead of quadratically.
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 
 import numpy as np
@@ -58,12 +59,39 @@ def find_curve_brackets(problem, points: Array, tests: Array) -> list[CurveBrack
     brackets = []
     if len(points) < 2 or tests.ndim != 2:
         return brackets
+    sparse = getattr(problem, "sparse_tests", ())
     for column, kind in enumerate(problem.tests):
         values = tests[:, column]
+        if kind in sparse:
+            brackets += _sparse_brackets(problem, kind, points, values)
+            continue
         for row in range(len(values) - 1):
             a, b = values[row], values[row + 1]
             if np.isfinite(a) and np.isfinite(b) and a * b < 0.0:
                 brackets.append(CurveBracket(kind, row, points[row], points[row + 1], a, b))
+    return brackets
+
+
+def _sparse_brackets(problem, kind: str, points: Array, values: Array) -> list[CurveBracket]:
+    """Sign changes of a test computed at some rows only (NaN elsewhere): the ends are
+    computed when missing, and each change between two computed rows is narrowed to
+    neighbouring rows by bisection over the rows between, computing the test there."""
+    values = np.array(values, dtype=float)
+    for end in (0, len(values) - 1):
+        if not np.isfinite(values[end]):
+            values[end] = problem.condition(kind, points[end])
+    known = [row for row in range(len(values)) if np.isfinite(values[row])]
+    brackets = []
+    for i, j in itertools.pairwise(known):
+        if not values[i] * values[j] < 0.0:
+            continue
+        while j > i + 1:
+            mid = (i + j) // 2
+            values[mid] = problem.condition(kind, points[mid])
+            if not np.isfinite(values[mid]):
+                break
+            i, j = (mid, j) if values[mid] * values[j] < 0.0 else (i, mid)
+        brackets.append(CurveBracket(kind, i, points[i], points[j], values[i], values[j]))
     return brackets
 
 

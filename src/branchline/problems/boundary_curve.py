@@ -51,7 +51,9 @@ class BoundaryCurve:
         self.extra = int(extra)
         policy = model.linear_algebra
         sparse_jacobian = bool(getattr(model, "sparse", False))
-        self.sparse = policy.sparse_curve(self.n, sparse_jacobian) and policy.sparse_location(self.n)
+        self.sparse = policy.sparse_curve(self.n, sparse_jacobian) and policy.sparse_location(
+            self.n
+        )
         self._eye = None
 
     # ------------------------------------------------------------------ layout
@@ -183,9 +185,18 @@ def bordered(matrix: Any, columns: Array, rows: Array) -> Any:
 
 
 def orthonormal(columns: Array) -> Array:
-    """An orthonormal basis (n, k) of the span of ``columns`` (reduced QR)."""
-    q, _ = np.linalg.qr(np.asarray(columns, dtype=float).reshape(columns.shape[0], -1))
-    return q
+    """An orthonormal basis (n, k) of the span of ``columns`` (reduced QR; two columns by
+    Gram-Schmidt with one reorthogonalization, cheaper than LAPACK's call overhead)."""
+    columns = np.asarray(columns, dtype=float).reshape(columns.shape[0], -1)
+    if columns.shape[1] != 2:
+        return np.linalg.qr(columns)[0]
+    first = columns[:, 0] / np.linalg.norm(columns[:, 0])
+    second = columns[:, 1] - (first @ columns[:, 1]) * first
+    second -= (first @ second) * first
+    size = np.linalg.norm(second)
+    if not size > 1e-12 * np.linalg.norm(columns[:, 1]):
+        return np.linalg.qr(columns)[0]
+    return np.column_stack([first, second / size])
 
 
 def signed_product(values: Array) -> float:

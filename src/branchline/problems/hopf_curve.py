@@ -48,6 +48,11 @@ from branchline.problems.boundary_curve import (
 Array = np.ndarray
 
 HOPF_CURVE_TESTS = ("bautin", "zero_hopf", "double_hopf")
+# l1 costs as much as the rest of a point's work together: it is computed at every
+# LYAPUNOV_EVERY-th accepted point only (NaN between), and a sign change between two
+# computed values is narrowed to neighbouring rows afterwards
+# (:func:`branchline.events.codimension_two.find_curve_brackets`).
+LYAPUNOV_EVERY = 4
 NEUTRAL_SADDLE = "the Hopf curve turns into a curve of neutral saddles (omega -> 0)"
 
 
@@ -64,10 +69,14 @@ class HopfCurve(BoundaryCurve):
 
     kind = "hopf"
     tests = HOPF_CURVE_TESTS
+    sparse_tests = ("bautin",)  # computed on a sparser schedule: NaN at most points
 
     def __init__(self, model, first: int, second: int, parameters: Array, u0: Array) -> None:
         super().__init__(model, first, second, parameters, extra=1)
         self.neutral: Array | None = None
+        self._since_lyapunov = LYAPUNOV_EVERY  # the start point gets its l1
+        self._lyapunov_pending = False
+        self._last_parts = None
         self.reset_borders(u0)
 
     # ------------------------------------------------------------------ borders
@@ -115,7 +124,21 @@ class HopfCurve(BoundaryCurve):
         return np.column_stack([columns[:, 0], np.zeros(self.n), columns[:, 1]])
 
     def _parts(self, u: Array, a_matrix) -> tuple[Array, Array, Array]:
-        """(Vg (n, 2), G (2, 2), Wg (n, 2)) of the bordered system at u."""
+        """(Vg (n, 2), G (2, 2), Wg (n, 2)) of the bordered system at u (the last one is
+        kept: the engine observes the point it has just evaluated)."""
+        last = self._last_parts
+        if (
+            last is not None
+            and last[1] is self.right
+            and last[2] is self.left
+            and np.array_equal(last[0], u)
+        ):
+            return last[3]
+        parts = self._solve_parts(u, a_matrix)
+        self._last_parts = (np.array(u, dtype=float), self.right, self.left, parts)
+        return parts
+
+    def _solve_parts(self, u: Array, a_matrix) -> tuple[Array, Array, Array]:
         n = self.n
         kappa = float(u[n + 1])
         if sps.issparse(a_matrix):
@@ -218,9 +241,10 @@ class HopfCurve(BoundaryCurve):
         vg, _, wg = self._parts(u, a_matrix)
         eigenvalues = self.eigenvalues(a_matrix)
         rest = _other_eigenvalues(eigenvalues, np.sqrt(kappa))
+        self._lyapunov_pending = self._since_lyapunov >= LYAPUNOV_EVERY - 1
         tests = np.array(
             [
-                self.lyapunov(u),
+                self.lyapunov(u) if self._lyapunov_pending else np.nan,
                 signed_product(rest[rest.imag == 0].real) if eigenvalues.size else np.nan,
                 signed_product(rest[rest.imag > 0].real) if eigenvalues.size else np.nan,
             ]
@@ -231,6 +255,7 @@ class HopfCurve(BoundaryCurve):
     def adapt(self, u: Array, tangent: Array) -> tuple[Array, Array]:
         """Engine hook after an accepted point: the borders move to its null spaces."""
         self.right, self.left = self._pending
+        self._since_lyapunov = 0 if self._lyapunov_pending else self._since_lyapunov + 1
         return u, tangent
 
     def lyapunov(self, u: Array) -> float:
