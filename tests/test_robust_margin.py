@@ -231,6 +231,16 @@ def test_written_table_and_report(tmp_path, cusp):
     assert entry["distance"] == cusp.robust_margin.nearest().distance
     report = (folder / "report.md").read_text()
     assert "## Robust margin" in report
+    # the stability map shows the nominal point and the ellipse touching the nearest point
+    (figure,) = cusp.stability_map_figures()
+    legend = [t.get_text() for t in figure.axes[0].get_legend().get_texts()]
+    assert "nominal point" in legend and any(t.startswith("robust margin") for t in legend)
+    nearest = cusp.robust_margin.nearest()
+    ellipse = next(line for line in figure.axes[0].get_lines() if len(line.get_xdata()) == 361)
+    gaps = np.hypot(
+        ellipse.get_xdata() - nearest.parameters[0], ellipse.get_ydata() - nearest.parameters[1]
+    )
+    assert gaps.min() < 0.01  # the ellipse passes through the nearest point (361 samples)
     assert "describe the model, not the real system" in report
 
 

@@ -35,6 +35,10 @@ CURVE_COLOURS = {"fold": "#0072B2", "hopf": "#D55E00"}
 CURVE_STYLES = {"fold": "-", "hopf": (0, (5.0, 2.0))}
 POINT_COLOUR = "#000000"
 MARGIN_COLOUR = "#009E73"
+# Regions smaller than this share of the window get their words beside them, with an
+# arrow, LABEL_OFFSET points away.
+NARROW_REGION_SHARE = 0.08
+LABEL_OFFSET = 70.0
 # The searched state box is said under the map for models with at most this many states.
 BOX_STATES_SHOWN = 3
 
@@ -79,16 +83,7 @@ def stability_map_figure(
     handles += _points(ax, events, names, first, second)
     handles += _margin(ax, info, first, second)
     for region in entry["regions"]:
-        sample = region["samples"][0]
-        ax.text(
-            sample[first],
-            sample[second],
-            region_text(region),
-            ha="center",
-            va="center",
-            fontsize=FONT_SIZE - 1,
-            bbox={"boxstyle": "round", "facecolor": "white", "alpha": 0.8, "linewidth": 0.5},
-        )
+        _label(ax, region, first, second, window)
     ax.set_xlim(*window[0])
     ax.set_ylim(*window[1])
     ax.set_xlabel(first, fontsize=FONT_SIZE)
@@ -116,6 +111,32 @@ def stability_map_figure(
         ax.legend(handles=handles, fontsize=FONT_SIZE - 1, loc="best", framealpha=0.9)
     fig.tight_layout()
     return fig
+
+
+def _label(ax, region, first: str, second: str, window) -> None:
+    """The region's words at its most interior sample; for a narrow region, beside it
+    with an arrow (toward the window's centre, where there is room)."""
+    sample = region["samples"][0]
+    where = (sample[first], sample[second])
+    box = {"boxstyle": "round", "facecolor": "white", "alpha": 0.85, "linewidth": 0.5}
+    offset = (0.0, 0.0)
+    if region["share"] < NARROW_REGION_SHARE:
+        centre = [(lo + hi) / 2 for lo, hi in window]
+        spans = [hi - lo for lo, hi in window]
+        towards = [(c - w) / s for c, w, s in zip(centre, where, spans, strict=True)]
+        size = max(np.hypot(*towards), 1e-9)
+        offset = (LABEL_OFFSET * towards[0] / size, LABEL_OFFSET * towards[1] / size)
+    ax.annotate(
+        region_text(region),
+        where,
+        xytext=offset,
+        textcoords="offset points",
+        ha="center",
+        va="center",
+        fontsize=FONT_SIZE - 1,
+        bbox=box,
+        arrowprops={"arrowstyle": "->", "linewidth": 0.7} if offset != (0.0, 0.0) else None,
+    )
 
 
 def _shade(ax, entry, curves, window) -> None:
