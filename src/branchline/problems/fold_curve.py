@@ -140,12 +140,12 @@ class FoldCurve(BoundaryCurve):
         g_p = -(w @ self.mixed_columns(x, p, v, indices))
         return np.vstack([self.parameter_columns(x, p, indices), g_p[None, :]])
 
-    def left_null(self, u: Array) -> Array:
-        """A left null vector of d(f, g)/dx at a fold point: (w, 0), so that the normal of
-        the fold surface in parameter space is w^T f_p (Dobson 1993)."""
+    def surface_normal(self, u: Array, indices: list[int]) -> Array:
+        """w^T f_p for the parameters ``indices`` (w the unit left null vector of f_x): the
+        normal of the fold surface in those parameters (Dobson 1993), shape (k,)."""
         x, p = u[: self.n], self.parameters_at(u)
         _, _, w = self._null(self.state_matrix(x, p))
-        return np.append(w / np.linalg.norm(w), 0.0)
+        return (w / np.linalg.norm(w)) @ self.parameter_columns(x, p, indices)
 
     def frequency(self, u: Array) -> float:
         """No frequency on a fold curve (NaN)."""

@@ -199,6 +199,11 @@ class HopfCurve(BoundaryCurve):
         mu = np.concatenate([mu_f, mu_g])
         return mu / np.linalg.norm(mu)
 
+    def surface_normal(self, u: Array, indices: list[int]) -> Array:
+        """mu^T dE/dp for the parameters ``indices``: the normal of the Hopf surface in
+        those parameters, shape (k,) (:meth:`left_null`)."""
+        return self.left_null(u) @ self.parameter_derivatives(u, indices)
+
     def residual(self, u: Array) -> Array:
         """(f, G_e1, G_e2), shape (n + 2,)."""
         x, p = u[: self.n], self.parameters_at(u)

@@ -17,8 +17,8 @@ on manifolds of critical points for parametric robustness of equilibrium
 solutions of ODE systems", J. Nonlinear Sci. 12, 2002; titles from memory).
 E is the minimally augmented system of the boundary curves
 (:mod:`branchline.problems.fold_curve`, :mod:`branchline.problems.hopf_curve`)
-with exact derivatives; nu's derivatives come from central differences of the
-exactly computed nu, so the residual, and the located point, stay exact.
+with exact derivatives; nu's derivatives come from forward differences of the
+exactly computed nu (reused while Newton converges fast), so the residual, and the located point, stay exact.
 
 Newton starts from a fold or Hopf event located on a trace (it lies on the
 surface): the answer is the nearest point of the part of the surface reached
@@ -40,9 +40,13 @@ from branchline.results.robust_margin_records import NearestPoint, RobustMargin
 
 Array = np.ndarray
 
-# Relative step of the central differences of nu: eps**(1/3) balances truncation
-# against rounding (Nocedal & Wright, Numerical Optimization, 2nd ed., sec. 8.1).
-NORMAL_STEP = float(np.finfo(float).eps) ** (1.0 / 3.0)
+# Relative step of the forward differences of nu: sqrt(eps) balances truncation
+# against rounding (Nocedal & Wright, Numerical Optimization, 2nd ed., sec. 8.1). They
+# only shape Newton's steps: the residual, and so the located point, stay exact.
+NORMAL_STEP = float(np.sqrt(np.finfo(float).eps))
+# d nu / dy costs n + k normal evaluations: it is reused (a chord step) while each
+# Newton iteration shrinks the residual at least this much, and recomputed otherwise.
+CHORD_RATE = 0.1
 # Events whose fixed parameters differ from the nominal point's by more than this
 # (relative) lie in another slice of parameter space: not used.
 SLICE_RTOL = 1e-12
@@ -84,6 +88,8 @@ class NearestPointSystem:
         u0 = start_point(problem_class, event, first, second)
         self.problem = problem_class(model, first, second, parameters, u0)
         self.state_columns = list(range(self.n)) + ([self.n + 1] if self.extra else [])
+        self._normal_block: Array | None = None  # d nu / dy, reused while Newton converges
+        self._last_size = np.inf
 
     # ------------------------------------------------------------------ layout
 
@@ -114,8 +120,7 @@ class NearestPointSystem:
 
     def normal(self, y: Array) -> Array:
         """nu: the unit normal of the surface in scaled parameters, shape (k,)."""
-        u = self.point(y)
-        gradient = self.problem.left_null(u) @ self.problem.parameter_derivatives(u, self.indices)
+        gradient = self.problem.surface_normal(self.point(y), self.indices)
         scaled = self.setting.scales * gradient
         return scaled / np.linalg.norm(scaled)
 
@@ -131,10 +136,15 @@ class NearestPointSystem:
         full[:rows, n + e : -1] = self.problem.parameter_derivatives(u, self.indices)
         nu = self.normal(y)
         r = float(y[-1])
-        full[rows:, : n + e + k] = -r * self._normal_derivatives(y)
+        residual = np.concatenate([residual, self.scaled(y) - r * nu])
+        size = float(np.linalg.norm(residual))
+        if self._normal_block is None or size > CHORD_RATE * self._last_size:
+            self._normal_block = self._normal_derivatives(y, nu)
+        self._last_size = size
+        full[rows:, : n + e + k] = -r * self._normal_block
         full[rows:, n + e : -1] += np.diag(1.0 / self.setting.scales)
         full[rows:, -1] = -nu
-        return np.concatenate([residual, self.scaled(y) - r * nu]), full
+        return residual, full
 
     # ------------------------------------------------------------------ descent
 
@@ -192,16 +202,14 @@ class NearestPointSystem:
         y[-1] = float(self.normal(y) @ self.scaled(y))
         return y
 
-    def _normal_derivatives(self, y: Array) -> Array:
-        """d nu / d(x, [kappa], q) by central differences, shape (k, n + e + k)."""
+    def _normal_derivatives(self, y: Array, nu: Array) -> Array:
+        """d nu / d(x, [kappa], q) by forward differences, shape (k, n + e + k)."""
         columns = y.shape[0] - 1
         out = np.empty((len(self.indices), columns))
         for j in range(columns):
-            h = NORMAL_STEP * max(1.0, abs(float(y[j])))
-            up, down = y.copy(), y.copy()
-            up[j] += h
-            down[j] -= h
-            out[:, j] = (self.normal(up) - self.normal(down)) / (up[j] - down[j])
+            up = y.copy()
+            up[j] += NORMAL_STEP * max(1.0, abs(float(y[j])))
+            out[:, j] = (self.normal(up) - nu) / (up[j] - y[j])
         return out
 
 
