@@ -18,6 +18,7 @@ from branchline.present.confirmations import confirmation_section
 from branchline.present.oscillations import oscillation_section
 from branchline.present.robust_margin_report import robust_margin_section
 from branchline.present.search_report import search_section
+from branchline.present.stability_map import stability_map_section
 from branchline.results.margins import (
     HysteresisWindow,
     JumpTarget,
@@ -633,6 +634,7 @@ def render_report(
     out += confirmation_section(info)
     out += oscillation_section(events, info, cycles)
     out += boundaries_section(events, info)
+    out += stability_map_section(info)
     out += sensitivities_section(events)
     out += robust_margin_section(info)
     for warning in info.get("warnings") or []:

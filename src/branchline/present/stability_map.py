@@ -22,6 +22,7 @@ from matplotlib.colors import ListedColormap
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
+from branchline.present.boundary_report import markdown_table
 from branchline.problems.stability_regions import region_raster
 from branchline.results.reading import fmt, kind_words
 
@@ -239,3 +240,32 @@ def _margin(ax, info, first: str, second: str) -> list:
             Line2D([], [], color=MARGIN_COLOUR, label=f"robust margin: {fmt(distance, 4)} scales")
         )
     return handles
+
+
+def stability_map_section(info: Mapping[str, Any]) -> list[str]:
+    """The report's lines on each stability map: its regions and what was counted there."""
+    entries = info.get("stability_maps") or []
+    if not entries:
+        return []
+    out = ["## Stability map", ""]
+    for number, entry in enumerate(entries, start=1):
+        first, second = entry["parameters"]
+        name = "stability_map.png" if number == 1 else f"stability_map-{number}.png"
+        (lo1, hi1), (lo2, hi2) = entry["window"][first], entry["window"][second]
+        out += [
+            f"`{name}`: {first} in [{fmt(lo1)}, {fmt(hi1)}] against {second} in "
+            f"[{fmt(lo2)}, {fmt(hi2)}], cut by {', '.join(entry['boundaries'])}. Each region's "
+            "equilibria were counted at sample points spread over it (deflated Newton in the "
+            "state box; equilibria outside it are not counted):",
+            "",
+        ]
+        rows = []
+        for region in sorted(entry["regions"], key=lambda r: -r["share"]):
+            at = "; ".join(f"({fmt(s[first], 4)}, {fmt(s[second], 4)})" for s in region["samples"])
+            rows.append(
+                (f"{100 * region['share']:.0f}%", region_text(region).replace("\n", "; "), at)
+            )
+        out += markdown_table(
+            ("share of the window", "found", f"samples ({first}, {second})"), rows
+        )
+    return out
