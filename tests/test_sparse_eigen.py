@@ -37,6 +37,7 @@ shift-invert Arnoldi at the origin alone went wrong.
 from __future__ import annotations
 
 from dataclasses import replace
+from functools import lru_cache
 
 import numpy as np
 import pytest
@@ -57,8 +58,12 @@ D1, D2 = 0.001, 0.002
 # the model ([model.python] functions; this module is importable: pythonpath = tests)
 
 
+@lru_cache(maxsize=4)
 def neumann_laplacian(nodes: int) -> sp.csr_matrix:
-    """The ghost-point Neumann second-difference matrix on [0, 1], scaled by 1 / h^2."""
+    """The ghost-point Neumann second-difference matrix on [0, 1], scaled by 1 / h^2.
+
+    Cached (callers never modify it): a user's model builds its operator once.
+    """
     h = 1.0 / (nodes - 1)
     main = -2.0 * np.ones(nodes)
     off = np.ones(nodes - 1)

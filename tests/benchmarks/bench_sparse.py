@@ -17,13 +17,31 @@ Arnoldi at the origin alone misses the rightmost pair. It prints, in one run,
   (``numpy.linalg.eigvals`` of the densified matrix), and its ratio;
 - one shift-invert Arnoldi run at the origin (the former method) for scale;
 - seconds per point of a whole trace in b through the uniform state's Hopf
-  point (``trace_branch``), and the share spent on eigenvalues.
+  point (``trace_branch``), and the share spent on eigenvalues (tracked from
+  point to point, the full search as fallback).
 
 Each time is the best of ``REPEATS`` runs (shared machine).
+
+Then the large runs, each in its own process (``--large STATES``, so that its
+peak memory is its own): the same model at 20,000 and 100,000 states traced
+over b in [1.95, 2.02] in about ``LARGE_POINTS`` points with stability at every
+point, and its Hopf point located. Printed: seconds per traced point divided by
+the seconds of one sparse LU of the Jacobian (SuperLU, the plain baseline, timed
+in the same process; goal under 6), the trace's and the location's seconds (goal
+for both together at 20,000 states: under 60 s), how the Hopf point was placed
+and its error against b = 1 + a^2, the eigenvalue work (tracked points and full
+searches), and the peak resident memory (goal under 2 GB). A run that fails
+(a MemoryError included) prints where. BLAS runs single-threaded there
+(``SINGLE_THREAD``); run the whole file with OPENBLAS_NUM_THREADS=1 for the same
+in the small-size table.
 """
 
 from __future__ import annotations
 
+import json
+import os
+import resource
+import subprocess
 import sys
 import time
 from pathlib import Path
@@ -34,8 +52,11 @@ ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT / "src"))
 sys.path.insert(0, str(ROOT / "tests"))
 
+import scipy.sparse.linalg as spla  # noqa: E402
+
 from branchline.numerics import eigenvalues  # noqa: E402
 from branchline.problems import equilibrium_branch  # noqa: E402
+from branchline.scan.loader import StepSettings  # noqa: E402
 from test_sparse_eigen import (  # noqa: E402
     D1,
     D2,
@@ -43,6 +64,8 @@ from test_sparse_eigen import (  # noqa: E402
     brusselator_jacobian,
     brusselator_model,
     exact_leading,
+    locate_events,
+    trace_branch,
     trace_uniform_through_hopf,
     uniform_state,
 )
@@ -50,6 +73,17 @@ from test_sparse_eigen import (  # noqa: E402
 REPEATS = 3
 NODES = (200, 1000)
 B_VALUES = (1.8, 1.95, 2.0, 2.05, 2.2)
+LARGE_STATES = (20_000, 100_000)
+LARGE_POINTS = 200
+LARGE_INTERVAL = (1.95, 2.02)
+# Address-space cap of a large run's process (bytes): far above the 2 GB goal
+# for resident memory (libraries reserve virtual memory they never touch), far
+# below what a dense N x N temporary at 100,000 states would need (80 GB).
+LARGE_ADDRESS_CAP = 8 * 2**30
+# BLAS threads of the large runs' processes: one. On this shared 2-core machine
+# threaded BLAS inside ARPACK's reverse-communication loop was measured 10x
+# slower (threads spinning against each other and other users' work).
+SINGLE_THREAD = {"OPENBLAS_NUM_THREADS": "1", "OMP_NUM_THREADS": "1", "MKL_NUM_THREADS": "1"}
 
 
 def best(function, *args, repeats=REPEATS):
@@ -82,23 +116,105 @@ def eigen_costs(nodes):
 def trace_cost(nodes):
     model = brusselator_model(nodes, 1.97)
     calls = {"seconds": 0.0, "count": 0}
-    search = equilibrium_branch.search_leading_eigenvalues
+    track = equilibrium_branch.track_leading_eigenvalues
 
-    def timed(matrix, count=eigenvalues.SPARSE_EIGEN_COUNT, policy=eigenvalues.DEFAULT):
+    def timed(matrix, previous, count=eigenvalues.SPARSE_EIGEN_COUNT, policy=eigenvalues.DEFAULT):
         start = time.perf_counter()
-        result = search(matrix, count, policy)
+        result = track(matrix, previous, count, policy)
         calls["seconds"] += time.perf_counter() - start
         calls["count"] += 1
         return result
 
-    equilibrium_branch.search_leading_eigenvalues = timed
+    equilibrium_branch.track_leading_eigenvalues = timed
     try:
         start = time.perf_counter()
         branch = trace_uniform_through_hopf(model, nodes)
         seconds = time.perf_counter() - start
     finally:
-        equilibrium_branch.search_leading_eigenvalues = search
+        equilibrium_branch.track_leading_eigenvalues = track
     return seconds / len(branch), calls["seconds"] / seconds, len(branch), branch.status
+
+
+def large_run(states: int) -> dict:
+    """One large trace and its event location, in this process (see the module docstring)."""
+    resource.setrlimit(resource.RLIMIT_AS, (LARGE_ADDRESS_CAP, LARGE_ADDRESS_CAP))
+    nodes = states // 2
+    lo, hi = LARGE_INTERVAL
+    model = brusselator_model(nodes, lo)
+    params = {"a": A, "b": lo, "d1": D1, "d2": D2}
+    jacobian = brusselator_jacobian(uniform_state(nodes, lo), params).tocsc()
+    lu_seconds, _ = best(spla.splu, jacobian)
+    # the branch is the uniform state: |d(x, b)/db| = sqrt(nodes / a^2 + 1)
+    span = (hi - lo) * float(np.sqrt(nodes / A**2 + 1.0))
+    step = span / (LARGE_POINTS - 1)
+    steps = StepSettings(initial=step, largest=step, max_points=2 * LARGE_POINTS)
+    out: dict = {"states": states, "lu_seconds": lu_seconds}
+    start = time.perf_counter()
+    try:
+        branch = trace_branch(
+            model, "uniform", "b", model.defaults, uniform_state(nodes, lo), (lo, hi),
+            "increasing", steps,
+        )
+        out["trace_seconds"] = time.perf_counter() - start
+        out["points"] = len(branch)
+        out["status"] = str(branch.status)
+        out["all_stability"] = bool(np.all(np.isfinite(branch.eigenvalues)))
+        out["counts"] = {key: int(value) for key, value in branch.counts.items()}
+        start = time.perf_counter()
+        events = locate_events(model, branch)
+        out["locate_seconds"] = time.perf_counter() - start
+        hopf = [event for event in events if event.kind == "hopf"]
+        if hopf:
+            out["hopf_error"] = abs(hopf[0].value - (1.0 + A * A))
+            out["hopf_method"] = hopf[0].details.get("method", "")
+            out["hopf_note"] = hopf[0].note
+    except MemoryError as exc:
+        out["failure"] = f"MemoryError after {time.perf_counter() - start:.1f} s: {exc}"
+    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    return out
+
+
+def print_large(out: dict) -> None:
+    states = out["states"]
+    if "trace_seconds" not in out:
+        print(f"{states:>7} states: {out.get('failure', 'failed')}; peak {out['peak_mb']:.0f} MB")
+        return
+    per_point = out["trace_seconds"] / max(out["points"], 1)
+    total = out["trace_seconds"] + out.get("locate_seconds", 0.0)
+    print(
+        f"{states:>7} states: LU {out['lu_seconds']:.4f} s, {out['points']} points "
+        f"({out['status']}, stability at every point: {out['all_stability']}), "
+        f"{per_point:.3f} s/point = {per_point / out['lu_seconds']:.1f} LU per point"
+    )
+    print(
+        f"{'':>15} trace {out['trace_seconds']:.1f} s + location "
+        f"{out.get('locate_seconds', float('nan')):.1f} s = {total:.1f} s; "
+        f"peak memory {out['peak_mb']:.0f} MB"
+    )
+    if "hopf_error" in out:
+        print(f"{'':>15} Hopf |b - (1 + a^2)| = {out['hopf_error']:.1e} by {out['hopf_method']}")
+        if out["hopf_note"]:
+            print(f"{'':>15} note: {out['hopf_note']}")
+    else:
+        print(f"{'':>15} no Hopf point located {out.get('failure', '')}")
+    print(f"{'':>15} counts: {out['counts']}")
+
+
+def main_large() -> None:
+    print(f"\nlarge runs ({LARGE_POINTS} points over b in {LARGE_INTERVAL}, one process each):")
+    for states in LARGE_STATES:
+        done = subprocess.run(
+            [sys.executable, __file__, "--large", str(states)],
+            capture_output=True,
+            text=True,
+            env={**os.environ, **SINGLE_THREAD},
+        )
+        lines = [line for line in done.stdout.splitlines() if line.startswith("{")]
+        if not lines:
+            tail = (done.stderr or done.stdout).strip().splitlines()[-3:]
+            print(f"{states:>7} states: the process failed (exit {done.returncode}): {tail}")
+            continue
+        print_large(json.loads(lines[-1]))
 
 
 def main() -> None:
@@ -119,4 +235,10 @@ def main() -> None:
 
 
 if __name__ == "__main__":
-    main()
+    if len(sys.argv) == 3 and sys.argv[1] == "--large":
+        print(json.dumps(large_run(int(sys.argv[2]))))
+    elif len(sys.argv) == 2 and sys.argv[1] == "--large-only":
+        main_large()
+    else:
+        main()
+        main_large()

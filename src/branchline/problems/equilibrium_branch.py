@@ -51,11 +51,8 @@ from branchline.events.brackets import (
 from branchline.events.detection import bordered_determinant, hopf_brackets, hopf_test
 from branchline.events.locate import same_event
 from branchline.numerics import linalg
-from branchline.numerics.eigenvalues import (
-    dense_eigenvalues,
-    search_leading_eigenvalues,
-    sort_eigenvalues,
-)
+from branchline.numerics.eigen_tracking import SpectrumTrack, track_leading_eigenvalues
+from branchline.numerics.eigenvalues import dense_eigenvalues, sort_eigenvalues
 from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy, policy_of
 from branchline.problems.equilibrium import solve_equilibrium
 from branchline.problems.tracing import (
@@ -164,6 +161,8 @@ class EquilibriumBranch:
         self.policy = policy_of(model)
         # Only a policy that forces dense or sparse changes what the model returns.
         self._forced = self.policy.force is not None
+        # Large sparse models: the leading eigenvalues tracked from point to point.
+        self.spectrum: SpectrumTrack | None = None
 
     def _parameters(self, u: Array) -> Array:
         # One buffer, updated in place: the model functions read p and keep no
@@ -234,7 +233,9 @@ class EquilibriumBranch:
             if n <= self.policy.eigenvalues_dense_up_to:
                 eigenvalues = dense_eigenvalues(fx.toarray())
             else:
-                search = search_leading_eigenvalues(fx, policy=self.policy)
+                search, self.spectrum = track_leading_eigenvalues(
+                    fx, self.spectrum, policy=self.policy
+                )
                 if not search.found:
                     raise ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
                 eigenvalues = search.values
@@ -353,11 +354,28 @@ def trace_branch(
         start_tangent=start_tangent,
         progress=progress,
     )
-    curves = trace_sides(
-        lambda orientation: EquilibriumBranch(model, vary_index, parameters, orientation), request
-    )
+    problems: list[EquilibriumBranch] = []
+
+    def make_problem(orientation: int) -> EquilibriumBranch:
+        problems.append(EquilibriumBranch(model, vary_index, parameters, orientation))
+        return problems[-1]
+
+    curves = trace_sides(make_problem, request)
     status, message = summarize(curves)
-    return record(curves, status, message, start_counts)
+    return record(curves, status, message, {**start_counts, **eigenvalue_counts(problems)})
+
+
+def eigenvalue_counts(problems: list[EquilibriumBranch]) -> dict[str, int]:
+    """How the leading eigenvalues of a large sparse model were found, over all sides:
+    points where tracking was confident, and full multi-shift searches (none for
+    dense models)."""
+    tracks = [problem.spectrum for problem in problems if problem.spectrum is not None]
+    if not tracks:
+        return {}
+    return {
+        "eigenvalues_tracked": sum(track.tracked for track in tracks),
+        "eigenvalue_full_searches": sum(track.full_searches for track in tracks),
+    }
 
 
 def _start_point(model, vary, vary_index, parameters, x_start, interval, start_tangent):

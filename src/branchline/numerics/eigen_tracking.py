@@ -1,0 +1,285 @@
+"""Tracking the leading eigenvalues of a large sparse Jacobian from point to point.
+
+Along a traced branch the Jacobian changes little between consecutive points,
+and so do its leading eigenvalues. :func:`track_leading_eigenvalues` uses that:
+it runs shift-invert Arnoldi (ARPACK through ``scipy.sparse.linalg.eigs`` on
+(A - sigma I)^-1; Saad, Numerical Methods for Large Eigenvalue Problems, 2nd ed.,
+section 7.3) only at the previous point's leading eigenvalues, started from the
+previous eigenvectors (ARPACK's start vector), instead of the multi-shift search
+of :func:`branchline.numerics.eigenvalues.search_leading_eigenvalues`. That search
+is the fallback whenever tracking loses confidence.
+
+The confidence rule (a rule of thumb of the trade for continuation of a few
+eigenvalues, with our own thresholds; the constants below):
+
+1. every tracking run converged, so that all eigenvalues inside its *trusted
+   disk* (about its shift, through its farthest returned value) were found;
+2. each new leading value lies inside some trusted disk;
+3. each previous leading value has a new one nearby: within ``MOVE_FRACTION``
+   of the trusted radius of the run that covers it (the eigenvalues moved little
+   compared with the region searched, so none can have entered the leading set
+   from outside it unseen);
+4. the number of leading values with positive real part is unchanged, and
+   fewer than ``REFRESH_POINTS`` points were tracked since the last full
+   search: a stability change, and every so many points, is confirmed by the
+   full search.
+
+Otherwise the full search runs and its values are used; :class:`SpectrumTrack`
+counts both (``tracked`` and ``full_searches``; run.json carries the counts).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse as sp
+import scipy.sparse.linalg as spla
+
+from branchline.numerics.eigenvalues import (
+    ARNOLDI_MIN_SUBSPACE,
+    ARNOLDI_OVERSAMPLING,
+    ARNOLDI_TOL,
+    SPARSE_EIGEN_COUNT,
+    TRUST_MARGIN,
+    LeadingEigenvalues,
+    search_leading_eigenvalues,
+    sort_by_real_part,
+)
+from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
+
+Array = np.ndarray
+
+# Rule 3: a previous leading value must have moved less than this fraction of the
+# trusted radius of the run covering it.
+MOVE_FRACTION = 0.25
+# Rule 4: a full search at least every this many points.
+REFRESH_POINTS = 25
+# At most this many tracking shifts per point (one per cluster of leading values
+# that the disks of the runs before do not cover: a real one and a complex pair,
+# say); more clusters mean a full search.
+MAX_TRACK_SHIFTS = 2
+# ARPACK iteration cap of a tracking run: with a start vector from the previous
+# point it converges in a few restarts; a run that needs more is not tracking.
+TRACK_MAX_ITERATIONS = 60
+# Shifts are placed this far right of a previous value (relative to its size,
+# with a floor relative to the matrix's scale), so that the LU is never singular
+# and the value itself is found accurately near the shift.
+SHIFT_OFFSET_RTOL = 1e-3
+SHIFT_OFFSET_FLOOR = 1e-9
+# Values with |Im| below this fraction of the matrix's scale count as real.
+REAL_RTOL = 1e-12
+
+
+@dataclass(frozen=True)
+class SpectrumTrack:
+    """What tracking carries from one point to the next (and its counts).
+
+    Attributes
+    ----------
+    values : ndarray (count,) complex
+        The leading eigenvalues at the last point, by decreasing real part.
+    shifts : tuple of complex
+        The shifts of the last point's runs, with their trusted ``radii``.
+    radii : tuple of float
+    vectors : tuple of ndarray (n,) complex or None
+        A start vector per shift (eigenvectors of that run), None after a full search.
+    since_full : int
+        Points tracked since the last full search.
+    tracked, full_searches : int
+        Points whose eigenvalues came from tracking, and full searches run.
+    """
+
+    values: Array
+    shifts: tuple = ()
+    radii: tuple = ()
+    vectors: tuple = ()
+    since_full: int = 0
+    tracked: int = 0
+    full_searches: int = 0
+
+
+def unstable_leading(values: Array, scale: float) -> int:
+    """How many of ``values`` have a real part above rounding (``REAL_RTOL * scale``)."""
+    return int(np.count_nonzero(values.real > REAL_RTOL * scale))
+
+
+def track_leading_eigenvalues(
+    matrix: object,
+    previous: SpectrumTrack | None,
+    count: int = SPARSE_EIGEN_COUNT,
+    policy: LinearAlgebraPolicy = DEFAULT,
+) -> tuple[LeadingEigenvalues, SpectrumTrack]:
+    """The ``count`` leading eigenvalues of a large sparse matrix, tracked from ``previous``.
+
+    Parameters
+    ----------
+    matrix : scipy.sparse matrix (n, n), real
+    previous : SpectrumTrack or None
+        The track of the previous point of the same branch (None at its first).
+    count : int
+    policy : LinearAlgebraPolicy
+        Passed to the full search.
+
+    Returns
+    -------
+    (LeadingEigenvalues, SpectrumTrack)
+        The values (``method`` "tracked shift-invert Arnoldi" when tracking was
+        confident, else the full search's), and the track for the next point.
+    """
+    matrix = sp.csc_matrix(matrix, dtype=float)
+    if previous is not None and previous.since_full < REFRESH_POINTS:
+        tracked = _track(matrix, previous, count)
+        if tracked is not None:
+            return tracked
+    search = search_leading_eigenvalues(matrix, count, policy)
+    base = previous or SpectrumTrack(np.empty(0, dtype=complex))
+    if not search.found:
+        return search, SpectrumTrack(
+            np.empty(0, dtype=complex), tracked=base.tracked, full_searches=base.full_searches + 1
+        )
+    track = SpectrumTrack(
+        search.values,
+        since_full=0,
+        tracked=base.tracked,
+        full_searches=base.full_searches + 1,
+    )
+    return search, track
+
+
+def _scale(matrix) -> float:
+    sums = np.asarray(abs(matrix).sum(axis=1)).ravel()
+    return float(sums.max()) if sums.size else 0.0
+
+
+def _upper_values(values: Array, scale: float) -> list:
+    """One of each conjugate pair (the upper one), real values as real, rightmost first."""
+    picked: list = []
+    for value in sort_by_real_part(values):
+        upper = complex(value.real, abs(value.imag))
+        if abs(upper.imag) <= REAL_RTOL * scale:
+            upper = complex(upper.real, 0.0)
+        if upper not in picked:
+            picked.append(upper)
+    return picked
+
+
+def _start_vector(shift: complex, previous: SpectrumTrack) -> Array | None:
+    """The start vector of the previous run nearest ``shift`` (None if there is none)."""
+    if not previous.shifts:
+        return None
+    distances = [abs(center - shift) for center in previous.shifts]
+    return previous.vectors[int(np.argmin(distances))]
+
+
+def _track(matrix, previous: SpectrumTrack, count: int):
+    """Tracking runs at the previous leading values (rightmost first, one per uncovered
+    cluster); None when tracking is not confident (see the module docstring)."""
+    scale = _scale(matrix)
+    if scale == 0.0 or previous.values.shape[0] < count:
+        return None
+    nev = ARNOLDI_OVERSAMPLING * count
+    runs: list = []
+    pending = _upper_values(previous.values, scale)
+    while pending:
+        if len(runs) == MAX_TRACK_SHIFTS:
+            return None
+        value = pending[0]
+        shift = value + max(SHIFT_OFFSET_RTOL * abs(value), SHIFT_OFFSET_FLOOR * scale)
+        run = _tracking_run(matrix, shift, nev, _start_vector(shift, previous))
+        if run is None:
+            return None
+        runs.append(run)
+        pending = [v for v in pending if not any(_distance(v, r) < r[1] for r in runs)]
+        if pending and pending[0] == value:
+            return None
+    found = _collect(runs, scale)
+    leading = sort_by_real_part(found)[:count]
+    if leading.shape[0] < count or not _confident(leading, found, previous.values, runs, scale):
+        return None
+    track = SpectrumTrack(
+        leading,
+        shifts=tuple(run[0] for run in runs),
+        radii=tuple(run[1] for run in runs),
+        vectors=tuple(run[3] for run in runs),
+        since_full=previous.since_full + 1,
+        tracked=previous.tracked + 1,
+        full_searches=previous.full_searches,
+    )
+    return LeadingEigenvalues(leading, True, "tracked shift-invert Arnoldi"), track
+
+
+def _tracking_run(matrix, shift: complex, nev: int, start: Array | None):
+    """(shift, trusted radius, values, start vector for next time) or None on failure."""
+    n = matrix.shape[0]
+    complex_shift = shift.imag != 0.0
+    dtype = complex if complex_shift else float
+    identity = sp.identity(n, format="csc", dtype=dtype)
+    center = shift if complex_shift else shift.real
+    try:
+        lu = spla.splu((matrix.astype(dtype) - center * identity).tocsc())
+    except RuntimeError:
+        return None
+    operator = spla.LinearOperator((n, n), matvec=lu.solve, dtype=dtype)
+    k = max(1, min(nev, n - 2))
+    ncv = min(n - 1, max(2 * k + 1, ARNOLDI_MIN_SUBSPACE))
+    v0 = None
+    if start is not None and start.shape[0] == n:
+        v0 = start if complex_shift else start.real
+        if not np.any(v0):
+            v0 = None
+    try:
+        mu, vectors = spla.eigs(
+            operator, k=k, which="LM", tol=ARNOLDI_TOL, maxiter=TRACK_MAX_ITERATIONS,
+            ncv=ncv, v0=v0,
+        )
+    except (spla.ArpackNoConvergence, spla.ArpackError, RuntimeError, ValueError):
+        return None
+    keep = np.isfinite(mu) & (np.abs(mu) > 0.0)
+    mu, vectors = mu[keep], vectors[:, keep]
+    if mu.shape[0] == 0:
+        return None
+    values = complex(center) + 1.0 / mu
+    radius = float(np.max(np.abs(values - center))) * (1.0 - TRUST_MARGIN)
+    # the next start vector: the eigenvectors nearest the shift, summed with
+    # weights falling off with distance (ARPACK takes one start vector)
+    weights = 1.0 / (1.0 + np.abs(values - center) / max(radius, 1e-300))
+    combined = vectors @ weights
+    return complex(center), radius, values, combined
+
+
+def _collect(runs, scale: float) -> Array:
+    """All run values, conjugate pairs completed, each eigenvalue once (the nearest run's)."""
+    kept: list = []
+    tol = REAL_RTOL * scale
+    for index, (_, _, values, _) in enumerate(runs):
+        for value in values:
+            value = complex(value.real, 0.0) if abs(value.imag) <= tol else complex(value)
+            distances = [_distance(value, run) / run[1] for run in runs]
+            if int(np.argmin(distances)) != index:
+                continue
+            for candidate in (value, value.conjugate()) if value.imag != 0.0 else (value,):
+                if not any(abs(candidate - other) <= 1e-8 * max(abs(candidate), 1e-6 * scale)
+                           for other in kept):
+                    kept.append(candidate)
+    return np.array(kept, dtype=complex)
+
+
+def _distance(value: complex, run) -> float:
+    center = run[0]
+    return min(abs(value - center), abs(value - center.conjugate()))
+
+
+def _confident(leading: Array, found: Array, before: Array, runs, scale: float) -> bool:
+    """Rules 2-4 of the module docstring (``found``: every value inside the disks)."""
+    for value in leading:
+        if not any(_distance(value, run) < run[1] for run in runs):
+            return False
+    for value in before:
+        covering = [run for run in runs if _distance(value, run) < run[1]]
+        if not covering:
+            return False
+        moved = float(np.min(np.abs(found - value)))
+        if moved > MOVE_FRACTION * max(run[1] for run in covering):
+            return False
+    return unstable_leading(leading, scale) == unstable_leading(before, scale)
