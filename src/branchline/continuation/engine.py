@@ -44,6 +44,12 @@ Optional members:
     Both at once, when that is cheaper (shared subexpressions).
 ``describe(u) -> str``
     A short text naming the point for messages ("at D=0.3, S=1.2").
+``tangent(jacobian, previous) -> ndarray (N + 1,)``
+    For sparse Jacobians only: the unit tangent at a corrected point, as
+    :func:`branchline.continuation.correctors.unit_tangent` computes it (raising
+    :class:`branchline.numerics.linalg.SingularMatrixError` when undefined), so
+    that a problem can keep what its factorization gives (the equilibrium branch
+    reads its branch-point test from it) for the ``observe`` that follows.
 ``adapt(u, tangent) -> (u, tangent)``
     Called after each accepted step, before the next prediction, with the
     point just recorded and its unit tangent; returns the pair (same shapes)
@@ -320,6 +326,7 @@ class _Walk:
         "step",
         "t",
         "t_start",
+        "tangent_hook",
         "tests_floor",
         "tracked",
         "u",
@@ -330,6 +337,7 @@ class _Walk:
         self.problem = problem
         self.evaluate = correctors.evaluator(problem)
         self.adapt = getattr(problem, "adapt", None)
+        self.tangent_hook = getattr(problem, "tangent", None)
         self.newton = newton
         self.lo, self.hi = float(bounds[0]), float(bounds[1])
         self.limits = limits
@@ -376,6 +384,8 @@ class _Walk:
         """(unit tangent, "") at a corrected point with Jacobian ``jac``, or (None, why not)."""
         try:
             self.counts.factorizations += 1
+            if self.sparse and self.tangent_hook is not None:
+                return self.tangent_hook(jac, previous), ""
             return correctors.unit_tangent(jac, previous, self.sparse), ""
         except linalg.SingularMatrixError:
             return None, singular_message

@@ -18,7 +18,9 @@ solution is the event itself, so that Newton refines it to rounding level:
 
 Unknowns start with u = (x, p): the states, then the varied parameter (index
 ``k`` of the full parameter vector). Jacobians are dense, or scipy.sparse where
-the model's state Jacobian is (Moore's system is dense only).
+the model's state Jacobian is (Moore's system is dense only); the Hopf system of
+a sparse model keeps its Jacobian in blocks (:class:`HopfBlocks`) and Newton
+solves it by bordering, never forming an n x n dense array.
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.sparse as sps
+import scipy.sparse.linalg as spla
 
 from branchline.events.normal_forms import directional_jacobian, parameter_second_derivative
 from branchline.numerics.linalg import bordered_square, dense, solve
@@ -74,6 +77,8 @@ class NewtonOutcome:
 
 
 def _matrix_norm(jacobian: object) -> float:
+    if isinstance(jacobian, HopfBlocks):
+        return jacobian.norm()
     if sps.issparse(jacobian):
         return float(np.sqrt(abs(jacobian).power(2).sum()))
     return float(np.linalg.norm(jacobian))
@@ -111,7 +116,10 @@ def newton(system: System, z0: Array, scale: float = 1.0) -> NewtonOutcome:
         if best is None or size < best[0]:
             best = (size, z)
         try:
-            step = solve(jacobian, -residual)
+            if isinstance(jacobian, HopfBlocks):
+                step = jacobian.solve(-residual)
+            else:
+                step = solve(jacobian, -residual)
         except np.linalg.LinAlgError:
             return NewtonOutcome(False, z, history, "singular Jacobian of the defining system")
         if not np.all(np.isfinite(step)):
@@ -188,7 +196,6 @@ def fold_system(model: Model, params: Array, k: int, border_b: Array, border_c: 
 def hopf_system(model: Model, params: Array, k: int, c: Array) -> System:
     """Extended Hopf system: unknowns (x, p, omega, Re q, Im q), 3n + 2 equations."""
     n = c.shape[0]
-    eye = np.eye(n)
 
     def system(z: Array) -> tuple[Array, object]:
         x, p, omega = z[:n], z[n], z[n + 1]
@@ -210,8 +217,9 @@ def hopf_system(model: Model, params: Array, k: int, c: Array) -> System:
         bq = directional_jacobian(model, x, full, q)
         apq = model.jacobian_parameter_derivative(x, full, q)[:, k]
         if sps.issparse(a_matrix):
-            return residual, _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c)
+            return residual, HopfBlocks(a_matrix, fp, bq, apq, q, omega, c)
         size = 3 * n + 2
+        eye = np.eye(n)  # dense models only: a sparse model never builds an n x n array
         jac = np.zeros((size, size))
         jac[:n, :n], jac[:n, n] = a_matrix, fp
         rows_r, rows_i = slice(n, 2 * n), slice(2 * n, 3 * n)
@@ -229,34 +237,80 @@ def hopf_system(model: Model, params: Array, k: int, c: Array) -> System:
     return system
 
 
-def _sparse_hopf_jacobian(a_matrix, fp, bq, apq, q, omega, c):
-    """The extended Hopf system's Jacobian as one sparse matrix (large models)."""
-    n = a_matrix.shape[0]
-    eye = sps.identity(n, format="csc")
+class HopfBlocks:
+    """The extended Hopf system's Jacobian of a large sparse model, kept in blocks.
 
-    def column(v):
-        return sps.csc_matrix(np.reshape(v, (n, 1)))
+    Newton's update solves the system by block elimination (a bordering method;
+    Govaerts, Numerical Methods for Bifurcations of Dynamical Equilibria, SIAM
+    2000, chapter 3, from memory) instead of factorizing the (3n + 2)-square
+    matrix, whose LU fills in badly: one real sparse LU of A = f_x and one
+    complex sparse LU of the bordered [[A - i omega I, -i q], [c^H, 0]]. With
+    r = -residual split into r1 (f), r2 (the eigenvector equation, complex) and
+    r3 (the normalization, complex):
 
-    def row(v):
-        return sps.csr_matrix(np.reshape(v, (1, n)))
+        dx = A^-1 r1 - dp A^-1 f_p,
+        [[A - i omega I, -i q], [c^H, 0]] (dq, domega) = (r2 - B_q dx - dp A_p q, r3),
 
-    bq = sps.csc_matrix(bq)
-    return sps.bmat(
-        [
-            [a_matrix, column(fp), None, None, None],
-            [bq.real, column(apq.real), column(q.imag), a_matrix, omega * eye],
-            [bq.imag, column(apq.imag), column(-q.real), -omega * eye, a_matrix],
-            [
-                sps.csr_matrix((1, n)),
-                sps.csr_matrix((1, 1)),
-                sps.csr_matrix((1, 1)),
-                row(c.real),
-                row(c.imag),
-            ],
-            [None, None, None, row(-c.imag), row(c.real)],
-        ],
-        format="csc",
-    )
+    linear in dp, which is fixed by domega being real. No n x n dense array.
+    """
+
+    def __init__(self, a_matrix, fp, bq, apq, q, omega, c) -> None:
+        self.a_matrix = sps.csc_matrix(a_matrix)
+        self.fp, self.bq, self.apq = fp, sps.csc_matrix(bq), apq
+        self.q, self.omega, self.c = q, omega, c
+        self.shape = (3 * q.shape[0] + 2,) * 2
+
+    def norm(self) -> float:
+        """The Frobenius norm of the full Jacobian (for the rounding-level test)."""
+        a_squared = float(abs(self.a_matrix).power(2).sum())
+        n = self.q.shape[0]
+        return float(
+            np.sqrt(
+                3.0 * a_squared
+                + float(self.fp @ self.fp)
+                + float(abs(self.bq).power(2).sum())
+                + float(np.vdot(self.apq, self.apq).real)
+                + float(np.vdot(self.q, self.q).real)
+                + 2.0 * n * self.omega**2
+                + 2.0 * float(np.vdot(self.c, self.c).real)
+            )
+        )
+
+    def solve(self, rhs: Array) -> Array:
+        """The Newton update for the right-hand side ``rhs`` (3n + 2,), by block elimination.
+
+        Raises ``np.linalg.LinAlgError`` when a block is singular.
+        """
+        n = self.q.shape[0]
+        r1 = rhs[:n]
+        r2 = rhs[n : 2 * n] + 1j * rhs[2 * n : 3 * n]
+        r3 = complex(rhs[3 * n], rhs[3 * n + 1])
+        try:
+            real_lu = spla.splu(self.a_matrix)
+            a0 = real_lu.solve(np.ascontiguousarray(r1, dtype=float))
+            a1 = -real_lu.solve(np.ascontiguousarray(self.fp, dtype=float))
+            shifted = self.a_matrix.astype(complex) - 1j * self.omega * sps.identity(
+                n, dtype=complex, format="csc"
+            )
+            bordered = sps.bmat(
+                [
+                    [shifted, sps.csc_matrix(np.reshape(-1j * self.q, (n, 1)))],
+                    [sps.csr_matrix(np.reshape(self.c.conj(), (1, n))), None],
+                ],
+                format="csc",
+            )
+            complex_lu = spla.splu(bordered)
+        except RuntimeError as exc:  # SuperLU: exactly singular
+            raise np.linalg.LinAlgError(str(exc)) from exc
+        first = complex_lu.solve(np.append(r2 - self.bq @ a0, r3))
+        second = complex_lu.solve(np.append(-(self.bq @ a1 + self.apq), 0.0))
+        if second[n].imag == 0.0:
+            raise np.linalg.LinAlgError("the Hopf system's parameter direction is singular")
+        dp = -first[n].imag / second[n].imag
+        dx = a0 + dp * a1
+        dq = first[:n] + dp * second[:n]
+        domega = (first[n] + dp * second[n]).real
+        return np.concatenate([dx, [dp, domega], dq.real, dq.imag])
 
 
 def branch_point_system(model: Model, params: Array, k: int) -> System:

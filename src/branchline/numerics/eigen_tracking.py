@@ -38,7 +38,6 @@ import scipy.sparse.linalg as spla
 
 from branchline.numerics.eigenvalues import (
     ARNOLDI_MIN_SUBSPACE,
-    ARNOLDI_OVERSAMPLING,
     ARNOLDI_TOL,
     SPARSE_EIGEN_COUNT,
     TRUST_MARGIN,
@@ -50,11 +49,15 @@ from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 
 Array = np.ndarray
 
+# Eigenvalues asked of a tracking run per leading one: with a complex shift the run
+# returns values of the upper half plane only, whose mirror images complete them,
+# so one per leading value leaves the trusted disk beyond the leading set.
+TRACK_OVERSAMPLING = 1
 # Rule 3: a previous leading value must have moved less than this fraction of the
 # trusted radius of the run covering it.
 MOVE_FRACTION = 0.25
 # Rule 4: a full search at least every this many points.
-REFRESH_POINTS = 25
+REFRESH_POINTS = 50
 # At most this many tracking shifts per point (one per cluster of leading values
 # that the disks of the runs before do not cover: a real one and a complex pair,
 # say); more clusters mean a full search.
@@ -178,7 +181,7 @@ def _track(matrix, previous: SpectrumTrack, count: int):
     scale = _scale(matrix)
     if scale == 0.0 or previous.values.shape[0] < count:
         return None
-    nev = ARNOLDI_OVERSAMPLING * count
+    nev = TRACK_OVERSAMPLING * count
     runs: list = []
     pending = _upper_values(previous.values, scale)
     while pending:
@@ -230,8 +233,13 @@ def _tracking_run(matrix, shift: complex, nev: int, start: Array | None):
             v0 = None
     try:
         mu, vectors = spla.eigs(
-            operator, k=k, which="LM", tol=ARNOLDI_TOL, maxiter=TRACK_MAX_ITERATIONS,
-            ncv=ncv, v0=v0,
+            operator,
+            k=k,
+            which="LM",
+            tol=ARNOLDI_TOL,
+            maxiter=TRACK_MAX_ITERATIONS,
+            ncv=ncv,
+            v0=v0,
         )
     except (spla.ArpackNoConvergence, spla.ArpackError, RuntimeError, ValueError):
         return None
@@ -259,8 +267,10 @@ def _collect(runs, scale: float) -> Array:
             if int(np.argmin(distances)) != index:
                 continue
             for candidate in (value, value.conjugate()) if value.imag != 0.0 else (value,):
-                if not any(abs(candidate - other) <= 1e-8 * max(abs(candidate), 1e-6 * scale)
-                           for other in kept):
+                if not any(
+                    abs(candidate - other) <= 1e-8 * max(abs(candidate), 1e-6 * scale)
+                    for other in kept
+                ):
                     kept.append(candidate)
     return np.array(kept, dtype=complex)
 

@@ -161,8 +161,10 @@ class EquilibriumBranch:
         self.policy = policy_of(model)
         # Only a policy that forces dense or sparse changes what the model returns.
         self._forced = self.policy.force is not None
-        # Large sparse models: the leading eigenvalues tracked from point to point.
+        # Large sparse models: the leading eigenvalues tracked from point to point,
+        # and the branch-point test read from the tangent's factorization.
         self.spectrum: SpectrumTrack | None = None
+        self._determinant: tuple[Any, float] | None = None
 
     def _parameters(self, u: Array) -> Array:
         # One buffer, updated in place: the model functions read p and keep no
@@ -215,6 +217,30 @@ class EquilibriumBranch:
         p = self._parameters(u)
         return np.asarray(self._rhs(x, p), dtype=float), self._stacked(x, p)
 
+    def tangent(self, jacobian: Any, previous: Array) -> Array:
+        """The unit tangent at a point with sparse Jacobian [f_x, f_p] (the engine's hook).
+
+        Solves [G_u; previous^T] z = e_(n+1) with one SuperLU factorization and
+        keeps the branch-point test det [G_u; t^T] for ``observe``: with
+        t = z / |z|, det [G_u; t^T] = |z| det [G_u; previous^T] (the last row
+        changes by a rank-one term whose factor is 1 + (t - previous) . z = |z|,
+        since G_u z = 0 and previous . z = 1), so no second factorization is needed.
+
+        Raises
+        ------
+        branchline.numerics.linalg.SingularMatrixError
+            When the bordered matrix is singular (a branch point, say).
+        """
+        self._determinant = None
+        lu, z = linalg.bordered_factor_solve(linalg.bordered_matrix(jacobian, previous))
+        length = linalg.norm(z)
+        if not 0.0 < length < np.inf:
+            raise linalg.SingularMatrixError("the tangent is not finite")
+        sign, log_det = linalg.lu_slogdet(lu)
+        value = 0.0 if sign == 0.0 else linalg.from_signed_log(sign, log_det + np.log(length))
+        self._determinant = (jacobian, value)
+        return z / length
+
     def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Array, Array]:
         """Eigenvalues of f_x (sorted by decreasing real part) and the test functions.
 
@@ -244,6 +270,13 @@ class EquilibriumBranch:
             fp = jacobian[:, n]
             eigenvalues = sort_eigenvalues(linalg.eigvals_unchecked(fx))
         oriented = tangent if self.orientation > 0 else -tangent
+        known = self._determinant
+        if known is not None and known[0] is jacobian:
+            # the tangent's factorization gave det [G_u; t^T] (see ``tangent``)
+            tests = np.array([float(oriented[-1]), hopf_test(eigenvalues), known[1]])
+            if self.orientation < 0:
+                tests[2] = -tests[2]  # the last row is -t in trace order
+            return eigenvalues, tests
         return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues, self.policy)
 
     def describe(self, u: Array) -> str:
