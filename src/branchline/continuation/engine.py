@@ -73,8 +73,9 @@ How a curve ends
 its last point lies exactly on that edge or limit. ``closed``: it passed by the
 start point again with the same orientation (an isola); the start point is
 appended as the last point. ``max_points``: ``settings.max_points`` reached. ``failed``: the corrector failed at the
-smallest step, the edge point could not be found, or ``observe`` raised
-:class:`ObservationFailed`; the message says where and why.
+smallest step, the edge point could not be found, ``observe`` raised
+:class:`ObservationFailed`, or memory ran out (``MemoryError``); the message says
+where and why.
 """
 
 from __future__ import annotations
@@ -268,9 +269,18 @@ def follow_curve(
         if why_not:
             return failed_curve(u0, why_not, walk.counts.as_dict())
         while not walk.status:
-            if _step(walk) is _Step.ACCEPT:
-                if progress is not None and len(walk.rows) % PROGRESS_INTERVAL == 0:
-                    progress(len(walk.rows))
+            try:
+                accepted = _step(walk) is _Step.ACCEPT
+            except MemoryError as exc:
+                # the points so far are kept: the curve ends here like a failed step
+                walk.stop(
+                    Status.FAILED,
+                    f"ran out of memory after the point {describe_point(problem, walk.u)} "
+                    f"({exc or 'MemoryError'})",
+                )
+                break
+            if accepted and progress is not None and len(walk.rows) % PROGRESS_INTERVAL == 0:
+                progress(len(walk.rows))
     if progress is not None:
         progress(len(walk.rows))
     return _curve_from_rows(walk.rows, walk.status, walk.message, walk.counts.as_dict())

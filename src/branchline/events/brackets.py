@@ -139,6 +139,10 @@ def locate_brackets(
             event = unrefined(bracket, str(failure))
         except LOCATION_ERRORS as exc:
             event = unrefined(bracket, f"{type(exc).__name__}: {exc}")
+        except MemoryError as exc:
+            # a defining system too large for the memory left: the event is still
+            # reported, placed between its rows, and says why
+            event = unrefined(bracket, f"out of memory ({exc or 'MemoryError'})")
         if event is not None and not any(duplicates(event, other) for other in events):
             events.append(event)
     return events

@@ -1,0 +1,186 @@
+"""The large sparse path: tracked eigenvalues, Newton on the sparse Hopf system, memory.
+
+The model is the reaction-diffusion Brusselator of tests/test_sparse_eigen.py
+(Prigogine & Lefever, "Symmetry breaking instabilities in dissipative systems
+II", J. Chem. Phys. 48, 1968), whose Jacobian at the uniform state splits into
+one 2 x 2 block per mode of the discrete Neumann Laplacian, so that every
+eigenvalue is known in closed form (``exact_leading``; the derivation is in that
+module's docstring). The uniform mode has its Hopf point at b = 1 + a^2 with
+frequency a (trace zero, determinant a^2 of the single cell's linearization).
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from branchline.cli import main
+from branchline.numerics import eigen_tracking
+from branchline.problems import equilibrium_branch
+from branchline.problems.equilibrium_branch import locate_events
+from branchline.vocabulary import EventKind
+from test_sparse_eigen import (
+    A,
+    D1,
+    D2,
+    brusselator_jacobian,
+    brusselator_model,
+    exact_leading,
+    trace_uniform_through_hopf,
+    uniform_state,
+)
+
+NODES = 200  # 400 states: above the sizes where dense LAPACK decides (200 and 300)
+TESTS = Path(__file__).resolve().parent
+
+
+@pytest.fixture(scope="module")
+def traced():
+    model = brusselator_model(NODES, 1.97)
+    return model, trace_uniform_through_hopf(model, NODES)
+
+
+def test_tracked_eigenvalues_equal_the_closed_form_mode_eigenvalues_at_every_point(traced):
+    _, branch = traced
+    assert branch.status == "done", branch.message
+    # most points tracked, the full multi-shift search only at the start and to
+    # confirm the stability change (the module's rule 4)
+    assert branch.counts["eigenvalues_tracked"] >= len(branch) - 3
+    assert 1 <= branch.counts["eigenvalue_full_searches"] <= 3
+    for row, b in enumerate(branch.parameter_values):
+        # exact mode eigenvalues (Prigogine & Lefever 1968 cell, discrete Neumann modes)
+        np.testing.assert_allclose(
+            branch.eigenvalues[row], exact_leading(NODES, b), rtol=0.0, atol=1e-9
+        )
+
+
+def test_hopf_point_located_by_newton_on_the_sparse_system(traced):
+    model, branch = traced
+    (hopf,) = locate_events(model, branch)
+    assert hopf.kind == EventKind.HOPF
+    assert "bisection" not in hopf.note and hopf.details["method"].startswith("Newton")
+    # b = 1 + a^2, omega = a (Prigogine & Lefever 1968, the uniform mode)
+    assert hopf.value == pytest.approx(1.0 + A * A, abs=1e-10)
+    assert hopf.frequency == pytest.approx(A, abs=1e-10)
+    np.testing.assert_allclose(hopf.state, uniform_state(NODES, 1.0 + A * A), atol=1e-10)
+
+
+def test_tracking_that_loses_confidence_falls_back_to_the_full_search():
+    b = 1.9
+    matrix = brusselator_jacobian(uniform_state(NODES, b), {"a": A, "b": b, "d1": D1, "d2": D2})
+    exact = exact_leading(NODES, b)
+    # a previous point whose leading values lie far from the present ones (as if
+    # the step had been much too long): rule 3 fails, the full search decides
+    wrong = eigen_tracking.SpectrumTrack(exact - 0.5, tracked=7, full_searches=1)
+    found, track = eigen_tracking.track_leading_eigenvalues(matrix.tocsc(), wrong)
+    assert found.found and found.method == "shift-invert Arnoldi"
+    assert (track.tracked, track.full_searches) == (7, 2)
+    np.testing.assert_allclose(found.values, exact, atol=1e-9)
+    # from the right previous values, tracking is confident and agrees
+    again, after = eigen_tracking.track_leading_eigenvalues(matrix.tocsc(), track)
+    assert again.method == "tracked shift-invert Arnoldi"
+    assert (after.tracked, after.full_searches) == (8, 2)
+    np.testing.assert_allclose(again.values, exact, atol=1e-9)
+
+
+# ---------------------------------------------------------------------------
+# memory: no n x n dense array on the sparse path; a run that runs out keeps its points
+
+CAPPED_HOPF = textwrap.dedent(
+    """
+    import resource, sys
+    sys.path[:0] = [{src!r}, {tests!r}]
+    import numpy as np
+    from test_sparse_eigen import brusselator_model, trace_branch, locate_events, uniform_state
+    from branchline.scan.loader import StepSettings
+
+    nodes = {nodes}
+    model = brusselator_model(nodes, 1.999)
+    size_kb = next(int(line.split()[1]) for line in open("/proc/self/status")
+                   if line.startswith("VmSize:"))
+    cap = size_kb * 1024 + {headroom}
+    resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
+    try:  # the cap is tight enough: one dense n x n array does not fit
+        np.eye(2 * nodes)
+        print("dense fits")
+    except MemoryError:
+        print("dense refused")
+    branch = trace_branch(model, "u", "b", model.defaults, uniform_state(nodes, 1.999),
+                          (1.999, 2.001), "increasing",
+                          StepSettings(initial=0.3, largest=0.3, max_points=10))
+    events = locate_events(model, branch)
+    print(branch.status, len(branch), [(e.kind, repr(e.value), e.details["method"])
+                                       for e in events])
+    """
+)
+
+
+def test_sparse_hopf_location_runs_under_a_memory_cap():
+    nodes = 3000  # 6000 states: a dense 6000 x 6000 array takes 288 MB
+    code = CAPPED_HOPF.format(
+        src=str(TESTS.parent / "src"), tests=str(TESTS), nodes=nodes, headroom=200 * 2**20
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", code],
+        capture_output=True,
+        text=True,
+        timeout=600,
+        env={"OPENBLAS_NUM_THREADS": "1", "PATH": "/usr/bin:/bin"},
+    )
+    assert done.returncode == 0, done.stderr[-2000:]
+    lines = done.stdout.splitlines()
+    assert lines[0] == "dense refused"
+    status, _, rest = lines[1].partition(" ")
+    assert status == "done"
+    assert "'hopf'" in rest and "Newton" in rest
+    value = float(rest.split("'hopf', '")[1].split("'")[0])
+    assert value == pytest.approx(1.0 + A * A, abs=1e-10)  # Prigogine & Lefever 1968
+
+
+FAULT_SCAN = """
+title = "a run that runs out of memory part-way"
+[model.parameters]
+F = 0.0
+[model.python]
+rhs = "faulty_models:healthy"
+size = 2
+[[trace]]
+name = "short"
+vary = "F"
+interval = [0.0, 0.9]
+start = { x0 = 1.0, x1 = 0.0 }
+direction = "increasing"
+"""
+
+
+def test_a_run_that_runs_out_of_memory_part_way_keeps_its_points(tmp_path, capsys, monkeypatch):
+    observe = equilibrium_branch.EquilibriumBranch.observe
+
+    def observe_until_memory_runs_out(self, u, tangent, jacobian):
+        if u[-1] > 0.3:
+            raise MemoryError("Unable to allocate 74.5 GiB")
+        return observe(self, u, tangent, jacobian)
+
+    monkeypatch.setattr(
+        equilibrium_branch.EquilibriumBranch, "observe", observe_until_memory_runs_out
+    )
+    scan = tmp_path / "memory.toml"
+    scan.write_text(FAULT_SCAN)
+    out = tmp_path / "out"
+    code = main(["run", str(scan), "--out", str(out), "--quiet"])
+    err = capsys.readouterr().err
+    assert code == 1 and "Traceback" not in err
+    info = json.loads((out / "run.json").read_text())
+    (trace,) = info["traces"]
+    assert trace["status"] == "failed"
+    assert "ran out of memory" in trace["message"] and "74.5 GiB" in trace["message"]
+    points = pd.read_csv(out / "points.csv")
+    assert points["F"].min() == 0.0 and 0.2 < points["F"].max() <= 0.3
+    assert "ran out of memory" in (out / "report.md").read_text()
