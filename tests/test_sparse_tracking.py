@@ -27,9 +27,9 @@ from branchline.problems import equilibrium_branch
 from branchline.problems.equilibrium_branch import locate_events
 from branchline.vocabulary import EventKind
 from test_sparse_eigen import (
-    A,
     D1,
     D2,
+    A,
     brusselator_jacobian,
     brusselator_model,
     exact_leading,

@@ -27,7 +27,6 @@ import scipy.sparse.linalg as spla
 Array = np.ndarray
 
 
-
 # numpy's LAPACK gufuncs behind np.linalg.solve / eigvals, called directly on the
 # hot path: the public wrappers spend ~3-7 us per call on validation, which is
 # most of the cost for a 3x3 system. They return NaN instead of raising for a
