@@ -46,6 +46,7 @@ from branchline.events.normal_forms import (
     hopf_normal_form,
     leading_eigenvalues,
 )
+from branchline.numerics.eigen_tracking import SpectrumTrack, track_leading_eigenvalues
 from branchline.numerics.eigenvalues import eigenvector_near, null_vectors
 from branchline.numerics.linalg import dense
 from branchline.results.records import Branch, Event
@@ -237,9 +238,24 @@ def _base_details(
     return {
         "method": method,
         **_bracket_details(branch, bracket),
-        "eigenvalues": _json_complex(leading_eigenvalues(a_matrix)),
+        "eigenvalues": _json_complex(_event_eigenvalues(branch, bracket, a_matrix)),
         "newton_residual_norms": [float(r) for r in outcome.residual_norms],
     }
+
+
+def _event_eigenvalues(branch: Branch, bracket: Bracket, a_matrix: object) -> Array:
+    """The leading eigenvalues at a located event: for a large sparse Jacobian tracked
+    from its bracket's rows (the full search only when tracking is not confident)."""
+    count = branch.eigenvalues.shape[1]
+    if not sps.issparse(a_matrix) or a_matrix.shape[0] <= count + 2:
+        return leading_eigenvalues(a_matrix)
+    for row in (bracket.row, bracket.row + 1):
+        values = branch.eigenvalues[row]
+        if np.all(np.isfinite(values)):
+            found, _ = track_leading_eigenvalues(a_matrix, SpectrumTrack(values), count)
+            if found.found:
+                return found.values
+    return leading_eigenvalues(a_matrix)
 
 
 def _make_event(
