@@ -184,3 +184,45 @@ def test_a_run_that_runs_out_of_memory_part_way_keeps_its_points(tmp_path, capsy
     points = pd.read_csv(out / "points.csv")
     assert points["F"].min() == 0.0 and 0.2 < points["F"].max() <= 0.3
     assert "ran out of memory" in (out / "report.md").read_text()
+
+
+def wrong_brusselator_jacobian(x, p):
+    """The Brusselator's sparse Jacobian with the coupling d(v')/du missing (a user's slip)."""
+    nodes = x.shape[0] // 2
+    matrix = brusselator_jacobian(x, p).tolil()
+    matrix[nodes + 5, 5] = 0.0
+    return matrix.tocsc()
+
+
+def test_a_wrong_sparse_jacobian_is_caught_with_a_clear_warning():
+    import branchline
+
+    scan = branchline.scan_from_dict(
+        {
+            "model": {
+                "parameters": {"a": A, "b": 1.9, "d1": D1, "d2": D2},
+                "python": {
+                    "rhs": "test_sparse_eigen:brusselator_rhs",
+                    "jacobian": "test_sparse_tracking:wrong_brusselator_jacobian",
+                    "size": 2 * NODES,
+                },
+            },
+            "trace": [
+                {
+                    "vary": "b",
+                    "interval": [1.9, 1.91],
+                    "start": "test_sparse_tracking:uniform_start",
+                    "direction": "increasing",
+                    "steps": {"max_points": 2},
+                }
+            ],
+        }
+    )
+    result = branchline.run_scan(scan)
+    said = [w for w in result.warnings if "disagrees with finite differences" in w]
+    assert said, result.warnings  # at the start, and again along the branch
+    assert "wrong_brusselator_jacobian" in said[0] and "check the Jacobian function" in said[0]
+
+
+def uniform_start(p):
+    return uniform_state(NODES, p["b"])
