@@ -48,10 +48,11 @@ from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 
 Array = np.ndarray
 
-# Eigenvalues asked of a tracking run per leading one: with a complex shift the run
-# returns values of the upper half plane only, whose mirror images complete them,
-# so one per leading value leaves the trusted disk beyond the leading set.
-TRACK_OVERSAMPLING = 1
+# Eigenvalues asked of a tracking run: one per previous leading value counted once
+# per conjugate pair (a run at a complex shift returns the upper half plane, whose
+# mirror images complete the pairs), plus this many, so that its trusted disk
+# reaches beyond the leading set.
+TRACK_SPARE = 2
 # Rule 3: a previous leading value must have moved less than this fraction of the
 # trusted radius of the run covering it.
 MOVE_FRACTION = 0.25
@@ -184,9 +185,9 @@ def _track(matrix, previous: SpectrumTrack, count: int):
     scale = _scale(matrix)
     if scale == 0.0 or previous.values.shape[0] < count:
         return None
-    nev = TRACK_OVERSAMPLING * count
     runs: list = []
     pending = _upper_values(previous.values, scale)
+    nev = len(pending) + TRACK_SPARE
     while pending:
         if len(runs) == MAX_TRACK_SHIFTS:
             return None

@@ -186,10 +186,8 @@ class EquilibriumBranch:
         if self._forced:
             fx = self._as_policy_says(fx)
         if linalg.is_sparse(fx):
-            import scipy.sparse as sp
-
             fp = np.asarray(fp_all, dtype=float)[:, self.vary_index]
-            return sp.hstack([fx, sp.csc_matrix(fp.reshape(-1, 1))], format="csc")
+            return linalg.append_column(fx, fp)
         n = self.size
         jac = np.empty((n, n + 1))
         jac[:, :n] = fx
