@@ -25,6 +25,7 @@ from branchline.cli import main
 from branchline.numerics import eigen_tracking
 from branchline.problems import equilibrium_branch
 from branchline.problems.equilibrium_branch import locate_events
+from branchline.results.tables import run_info
 from branchline.vocabulary import EventKind
 from test_sparse_eigen import (
     D1,
@@ -222,6 +223,10 @@ def test_a_wrong_sparse_jacobian_is_caught_with_a_clear_warning():
     said = [w for w in result.warnings if "disagrees with finite differences" in w]
     assert said, result.warnings  # at the start, and again along the branch
     assert "wrong_brusselator_jacobian" in said[0] and "check the Jacobian function" in said[0]
+    # run.json counts how the leading eigenvalues were found
+    counts = run_info(result)["counts"]
+    assert counts["eigenvalue_full_searches"] >= 1
+    assert counts["eigenvalues_tracked"] + counts["eigenvalue_full_searches"] >= counts["points"]
 
 
 def uniform_start(p):
