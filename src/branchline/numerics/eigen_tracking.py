@@ -38,9 +38,11 @@ import scipy.sparse.linalg as spla
 
 from branchline.numerics.eigenvalues import (
     ARNOLDI_TOL,
+    REAL_AXIS_RTOL,
     SPARSE_EIGEN_COUNT,
     TRUST_MARGIN,
     LeadingEigenvalues,
+    norm_estimate,
     search_leading_eigenvalues,
     sort_by_real_part,
 )
@@ -74,8 +76,9 @@ TRACK_MAX_ITERATIONS = 60
 # and the value itself is found accurately near the shift.
 SHIFT_OFFSET_RTOL = 1e-3
 SHIFT_OFFSET_FLOOR = 1e-9
-# Values with |Im| below this fraction of the matrix's scale count as real.
-REAL_RTOL = 1e-12
+# Values with |Im| below this fraction of the matrix's scale count as real (the
+# full search's rule).
+REAL_RTOL = REAL_AXIS_RTOL
 
 
 @dataclass(frozen=True)
@@ -154,11 +157,6 @@ def track_leading_eigenvalues(
     return search, track
 
 
-def _scale(matrix) -> float:
-    sums = np.asarray(abs(matrix).sum(axis=1)).ravel()
-    return float(sums.max()) if sums.size else 0.0
-
-
 def _upper_values(values: Array, scale: float) -> list:
     """One of each conjugate pair (the upper one), real values as real, rightmost first."""
     picked: list = []
@@ -182,7 +180,7 @@ def _start_vector(shift: complex, previous: SpectrumTrack) -> Array | None:
 def _track(matrix, previous: SpectrumTrack, count: int):
     """Tracking runs at the previous leading values (rightmost first, one per uncovered
     cluster); None when tracking is not confident (see the module docstring)."""
-    scale = _scale(matrix)
+    scale = norm_estimate(matrix)
     if scale == 0.0 or previous.values.shape[0] < count:
         return None
     runs: list = []

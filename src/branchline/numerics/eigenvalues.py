@@ -277,7 +277,7 @@ def _dense_search(dense: Array, count: int, method: str) -> LeadingEigenvalues:
 
 def _arnoldi_search(matrix, count: int) -> LeadingEigenvalues:
     """Steps 1-4 of :func:`search_leading_eigenvalues` on a real CSC matrix."""
-    scale = _norm_estimate(matrix)
+    scale = norm_estimate(matrix)
     if scale == 0.0:
         return LeadingEigenvalues(np.zeros(count, dtype=complex), True, "zero matrix")
     nev = ARNOLDI_OVERSAMPLING * count
@@ -320,8 +320,8 @@ def _off(sigma: complex) -> complex:
     return sigma + CANDIDATE_OFFSET_RTOL * abs(sigma)
 
 
-def _norm_estimate(matrix) -> float:
-    """max row sum of |A| (the infinity norm), cheap for CSC/CSR."""
+def norm_estimate(matrix) -> float:
+    """The infinity norm of a sparse matrix (max row sum of |A|), cheap for CSC/CSR."""
     sums = np.asarray(abs(matrix).sum(axis=1)).ravel()
     return float(sums.max()) if sums.size else 0.0
 
