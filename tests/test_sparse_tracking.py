@@ -124,9 +124,9 @@ CAPPED_HOPF = textwrap.dedent(
 
 
 def test_sparse_hopf_location_runs_under_a_memory_cap():
-    nodes = 3000  # 6000 states: a dense 6000 x 6000 array takes 288 MB
+    nodes = 2000  # 4000 states: a dense 4000 x 4000 array takes 128 MB
     code = CAPPED_HOPF.format(
-        src=str(TESTS.parent / "src"), tests=str(TESTS), nodes=nodes, headroom=200 * 2**20
+        src=str(TESTS.parent / "src"), tests=str(TESTS), nodes=nodes, headroom=96 * 2**20
     )
     done = subprocess.run(
         [sys.executable, "-c", code],
