@@ -16,9 +16,12 @@ eigenvalues, with our own thresholds; the constants below):
    disk* (about its shift, through its farthest returned value) were found;
 2. each new leading value lies inside some trusted disk;
 3. each previous leading value has a new one nearby: within ``MOVE_FRACTION``
-   of the trusted radius of the run that covers it (the eigenvalues moved little
-   compared with the region searched, so none can have entered the leading set
-   from outside it unseen);
+   of the trusted radius of the run that covers it. The tracked eigenvalues
+   moved little compared with the region searched; if the others moved
+   comparably little (the premise of any continuation step), none of them can
+   have entered the leading set unseen. One that moves much faster, far from
+   every shift, is caught by the next full search at the latest (no method
+   short of the whole spectrum excludes it, as for the full search itself);
 4. the number of leading values with positive real part is unchanged, and
    fewer than ``REFRESH_POINTS`` points were tracked since the last full
    search: a stability change, and every so many points, is confirmed by the
