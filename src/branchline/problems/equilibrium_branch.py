@@ -145,9 +145,9 @@ class EquilibriumBranch:
 
     Notes
     -----
-    Uses ``model.derivatives(x, p) -> (f_x, f_p)`` when the model has it (one
-    call for both Jacobians), else ``model.jacobian`` and
-    ``model.parameter_jacobian``.
+    Uses ``model.derivatives(x, p, vary_index) -> (f_x, f_p column)`` when the
+    model has it (only the varied parameter's column is computed), else
+    ``model.jacobian`` and ``model.parameter_jacobian``.
     """
 
     def __init__(self, model, vary_index: int, parameters: Array, orientation: int = 1) -> None:
@@ -179,20 +179,21 @@ class EquilibriumBranch:
     def _stacked(self, x: Array, p: Array):
         """[f_x, f_p] as an (n, n + 1) array, or a sparse matrix for sparse models."""
         if self._derivatives is not None:
-            fx, fp_all = self._derivatives(x, p)
+            fx, fp = self._derivatives(x, p, self.vary_index)
         else:
-            fx, fp_all = self._jacobian_x(x, p), self._jacobian_p(x, p)
+            fx = self._jacobian_x(x, p)
+            fp = np.asarray(self._jacobian_p(x, p), dtype=float)[:, self.vary_index]
         if self._forced:
             fx = self._as_policy_says(fx)
         if linalg.is_sparse(fx):
             import scipy.sparse as sp
 
-            fp = np.asarray(fp_all, dtype=float)[:, self.vary_index]
+            fp = np.asarray(fp, dtype=float)
             return sp.hstack([fx, sp.csc_matrix(fp.reshape(-1, 1))], format="csc")
         n = self.size
         jac = np.empty((n, n + 1))
         jac[:, :n] = fx
-        jac[:, n] = fp_all[:, self.vary_index]
+        jac[:, n] = fp
         return jac
 
     def _as_policy_says(self, fx: Any) -> Any:
