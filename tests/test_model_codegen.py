@@ -26,6 +26,7 @@ import pytest
 import scipy.sparse
 import sympy as sp
 
+from branchline import user_cache
 from branchline.model import cache as model_cache
 from branchline.model import expression_model
 from branchline.model.build import build_model
@@ -49,7 +50,7 @@ TOLERANCE = 1e-12
 def private_cache(tmp_path, monkeypatch):
     """Every test here has its own empty model cache."""
     folder = tmp_path / "cache"
-    monkeypatch.setenv(model_cache.CACHE_VARIABLE, str(folder))
+    monkeypatch.setenv(user_cache.CACHE_VARIABLE, str(folder))
     return folder
 
 
@@ -222,16 +223,15 @@ def test_damaged_or_hostile_entries_are_ignored_and_rebuilt(private_cache, damag
             path.write_text(text[: len(text) // 2])
         elif damage == "checksum":
             payload = json.loads(text)
-            payload["safe"] = payload["safe"].replace("+", "-", 1)
+            payload["body"]["safe"] = payload["body"]["safe"].replace("+", "-", 1)
             path.write_text(json.dumps(payload))
-        else:  # valid checksum, but code that would run something else
-            payload = json.loads(text)
-            hostile = payload["safe"].replace(
+        else:  # a valid checksum, but code that would run something else
+            body = json.loads(text)["body"]
+            hostile = body["safe"].replace(
                 "return (", f"open({str(marker)!r}, 'w')\n    return (", 1
             )
-            body = {k: payload[k] for k in ("block", "key", "indices", "fast", "safe")}
             body["safe"] = body["fast"] = hostile
-            path.write_text(json.dumps({"checksum": model_cache._checksum(body), **body}))
+            path.write_text(json.dumps({"checksum": user_cache.checksum(body), "body": body}))
     rebuilt = build_model(spec)
     np.testing.assert_array_equal(rebuilt.jacobian(x, rebuilt.defaults), expected)
     assert not marker.exists()
@@ -239,7 +239,7 @@ def test_damaged_or_hostile_entries_are_ignored_and_rebuilt(private_cache, damag
     for path in _entries(private_cache):
         if path.name.endswith((".rhs.json", ".jacobian.json")):
             payload = json.loads(path.read_text())
-            assert "open(" not in payload["safe"]
+            assert "open(" not in payload["body"]["safe"]
 
 
 def test_entries_writable_by_others_are_not_read(private_cache, monkeypatch):
@@ -261,13 +261,13 @@ def test_entries_writable_by_others_are_not_read(private_cache, monkeypatch):
 
 
 def test_cache_can_be_turned_off(tmp_path, monkeypatch):
-    monkeypatch.setenv(model_cache.CACHE_VARIABLE, "off")
-    assert model_cache.cache_folder() is None
+    monkeypatch.setenv(user_cache.CACHE_VARIABLE, "off")
+    assert user_cache.cache_folder() is None
     model = build_model(_chain(2))
     assert model.rhs(np.ones(4), model.defaults).shape == (4,)
-    monkeypatch.delenv(model_cache.CACHE_VARIABLE)
+    monkeypatch.delenv(user_cache.CACHE_VARIABLE)
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "xdg"))
-    assert model_cache.cache_folder() == tmp_path / "xdg" / "branchline"
+    assert user_cache.cache_folder() == tmp_path / "xdg" / "branchline"
 
 
 @pytest.mark.parametrize(
@@ -332,3 +332,34 @@ def test_thread_policy_respects_the_users_choice():
     chosen = {"OMP_NUM_THREADS": "4"}
     assert not single_threaded_blas(chosen)
     assert chosen == {"OMP_NUM_THREADS": "4"}
+
+
+def test_a_model_seen_before_loads_and_builds_without_sympy(private_cache):
+    """The second process loads the demo scan and builds its model from the cache
+    alone: sympy is never imported."""
+    scan = Path(__file__).resolve().parents[1] / "scans" / "cooled_reactor.toml"
+    code = (
+        "import sys\n"
+        "import numpy as np\n"
+        "from branchline.scan.loader import load_scan\n"
+        "from branchline.model.build import build_model\n"
+        f"scan = load_scan({str(scan)!r})\n"
+        "model = build_model(scan.model, scan.source)\n"
+        "values = model.jacobian(np.array([2.0, 320.0]), model.defaults).ravel().tolist()\n"
+        "print('SYMPY', 'sympy' in sys.modules, values)\n"
+    )
+    environment = dict(os.environ, PYTHONPATH=str(SRC))
+    environment[user_cache.CACHE_VARIABLE] = str(private_cache)
+    outputs = [
+        subprocess.run(
+            [sys.executable, "-c", code],
+            capture_output=True,
+            text=True,
+            env=environment,
+            check=True,
+        ).stdout
+        for _ in range(2)
+    ]
+    assert "SYMPY True" in outputs[0]
+    assert "SYMPY False" in outputs[1]
+    assert outputs[0].split("True")[1] == outputs[1].split("False")[1]

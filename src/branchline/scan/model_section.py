@@ -22,6 +22,7 @@ from branchline.scan.checks import (
     unknown_name,
 )
 from branchline.scan.expressions import expression_names, parse_expression
+from branchline.user_cache import remember_names, remembered_names
 
 MODEL_KEYS = ("parameters", "equations", "definitions", "observables", "python")
 PYTHON_KEYS = ("rhs", "size", "jacobian", "states", "observables")
@@ -128,25 +129,36 @@ def _expression_model(
         ],
     )
     known = set(parameters) | set(equations) | set(definitions)
+    every_text = [*equations.values(), *definitions.values(), *observables.values()]
+    # A model text accepted before: the names each expression uses, without parsing
+    # again (so without sympy); see branchline.user_cache.
+    remembered = remembered_names(every_text)
+    seen: dict[str, list[str]] = {}
 
     def names_in(path: str, texts: dict[str, str]) -> dict[str, set[str]]:
         used = {}
         for name, text in texts.items():
             key = key_path(path, name)
-            try:
-                expr = parse_expression(text)
-            except ExpressionError as err:
-                check.fail(key, str(err))
-            names = expression_names(expr)
+            if remembered is not None:
+                names = set(remembered[text])
+            else:
+                try:
+                    expr = parse_expression(text)
+                except ExpressionError as err:
+                    check.fail(key, str(err))
+                names = expression_names(expr)
             for unknown in sorted(names - known):
                 check.fail(key, unknown_name(unknown, parameters, equations, definitions))
             used[name] = names
+            seen[text] = sorted(names)
         return used
 
     names_in("model.equations", equations)
     definition_names = names_in("model.definitions", definitions)
     names_in("model.observables", observables)
     order = dependency_order(check, definition_names)
+    if remembered is None:
+        remember_names(every_text, seen)
     return ExpressionModelSpec(
         parameters=parameters,
         equations=equations,
