@@ -44,14 +44,20 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from branchline.model.build import build_model
-from branchline.scan.loader import ExpressionModelSpec
-from cell_chains import brusselator_equations
+from branchline.cli import single_threaded_blas
+
+# The command line's thread policy, set before numpy loads, for both sides of
+# every comparison (a thread count set by hand is kept).
+single_threaded_blas()
+
+import numpy as np  # noqa: E402
+
+from branchline.model.build import build_model  # noqa: E402
+from branchline.scan.loader import ExpressionModelSpec  # noqa: E402
+from cell_chains import brusselator_equations  # noqa: E402
 
 try:  # a private cache for the benchmark; older versions have none
     from branchline.model import cache as model_cache

@@ -141,17 +141,32 @@ def _source(shared: list, reduced: list, arguments: list[tuple[str, list]], flav
 class CompiledBlock:
     """A block's values at (x, p): flat array (count, *trailing axes of x).
 
-    Both sources are checked and compiled when the block is made (a cached
-    block that fails the check raises :class:`CodeRefused`, and is rebuilt).
+    The fast source (or, without one, the numpy source) is checked and compiled
+    when the block is made: a cached block that fails the check raises
+    :class:`CodeRefused` and is rebuilt. The numpy source of a block with a fast
+    one is checked and compiled on first need (points with trailing axes, or a
+    domain error); should it fail the check then, its values are nan.
     """
 
     def __init__(self, record: BlockRecord) -> None:
         self.record = record
         self.indices = record.indices
         self.count = record.count
-        self._safe = compile_checked(record.safe, numpy_namespace(), self.count)
         fast = record.fast
         self._fast = None if fast is None else compile_checked(fast, math_namespace(), self.count)
+        self._safe = None if fast is not None else self._compile_safe()
+
+    def _compile_safe(self) -> Callable:
+        return compile_checked(self.record.safe, numpy_namespace(), self.count)
+
+    def _safe_function(self) -> Callable:
+        if self._safe is None:
+            try:
+                self._safe = self._compile_safe()
+            except CodeRefused:
+                count = self.count
+                self._safe = lambda *_: (float("nan"),) * count
+        return self._safe
 
     def values(self, x: Array, p: Array) -> Array:
         """The entries' values, float array (count,) or (count, *trailing)."""
@@ -169,7 +184,7 @@ class CompiledBlock:
         trailing = np.broadcast_shapes(*(a.shape[1:] for a in arrays))
         out = np.empty((self.count, *trailing))
         with np.errstate(all="ignore"):
-            results = self._safe(*arrays)
+            results = self._safe_function()(*arrays)
         for i, value in enumerate(results):
             out[i] = value
         return out
