@@ -363,3 +363,15 @@ def test_a_model_seen_before_loads_and_builds_without_sympy(private_cache):
     assert "SYMPY True" in outputs[0]
     assert "SYMPY False" in outputs[1]
     assert outputs[0].split("True")[1] == outputs[1].split("False")[1]
+
+
+def test_forms_broadcast_vectors_of_different_shapes():
+    """B(v, I) with v a vector and I the identity gives the matrix B(v, .) (column k is
+    B(v, e_k)), as the boundary curves call it; reference: sympy's Hessian."""
+    spec = _chain(3)
+    model = build_model(spec)
+    reference = _reference(spec)
+    x = np.linspace(0.4, 1.6, model.size)
+    v = np.linspace(-1.0, 2.0, model.size)
+    matrix = model.second(x, model.defaults, v, np.eye(model.size))
+    _close(matrix, np.einsum("ijk,j->ik", reference["hessian"](x, model.defaults), v))

@@ -249,7 +249,10 @@ class _Contraction:
             return out
         terms = values[self.source].reshape((-1,) + (1,) * extra)
         for r, vector in enumerate(vectors):
-            terms = terms * vector[self.slots[:, r]]
+            # Each vector's own trailing axes, aligned to the right (numpy broadcasting).
+            gathered = vector[self.slots[:, r]]
+            padding = (1,) * (extra - (vector.ndim - 1))
+            terms = terms * gathered.reshape((gathered.shape[0], *padding, *vector.shape[1:]))
         terms = np.broadcast_to(terms, (terms.shape[0], *trailing))
         out[self.targets] = np.add.reduceat(terms, self.starts, axis=0)
         return out
