@@ -54,8 +54,15 @@ class PythonModelSpec:
     observables: str | None = None
 
 
-def read_model(check: Checker, value: object) -> ExpressionModelSpec | PythonModelSpec:
-    """The validated ``[model]`` section: an expression model or a Python model spec."""
+def read_model(
+    check: Checker, value: object, remember: bool = False
+) -> ExpressionModelSpec | PythonModelSpec:
+    """The validated ``[model]`` section: an expression model or a Python model spec.
+
+    With ``remember``, expression texts accepted before (recorded in the user
+    cache, :mod:`branchline.user_cache`) are not parsed again, and newly
+    accepted ones are recorded.
+    """
     model = check.table(value, "model", "a table ([model.parameters], [model.equations], ...)")
     check.keys(model, "model", MODEL_KEYS)
     if "python" in model and "equations" in model:
@@ -75,7 +82,7 @@ def read_model(check: Checker, value: object) -> ExpressionModelSpec | PythonMod
     parameters = _parameters(check, model["parameters"], expression_model=not is_python)
     if is_python:
         return _python_model(check, model, parameters)
-    return _expression_model(check, model, parameters)
+    return _expression_model(check, model, parameters, remember)
 
 
 def _parameters(check: Checker, value: object, expression_model: bool) -> dict[str, float]:
@@ -106,7 +113,7 @@ def _expression_texts(
 
 
 def _expression_model(
-    check: Checker, model: dict, parameters: dict[str, float]
+    check: Checker, model: dict, parameters: dict[str, float], remember: bool
 ) -> ExpressionModelSpec:
     equations = _expression_texts(
         check, model["equations"], "model.equations", "equations", "state"
@@ -132,7 +139,7 @@ def _expression_model(
     every_text = [*equations.values(), *definitions.values(), *observables.values()]
     # A model text accepted before: the names each expression uses, without parsing
     # again (so without sympy); see branchline.user_cache.
-    remembered = remembered_names(every_text)
+    remembered = remembered_names(every_text) if remember else None
     seen: dict[str, list[str]] = {}
 
     def names_in(path: str, texts: dict[str, str]) -> dict[str, set[str]]:
@@ -157,7 +164,7 @@ def _expression_model(
     definition_names = names_in("model.definitions", definitions)
     names_in("model.observables", observables)
     order = dependency_order(check, definition_names)
-    if remembered is None:
+    if remember and remembered is None:
         remember_names(every_text, seen)
     return ExpressionModelSpec(
         parameters=parameters,
