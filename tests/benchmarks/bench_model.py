@@ -16,21 +16,55 @@ compiled form). Times are CPU time (``time.process_time``), the best of
 The models are invented for the benchmark: a continuous bioreactor with
 substrate inhibition (2 states) and a ring of ten saturating enzyme stages
 (10 states).
+
+Then, for chains of coupled Brusselator cells written as expressions
+(``tests/cell_chains.py``) of 20, 100 and 1,000 states, it traces the uniform
+branch through its Hopf point and prints, against a warm-started
+``scipy.optimize.root`` sweep (hand-written numpy rhs and exact dense
+Jacobian, then ``np.linalg.eigvals``) over the same parameter values, in the
+same run: the build time (fresh, with an empty model cache, and again from
+the cache) as a multiple of the whole sweep, and the time per traced point
+(with stability at every point) as a multiple of the sweep's time per point
+(goal: at or below 1). These are wall times of one run each.
+
+Last, the wall time of the demo run (``branchline run scans/cooled_reactor.toml``,
+confirmations and diagram included) and of ``branchline --help``, each in a
+fresh interpreter, best of ``STARTUP_REPEATS``, against a bare
+``python3 -c pass`` (the interpreter's own start).
+
+``--quick`` skips the 1,000-state chain.
 """
 
 from __future__ import annotations
 
+import os
+import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-
 sys.path.insert(0, str(Path(__file__).resolve().parents[2] / "src"))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from branchline.model.build import build_model
-from branchline.scan.loader import ExpressionModelSpec
+from branchline.cli import single_threaded_blas
 
+# The command line's thread policy, set before numpy loads, for both sides of
+# every comparison (a thread count set by hand is kept).
+single_threaded_blas()
+
+import numpy as np  # noqa: E402
+
+from branchline.model.build import build_model  # noqa: E402
+from branchline.scan.loader import ExpressionModelSpec  # noqa: E402
+from cell_chains import brusselator_equations  # noqa: E402
+
+try:  # a private cache for the benchmark; older versions have none
+    from branchline.model import cache as model_cache
+except ImportError:
+    model_cache = None
+
+ROOT = Path(__file__).resolve().parents[2]
 REPEATS = 5
 CALLS = 20_000
 
@@ -132,7 +166,143 @@ def _report(title, spec, x, baselines) -> None:
         print(f"  {name:<20}{compiled:>12.2f}")
 
 
+# Chains: cells (2 states each), Brusselator a = 2, d = 0.1 swept in b across the
+# uniform mode's Hopf point b = 1 + a^2 = 5 (cell_chains.py).
+CHAIN_CELLS = (10, 50, 500)
+CHAIN_PARAMETERS = {"a": 2.0, "b": 3.0, "d": 0.1}
+CHAIN_INTERVAL = (3.0, 5.5)
+STARTUP_REPEATS = 3
+
+
+def _chain_numpy(cells: int):
+    """The chain's rhs and exact dense Jacobian written by hand in numpy, as a user would."""
+    n = 2 * cells
+    laplacian = np.zeros((cells, cells))
+    for i in range(cells):
+        laplacian[i, max(i - 1, 0)] += 1.0
+        laplacian[i, min(i + 1, cells - 1)] += 1.0
+        laplacian[i, i] -= 2.0
+
+    def rhs(x, a, b, d):
+        u, v = x[0::2], x[1::2]
+        f = np.empty(n)
+        f[0::2] = a - (b + 1.0) * u + u * u * v + d * (laplacian @ u)
+        f[1::2] = b * u - u * u * v + d * (laplacian @ v)
+        return f
+
+    def jacobian(x, a, b, d):
+        u, v = x[0::2], x[1::2]
+        jac = np.zeros((n, n))
+        jac[0::2, 0::2] = d * laplacian + np.diag(-(b + 1.0) + 2.0 * u * v)
+        jac[0::2, 1::2] = np.diag(u * u)
+        jac[1::2, 0::2] = np.diag(b - 2.0 * u * v)
+        jac[1::2, 1::2] = d * laplacian + np.diag(-u * u)
+        return jac
+
+    return rhs, jacobian
+
+
+def _scipy_sweep(cells: int, values, start) -> float:
+    """Wall seconds of a warm-started scipy.optimize.root sweep plus eigvals at each value."""
+    from scipy.optimize import root
+
+    rhs, jacobian = _chain_numpy(cells)
+    a, d = CHAIN_PARAMETERS["a"], CHAIN_PARAMETERS["d"]
+    x = np.array(start, dtype=float)
+    begin = time.perf_counter()
+    for b in values:
+        solution = root(rhs, x, args=(a, b, d), jac=jacobian, method="hybr")
+        x = solution.x
+        np.linalg.eigvals(jacobian(x, a, b, d))
+    return time.perf_counter() - begin
+
+
+def _chain_scan(cells: int):
+    from branchline.scan.loader import scan_from_dict
+
+    a, b = CHAIN_PARAMETERS["a"], CHAIN_PARAMETERS["b"]
+    start = {}
+    for i in range(cells):
+        start[f"u{i}"], start[f"v{i}"] = a, b / a
+    return scan_from_dict(
+        {
+            "title": f"chain of {cells} cells",
+            "model": {
+                "parameters": dict(CHAIN_PARAMETERS),
+                "equations": brusselator_equations(cells),
+            },
+            "trace": [
+                {"name": "uniform", "vary": "b", "interval": list(CHAIN_INTERVAL), "start": start}
+            ],
+        }
+    )
+
+
+def _timed_build(spec) -> tuple[float, object]:
+    begin = time.perf_counter()
+    model = build_model(spec)
+    return time.perf_counter() - begin, model
+
+
+def _chain_report(cells: int) -> None:
+    from branchline.runner import run_scan
+
+    scan = _chain_scan(cells)
+    if model_cache is not None:
+        model_cache.clear(scan.model)
+    fresh, model = _timed_build(scan.model)
+    cached = _timed_build(scan.model)[0] if model_cache is not None else float("nan")
+    begin = time.perf_counter()
+    result = run_scan(scan, model=model, confirm=False)
+    traced = time.perf_counter() - begin
+    points = sum(len(branch.parameter_values) for branch in result.branches)
+    branch = result.branches[0]
+    order = np.argsort(branch.parameter_values)
+    values = branch.parameter_values[order]
+    sweep = _scipy_sweep(cells, values, branch.states[order[0]])
+    per_point, per_sweep_point = traced / points, sweep / len(values)
+    hopf = [e for e in result.events if "hopf" in str(e.kind).lower()]
+    print(
+        f"  {2 * cells:>6}{fresh:>9.2f}{cached:>9.2f}{fresh / sweep:>9.2f}{cached / sweep:>9.2f}"
+        f"{points:>7}{per_point * 1e3:>10.2f}{per_sweep_point * 1e3:>10.2f}"
+        f"{per_point / per_sweep_point:>8.2f}   {len(hopf)} Hopf, {result.status}"
+    )
+
+
+def _wall(command: list[str], env: dict, cwd: str) -> float:
+    best = float("inf")
+    for _ in range(STARTUP_REPEATS):
+        begin = time.perf_counter()
+        subprocess.run(command, env=env, cwd=cwd, check=True, capture_output=True)
+        best = min(best, time.perf_counter() - begin)
+    return best
+
+
+def _startup_report() -> None:
+    env = dict(os.environ, PYTHONPATH=str(ROOT / "src"), MPLBACKEND="Agg")
+    with tempfile.TemporaryDirectory() as folder:
+        bare = _wall([sys.executable, "-c", "pass"], env, folder)
+        helped = _wall([sys.executable, "-m", "branchline", "--help"], env, folder)
+        scan = str(ROOT / "scans" / "cooled_reactor.toml")
+        demo = _wall(
+            [sys.executable, "-m", "branchline", "run", scan, "--out", "demo"], env, folder
+        )
+    print("\nstart-up (wall, best of 3; model cache warm after the first run)")
+    print(f"  python3 -c pass          {bare:6.2f} s")
+    print(f"  branchline --help        {helped:6.2f} s  ({helped / bare:.1f} x bare interpreter)")
+    print(f"  demo run with diagram    {demo:6.2f} s  ({demo / bare:.1f} x bare interpreter)")
+
+
 def main() -> None:
+    quick = "--quick" in sys.argv
+    print("expression chains (Brusselator cells) against a scipy.optimize.root + eigvals sweep")
+    print(
+        f"  {'states':>6}{'build s':>9}{'cached':>9}{'/sweep':>9}{'cached/':>9}"
+        f"{'points':>7}{'ms/pt':>10}{'scipy':>10}{'ratio':>8}"
+    )
+    for cells in CHAIN_CELLS[:2] if quick else CHAIN_CELLS:
+        _chain_report(cells)
+    _startup_report()
     _report(
         "bioreactor",
         BIOREACTOR,

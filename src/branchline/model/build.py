@@ -4,12 +4,14 @@ Internally a parameter set is a 1-D float array ``p`` ordered as
 ``Model.parameters``; Python models' own functions receive a dict.
 
 Expression models are parsed by the whitelisting parser of
-:mod:`branchline.scan.expressions`, differentiated exactly by sympy and compiled
-into plain Python functions by :mod:`branchline.model.codegen`; the hot-path
-callables (``rhs``, ``jacobian``, ``parameter_jacobian``, ``derivatives``)
-cost about a microsecond per call for small models. The normal-form
-derivatives (``second``, ``third``, ``jacobian_parameter_derivative``) are
-compiled on first use.
+:mod:`branchline.scan.expressions`, differentiated exactly by sympy at the
+structural nonzeros only and compiled into checked Python code
+(:mod:`branchline.model.expression_model`); the code is kept in the model
+cache (:mod:`branchline.model.cache`), so a model built before needs no sympy
+work. The hot-path callables (``rhs``, ``jacobian``, ``derivatives``) cost a
+few microseconds per call for small models. Each column of df/dp and the
+normal-form derivatives (``second``, ``third``,
+``jacobian_parameter_derivative``) are compiled on first use.
 
 Python models (``[model.python]``) import user code through
 :mod:`branchline.model.python`: **importing the named module runs that
@@ -23,17 +25,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.sparse
-import sympy as sp
 
-from branchline.errors import ExpressionError, ScanError
-from branchline.model.codegen import (
-    Lazy,
-    SymbolicDerivatives,
-    observable_function,
-    real_function,
-    split_function,
-)
+from branchline.errors import ScanError
 from branchline.model.python import (
     probe,
     python_jacobian,
@@ -43,8 +36,7 @@ from branchline.model.python import (
 )
 from branchline.numerics.differences import central_jacobian, directional_derivative
 from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
-from branchline.scan.expressions import parse_expression
-from branchline.scan.loader import ExpressionModelSpec, PythonModelSpec
+from branchline.scan.model_section import ExpressionModelSpec, PythonModelSpec
 
 Array = np.ndarray
 
@@ -93,8 +85,9 @@ class Model:
         ``"module:function"`` of a Python model's rhs (its module was imported).
     exact_derivatives : bool
         True when derivatives are exact (sympy), False when finite differences.
-    derivatives : callable (x, p) -> (ndarray (n, n), ndarray (n, m)) or None
-        df/dx and df/dp from one compiled call (expression models only).
+    derivatives : callable (x, p, parameter=None) -> (df/dx, ndarray (n, m) or (n,)) or None
+        df/dx (as ``jacobian`` returns it) with df/dp: every column, or only
+        column ``parameter`` (expression models only; what a trace calls).
     jacobian_source : str or None
         ``"module:function"`` of a Python model's own Jacobian, if it has one.
     linear_algebra : LinearAlgebraPolicy
@@ -131,6 +124,8 @@ class Model:
     def state_jacobian(self, x: Array, p: Array) -> object:
         """df/dx for location and normal forms: dense, or scipy.sparse CSC when the
         model's policy says sparse for its size."""
+        import scipy.sparse
+
         matrix = self.jacobian(x, p)
         if self.linear_algebra.sparse_location(x.shape[0]):
             return scipy.sparse.csc_matrix(matrix)
@@ -196,6 +191,8 @@ def build_model(spec: ExpressionModelSpec | PythonModelSpec, source: str = "<dic
 
 def jacobian_dense(model: Model, x: Array, p: Array) -> Array:
     """df/dx as a dense (n, n) array, whatever the model's Jacobian returns."""
+    import scipy.sparse
+
     matrix = model.jacobian(x, p)
     if scipy.sparse.issparse(matrix):
         return matrix.toarray()
@@ -217,68 +214,27 @@ def _no_observables(x: Array, p: Array) -> dict[str, float]:
 
 
 def _build_expression_model(spec: ExpressionModelSpec, source: str) -> Model:
-    states = tuple(spec.equations)
-    parameters = tuple(spec.parameters)
-    x = [sp.Symbol(f"_x{i}", real=True) for i in range(len(states))]
-    p = [sp.Symbol(f"_p{k}", real=True) for k in range(len(parameters))]
-    known: dict[str, sp.Expr] = dict(zip(states, x, strict=True))
-    known.update(zip(parameters, p, strict=True))
-    for name, text in spec.definitions.items():
-        key = f"model.definitions.{name}"
-        if name in known:
-            raise ScanError(source, key, f"'{name}' is already a state, parameter or definition")
-        known[name] = _translate(text, known, key, source)
-    f = [
-        _translate(text, known, f"model.equations.{name}", source)
-        for name, text in spec.equations.items()
-    ]
-    observables = _no_observables
-    if spec.observables:
-        observed = [
-            _translate(text, known, f"model.observables.{name}", source)
-            for name, text in spec.observables.items()
-        ]
-        observables = observable_function(tuple(spec.observables), observed, [x, p])
-    calculus = SymbolicDerivatives(f, x, p)
+    from branchline.model.expression_model import expression_functions
+
+    functions = expression_functions(spec, source, DEFAULT.expression_sparse_above)
     return Model(
-        states=states,
-        parameters=parameters,
+        states=tuple(spec.equations),
+        parameters=tuple(spec.parameters),
         defaults=_defaults(spec),
-        rhs=real_function(f, [x, p], (len(x),)),
-        jacobian=real_function(calculus.jacobian_entries, [x, p], (len(x), len(x))),
-        parameter_jacobian=real_function(calculus.parameter_entries, [x, p], (len(x), len(p))),
-        derivatives=split_function(
-            calculus.jacobian_entries + calculus.parameter_entries,
-            [x, p],
-            ((len(x), len(x)), (len(x), len(p))),
-        ),
-        second=Lazy(calculus.compile_second),
-        third=Lazy(calculus.compile_third),
-        jacobian_parameter_derivative=Lazy(calculus.compile_parameter_derivative),
-        observables=observables,
+        rhs=functions.rhs,
+        jacobian=functions.jacobian,
+        parameter_jacobian=functions.parameter_jacobian,
+        derivatives=functions.derivatives,
+        second=functions.second,
+        third=functions.third,
+        jacobian_parameter_derivative=functions.jacobian_parameter_derivative,
+        observables=functions.observables if spec.observables else _no_observables,
         observable_names=tuple(spec.observables),
+        sparse=functions.sparse,
         equations=dict(spec.equations),
         definitions=dict(spec.definitions),
         exact_derivatives=True,
     )
-
-
-def _translate(text: str, known: dict[str, sp.Expr], key: str, source: str) -> sp.Expr:
-    """Parse one expression and replace every name by its state/parameter symbol or definition."""
-    try:
-        expression = parse_expression(text, where=key)
-    except ExpressionError as error:
-        raise ScanError(source, key, str(error)) from None
-    replacements = {}
-    for symbol in expression.free_symbols:
-        if symbol.name not in known:
-            raise ScanError(
-                source,
-                key,
-                f"unknown name '{symbol.name}': not a state, a parameter or an earlier definition",
-            )
-        replacements[symbol] = known[symbol.name]
-    return expression.xreplace(replacements)
 
 
 # ---------------------------------------------------------------------------

@@ -1,24 +1,40 @@
-"""Code generation for expression models: sympy expressions -> fast numeric functions.
+"""Code generation for expression models: sparse entries -> checked Python source -> values.
 
-The exact derivatives of f are taken in sympy (:class:`SymbolicDerivatives`),
-then each group of entries is compiled with ``sympy.lambdify`` after one
-common-subexpression elimination (``sympy.cse``) into plain Python functions
-that return flat tuples. Two versions come from the same elimination: a fast
-one on Python floats and the math module (about a microsecond per call for
-small models) and a numpy one that turns domain errors into nan/inf and
-broadcasts over arrays (generated on first need). The normal-form derivatives
-(B, C, d/dp (f_x v)) are built and compiled only on first use (:class:`Lazy`).
+A *block* is a list of derivative entries (the structural nonzeros of f, of
+df/dx, of one column of df/dp, of the second or third derivative tensor, or of
+d/dp (df/dx)) with their index tuples. :func:`generate_block` turns its sympy
+expressions, after one common-subexpression elimination (``sympy.cse``), into
+the source text of two functions ``(x, p) -> tuple of values``: a fast one on
+Python floats and the math module (about a microsecond per entry-free call
+for small models) and a numpy one that turns domain errors into nan/inf and
+broadcasts over trailing axes of its inputs. The source is generated only from
+the sympy objects branchline built itself from the parsed model, never from
+raw text, and is compiled only after :func:`branchline.model.safe_code.compile_checked`
+has checked it (so a cached copy is held to the same rule).
+
+:class:`CompiledBlock` evaluates a block; :func:`dense_or_sparse`,
+:class:`SymmetricForm` and :class:`MixedForm` assemble its values from the
+index arrays into dense arrays, scipy.sparse CSC matrices, B(v, w),
+C(u, v, w) and d/dp (f_x v). Nothing here imports sympy at module level: a
+model read from the cache never loads it.
 """
 
 from __future__ import annotations
 
-import itertools
-import math
 from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from itertools import permutations
 from typing import Any
 
 import numpy as np
-import sympy as sp
+
+from branchline.model.safe_code import (
+    FUNCTION_NAME,
+    CodeRefused,
+    compile_checked,
+    math_namespace,
+    numpy_namespace,
+)
 
 Array = np.ndarray
 
@@ -30,99 +46,251 @@ Array = np.ndarray
 _FAST_PATH_FAILURES = (ArithmeticError, ValueError, TypeError, AttributeError)
 
 
-class SymbolicDerivatives:
-    """Exact derivatives of f in sympy; the higher ones built and compiled on demand.
+@dataclass(frozen=True)
+class BlockRecord:
+    """Generated code of one block: what the model cache stores.
 
-    The second and third derivative tensors are built entry by entry over
-    sorted index tuples only (they are symmetric), skipping every entry whose
-    parent does not depend on the variable, so sparse models stay cheap. The
-    forms B(v, w) and C(u, v, w) are then sums of those entries times
-    products of vector-component symbols, compiled with shared subexpressions.
+    Attributes
+    ----------
+    indices : ndarray (count, r) int
+        The index tuple of each entry (equation first).
+    fast : str or None
+        Source of the math-module function; None when some function has no
+        math counterpart.
+    safe : str
+        Source of the numpy function.
     """
 
-    def __init__(self, f: list[sp.Expr], x: list[sp.Symbol], p: list[sp.Symbol]) -> None:
-        self.f, self.x, self.p = f, x, p
-        self.jacobian = [[_derivative(fi, xj) for xj in x] for fi in f]
-        self.jacobian_entries = [entry for row in self.jacobian for entry in row]
-        self.parameter_entries = [_derivative(fi, pk) for fi in f for pk in p]
-        n = len(x)
-        self.u = [sp.Symbol(f"_u{i}") for i in range(n)]
-        self.v = [sp.Symbol(f"_v{i}") for i in range(n)]
-        self.w = [sp.Symbol(f"_w{i}") for i in range(n)]
-        self._hessian: list[dict[tuple[int, ...], sp.Expr]] | None = None
+    indices: Array
+    fast: str | None
+    safe: str
 
-    def hessian(self) -> list[dict[tuple[int, ...], sp.Expr]]:
-        """Per equation, {(j, k): d2f/dx_j dx_k} for j <= k, nonzero entries only."""
-        if self._hessian is None:
-            self._hessian = [
-                _raise_order({(j,): entry for j, entry in enumerate(row) if entry != 0}, self.x)
-                for row in self.jacobian
-            ]
-        return self._hessian
-
-    def compile_second(self) -> Callable:
-        """(x, p, v, w) -> B(v, w) (n,), complex-capable: the second derivative of f along v, w."""
-        second = [_contract(entries, (self.v, self.w)) for entries in self.hessian()]
-        return _complex_function(second, [self.x, self.p, self.v, self.w])
-
-    def compile_third(self) -> Callable:
-        """(x, p, u, v, w) -> C(u, v, w) (n,), complex-capable: the third derivative of f."""
-        third = [
-            _contract(_raise_order(entries, self.x), (self.u, self.v, self.w))
-            for entries in self.hessian()
-        ]
-        return _complex_function(third, [self.x, self.p, self.u, self.v, self.w])
-
-    def compile_parameter_derivative(self) -> Callable:
-        """(x, p, v) -> d/dp (f_x v), shape (n, m): one column per parameter."""
-        entries = [
-            sp.Add(*[_derivative(entry, pk) * vj for entry, vj in zip(row, self.v, strict=True)])
-            for row in self.jacobian
-            for pk in self.p
-        ]
-        shape = (len(self.x), len(self.p))
-        return _complex_function(entries, [self.x, self.p, self.v], shape)
+    @property
+    def count(self) -> int:
+        return int(self.indices.shape[0])
 
 
-def _derivative(expression: sp.Expr, variable: sp.Symbol) -> sp.Expr:
-    """d expression / d variable, skipping sympy entirely when it cannot depend on it."""
-    if variable not in expression.free_symbols:
-        return sp.S.Zero
-    return sp.diff(expression, variable)
+def generate_block(
+    entries: Sequence[tuple[tuple[int, ...], Any]], arguments: list[tuple[str, list]], width: int
+) -> BlockRecord:
+    """Source code for the entries' values, from their sympy expressions.
+
+    Parameters
+    ----------
+    entries : sequence of (index tuple, sympy expression)
+    arguments : list of (argument name, its symbols)
+        E.g. ``[("x", state symbols), ("p", parameter symbols)]``.
+    width : int
+        Length of every index tuple (to shape an empty block).
+    """
+    import sympy as sp
+
+    # Kinks (abs, sign) differentiate to Dirac deltas; off the kink they are zero.
+    expressions = [
+        e.replace(sp.DiracDelta, _zero) if e.has(sp.DiracDelta) else e for _, e in entries
+    ]
+    # Canonical order: the same model compiles to the same arithmetic in every
+    # process (order="none" follows hash order, which changes the last digits).
+    shared, reduced = sp.cse(expressions, symbols=sp.numbered_symbols("_c"), order="canonical")
+    indices = np.array([index for index, _ in entries], dtype=np.int64).reshape(-1, width)
+    return BlockRecord(
+        indices=indices,
+        fast=_source(shared, reduced, arguments, "math"),
+        safe=_source(shared, reduced, arguments, "numpy"),
+    )
 
 
-def _raise_order(
-    entries: dict[tuple[int, ...], sp.Expr], x: list[sp.Symbol]
-) -> dict[tuple[int, ...], sp.Expr]:
-    """From {sorted index tuple: derivative} to the next order, sorted tuples only."""
-    higher = {}
-    for index, entry in entries.items():
-        for k in range(index[-1], len(x)):
-            derivative = _derivative(entry, x[k])
-            if derivative != 0:
-                higher[(*index, k)] = derivative
-    return higher
+def _zero(*_: object) -> Any:
+    import sympy as sp
+
+    return sp.S.Zero
 
 
-def _contract(entries: dict[tuple[int, ...], sp.Expr], vectors: tuple) -> sp.Expr:
-    """sum over all index tuples of T[indices] * prod_r vectors[r][index_r], T symmetric."""
-    terms = []
-    for index, entry in entries.items():
-        products = {
-            tuple(index[a] for a in order) for order in itertools.permutations(range(len(index)))
-        }
-        weight = sp.Add(
-            *[
-                sp.Mul(*[vector[i] for vector, i in zip(vectors, order, strict=True)])
-                for order in products
-            ]
+def _printer(flavour: str):
+    # As lambdify's defaults, but terms are printed in sympy's internal order
+    # instead of being sorted (sorting dominates the time of printing).
+    settings = {"fully_qualified_modules": False, "inline": True, "order": "none"}
+    if flavour == "math":
+        from sympy.printing.pycode import PythonCodePrinter
+
+        return PythonCodePrinter(settings | {"strict": True, "allow_unknown_functions": False})
+    from sympy.printing.numpy import NumPyPrinter
+
+    return NumPyPrinter(settings | {"allow_unknown_functions": False})
+
+
+def _source(shared: list, reduced: list, arguments: list[tuple[str, list]], flavour: str):
+    """``def generated(x, p): ...`` computing the reduced expressions; None if unprintable."""
+    printer = _printer(flavour)
+    lines = [f"def {FUNCTION_NAME}({', '.join(name for name, _ in arguments)}):"]
+    for name, symbols in arguments:
+        if symbols:
+            lines.append(f"    [{', '.join(str(s) for s in symbols)}] = {name}")
+    try:
+        for symbol, expression in shared:
+            lines.append(f"    {symbol} = {printer.doprint(expression)}")
+        values = [printer.doprint(expression) for expression in reduced]
+    except Exception:  # the printer refuses a function (math flavour): numpy code only
+        if flavour == "math":
+            return None
+        raise
+    lines.append(f"    return ({''.join(value + ', ' for value in values)})")
+    return "\n".join(lines) + "\n"
+
+
+class CompiledBlock:
+    """A block's values at (x, p): flat array (count, *trailing axes of x).
+
+    The fast source (or, without one, the numpy source) is checked and compiled
+    when the block is made: a cached block that fails the check raises
+    :class:`CodeRefused` and is rebuilt. The numpy source of a block with a fast
+    one is checked and compiled on first need (points with trailing axes, or a
+    domain error); should it fail the check then, its values are nan.
+    """
+
+    def __init__(self, record: BlockRecord) -> None:
+        self.record = record
+        self.indices = record.indices
+        self.count = record.count
+        fast = record.fast
+        self._fast = None if fast is None else compile_checked(fast, math_namespace(), self.count)
+        self._safe = None if fast is not None else self._compile_safe()
+
+    def _compile_safe(self) -> Callable:
+        return compile_checked(self.record.safe, numpy_namespace(), self.count)
+
+    def _safe_function(self) -> Callable:
+        if self._safe is None:
+            try:
+                self._safe = self._compile_safe()
+            except CodeRefused:
+                count = self.count
+                self._safe = lambda *_: (float("nan"),) * count
+        return self._safe
+
+    def values(self, x: Array, p: Array) -> Array:
+        """The entries' values, float array (count,) or (count, *trailing)."""
+        fast = self._fast
+        if fast is not None:
+            try:
+                if x.ndim == 1:
+                    return np.array(fast(x.tolist(), p.tolist()), dtype=float)
+            except _FAST_PATH_FAILURES:
+                pass
+        return self.safe_values(x, p)
+
+    def safe_values(self, x: Array, p: Array) -> Array:
+        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
+        trailing = np.broadcast_shapes(*(a.shape[1:] for a in arrays))
+        out = np.empty((self.count, *trailing))
+        with np.errstate(all="ignore"):
+            results = self._safe_function()(*arrays)
+        for i, value in enumerate(results):
+            out[i] = value
+        return out
+
+
+class DenseOrSparse:
+    """Assembles a block of (i, j) entries into an (rows, columns) matrix.
+
+    Dense: the values are scattered into a fresh zero array through the flat
+    positions i * columns + j (trailing axes of x kept). Sparse (1-D x only):
+    a scipy.sparse CSC matrix from the entries' precomputed column order.
+    """
+
+    def __init__(self, indices: Array, shape: tuple[int, int]) -> None:
+        self.shape = shape
+        rows, columns = indices[:, 0], indices[:, -1]
+        self.flat = rows * shape[1] + columns
+        order = np.lexsort((rows, columns))
+        self.order = order
+        self.row_indices = rows[order].astype(np.int32)
+        counts = np.bincount(columns, minlength=shape[1])
+        self.pointers = np.concatenate([[0], np.cumsum(counts)]).astype(np.int32)
+
+    def dense(self, values: Array) -> Array:
+        trailing = values.shape[1:]
+        out = np.zeros((self.shape[0] * self.shape[1], *trailing))
+        out[self.flat] = values
+        return out.reshape(self.shape + trailing)
+
+    def sparse(self, values: Array) -> Any:
+        import scipy.sparse
+
+        return scipy.sparse.csc_matrix(
+            (values[self.order], self.row_indices, self.pointers), shape=self.shape
         )
-        terms.append(entry * weight)
-    return sp.Add(*terms)
+
+
+def _scatter_plan(rows: Array) -> tuple[Array, Array, Array]:
+    """Sort order, distinct rows and their starts, for sums by row with ``np.add.reduceat``."""
+    order = np.argsort(rows, kind="stable")
+    sorted_rows = rows[order]
+    starts = np.flatnonzero(np.r_[True, sorted_rows[1:] != sorted_rows[:-1]]) if rows.size else rows
+    return order, sorted_rows[starts] if rows.size else rows, starts
+
+
+class _Contraction:
+    """sum over entries of value[source] * prod_r vectors[r][slot_r], summed into rows."""
+
+    def __init__(self, source: Array, rows: Array, slots: Array, size: int) -> None:
+        order, self.targets, self.starts = _scatter_plan(rows)
+        self.source = source[order]
+        self.slots = slots[order]
+        self.size = size
+
+    def __call__(self, values: Array, vectors: Sequence[Any]) -> Array:
+        vectors = [np.asarray(v) for v in vectors]
+        dtype = np.result_type(float, values.dtype, *vectors)
+        extra = max((v.ndim - 1 for v in vectors), default=0)
+        trailing = np.broadcast_shapes(*(v.shape[1:] for v in vectors))
+        out = np.zeros((self.size, *trailing), dtype=dtype)
+        if self.source.size == 0:
+            return out
+        terms = values[self.source].reshape((-1,) + (1,) * extra)
+        for r, vector in enumerate(vectors):
+            # Each vector's own trailing axes, aligned to the right (numpy broadcasting).
+            gathered = vector[self.slots[:, r]]
+            padding = (1,) * (extra - (vector.ndim - 1))
+            terms = terms * gathered.reshape((gathered.shape[0], *padding, *vector.shape[1:]))
+        terms = np.broadcast_to(terms, (terms.shape[0], *trailing))
+        out[self.targets] = np.add.reduceat(terms, self.starts, axis=0)
+        return out
+
+
+def symmetric_contraction(indices: Array, size: int) -> _Contraction:
+    """T(v1, ..., vk)_i from entries (i, j1 <= ... <= jk) of a symmetric tensor.
+
+    Each sorted entry stands for all its distinct orderings, expanded once here.
+    """
+    source, rows, slots = [], [], []
+    for entry, index in enumerate(indices.tolist()):
+        for ordering in set(permutations(index[1:])):
+            source.append(entry)
+            rows.append(index[0])
+            slots.append(ordering)
+    width = indices.shape[1] - 1
+    return _Contraction(
+        np.array(source, dtype=np.int64),
+        np.array(rows, dtype=np.int64),
+        np.array(slots, dtype=np.int64).reshape(-1, width),
+        size,
+    )
+
+
+def mixed_contraction(indices: Array, size: int, parameters: int) -> _Contraction:
+    """d/dp_k (f_x v) as rows i * m + k from entries (i, j, k)."""
+    count = indices.shape[0]
+    return _Contraction(
+        np.arange(count, dtype=np.int64),
+        indices[:, 0] * parameters + indices[:, 2],
+        indices[:, 1:2],
+        size * parameters,
+    )
 
 
 class Lazy:
-    """A callable compiled on its first call (keeps start-up short)."""
+    """A callable made on its first call (keeps start-up short)."""
 
     __slots__ = ("_build", "_function")
 
@@ -136,188 +304,13 @@ class Lazy:
         return self._function(*args)
 
 
-def _zero(*_: object) -> sp.Expr:
-    return sp.S.Zero
-
-
-def _printer_settings() -> dict[str, Any]:
-    # As lambdify's own defaults, but terms are printed in sympy's internal
-    # order instead of being sorted (sorting dominates compile time).
-    return {
-        "fully_qualified_modules": False,
-        "inline": True,
-        "allow_unknown_functions": True,
-        "order": "none",
-    }
-
-
-class _Compiled:
-    """Entries compiled twice from one common-subexpression elimination.
-
-    ``fast`` works on Python floats with the math module (None when some
-    function has no math counterpart); ``safe`` is numpy code, which turns
-    domain errors into nan/inf and broadcasts over arrays. ``safe`` is only
-    generated when first needed.
-    """
-
-    def __init__(self, arguments: list, expressions: list[sp.Expr], fast: bool = True) -> None:
-        # Kinks (abs, sign) differentiate to Dirac deltas; off the kink they are zero.
-        expressions = [
-            e.replace(sp.DiracDelta, _zero) if e.has(sp.DiracDelta) else e for e in expressions
-        ]
-        self.arguments = arguments
-        # Canonical order: the same model compiles to the same arithmetic in every
-        # process (order="none" follows hash order, which changes the last digits).
-        self.cse = sp.cse(expressions, order="canonical")
-        self._safe: Callable | None = None
-        self.fast = self._lambdify_fast() if fast else None
-
-    def _reuse(self, _: object) -> tuple:
-        return self.cse
-
-    def _lambdify_fast(self) -> Callable | None:
-        from sympy.printing.pycode import PythonCodePrinter
-
-        try:
-            settings = _printer_settings() | {"strict": True, "allow_unknown_functions": False}
-            printer = PythonCodePrinter(settings)
-            return sp.lambdify(
-                self.arguments,
-                self.cse[1],
-                # math.fabs, unlike abs, refuses a complex number (from a
-                # fractional power of a negative number), so such values take
-                # the numpy path and become nan there.
-                modules=[{"abs": math.fabs}, "math"],
-                cse=self._reuse,
-                printer=printer,
-                docstring_limit=0,
-            )
-        except Exception:  # the printer refuses a function: numpy code only
-            return None
-
-    @property
-    def safe(self) -> Callable:
-        if self._safe is None:
-            from sympy.printing.numpy import NumPyPrinter
-
-            printer = NumPyPrinter(_printer_settings())
-            self._safe = sp.lambdify(
-                self.arguments,
-                self.cse[1],
-                modules="numpy",
-                cse=self._reuse,
-                printer=printer,
-                docstring_limit=0,
-            )
-        return self._safe
-
-
-def _safe_values(safe: Callable, arrays: Sequence[Array], count: int, dtype: Any) -> Array:
-    """Evaluate the numpy version; entries broadcast over trailing axes of the inputs."""
-    trailing = np.broadcast_shapes(*(a.shape[1:] for a in arrays))
-    out = np.empty((count, *trailing), dtype=dtype)
-    with np.errstate(all="ignore"):
-        values = safe(*arrays)
-    for i, value in enumerate(values):
-        out[i] = value
-    return out
-
-
-def real_function(
-    expressions: list[sp.Expr], arguments: list, shape: tuple[int, ...]
-) -> Callable[[Array, Array], Array]:
-    """Compile real-valued entries into (x, p) -> ndarray of ``shape``."""
-    compiled = _Compiled(arguments, expressions)
-    fast = compiled.fast
-    count = len(expressions)
-
-    def evaluate_safe(x: Array, p: Array) -> Array:
-        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
-        values = _safe_values(compiled.safe, arrays, count, float)
-        return values.reshape(shape + values.shape[1:])
-
-    if fast is None:
-        return evaluate_safe
-
-    def evaluate(x: Array, p: Array) -> Array:
-        try:
-            if x.ndim == 1:
-                return np.array(fast(x.tolist(), p.tolist()), dtype=float).reshape(shape)
-        except _FAST_PATH_FAILURES:
-            pass
-        return evaluate_safe(x, p)
-
-    return evaluate
-
-
-def split_function(
-    expressions: list[sp.Expr], arguments: list, shapes: tuple
-) -> Callable[[Array, Array], tuple[Array, Array]]:
-    """Compile the entries of two blocks at once into (x, p) -> (block1, block2)."""
-    first_shape, second_shape = shapes
-    cut = first_shape[0] * first_shape[1]
-    compiled = _Compiled(arguments, expressions)
-    fast = compiled.fast
-    count = len(expressions)
-
-    def evaluate_safe(x: Array, p: Array) -> tuple[Array, Array]:
-        arrays = (np.asarray(x, dtype=float), np.asarray(p, dtype=float))
-        flat = _safe_values(compiled.safe, arrays, count, float)
-        trailing = flat.shape[1:]
-        return (
-            flat[:cut].reshape(first_shape + trailing),
-            flat[cut:].reshape(second_shape + trailing),
-        )
-
-    if fast is None:
-        return evaluate_safe
-
-    def evaluate(x: Array, p: Array) -> tuple[Array, Array]:
-        try:
-            if x.ndim == 1:
-                flat = np.array(fast(x.tolist(), p.tolist()), dtype=float)
-                return flat[:cut].reshape(first_shape), flat[cut:].reshape(second_shape)
-        except _FAST_PATH_FAILURES:
-            pass
-        return evaluate_safe(x, p)
-
-    return evaluate
-
-
-def _complex_function(expressions: list[sp.Expr], arguments: list, shape: tuple | None = None):
-    """Compile entries that may be complex (vector arguments) into numpy code."""
-    compiled = _Compiled(arguments, expressions, fast=False)
-    count = len(expressions)
-    shape = shape or (count,)
-
-    def evaluate(*inputs: Array) -> Array:
-        arrays = [np.asarray(a) for a in inputs]
-        dtype = np.result_type(float, *arrays)
-        values = _safe_values(compiled.safe, arrays, count, dtype)
-        return values.reshape(shape + values.shape[1:])
-
-    return evaluate
-
-
-def observable_function(
-    names: tuple[str, ...], expressions: list[sp.Expr], arguments: list
-) -> Callable[[Array, Array], dict[str, Any]]:
-    """Compile observables into (x, p) -> {name: value}."""
-    values = real_function(expressions, arguments, (len(names),))
-
-    def evaluate(x: Array, p: Array) -> dict[str, Any]:
-        result = values(x, p)
-        if result.ndim == 1:
-            return dict(zip(names, result.tolist(), strict=True))
-        return dict(zip(names, result, strict=True))
-
-    return evaluate
-
-
 __all__ = [
+    "BlockRecord",
+    "CodeRefused",
+    "CompiledBlock",
+    "DenseOrSparse",
     "Lazy",
-    "SymbolicDerivatives",
-    "observable_function",
-    "real_function",
-    "split_function",
+    "generate_block",
+    "mixed_contraction",
+    "symmetric_contraction",
 ]

@@ -56,6 +56,10 @@ class LinearAlgebraPolicy:
     determinant_dense_up_to : int
         The branch-point test (a bordered determinant) of a sparse Jacobian is
         computed densely up to this size, with SuperLU above.
+    expression_sparse_above : int
+        An expression model with more states than this, whose Jacobian has few
+        structural nonzeros, returns it as a scipy.sparse matrix (and is
+        continued with sparse LU); smaller ones return dense arrays.
     """
 
     force: str | None = None
@@ -66,6 +70,7 @@ class LinearAlgebraPolicy:
     exact_second_up_to: int = 60
     finite_differences_dense_up_to: int = 200
     determinant_dense_up_to: int = 50
+    expression_sparse_above: int = 200
 
     def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
         """Whether a curve of a model with ``size`` states is continued with sparse LU."""

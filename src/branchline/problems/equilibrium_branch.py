@@ -142,9 +142,9 @@ class EquilibriumBranch:
 
     Notes
     -----
-    Uses ``model.derivatives(x, p) -> (f_x, f_p)`` when the model has it (one
-    call for both Jacobians), else ``model.jacobian`` and
-    ``model.parameter_jacobian``.
+    Uses ``model.derivatives(x, p, vary_index) -> (f_x, f_p column)`` when the
+    model has it (only the varied parameter's column is computed), else
+    ``model.jacobian`` and ``model.parameter_jacobian``.
     """
 
     def __init__(self, model, vary_index: int, parameters: Array, orientation: int = 1) -> None:
@@ -180,18 +180,18 @@ class EquilibriumBranch:
     def _stacked(self, x: Array, p: Array):
         """[f_x, f_p] as an (n, n + 1) array, or a sparse matrix for sparse models."""
         if self._derivatives is not None:
-            fx, fp_all = self._derivatives(x, p)
+            fx, fp = self._derivatives(x, p, self.vary_index)
         else:
-            fx, fp_all = self._jacobian_x(x, p), self._jacobian_p(x, p)
+            fx = self._jacobian_x(x, p)
+            fp = np.asarray(self._jacobian_p(x, p), dtype=float)[:, self.vary_index]
         if self._forced:
             fx = self._as_policy_says(fx)
         if linalg.is_sparse(fx):
-            fp = np.asarray(fp_all, dtype=float)[:, self.vary_index]
-            return linalg.append_column(fx, fp)
+            return linalg.append_column(fx, np.asarray(fp, dtype=float))
         n = self.size
         jac = np.empty((n, n + 1))
         jac[:, :n] = fx
-        jac[:, n] = fp_all[:, self.vary_index]
+        jac[:, n] = fp
         return jac
 
     def _as_policy_says(self, fx: Any) -> Any:

@@ -31,12 +31,44 @@ from __future__ import annotations
 
 import ast
 import difflib
+import importlib
 import math
 from collections.abc import Callable
-
-import sympy
+from typing import Any
 
 from branchline.errors import ExpressionError
+
+
+class _OnFirstUse:
+    """sympy, imported when the parser first needs it.
+
+    A run whose model code is in the model cache never parses, so it never pays
+    for importing sympy; everything else here reads the same as with ``import sympy``.
+    """
+
+    def __getattr__(self, name: str) -> Any:
+        module = importlib.import_module("sympy")
+        globals()["sympy"] = module
+        return getattr(module, name)
+
+
+sympy: Any = _OnFirstUse()
+
+
+class _SympyFunction:
+    """A sympy function looked up by name when first called (see :class:`_OnFirstUse`)."""
+
+    __slots__ = ("name",)
+
+    def __init__(self, name: str) -> None:
+        self.name = name
+
+    def __call__(self, *args: Any) -> Any:
+        return getattr(sympy, self.name)(*args)
+
+    def __repr__(self) -> str:
+        return f"sympy.{self.name}"
+
 
 # Limits. Real model expressions are a few hundred characters long and nest a
 # dozen levels at most; the limits leave ample room for generated equations
@@ -80,33 +112,33 @@ def _pow(base: sympy.Expr, exponent: sympy.Expr) -> sympy.Expr:
 #: ``abs`` and ``sign`` are not smooth at 0: equilibria exactly there have no
 #: Jacobian, and continuation across that point is not reliable.
 FUNCTIONS: dict[str, Callable[..., sympy.Expr]] = {
-    "exp": sympy.exp,
-    "log": sympy.log,
+    "exp": _SympyFunction("exp"),
+    "log": _SympyFunction("log"),
     "log10": _log10,
-    "sqrt": sympy.sqrt,
-    "sin": sympy.sin,
-    "cos": sympy.cos,
-    "tan": sympy.tan,
-    "asin": sympy.asin,
-    "acos": sympy.acos,
-    "atan": sympy.atan,
-    "atan2": sympy.atan2,
-    "sinh": sympy.sinh,
-    "cosh": sympy.cosh,
-    "tanh": sympy.tanh,
-    "asinh": sympy.asinh,
-    "acosh": sympy.acosh,
-    "atanh": sympy.atanh,
-    "abs": sympy.Abs,
-    "sign": sympy.sign,
+    "sqrt": _SympyFunction("sqrt"),
+    "sin": _SympyFunction("sin"),
+    "cos": _SympyFunction("cos"),
+    "tan": _SympyFunction("tan"),
+    "asin": _SympyFunction("asin"),
+    "acos": _SympyFunction("acos"),
+    "atan": _SympyFunction("atan"),
+    "atan2": _SympyFunction("atan2"),
+    "sinh": _SympyFunction("sinh"),
+    "cosh": _SympyFunction("cosh"),
+    "tanh": _SympyFunction("tanh"),
+    "asinh": _SympyFunction("asinh"),
+    "acosh": _SympyFunction("acosh"),
+    "atanh": _SympyFunction("atanh"),
+    "abs": _SympyFunction("Abs"),
+    "sign": _SympyFunction("sign"),
     "pow": _pow,
 }
 
 #: Number of positional arguments each function takes.
 FUNCTION_ARITY: dict[str, int] = {name: 1 for name in FUNCTIONS} | {"atan2": 2, "pow": 2}
 
-#: Named constants an expression may use.
-CONSTANTS: dict[str, sympy.Expr] = {"pi": sympy.pi}
+#: Named constants an expression may use: name -> the sympy value (made on call).
+CONSTANTS: dict[str, Callable[[], sympy.Expr]] = {"pi": lambda: sympy.pi}
 
 #: Names that states, parameters, definitions and observables may not take.
 RESERVED: set[str] = set(FUNCTIONS) | set(CONSTANTS)
@@ -395,7 +427,7 @@ class _Builder:
         if name.startswith("__"):
             raise self.refuse("names starting with '__' are not allowed", node)
         if name in CONSTANTS:
-            return CONSTANTS[name]
+            return CONSTANTS[name]()
         if name in FUNCTIONS:
             raise self.refuse(f"'{name}' is a function; call it as {name}(...)", node)
         return sympy.Symbol(name)

@@ -88,6 +88,7 @@ try:
 except ModuleNotFoundError:  # Python < 3.11
     import tomli as tomllib
 
+
 @dataclass(frozen=True)
 class TraceSpec:
     """One ``[[trace]]``: an equilibrium branch to follow."""
@@ -164,10 +165,10 @@ def load_scan(path: str | Path) -> Scan:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ScanError(source, FILE_KEY, f"not valid TOML: {err}") from None
-    return scan_from_dict(data, source)
+    return scan_from_dict(data, source, remember=True)
 
 
-def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
+def scan_from_dict(data: dict[str, Any], source: str = "<dict>", *, remember: bool = False) -> Scan:
     """Validate a scan given as a dictionary (same layout as the TOML file).
 
     Parameters
@@ -176,6 +177,10 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         The parsed TOML (or an equivalent hand-built dictionary).
     source : str
         The file name used in messages and for the default title.
+    remember : bool
+        Use (and add to) the user cache's record of model texts accepted
+        before, so that such a model is not parsed again (:func:`load_scan`
+        does); by default no file is read or written.
 
     Returns
     -------
@@ -202,7 +207,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
     title = check.plain_text(title, "title", MAX_TITLE_LENGTH)
     if "model" not in data:
         check.fail("model", "missing: the scan needs a [model] with its parameters and equations")
-    model = read_model(check, data["model"])
+    model = read_model(check, data["model"], remember)
     steps = _steps(check, data.get("steps", {}), "steps", StepSettings())
     traces = _traces(check, data.get("trace"), model, steps)
     ensemble = None

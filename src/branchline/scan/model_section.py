@@ -22,6 +22,7 @@ from branchline.scan.checks import (
     unknown_name,
 )
 from branchline.scan.expressions import expression_names, parse_expression
+from branchline.user_cache import remember_names, remembered_names
 
 MODEL_KEYS = ("parameters", "equations", "definitions", "observables", "python")
 PYTHON_KEYS = ("rhs", "size", "jacobian", "states", "observables")
@@ -53,8 +54,15 @@ class PythonModelSpec:
     observables: str | None = None
 
 
-def read_model(check: Checker, value: object) -> ExpressionModelSpec | PythonModelSpec:
-    """The validated ``[model]`` section: an expression model or a Python model spec."""
+def read_model(
+    check: Checker, value: object, remember: bool = False
+) -> ExpressionModelSpec | PythonModelSpec:
+    """The validated ``[model]`` section: an expression model or a Python model spec.
+
+    With ``remember``, expression texts accepted before (recorded in the user
+    cache, :mod:`branchline.user_cache`) are not parsed again, and newly
+    accepted ones are recorded.
+    """
     model = check.table(value, "model", "a table ([model.parameters], [model.equations], ...)")
     check.keys(model, "model", MODEL_KEYS)
     if "python" in model and "equations" in model:
@@ -74,7 +82,7 @@ def read_model(check: Checker, value: object) -> ExpressionModelSpec | PythonMod
     parameters = _parameters(check, model["parameters"], expression_model=not is_python)
     if is_python:
         return _python_model(check, model, parameters)
-    return _expression_model(check, model, parameters)
+    return _expression_model(check, model, parameters, remember)
 
 
 def _parameters(check: Checker, value: object, expression_model: bool) -> dict[str, float]:
@@ -105,7 +113,7 @@ def _expression_texts(
 
 
 def _expression_model(
-    check: Checker, model: dict, parameters: dict[str, float]
+    check: Checker, model: dict, parameters: dict[str, float], remember: bool
 ) -> ExpressionModelSpec:
     equations = _expression_texts(
         check, model["equations"], "model.equations", "equations", "state"
@@ -128,25 +136,36 @@ def _expression_model(
         ],
     )
     known = set(parameters) | set(equations) | set(definitions)
+    every_text = [*equations.values(), *definitions.values(), *observables.values()]
+    # A model text accepted before: the names each expression uses, without parsing
+    # again (so without sympy); see branchline.user_cache.
+    remembered = remembered_names(every_text) if remember else None
+    seen: dict[str, list[str]] = {}
 
     def names_in(path: str, texts: dict[str, str]) -> dict[str, set[str]]:
         used = {}
         for name, text in texts.items():
             key = key_path(path, name)
-            try:
-                expr = parse_expression(text)
-            except ExpressionError as err:
-                check.fail(key, str(err))
-            names = expression_names(expr)
+            if remembered is not None:
+                names = set(remembered[text])
+            else:
+                try:
+                    expr = parse_expression(text)
+                except ExpressionError as err:
+                    check.fail(key, str(err))
+                names = expression_names(expr)
             for unknown in sorted(names - known):
                 check.fail(key, unknown_name(unknown, parameters, equations, definitions))
             used[name] = names
+            seen[text] = sorted(names)
         return used
 
     names_in("model.equations", equations)
     definition_names = names_in("model.definitions", definitions)
     names_in("model.observables", observables)
     order = dependency_order(check, definition_names)
+    if remember and remembered is None:
+        remember_names(every_text, seen)
     return ExpressionModelSpec(
         parameters=parameters,
         equations=equations,
