@@ -29,7 +29,6 @@ import scipy.sparse.linalg as spla
 
 from branchline.events.brackets import Bracket, LocationFailed
 from branchline.events.defining_systems import (
-    NewtonOutcome,
     branch_point_system,
     fold_system,
     hopf_system,
@@ -48,6 +47,7 @@ from branchline.events.normal_forms import (
 )
 from branchline.numerics.eigenvalues import eigenvector_near, null_vectors
 from branchline.numerics.linalg import dense
+from branchline.numerics.newton import NewtonResult, failure
 from branchline.results.records import Branch, Event
 from branchline.vocabulary import EventKind
 
@@ -88,7 +88,7 @@ BISECTION_GIVE_UP_WIDTH = 1e-6
 
 def correct_on_branch(
     model: Model, params: Array, k: int, guess: Array, direction: Array
-) -> NewtonOutcome:
+) -> NewtonResult:
     """The branch point u = (x, p) with f(u) = 0 and direction . (u - guess) = 0 (Newton)."""
     return newton(on_branch_system(model, params, k, guess, direction), guess)
 
@@ -181,17 +181,17 @@ def _bisect_on_branch(
     return point, widths
 
 
-def _placed_by_newton(branch: Branch, bracket: Bracket, outcome: NewtonOutcome, u: Array) -> bool:
+def _placed_by_newton(branch: Branch, bracket: Bracket, outcome: NewtonResult, u: Array) -> bool:
     """Newton converged, to a point u = (x, p) that belongs to this bracket."""
     return outcome.converged and _within_bracket(branch, bracket.row, u)
 
 
-def _newton_failure(outcome: NewtonOutcome) -> str:
+def _newton_failure(outcome: NewtonResult) -> str:
     return outcome.message or "left the bracket"
 
 
 def _bisection_fallback(
-    model: Model, branch: Branch, k: int, bracket: Bracket, outcome: NewtonOutcome, test: BranchTest
+    model: Model, branch: Branch, k: int, bracket: Bracket, outcome: NewtonResult, test: BranchTest
 ) -> Array:
     """The event placed by bisection on ``test`` after Newton (``outcome``) failed.
 
@@ -203,7 +203,7 @@ def _bisection_fallback(
     return point
 
 
-def _bisection_note(system: str, outcome: NewtonOutcome) -> str:
+def _bisection_note(system: str, outcome: NewtonResult) -> str:
     reason = _newton_failure(outcome)
     return f"located by bisection (Newton on the {system} system failed: {reason})"
 
@@ -232,7 +232,7 @@ def _bracket_details(branch: Branch, bracket: Bracket) -> dict:
 
 
 def _base_details(
-    branch: Branch, bracket: Bracket, a_matrix: Array, method: str, outcome: NewtonOutcome
+    branch: Branch, bracket: Bracket, a_matrix: Array, method: str, outcome: NewtonResult
 ) -> dict:
     return {
         "method": method,
@@ -512,7 +512,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
     large = model.linear_algebra.sparse_location(n)
     if large:
         # Moore's system needs the dense (n+1)^2 Hessian of psi^T f: too costly
-        outcome = NewtonOutcome(False, u0, [], "not used for large models")
+        outcome = failure(u0, "not used for large models")
     else:
         g_u = np.column_stack(
             [dense(model.jacobian(u0[:-1], full0)), model.parameter_jacobian(u0[:-1], full0)[:, k]]
