@@ -373,77 +373,25 @@ def _fold_test(model: Model, branch: Branch, k: int, u: Array, chord: Array) -> 
 
 def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
     """Refine a Hopf bracket on the extended Hopf system; None for a neutral saddle."""
-    u0 = _seed(branch, bracket)
-    n = u0.shape[0] - 1
-    full0 = with_value(branch.parameters, k, u0[-1])
-    a0 = model.state_jacobian(u0[:-1], full0)
-    omega_guess = float(bracket.hint.get("omega", 0.0))
-    value, q0 = eigenvector_near(a0, 1j * omega_guess)
-    if abs(value.imag) <= 0.0:
-        return None  # the nearest eigenvalue is real: a neutral saddle, not a Hopf point
-    if value.imag < 0:
-        q0 = q0.conj()
-    z0 = np.concatenate([u0, [abs(value.imag)], q0.real, q0.imag])
-    outcome = newton(hopf_system(model, branch.parameters, k, q0), z0)
-    z = outcome.solution
-    u, omega = z[: n + 1], float(z[n + 1])
-    method = "Newton on the extended Hopf system (A q = i omega q, <c, q> = 1)"
-    note = ""
-    q = z[n + 2 : 2 * n + 2] + 1j * z[2 * n + 2 :]
-    scale = max(abs(value), abs(omega_guess), 1e-300)
-    if not _placed_by_newton(branch, bracket, outcome, u):
-        test = partial(_hopf_pair_real, model, branch, k, omega_guess)
-        try:
-            u = _bisection_fallback(model, branch, k, bracket, outcome, test)
-        except LocationFailed:
-            if bracket.hint.get("tentative"):
-                return None  # inferred from counts only, and not confirmed: no Hopf point
-            raise
-        full = with_value(branch.parameters, k, u[-1])
-        omega = _crossing_eigenvalue(model, u, full, omega_guess).imag
-        q = None
-        method = "bisection on the real part of the crossing pair"
-        note = _bisection_note("Hopf", outcome)
-    if abs(omega) <= SMALLEST_RELATIVE_FREQUENCY * scale:
-        return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
-    omega = abs(omega)
+    placed = _place_hopf(model, branch, k, bracket)
+    if placed is None:
+        return None
+    u, omega, q, outcome, method, note = placed
     x, full = u[:-1], with_value(branch.parameters, k, u[-1])
     a_matrix = model.state_jacobian(x, full)
     details = _base_details(branch, bracket, a_matrix, method, outcome)
-    notes = []
-    lyapunov, criticality = None, None
+    lyapunov, criticality, notes = None, None, []
     if _has_zero_eigenvalue(a_matrix, omega):
         notes.append(
             "a zero eigenvalue at the same point (zero-Hopf): "
             "the first Lyapunov coefficient is not defined here"
         )
     else:
-        form = hopf_normal_form(
-            model, x, full, omega, q if q is not None and z[n + 1] > 0 else None, k=k
-        )
+        form = hopf_normal_form(model, x, full, omega, q, k=k)
         lyapunov, criticality = form.lyapunov, form.criticality or None
-        details["eigenvectors"] = {
-            "right": _json_complex(form.right_vector),
-            "left": _json_complex(form.left_vector),
-            "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
-        }
-        details["normal_form"] = {
-            "c1": [form.c1.real, form.c1.imag],
-            "terms": [[t.real, t.imag] for t in form.terms],
-            "growth_rate": form.growth_rate,
-            "amplitude_coefficient": form.amplitude_coefficient,
-        }
-        if form.near_bautin:
-            notes.append(L1_ZERO_NOTE)
-        elif form.cycle_side:
-            relation = "<" if form.cycle_side == "below" else ">"
-            stability = "stable" if form.criticality == "supercritical" else "unstable"
-            notes.append(
-                f"small {stability} cycles for {branch.vary} {relation} "
-                f"{_format_value(float(u[-1]))}"
-            )
-    if note:
-        notes.append(note)
+        details.update(_hopf_form_details(form))
+        notes.append(_hopf_side_note(form, branch.vary, float(u[-1])))
+    notes.append(note)
     return _make_event(
         model,
         branch,
@@ -455,8 +403,79 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         frequency=omega,
         lyapunov=lyapunov,
         criticality=criticality,
-        note="; ".join(notes),
+        note="; ".join(n for n in notes if n),
     )
+
+
+def _place_hopf(model: Model, branch: Branch, k: int, bracket: Bracket):
+    """(u, omega > 0, q or None, outcome, method, note) of a Hopf bracket, or None.
+
+    Newton on the extended Hopf system from the eigenvector nearest the bracket's
+    frequency; bisection on the crossing pair's real part when Newton fails or
+    leaves the bracket. None when the point is no Hopf point: the nearest
+    eigenvalue is real (a neutral saddle), the frequency vanishes
+    (Bogdanov-Takens-like), or a bracket inferred from counts is not confirmed.
+    """
+    u0 = _seed(branch, bracket)
+    n = u0.shape[0] - 1
+    omega_guess = float(bracket.hint.get("omega", 0.0))
+    a0 = model.state_jacobian(u0[:-1], with_value(branch.parameters, k, u0[-1]))
+    value, q0 = eigenvector_near(a0, 1j * omega_guess)
+    if abs(value.imag) <= 0.0:
+        return None  # the nearest eigenvalue is real: a neutral saddle, not a Hopf point
+    if value.imag < 0:
+        q0 = q0.conj()
+    z0 = np.concatenate([u0, [abs(value.imag)], q0.real, q0.imag])
+    outcome = newton(hopf_system(model, branch.parameters, k, q0), z0)
+    z = outcome.solution
+    u, omega = z[: n + 1], float(z[n + 1])
+    method = "Newton on the extended Hopf system (A q = i omega q, <c, q> = 1)"
+    # The system's eigenvector serves the normal form only with a positive frequency.
+    q, note = (z[n + 2 : 2 * n + 2] + 1j * z[2 * n + 2 :]) if omega > 0 else None, ""
+    scale = max(abs(value), abs(omega_guess), 1e-300)
+    if not _placed_by_newton(branch, bracket, outcome, u):
+        test = partial(_hopf_pair_real, model, branch, k, omega_guess)
+        try:
+            u = _bisection_fallback(model, branch, k, bracket, outcome, test)
+        except LocationFailed:
+            if bracket.hint.get("tentative"):
+                return None  # inferred from counts only, and not confirmed: no Hopf point
+            raise
+        full = with_value(branch.parameters, k, u[-1])
+        omega, q = _crossing_eigenvalue(model, u, full, omega_guess).imag, None
+        method = "bisection on the real part of the crossing pair"
+        note = _bisection_note("Hopf", outcome)
+    if abs(omega) <= SMALLEST_RELATIVE_FREQUENCY * scale:
+        return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
+    return u, abs(omega), q, outcome, method, note
+
+
+def _hopf_form_details(form) -> dict:
+    """The eigenvectors and normal-form terms of a Hopf point for the event's details."""
+    return {
+        "eigenvectors": {
+            "right": _json_complex(form.right_vector),
+            "left": _json_complex(form.left_vector),
+            "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
+        },
+        "normal_form": {
+            "c1": [form.c1.real, form.c1.imag],
+            "terms": [[t.real, t.imag] for t in form.terms],
+            "growth_rate": form.growth_rate,
+            "amplitude_coefficient": form.amplitude_coefficient,
+        },
+    }
+
+
+def _hopf_side_note(form, vary: str, value: float) -> str:
+    """Where the small cycles are, or that l1 vanishes ("" when the side is unknown)."""
+    if form.near_bautin:
+        return L1_ZERO_NOTE
+    if not form.cycle_side:
+        return ""
+    relation = "<" if form.cycle_side == "below" else ">"
+    stability = "stable" if form.criticality == "supercritical" else "unstable"
+    return f"small {stability} cycles for {vary} {relation} {_format_value(value)}"
 
 
 def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
