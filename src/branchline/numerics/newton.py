@@ -147,8 +147,8 @@ class StoppingRule(Protocol):
         """CONTINUE, STOP_HERE, STOP_AT_BEST or FINISH_NEXT; may raise NewtonTrouble."""
         ...
 
-    def accepts_despite(self, trouble: NewtonTrouble, residual_norm: float) -> bool:
-        """Accept the current iterate although no update could be made?"""
+    def accepts_despite(self, trouble: NewtonTrouble, z: Array, residual_norm: float) -> bool:
+        """Accept the current iterate z although no update could be made?"""
         ...
 
     def best(self) -> tuple[float, Array, Evaluation]:
@@ -224,7 +224,7 @@ def iterate(
             z_next, update_norm, cached = advance(z, f, jac, residual_norm)
             verdict = rule.after_update(iteration, z, z_next, residual_norm, jac, update_norm)
         except NewtonTrouble as trouble:
-            if rule.accepts_despite(trouble, residual_norm):
+            if rule.accepts_despite(trouble, z, residual_norm):
                 return NewtonResult(
                     Status.CONVERGED, z, iteration, residual_norm, tuple(norms), f, jac
                 )

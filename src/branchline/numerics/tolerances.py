@@ -140,10 +140,11 @@ def evaluation_rounding(jacobian: Any, u: Array) -> float:
 
 
 def residual_at_rounding(residual_norm: float, jacobian: Any, u: Array) -> bool:
-    """|F(u)| within ROUNDING_FACTOR eps || |J| |u| || (module docstring)."""
+    """|F(u)| <= eps || |J| |u| ||: a residual no larger than one rounding unit of the
+    terms F is summed from is indistinguishable from zero (module docstring)."""
     if jacobian is None:
         return False
-    return residual_norm <= ROUNDING_FACTOR * EPS * evaluation_rounding(jacobian, u)
+    return residual_norm <= EPS * evaluation_rounding(jacobian, u)
 
 
 # ---------------------------------------------------------------------------------
@@ -191,7 +192,7 @@ class CorrectorRule:
             return True
         if update > self.update_rtol * scale:
             return False
-        return residual_norm <= RESIDUAL_TOL  # XXX or residual_at_rounding(residual_norm, jacobian, z)
+        return residual_norm <= RESIDUAL_TOL or residual_at_rounding(residual_norm, jacobian, z)
 
     def after_update(self, iteration, z, z_next, residual_norm, jacobian, update_norm) -> int:
         if iteration and update_norm > self.growth * self.update:
@@ -199,7 +200,7 @@ class CorrectorRule:
         self.update = update_norm
         return CONTINUE
 
-    def accepts_despite(self, trouble, residual_norm) -> bool:
+    def accepts_despite(self, trouble, z, residual_norm) -> bool:
         return False
 
     def best(self):
@@ -267,7 +268,7 @@ class DefiningSystemRule:
         self.previous = update_norm
         return CONTINUE
 
-    def accepts_despite(self, trouble, residual_norm) -> bool:
+    def accepts_despite(self, trouble, z, residual_norm) -> bool:
         return False
 
     def best(self):
@@ -289,33 +290,48 @@ class EquilibriumRule:
     Converged when |f| <= ``residual_tol`` and the last update (damping times the
     Newton step) <= ``update_rtol`` (1 + |x|), or when a full step is down to
     roundoff; an iterate whose residual is already below ``residual_tol`` is kept
-    when no further step can be made (at a turning point, say). ``where(x)``
-    names a point in messages. The damped update sets ``damping``.
+    when no further step can be made (at a turning point, say). Either residual
+    test also passes at the rounding level of evaluating f (module docstring),
+    judged with the last Jacobian df/dx. ``where(x)`` names a point in messages.
+    The damped update sets ``damping`` and ``jacobian``.
     """
 
-    __slots__ = ("damping", "max_iterations", "residual_tol", "update", "update_rtol", "where")
+    __slots__ = (
+        "damping",
+        "jacobian",
+        "max_iterations",
+        "residual_tol",
+        "update",
+        "update_rtol",
+        "where",
+    )
     final_evaluation = True
 
     def __init__(self, residual_tol: float, update_rtol: float, max_iterations: int, where) -> None:
         self.residual_tol, self.update_rtol = residual_tol, update_rtol
         self.max_iterations, self.where = max_iterations, where
-        self.update, self.damping = math.inf, 1.0
+        self.update, self.damping, self.jacobian = math.inf, 1.0, None
+
+    def _small(self, residual_norm: float, z: Array) -> bool:
+        return residual_norm <= self.residual_tol or residual_at_rounding(
+            residual_norm, self.jacobian, z
+        )
 
     def accepts(self, iteration, z, residual, residual_norm, jacobian) -> bool:
         if not iteration:
             return residual_norm == 0.0
         scale = 1.0 + math.sqrt(float(np.dot(z, z)))
-        return (residual_norm <= self.residual_tol and self.update <= self.update_rtol * scale) or (
-            self.update <= STAGNATION_RTOL * scale and self.damping == 1.0
-        )
+        if self.update <= STAGNATION_RTOL * scale and self.damping == 1.0:
+            return True
+        return self.update <= self.update_rtol * scale and self._small(residual_norm, z)
 
     def after_update(self, iteration, z, z_next, residual_norm, jacobian, update_norm) -> int:
         self.update = update_norm
         return CONTINUE
 
-    def accepts_despite(self, trouble, residual_norm) -> bool:
+    def accepts_despite(self, trouble, z, residual_norm) -> bool:
         # Already a solution to roundoff; Newton cannot polish it further here.
-        return residual_norm <= self.residual_tol and trouble.status != Status.NON_FINITE
+        return trouble.status != Status.NON_FINITE and self._small(residual_norm, z)
 
     def best(self):
         raise NotImplementedError  # this rule never stops at a best iterate

@@ -265,7 +265,7 @@ def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> Eq
         return f, None
 
     def advance(z: Array, f: Array, _jac: None, residual: float):
-        status, message, step = _newton_direction(model, z, p, f, residual)
+        status, message, step, rule.jacobian = _newton_direction(model, z, p, f, residual)
         if status:
             raise NewtonTrouble(status, message)
         damping, trial, f_trial, _ = _backtrack(model, z, p, step, residual)
@@ -294,16 +294,16 @@ def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> Eq
 
 
 def _newton_direction(model: Model, x, p, f, residual):
-    """(status, message, step): status "" and the Newton step, or why there is none."""
+    """(status, message, step, J): status "" and the Newton step, or why there is none."""
     jac = _jacobian_dense_or_sparse(model, x, p)
     if jac is None:
-        return Status.NON_FINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
+        return Status.NON_FINITE, f"the Jacobian is not finite {_where(x, p, model)}", None, None
     if _singular(jac, policy_of(model)):
-        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None, jac
     try:
-        return "", "", -linalg.solve_square(jac, f)
+        return "", "", -linalg.solve_square(jac, f), jac
     except linalg.SingularMatrixError:
-        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None, jac
 
 
 def _backtrack(model: Model, x, p, step, residual):
