@@ -318,7 +318,8 @@ def test_newton_on_a_defining_system_stops_once_converged():
     # leaves in a Hopf system) cannot get its update below 1e-13: it must stop as
     # converged within a few iterations, at the root to the noise level, not run on
     # to "no convergence". Root of z^2 = 2 (elementary).
-    from branchline.events.defining_systems import NEWTON_MAX_ITERATIONS, newton
+    from branchline.events.defining_systems import newton
+    from branchline.numerics.tolerances import NEWTON_MAX_ITERATIONS
 
     calls = iter([1e-11 * (-1) ** k for k in range(NEWTON_MAX_ITERATIONS + 2)])
 

@@ -19,9 +19,9 @@ import scipy.sparse.linalg as spla
 import sympy as sp
 
 from branchline.events import location
-from branchline.events.defining_systems import NewtonOutcome
 from branchline.events.detection import bordered_determinant, hopf_test
 from branchline.model.build import build_model
+from branchline.numerics.newton import failure
 from branchline.numerics.policy import LinearAlgebraPolicy
 from branchline.problems.equilibrium_branch import (
     TEST_FUNCTIONS,
@@ -404,7 +404,7 @@ def test_bisection_fallback_is_announced(monkeypatch):
 
     def failing_on_large_systems(system, z0, scale=1.0):
         if z0.shape[0] > 3:
-            return NewtonOutcome(False, z0, [], "forced failure")
+            return failure(z0, "forced failure")
         return real_newton(system, z0, scale)
 
     monkeypatch.setattr(location, "newton", failing_on_large_systems)
@@ -605,7 +605,7 @@ def test_an_event_that_cannot_be_refined_is_still_reported(monkeypatch):
     branch = trace(model, "h", [0.9], (0.0, 0.4))
 
     def failing(system, z0, scale=1.0):
-        return NewtonOutcome(False, z0, [], "forced failure")
+        return failure(z0, "forced failure")
 
     monkeypatch.setattr(location, "newton", failing)
     (fold,) = locate_events(model, branch)

@@ -12,12 +12,13 @@ Introduction to Numerical Continuation Methods, chapter 2), whose residual
 stays zero since every update is orthogonal to b; with a number it fixes
 b . u, e.g. the parameter on an interval edge.
 
-The correctors are plain functions returning a :class:`Correction`, a named
-tuple (as cheap as a plain one on the engine's hot path, and read by name):
-whether it converged, the updates applied, the solution (or last iterate), its
-residual norm, G and G_u there (when converged) and why it failed ("" when
-converged). The correctors are:
-The correctors are:
+The correctors are plain functions running the one Newton loop
+(:func:`branchline.numerics.newton.iterate`) and returning its
+:class:`~branchline.numerics.newton.NewtonResult`: the status, the updates applied,
+the solution (or last iterate), its residual norm, G and G_u there (when
+converged) and why it failed ("" when converged). Their stopping rules and
+tolerances are :class:`~branchline.numerics.tolerances.CorrectorRule` and
+:class:`~branchline.numerics.tolerances.ChordRule`. The correctors are:
 
 - :func:`correct_newton`, full Newton: the Jacobian at every iterate. The
   engine's default. Measured on a 2-state model
@@ -45,30 +46,35 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from typing import Any, NamedTuple
+from typing import Any
 
 import numpy as np
 import scipy.sparse.linalg as spla
 
 from branchline.numerics import linalg
-from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
+from branchline.numerics.newton import (
+    CONTINUE,
+    FINISH_NEXT,
+    NewtonResult,
+    NewtonTrouble,
+    failure,
+    iterate,
+)
+from branchline.numerics.tolerances import (
+    MAX_CORRECTOR_ITERATIONS,
+    NOT_FINITE,
+    RESIDUAL_TOL,
+    STAGNATION_RTOL,
+    ChordRule,
+    CorrectorRule,
+    raised,
+)
+from branchline.vocabulary import Status
 
 Array = np.ndarray
 # u -> (G(u) (N,), G_u(u) (N, N + 1), dense or sparse): see :func:`evaluator`.
 Evaluate = Callable[[Array], tuple[Array, Any]]
 
-# Newton update accepted as converged, relative to 1 + |u|. Quadratic
-# convergence makes the error after an update of size d about C d^2, so
-# 1e-6 leaves ~1e-12; together with the residual test it stops after two
-# iterations on a well-predicted step instead of three.
-UPDATE_RTOL = 1e-6
-MAX_CORRECTOR_ITERATIONS = 6
-# A Newton update larger than this times the previous one means divergence.
-DIVERGENCE_RATIO = 1.0
-# The chord method (Jacobian frozen at the predicted point) converges linearly;
-# it is abandoned when an update does not shrink at least by this factor.
-CHORD_CONTRACTION = 0.5
-MAX_CHORD_ITERATIONS = 10
 # A point on a state limit interpolated from points either side of it (correct_on_limit,
 # singular case) is accepted when its residual is this small: Newton's points carry
 # residuals below RESIDUAL_TOL, interpolation adds at most about as much.
@@ -84,35 +90,6 @@ COUNT_KEYS = (
 
 # Dot products of short vectors on the hot path are written x.dot(y): the same dot routine as
 # x @ y, bit for bit, at well under half the call overhead for N of a few (numpy 2.x).
-
-NOT_FINITE = "the right-hand side, its Jacobian or the Newton update is not finite (NaN/overflow)"
-
-
-class Correction(NamedTuple):
-    """The outcome of one corrector run.
-
-    Attributes
-    ----------
-    converged : bool
-    iterations : int
-        Newton (or chord) updates applied.
-    u : ndarray (N + 1,)
-        The solution when converged, else the last iterate.
-    residual_norm : float
-        |G(u)| (NaN when not known).
-    g, jacobian : ndarray (N,), ndarray (N, N + 1) or scipy.sparse matrix, or None
-        G(u) and G_u(u) when converged, else None.
-    message : str
-        "" when converged, else why not.
-    """
-
-    converged: bool
-    iterations: int
-    u: Array
-    residual_norm: float
-    g: Any
-    jacobian: Any
-    message: str
 
 
 class EvaluationCounts:
@@ -152,23 +129,17 @@ def safe_evaluate(evaluate: Evaluate, u: Array) -> tuple[Array | None, Any, str]
     try:
         g, jac = evaluate(u)
     except (ArithmeticError, ValueError) as exc:
-        return None, None, _raised("the model", exc)
+        return None, None, raised("the model", exc)
     return g, jac, ""
 
 
-def _raised(what: str, exc: Exception) -> str:
-    return f"evaluating {what} raised {type(exc).__name__}: {exc}"
+def _failed(u: Array, iterations: int, residual: float, message: str) -> NewtonResult:
+    return failure(u, message, iterations=iterations, residual_norm=residual)
 
 
-def _failed(u: Array, iterations: int, residual: float, message: str) -> Correction:
-    return Correction(False, iterations, u, residual, None, None, message)
-
-
-def _converged(residual: float, update: float, scale: float) -> bool:
-    """Residual and update both small, or the update down to roundoff."""
-    return (residual <= RESIDUAL_TOL and update <= UPDATE_RTOL * scale) or (
-        update <= STAGNATION_RTOL * scale
-    )
+def _success(u: Array, iterations: int, g: Array, jac: Any) -> NewtonResult:
+    residual = linalg.norm(g)
+    return NewtonResult(Status.CONVERGED, u, iterations, residual, (residual,), g, jac)
 
 
 def correct_newton(
@@ -178,7 +149,7 @@ def correct_newton(
     border_value: float | None,
     counts: EvaluationCounts,
     max_iterations: int = MAX_CORRECTOR_ITERATIONS,
-) -> Correction:
+) -> NewtonResult:
     """Newton's method on [G(u); border . u - border_value] = 0 (full Newton).
 
     Parameters
@@ -197,59 +168,48 @@ def correct_newton(
 
     Returns
     -------
-    tuple
-        A correction (module docstring).
+    NewtonResult
+        See the module docstring.
     """
     size = u.shape[0]
     solve = linalg.solve_unchecked
     sqrt = math.sqrt
     square = None
     rhs = np.zeros(size)
-    update = previous_update = math.inf
-    iteration = 0
-    while True:
-        try:
-            g, jac = evaluate(u)
-        except (ArithmeticError, ValueError) as exc:
-            return _failed(u, iteration, math.nan, _raised("the model", exc))
+
+    def counted(z: Array) -> tuple[Array, Any]:
+        g, jac = evaluate(z)
         counts.rhs += 1
         counts.jacobian += 1
-        residual = sqrt(g.dot(g))
-        if not residual < math.inf:
-            return _failed(u, iteration, residual, NOT_FINITE)
-        if iteration:
-            if _converged(residual, update, 1.0 + sqrt(u.dot(u))):
-                return Correction(True, iteration, u, residual, g, jac, "")
-            if iteration >= max_iterations:
-                message = (
-                    f"no convergence in {max_iterations} Newton iterations "
-                    f"(residual {residual:.3g})"
-                )
-                return _failed(u, iteration, residual, message)
+        return g, jac
+
+    def advance(z: Array, g: Array, jac: Any, residual: float):
+        nonlocal square
         rhs[:-1] = g
         if border_value is not None:
-            rhs[-1] = float(border @ u) - border_value
+            rhs[-1] = float(border @ z) - border_value
         counts.factorizations += 1
         if type(jac) is not np.ndarray:
             try:
                 step = linalg.bordered_solve(jac, border, rhs)
             except linalg.SingularMatrixError:
-                return _failed(u, iteration, residual, "the bordered Jacobian is singular")
+                raise NewtonTrouble(
+                    Status.SINGULAR_JACOBIAN, "the bordered Jacobian is singular"
+                ) from None
         else:
             if square is None:
                 square = np.empty((size, size))
                 square[-1] = border
             square[:-1] = jac
             step = solve(square, rhs)
-        previous_update, update = update, sqrt(step.dot(step))
+        update = sqrt(step.dot(step))
         if not update < math.inf:
-            return _failed(
-                u, iteration, residual, "the bordered Jacobian is singular or not finite"
+            raise NewtonTrouble(
+                Status.SINGULAR_JACOBIAN, "the bordered Jacobian is singular or not finite"
             )
-        if iteration and update > DIVERGENCE_RATIO * previous_update:
-            return _failed(u, iteration, residual, "Newton's method diverges")
-        u = u - step
-        iteration += 1
+        return z - step, update, None
+
+    return iterate(counted, u, advance, CorrectorRule(max_iterations), max_iterations)
 
 
 def correct_chord(
@@ -259,7 +219,7 @@ def correct_chord(
     u: Array,
     border: Array,
     counts: EvaluationCounts,
-) -> Correction:
+) -> NewtonResult:
     """Chord method on [G(u); border . (u - u_start)] = 0.
 
     The bordered matrix is factorized once at the start ``u`` (the predicted
@@ -286,34 +246,33 @@ def correct_chord(
             solve = inverse.__matmul__
     except (np.linalg.LinAlgError, RuntimeError):
         return _failed(u, 0, math.nan, "the bordered Jacobian is singular")
-    previous_update = math.inf
-    rhs = np.zeros(size)
     if not sqrt(g.dot(g)) < math.inf:
         return _failed(u, 0, math.nan, NOT_FINITE)
-    for iteration in range(1, MAX_CHORD_ITERATIONS + 1):
+    rhs = np.zeros(size)
+
+    def residual_only(z: Array) -> tuple[Array, None]:
+        counts.rhs += 1
+        return residual_fn(z), None
+
+    def advance(z: Array, g: Array, _jac: Any, residual: float):
         rhs[:-1] = -g
         step = solve(rhs)
         update = sqrt(step.dot(step))
-        if not update < math.inf or update > CHORD_CONTRACTION * previous_update:
-            return _failed(u, iteration, math.nan, "the chord iteration does not contract")
-        previous_update = update
-        u = u + step
-        try:
-            g = residual_fn(u)
-        except (ArithmeticError, ValueError) as exc:
-            return _failed(u, iteration, math.nan, _raised("the model", exc))
-        counts.rhs += 1
-        residual = sqrt(g.dot(g))
-        if not residual < math.inf:
-            return _failed(u, iteration, math.nan, NOT_FINITE)
-        if _converged(residual, update, 1.0 + sqrt(u.dot(u))):
-            try:
-                jac = jacobian_fn(u)
-            except (ArithmeticError, ValueError) as exc:
-                return _failed(u, iteration, residual, _raised("the Jacobian", exc))
-            counts.jacobian += 1
-            return Correction(True, iteration, u, residual, g, jac, "")
-    return _failed(u, MAX_CHORD_ITERATIONS, math.nan, "no convergence of the chord iteration")
+        if not update < math.inf:
+            raise NewtonTrouble(Status.NOT_CONVERGED, "the chord iteration does not contract")
+        return z + step, update, None
+
+    result = iterate(residual_only, u, advance, ChordRule(), ChordRule().max_iterations, (g, None))
+    if not result.converged:
+        return result
+    try:
+        jac = jacobian_fn(result.solution)
+    except (ArithmeticError, ValueError) as exc:
+        return _failed(result.solution, result.iterations, result.residual_norm,
+                       raised("the Jacobian", exc))
+    counts.jacobian += 1
+    return NewtonResult(Status.CONVERGED, result.solution, result.iterations,
+                        result.residual_norm, result.residual_norms, result.residual, jac)
 
 
 def correct_on_edge(
@@ -324,7 +283,7 @@ def correct_on_edge(
     index: int = -1,
     *,
     sparse: bool = False,
-) -> Correction:
+) -> NewtonResult:
     """Solve G(u) = 0 with the component u[index] fixed at ``edge`` (full Newton).
 
     ``index`` -1 (the default) fixes the parameter (the edge of the parameter
@@ -340,14 +299,14 @@ def correct_on_edge(
         # equilibria at a zero dilution rate, say) Newton's square solve fails although
         # the point exists; Gauss-Newton with least-squares steps still converges there.
         fallback = _least_squares_on_edge(evaluate, guess, edge, counts, index)
-        if fallback[0]:
+        if fallback.converged:
             correction = fallback
     return _exactly_on(evaluate, correction, edge, index, counts)
 
 
 def _newton_with_fixed(
     evaluate: Evaluate, guess: Array, value: float, index: int, counts: EvaluationCounts
-) -> Correction:
+) -> NewtonResult:
     """Full Newton on G(u) = 0, u[index] = value (bordered with e_index)."""
     border = np.zeros(guess.shape[0])
     border[index] = 1.0
@@ -356,9 +315,9 @@ def _newton_with_fixed(
     )
 
 
-def _exactly_on(evaluate, correction: Correction, edge: float, index: int, counts) -> Correction:
+def _exactly_on(evaluate, correction: NewtonResult, edge: float, index: int, counts) -> NewtonResult:
     """A converged correction with u[index] set to ``edge`` exactly (G, G_u evaluated again)."""
-    converged, iterations, u = correction.converged, correction.iterations, correction.u
+    converged, iterations, u = correction.converged, correction.iterations, correction.solution
     if not converged or u[index] == edge:
         return correction
     u = u.copy()
@@ -368,7 +327,7 @@ def _exactly_on(evaluate, correction: Correction, edge: float, index: int, count
     counts.jacobian += 1
     if message:
         return _failed(u, iterations, math.nan, message)
-    return Correction(True, iterations, u, linalg.norm(g), g, jac, "")
+    return _success(u, iterations, g, jac)
 
 
 def correct_on_limit(
@@ -378,7 +337,7 @@ def correct_on_limit(
     bound: float,
     index: int,
     counts: EvaluationCounts,
-) -> Correction:
+) -> NewtonResult:
     """The point of the curve through ``u_in`` where the state u[index] equals ``bound``.
 
     ``u_in`` is the last point inside the limit, ``u_out`` the corrected point beyond
@@ -404,7 +363,7 @@ def correct_on_limit(
 
 def _limit_by_interpolation(
     evaluate, u_in: Array, u_out: Array, bound: float, index: int, counts: EvaluationCounts
-) -> Correction:
+) -> NewtonResult:
     """The curve's point at u[index] = bound, interpolated from points on either side.
 
     Points of the curve at u[index] = bound + d (d = the offsets of ``u_in`` and ``u_out``
@@ -426,8 +385,10 @@ def _limit_by_interpolation(
                 correction = correct_newton(evaluate, guess, border, value, counts)
                 total += correction.iterations
                 if not correction.converged:
-                    return _failed(correction.u, total, correction.residual_norm, correction.message)
-                point = correction.u
+                    return _failed(
+                        correction.solution, total, correction.residual_norm, correction.message
+                    )
+                point = correction.solution
             nodes.append(value)
             points.append(point)
     # Imported here: scipy.interpolate costs ~0.3 s of start-up and this
@@ -446,40 +407,67 @@ def _limit_by_interpolation(
     residual = linalg.norm(g) if g is not None else math.nan
     if message or not residual <= INTERPOLATED_RESIDUAL:
         return _failed(u, total, residual, message or f"interpolated residual {residual:.3g}")
-    return Correction(True, total, u, residual, g, jac, "")
+    return _success(u, total, g, jac)
+
+
+class _LeastSquaresRule(CorrectorRule):
+    """Gauss-Newton on an edge: the corrector's test on the residual before an update."""
+
+    __slots__ = ()
+    final_evaluation = False
+
+    def accepts(self, iteration, z, residual, residual_norm, jacobian) -> bool:
+        return False
+
+    def after_update(self, iteration, z, z_next, residual_norm, jacobian, update_norm) -> int:
+        scale = 1.0 + linalg.norm(z_next)
+        if (residual_norm <= RESIDUAL_TOL and update_norm <= self.update_rtol * scale) or (
+            update_norm <= STAGNATION_RTOL * scale
+        ):
+            return FINISH_NEXT
+        return CONTINUE
+
+    def not_finite(self) -> str:
+        return "the model is not finite on the edge"
+
+    def no_convergence(self, iterations, z, residual_norm) -> str:
+        return "least-squares Newton did not converge on the edge"
 
 
 def _least_squares_on_edge(
     evaluate: Evaluate, guess: Array, edge: float, counts: EvaluationCounts, index: int = -1
-) -> Correction:
+) -> NewtonResult:
     """Gauss-Newton on G = 0 with u[index] = edge, minimum-norm least-squares steps (dense)."""
     u = np.array(guess, dtype=float)
     u[index] = edge
     free = np.ones(u.shape[0], dtype=bool)
     free[index] = False
-    residual = math.nan
-    for iteration in range(1, 2 * MAX_CORRECTOR_ITERATIONS + 1):
-        g, jac, message = safe_evaluate(evaluate, u)
+
+    def counted(z: Array) -> tuple[Array, Any]:
+        g, jac = evaluate(z)
         counts.rhs += 1
         counts.jacobian += 1
-        if message or linalg.is_sparse(jac):
-            return _failed(u, iteration, math.nan, message or "sparse Jacobian")
-        residual = linalg.norm(g)
+        if linalg.is_sparse(jac):
+            raise NewtonTrouble(Status.NOT_CONVERGED, "sparse Jacobian")
+        return g, jac
+
+    def advance(z: Array, g: Array, jac: Any, residual: float):
         matrix = np.asarray(jac)[:, free]
-        if not (math.isfinite(residual) and np.all(np.isfinite(matrix))):
-            return _failed(u, iteration, math.nan, "the model is not finite on the edge")
+        if not np.all(np.isfinite(matrix)):
+            raise NewtonTrouble(Status.NON_FINITE, "the model is not finite on the edge")
         try:
             step = np.linalg.lstsq(matrix, -g, rcond=None)[0]
         except np.linalg.LinAlgError as exc:  # SVD did not converge
-            return _failed(u, iteration, residual, f"least squares failed on the edge ({exc})")
+            raise NewtonTrouble(
+                Status.NOT_CONVERGED, f"least squares failed on the edge ({exc})"
+            ) from None
         counts.factorizations += 1
-        u[free] += step
-        if _converged(residual, linalg.norm(step), 1.0 + linalg.norm(u)):
-            g, jac, message = safe_evaluate(evaluate, u)
-            if message:
-                return _failed(u, iteration, math.nan, message)
-            return Correction(True, iteration, u, linalg.norm(g), g, jac, "")
-    return _failed(u, iteration, residual, "least-squares Newton did not converge on the edge")
+        z_next = z.copy()
+        z_next[free] += step
+        return z_next, linalg.norm(step), None
+
+    iterations = 2 * MAX_CORRECTOR_ITERATIONS
+    return iterate(counted, u, advance, _LeastSquaresRule(iterations), iterations)
 
 
 def unit_tangent(jac: Any, previous: Array, sparse: bool) -> Array:

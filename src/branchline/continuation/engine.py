@@ -88,9 +88,10 @@ from typing import Any, Protocol
 import numpy as np
 
 from branchline.continuation import correctors, step_control
-from branchline.continuation.correctors import Correction, EvaluationCounts
+from branchline.continuation.correctors import EvaluationCounts
 from branchline.continuation.step_control import Limit
 from branchline.numerics import linalg
+from branchline.numerics.newton import NewtonResult
 from branchline.numerics.tolerances import StepSettings
 from branchline.vocabulary import Status
 
@@ -125,17 +126,22 @@ class CurveProblem(Protocol):
 
 
 @dataclass(frozen=True)
-class Curve:
-    """A followed curve, rows in the order of travel (the start point first).
+class CurveRows:
+    """The rows of a curve: one per point, the fields every curve record shares.
+
+    The engine's :class:`Curve` (one side, in the order of travel) and a trace's
+    rows joined in trace order (:func:`branchline.problems.tracing.in_trace_order`)
+    are both these rows.
 
     Attributes
     ----------
     points : ndarray (k, N + 1)
         Converged points u (the parameter last).
     tangents : ndarray (k, N + 1)
-        Unit tangents in the direction of travel.
+        Unit tangents in the direction of travel (of the trace, for joined rows).
     arclength : ndarray (k,)
-        Distance travelled from the start (sum of chord lengths), increasing.
+        Distance travelled from the start (sum of chord lengths); signed, negative
+        on a trace's decreasing side, for joined rows.
     newton_iterations : ndarray (k,) int
         Corrector iterations of each point (0 for the start point).
     residual_norms : ndarray (k,)
@@ -143,6 +149,26 @@ class Curve:
     test_values : ndarray (k, T)
     payloads : ndarray (k, ...) or tuple
         What ``observe`` returned per point, stacked when possible.
+    """
+
+    points: Array
+    tangents: Array
+    arclength: Array
+    newton_iterations: Array
+    residual_norms: Array
+    test_values: Array
+    payloads: Any
+
+    def __len__(self) -> int:
+        return self.points.shape[0]
+
+
+@dataclass(frozen=True)
+class Curve(CurveRows):
+    """A followed curve: its rows (:class:`CurveRows`, the start point first) and how it ended.
+
+    Attributes
+    ----------
     status : Status
         ``done`` (left the bounds, last point on the edge), ``max_points``,
         ``closed`` (isola), ``failed``.
@@ -153,19 +179,9 @@ class Curve:
         ``rejected_steps``, ``newton_iterations`` (total).
     """
 
-    points: Array
-    tangents: Array
-    arclength: Array
-    newton_iterations: Array
-    residual_norms: Array
-    test_values: Array
-    payloads: Any
     status: Status
     message: str
     counts: dict[str, int] = field(default_factory=dict)
-
-    def __len__(self) -> int:
-        return self.points.shape[0]
 
 
 def failed_curve(u: Array, message: str, counts: dict[str, int] | None = None) -> Curve:
@@ -427,7 +443,7 @@ def _outside_at_start(walk: _Walk, u: Array) -> tuple[str, str]:
     return "", ""
 
 
-def _correct(walk: _Walk) -> Correction:
+def _correct(walk: _Walk) -> NewtonResult:
     """The corrector's run from the predicted point u + h t (pseudo-arclength border t)."""
     predicted = walk.u + walk.step * walk.t
     if walk.newton == "chord":
@@ -465,7 +481,7 @@ def _step(walk: _Walk) -> str:
         return walk.reject(walk.smallest)
     if step_control.tangent_turns_too_far(t_new, walk.t, walk.step, walk.smallest):
         return walk.reject(walk.smallest)
-    u_new = correction.u
+    u_new = correction.solution
     if _leaves_window(walk, u_new):
         return _Step.STOP
     try:
@@ -574,7 +590,7 @@ def _finish_on_edge(walk: _Walk, u_out: Array, edge: float, limit=None) -> tuple
             f"could not put the last point on {where} (after the point "
             f"{describe_point(problem, u)}): {correction.message}"
         )
-    u_edge = correction.u
+    u_edge = correction.solution
     t_edge, singular = walk.tangent_at(correction.jacobian, walk.t, "undefined")
     if singular:
         # The edge point is a solution but a singular one (a branch point or a
@@ -586,7 +602,7 @@ def _finish_on_edge(walk: _Walk, u_out: Array, edge: float, limit=None) -> tuple
     except ObservationFailed as exc:
         return Status.FAILED, f"stopped {describe_point(problem, u_edge)}: {exc}"
     arclength = walk.arclength + linalg.norm(u_edge - u)
-    residual = linalg.norm(correction.g)
+    residual = linalg.norm(correction.residual)
     walk.rows.append(
         (
             u_edge,

@@ -21,8 +21,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from branchline.events.defining_systems import NewtonOutcome, newton
+from branchline.events.defining_systems import newton
 from branchline.events.hopf_coefficients import hopf_coefficients
+from branchline.numerics.newton import NewtonResult, failure
 
 Array = np.ndarray
 
@@ -95,7 +96,7 @@ def _sparse_brackets(problem, kind: str, points: Array, values: Array) -> list[C
     return brackets
 
 
-def locate_on_curve(problem, bracket: CurveBracket) -> NewtonOutcome:
+def locate_on_curve(problem, bracket: CurveBracket) -> NewtonResult:
     """Newton on (G(u), phi(u)) = 0 from the secant guess inside ``bracket``."""
     a, b = bracket.value_before, bracket.value_after
     share = a / (a - b) if np.isfinite(a) and np.isfinite(b) and a != b else 0.5
@@ -114,7 +115,7 @@ def locate_on_curve(problem, bracket: CurveBracket) -> NewtonOutcome:
     if outcome.converged:
         reach = BRACKET_REACH * float(np.linalg.norm(bracket.u_after - bracket.u_before))
         if float(np.linalg.norm(outcome.solution - guess)) > max(reach, 1e-12):
-            return NewtonOutcome(False, guess, outcome.residual_norms, "Newton left the bracket")
+            return failure(guess, "Newton left the bracket", residual_norms=outcome.residual_norms)
     return outcome
 
 

@@ -74,7 +74,10 @@ def refine(problem: PeriodicOrbitProblem, u_a: Array, u_b: Array, which: int):
     direction = chord / length
     ends = []
     for u in (u_a, u_b):
-        ok, _, u_c, _, _, jac, why = correctors.correct_newton(evaluate, u, direction, None, counts)
+        correction = correctors.correct_newton(evaluate, u, direction, None, counts)
+        ok, u_c, jac, why = (
+            correction.converged, correction.solution, correction.jacobian, correction.message
+        )
         if not ok:
             return None, None, None, 0, f"the bracketing orbits do not correct ({why})"
         tangent = correctors.unit_tangent(jac, direction, True)
@@ -90,8 +93,9 @@ def refine(problem: PeriodicOrbitProblem, u_a: Array, u_b: Array, which: int):
         if not lo < theta < hi:
             theta = 0.5 * (lo + hi)
         guess = u_a + theta * chord
-        ok, _, u, _, _, jac, why = correctors.correct_newton(
-            evaluate, guess, direction, None, counts
+        correction = correctors.correct_newton(evaluate, guess, direction, None, counts)
+        ok, u, jac, why = (
+            correction.converged, correction.solution, correction.jacobian, correction.message
         )
         if not ok:
             return None, None, None, iteration, f"Newton failed inside the bracket ({why})"

@@ -26,7 +26,6 @@ solves it by bordering, never forming an n x n dense array.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -35,6 +34,9 @@ import scipy.sparse.linalg as spla
 
 from branchline.events.normal_forms import directional_jacobian, parameter_second_derivative
 from branchline.numerics.linalg import bordered_square, dense, solve
+from branchline.numerics.newton import NewtonResult, NewtonTrouble, iterate
+from branchline.numerics.tolerances import NEWTON_MAX_ITERATIONS, DefiningSystemRule
+from branchline.vocabulary import Status
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -42,111 +44,39 @@ if TYPE_CHECKING:
 Array = np.ndarray
 System = Callable[[Array], tuple[Array, object]]
 
-# Newton on the defining systems. Converged when any of these holds:
-# - the update is below NEWTON_STEP_RTOL relative to the unknowns (quadratic
-#   convergence: the residual is then at rounding level);
-# - the residual before the update is at the rounding level of the system, at most
-#   ROUNDING_FACTOR * eps * |J| |z| (|J| the Frobenius norm of its Jacobian), and the
-#   update is below STALL_RTOL relative: the update taken from there only polishes
-#   the last bits (near a singular root a tiny residual alone proves nothing);
-# - the update has stalled: below STALL_RTOL relative and no smaller than the
-#   one before (STALL_RATIO). Rounding, or the noise of a finite-difference
-#   Jacobian (about eps^(2/3), Python models without one), sets a floor that more
-#   iterations cannot pass; the iterate with the smallest residual is kept. Linear
-#   convergence to a singular solution (a fold system at a pitchfork, say) shrinks
-#   every update and so never counts as stalled.
-NEWTON_STEP_RTOL = 1e-13
-# Rounding in a matrix-vector product of size N is about N * eps * |J| |z| at worst
-# (Higham, Accuracy and Stability of Numerical Algorithms, section 3.5, from memory);
-# a hundred is that for the sizes met here with room to spare.
-ROUNDING_FACTOR = 100.0
-STALL_RTOL = 1e-8
-STALL_RATIO = 1.0
-NEWTON_MAX_ITERATIONS = 30
-EPS = float(np.finfo(float).eps)
 
 
-@dataclass(frozen=True)
-class NewtonOutcome:
-    """Result of :func:`newton`: the last iterate, the residual norm per iteration, why not."""
-
-    converged: bool
-    solution: Array
-    residual_norms: list[float] = field(default_factory=list)
-    message: str = ""
-
-
-def _matrix_norm(jacobian: object) -> float:
-    if isinstance(jacobian, HopfBlocks):
-        return jacobian.norm()
-    if sps.issparse(jacobian):
-        return float(np.sqrt(abs(jacobian).power(2).sum()))
-    return float(np.linalg.norm(jacobian))
-
-
-def newton(system: System, z0: Array, scale: float = 1.0) -> NewtonOutcome:
+def newton(system: System, z0: Array, scale: float = 1.0) -> NewtonResult:
     """Newton's method on a square system z -> (residual, Jacobian), scaled to the problem.
 
-    Converged on a small update relative to |z| (``scale`` is added to |z|), on a
-    residual at the system's rounding level, or on an update that stalled at
-    that level (see the module constants); one more evaluation records the
-    final residual norm. A converged iteration therefore stops, also when
-    rounding or finite-difference derivatives keep the last bits moving.
-    A system with the attribute ``residual_suffices = True`` is solved as soon
-    as its residual is at rounding level, whatever the update: putting points on
-    a branch (:func:`on_branch_system`), any solution near the guess serves, even
-    beside a branch point where that system is near-singular.
+    The shared loop (:func:`branchline.numerics.newton.iterate`) with the rule
+    :class:`~branchline.numerics.tolerances.DefiningSystemRule`: converged on a
+    small update relative to |z| (``scale`` is added to |z|), on a residual at the
+    system's rounding level, or on an update that stalled at that level, so that a
+    converged iteration stops also when rounding or finite-difference derivatives
+    keep the last bits moving. A system with the attribute ``residual_suffices =
+    True`` is solved as soon as its residual is at rounding level, whatever the
+    update: putting points on a branch (:func:`on_branch_system`), any solution
+    near the guess serves, even beside a branch point where that system is
+    near-singular.
     """
-    residual_suffices = bool(getattr(system, "residual_suffices", False))
-    z = np.array(z0, dtype=float)
-    history: list[float] = []
-    previous_step = np.inf
-    best: tuple[float, Array] | None = None
-    for _ in range(NEWTON_MAX_ITERATIONS):
-        try:
-            residual, jacobian = system(z)
-        except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
-            return NewtonOutcome(False, z, history, f"evaluation failed: {exc}")
-        size = float(np.linalg.norm(residual))
-        history.append(size)
-        if not np.isfinite(size):
-            return NewtonOutcome(False, z, history, "the residual is not finite")
-        if size == 0.0:
-            return NewtonOutcome(True, z, history)
-        if best is None or size < best[0]:
-            best = (size, z)
+    rule = DefiningSystemRule(scale, bool(getattr(system, "residual_suffices", False)))
+
+    def advance(z: Array, residual: Array, jacobian: object, size: float):
         try:
             if isinstance(jacobian, HopfBlocks):
                 step = jacobian.solve(-residual)
             else:
                 step = solve(jacobian, -residual)
         except np.linalg.LinAlgError:
-            return NewtonOutcome(False, z, history, "singular Jacobian of the defining system")
+            raise NewtonTrouble(
+                Status.SINGULAR_JACOBIAN, "singular Jacobian of the defining system"
+            ) from None
         if not np.all(np.isfinite(step)):
-            return NewtonOutcome(False, z, history, "the Newton update is not finite")
-        size_z = scale + float(np.linalg.norm(z))
-        at_rounding = size <= ROUNDING_FACTOR * EPS * _matrix_norm(jacobian) * size_z
-        step_size = float(np.linalg.norm(step))
-        stalled = step_size <= STALL_RTOL * size_z and step_size >= STALL_RATIO * previous_step
-        if stalled:
-            return _finish(system, best[1], history)
-        if at_rounding and residual_suffices:
-            return _finish(system, z, history)
-        z = z + step
-        small = step_size <= STALL_RTOL * size_z  # a residual alone can mislead near singular roots
-        if (at_rounding and small) or step_size <= NEWTON_STEP_RTOL * (
-            scale + float(np.linalg.norm(z))
-        ):
-            return _finish(system, z, history)
-        previous_step = step_size
-    return NewtonOutcome(False, z, history, f"no convergence in {NEWTON_MAX_ITERATIONS} iterations")
+            raise NewtonTrouble(Status.NON_FINITE, "the Newton update is not finite")
+        return z + step, float(np.linalg.norm(step)), None
 
-
-def _finish(system: System, z: Array, history: list[float]) -> NewtonOutcome:
-    """The converged outcome at ``z``, its residual norm appended to ``history``."""
-    residual, _ = system(z)
-    history.append(float(np.linalg.norm(residual)))
-    return NewtonOutcome(True, z, history)
+    return iterate(system, np.array(z0, dtype=float), advance, rule, NEWTON_MAX_ITERATIONS)
 
 
 def with_value(params: Array, k: int, value: float) -> Array:

@@ -29,7 +29,6 @@ import scipy.sparse.linalg as spla
 
 from branchline.events.brackets import Bracket, LocationFailed
 from branchline.events.defining_systems import (
-    NewtonOutcome,
     branch_point_system,
     fold_system,
     hopf_system,
@@ -49,6 +48,7 @@ from branchline.events.normal_forms import (
 from branchline.numerics.eigen_tracking import SpectrumTrack, track_leading_eigenvalues
 from branchline.numerics.eigenvalues import eigenvector_near, null_vectors
 from branchline.numerics.linalg import dense
+from branchline.numerics.newton import NewtonResult, failure
 from branchline.results.records import Branch, Event
 from branchline.vocabulary import EventKind
 
@@ -89,7 +89,7 @@ BISECTION_GIVE_UP_WIDTH = 1e-6
 
 def correct_on_branch(
     model: Model, params: Array, k: int, guess: Array, direction: Array
-) -> NewtonOutcome:
+) -> NewtonResult:
     """The branch point u = (x, p) with f(u) = 0 and direction . (u - guess) = 0 (Newton)."""
     return newton(on_branch_system(model, params, k, guess, direction), guess)
 
@@ -182,17 +182,17 @@ def _bisect_on_branch(
     return point, widths
 
 
-def _placed_by_newton(branch: Branch, bracket: Bracket, outcome: NewtonOutcome, u: Array) -> bool:
+def _placed_by_newton(branch: Branch, bracket: Bracket, outcome: NewtonResult, u: Array) -> bool:
     """Newton converged, to a point u = (x, p) that belongs to this bracket."""
     return outcome.converged and _within_bracket(branch, bracket.row, u)
 
 
-def _newton_failure(outcome: NewtonOutcome) -> str:
+def _newton_failure(outcome: NewtonResult) -> str:
     return outcome.message or "left the bracket"
 
 
 def _bisection_fallback(
-    model: Model, branch: Branch, k: int, bracket: Bracket, outcome: NewtonOutcome, test: BranchTest
+    model: Model, branch: Branch, k: int, bracket: Bracket, outcome: NewtonResult, test: BranchTest
 ) -> Array:
     """The event placed by bisection on ``test`` after Newton (``outcome``) failed.
 
@@ -204,7 +204,7 @@ def _bisection_fallback(
     return point
 
 
-def _bisection_note(system: str, outcome: NewtonOutcome) -> str:
+def _bisection_note(system: str, outcome: NewtonResult) -> str:
     reason = _newton_failure(outcome)
     return f"located by bisection (Newton on the {system} system failed: {reason})"
 
@@ -233,7 +233,7 @@ def _bracket_details(branch: Branch, bracket: Bracket) -> dict:
 
 
 def _base_details(
-    branch: Branch, bracket: Bracket, a_matrix: Array, method: str, outcome: NewtonOutcome
+    branch: Branch, bracket: Bracket, a_matrix: Array, method: str, outcome: NewtonResult
 ) -> dict:
     return {
         "method": method,
@@ -389,77 +389,25 @@ def _fold_test(model: Model, branch: Branch, k: int, u: Array, chord: Array) -> 
 
 def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event | None:
     """Refine a Hopf bracket on the extended Hopf system; None for a neutral saddle."""
-    u0 = _seed(branch, bracket)
-    n = u0.shape[0] - 1
-    full0 = with_value(branch.parameters, k, u0[-1])
-    a0 = model.state_jacobian(u0[:-1], full0)
-    omega_guess = float(bracket.hint.get("omega", 0.0))
-    value, q0 = eigenvector_near(a0, 1j * omega_guess)
-    if abs(value.imag) <= 0.0:
-        return None  # the nearest eigenvalue is real: a neutral saddle, not a Hopf point
-    if value.imag < 0:
-        q0 = q0.conj()
-    z0 = np.concatenate([u0, [abs(value.imag)], q0.real, q0.imag])
-    outcome = newton(hopf_system(model, branch.parameters, k, q0), z0)
-    z = outcome.solution
-    u, omega = z[: n + 1], float(z[n + 1])
-    method = "Newton on the extended Hopf system (A q = i omega q, <c, q> = 1)"
-    note = ""
-    q = z[n + 2 : 2 * n + 2] + 1j * z[2 * n + 2 :]
-    scale = max(abs(value), abs(omega_guess), 1e-300)
-    if not _placed_by_newton(branch, bracket, outcome, u):
-        test = partial(_hopf_pair_real, model, branch, k, omega_guess)
-        try:
-            u = _bisection_fallback(model, branch, k, bracket, outcome, test)
-        except LocationFailed:
-            if bracket.hint.get("tentative"):
-                return None  # inferred from counts only, and not confirmed: no Hopf point
-            raise
-        full = with_value(branch.parameters, k, u[-1])
-        omega = _crossing_eigenvalue(model, u, full, omega_guess).imag
-        q = None
-        method = "bisection on the real part of the crossing pair"
-        note = _bisection_note("Hopf", outcome)
-    if abs(omega) <= SMALLEST_RELATIVE_FREQUENCY * scale:
-        return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
-    omega = abs(omega)
+    placed = _place_hopf(model, branch, k, bracket)
+    if placed is None:
+        return None
+    u, omega, q, outcome, method, note = placed
     x, full = u[:-1], with_value(branch.parameters, k, u[-1])
     a_matrix = model.state_jacobian(x, full)
     details = _base_details(branch, bracket, a_matrix, method, outcome)
-    notes = []
-    lyapunov, criticality = None, None
+    lyapunov, criticality, notes = None, None, []
     if _has_zero_eigenvalue(a_matrix, omega):
         notes.append(
             "a zero eigenvalue at the same point (zero-Hopf): "
             "the first Lyapunov coefficient is not defined here"
         )
     else:
-        form = hopf_normal_form(
-            model, x, full, omega, q if q is not None and z[n + 1] > 0 else None, k=k
-        )
+        form = hopf_normal_form(model, x, full, omega, q, k=k)
         lyapunov, criticality = form.lyapunov, form.criticality or None
-        details["eigenvectors"] = {
-            "right": _json_complex(form.right_vector),
-            "left": _json_complex(form.left_vector),
-            "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
-        }
-        details["normal_form"] = {
-            "c1": [form.c1.real, form.c1.imag],
-            "terms": [[t.real, t.imag] for t in form.terms],
-            "growth_rate": form.growth_rate,
-            "amplitude_coefficient": form.amplitude_coefficient,
-        }
-        if form.near_bautin:
-            notes.append(L1_ZERO_NOTE)
-        elif form.cycle_side:
-            relation = "<" if form.cycle_side == "below" else ">"
-            stability = "stable" if form.criticality == "supercritical" else "unstable"
-            notes.append(
-                f"small {stability} cycles for {branch.vary} {relation} "
-                f"{_format_value(float(u[-1]))}"
-            )
-    if note:
-        notes.append(note)
+        details.update(_hopf_form_details(form))
+        notes.append(_hopf_side_note(form, branch.vary, float(u[-1])))
+    notes.append(note)
     return _make_event(
         model,
         branch,
@@ -471,8 +419,79 @@ def locate_hopf(model: Model, branch: Branch, k: int, bracket: Bracket) -> Event
         frequency=omega,
         lyapunov=lyapunov,
         criticality=criticality,
-        note="; ".join(notes),
+        note="; ".join(n for n in notes if n),
     )
+
+
+def _place_hopf(model: Model, branch: Branch, k: int, bracket: Bracket):
+    """(u, omega > 0, q or None, outcome, method, note) of a Hopf bracket, or None.
+
+    Newton on the extended Hopf system from the eigenvector nearest the bracket's
+    frequency; bisection on the crossing pair's real part when Newton fails or
+    leaves the bracket. None when the point is no Hopf point: the nearest
+    eigenvalue is real (a neutral saddle), the frequency vanishes
+    (Bogdanov-Takens-like), or a bracket inferred from counts is not confirmed.
+    """
+    u0 = _seed(branch, bracket)
+    n = u0.shape[0] - 1
+    omega_guess = float(bracket.hint.get("omega", 0.0))
+    a0 = model.state_jacobian(u0[:-1], with_value(branch.parameters, k, u0[-1]))
+    value, q0 = eigenvector_near(a0, 1j * omega_guess)
+    if abs(value.imag) <= 0.0:
+        return None  # the nearest eigenvalue is real: a neutral saddle, not a Hopf point
+    if value.imag < 0:
+        q0 = q0.conj()
+    z0 = np.concatenate([u0, [abs(value.imag)], q0.real, q0.imag])
+    outcome = newton(hopf_system(model, branch.parameters, k, q0), z0)
+    z = outcome.solution
+    u, omega = z[: n + 1], float(z[n + 1])
+    method = "Newton on the extended Hopf system (A q = i omega q, <c, q> = 1)"
+    # The system's eigenvector serves the normal form only with a positive frequency.
+    q, note = (z[n + 2 : 2 * n + 2] + 1j * z[2 * n + 2 :]) if omega > 0 else None, ""
+    scale = max(abs(value), abs(omega_guess), 1e-300)
+    if not _placed_by_newton(branch, bracket, outcome, u):
+        test = partial(_hopf_pair_real, model, branch, k, omega_guess)
+        try:
+            u = _bisection_fallback(model, branch, k, bracket, outcome, test)
+        except LocationFailed:
+            if bracket.hint.get("tentative"):
+                return None  # inferred from counts only, and not confirmed: no Hopf point
+            raise
+        full = with_value(branch.parameters, k, u[-1])
+        omega, q = _crossing_eigenvalue(model, u, full, omega_guess).imag, None
+        method = "bisection on the real part of the crossing pair"
+        note = _bisection_note("Hopf", outcome)
+    if abs(omega) <= SMALLEST_RELATIVE_FREQUENCY * scale:
+        return None  # degenerate (Bogdanov-Takens-like) or a neutral saddle: not a Hopf point
+    return u, abs(omega), q, outcome, method, note
+
+
+def _hopf_form_details(form) -> dict:
+    """The eigenvectors and normal-form terms of a Hopf point for the event's details."""
+    return {
+        "eigenvectors": {
+            "right": _json_complex(form.right_vector),
+            "left": _json_complex(form.left_vector),
+            "normalization": "A q = i omega q, A^T p = -i omega p, <p, q> = 1, <q, q> = 1/2",
+        },
+        "normal_form": {
+            "c1": [form.c1.real, form.c1.imag],
+            "terms": [[t.real, t.imag] for t in form.terms],
+            "growth_rate": form.growth_rate,
+            "amplitude_coefficient": form.amplitude_coefficient,
+        },
+    }
+
+
+def _hopf_side_note(form, vary: str, value: float) -> str:
+    """Where the small cycles are, or that l1 vanishes ("" when the side is unknown)."""
+    if form.near_bautin:
+        return L1_ZERO_NOTE
+    if not form.cycle_side:
+        return ""
+    relation = "<" if form.cycle_side == "below" else ">"
+    stability = "stable" if form.criticality == "supercritical" else "unstable"
+    return f"small {stability} cycles for {vary} {relation} {_format_value(value)}"
 
 
 def _has_zero_eigenvalue(a_matrix: object, omega: float) -> bool:
@@ -528,7 +547,7 @@ def locate_branch_point(model: Model, branch: Branch, k: int, bracket: Bracket) 
     large = model.linear_algebra.sparse_location(n)
     if large:
         # Moore's system needs the dense (n+1)^2 Hessian of psi^T f: too costly
-        outcome = NewtonOutcome(False, u0, [], "not used for large models")
+        outcome = failure(u0, "not used for large models")
     else:
         g_u = np.column_stack(
             [dense(model.jacobian(u0[:-1], full0)), model.parameter_jacobian(u0[:-1], full0)[:, k]]

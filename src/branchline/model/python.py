@@ -20,7 +20,7 @@ import numpy as np
 import scipy.sparse
 
 from branchline.errors import ModelCodeError, ScanError
-from branchline.numerics.differences import central_jacobian, directional_derivative
+from branchline.numerics.differences import central_jacobian, extrapolated_directional
 from branchline.numerics.policy import DEFAULT
 from branchline.scan.loader import PythonModelSpec
 
@@ -102,7 +102,8 @@ def python_jacobian(
     n = int(spec.size)
     if spec.jacobian is None:
         sparse = n > DEFAULT.finite_differences_dense_up_to
-        return _difference_jacobian(rhs, sparse), sparse, DifferenceDerivatives(rhs, None, 1)
+        derivatives = DifferenceDerivatives(rhs, None, *_user_forms(spec, source))
+        return _difference_jacobian(rhs, sparse), sparse, derivatives
     user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
     user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters), spec.jacobian)
     sample = probe(user_jacobian, probe_point, defaults)
@@ -113,7 +114,46 @@ def python_jacobian(
     )
     jacobian = _wrap_jacobian(user_jacobian, spec, sparse, source)
     probe(jacobian, probe_point, defaults)
-    return jacobian, sparse, DifferenceDerivatives(rhs, jacobian, 0)
+    return jacobian, sparse, DifferenceDerivatives(rhs, jacobian, *_user_forms(spec, source))
+
+
+# The optional directional derivatives of [model.python]: B(v, w), then C(u, v, w).
+USER_FORMS = ("second_derivative", "third_derivative")
+
+
+def _user_forms(spec: PythonModelSpec, source: str) -> tuple[Callable | None, Callable | None]:
+    """The user's B(v, w) and C(u, v, w) (wrapped and shape-checked), or None where not given."""
+    forms = []
+    for key in USER_FORMS:
+        reference = getattr(spec, key, None)
+        if reference is None:
+            forms.append(None)
+            continue
+        user = resolve_callable(reference, source, f"model.python.{key}")
+        forms.append(_wrap_form(user, tuple(spec.parameters), reference, spec, source, key))
+    return forms[0], forms[1]
+
+
+def _wrap_form(user, parameters, reference: str, spec: PythonModelSpec, source: str, key: str):
+    n = int(spec.size)
+
+    def form(x: Array, p: Array, *directions: Array) -> Array:
+        try:
+            values = user(x, dict(zip(parameters, p.tolist(), strict=True)), *directions)
+        except (ArithmeticError, ValueError):
+            raise
+        except Exception as error:
+            raise ModelCodeError(f"'{reference}' raised {type(error).__name__}: {error}") from None
+        values = as_real_array(values, reference, source, f"model.python.{key}")
+        if values.shape != (n,):
+            raise ModelOutputError(
+                source,
+                f"model.python.{key}",
+                f"'{reference}' returned an array of shape {values.shape}; expected ({n},)",
+            )
+        return values
+
+    return form
 
 
 def python_observables(
@@ -276,54 +316,78 @@ def _difference_jacobian(rhs: Callable, sparse: bool):
 
 
 class DifferenceDerivatives:
-    """df/dp, B, C and d/dp (f_x v) of a Python model by nested central differences.
+    """df/dp, B, C and d/dp (f_x v) of a Python model.
 
-    ``levels`` is the number of differences already inside a Jacobian action:
-    0 with an exact user Jacobian (action = J @ v), 1 without (a directional
-    difference of f). Each further derivative adds one level, and all levels
-    of one formula share the step of :func:`branchline.numerics.differences.central_step`.
+    B and C come from the user's ``second_derivative`` and ``third_derivative``
+    when the spec names them (called with real directions only: complex ones are
+    split into real and imaginary parts by multilinearity); otherwise, like
+    d/dp (f_x v), by nested derivatives of the Jacobian action (J v with the
+    user's Jacobian, else a derivative of f along v), each level a central
+    difference extrapolated to step zero with its step chosen by its own error
+    estimate (:func:`branchline.numerics.differences.extrapolated_directional`,
+    Ridders' method). df/dp is one central difference per parameter.
     """
 
-    def __init__(self, rhs: Callable, jacobian: Callable | None, levels: int) -> None:
-        self.rhs, self.user_jacobian, self.levels = rhs, jacobian, levels
+    def __init__(
+        self,
+        rhs: Callable,
+        jacobian: Callable | None,
+        second: Callable | None = None,
+        third: Callable | None = None,
+    ) -> None:
+        self.rhs, self.user_jacobian = rhs, jacobian
+        self.user_second, self.user_third = second, third
 
-    def _action(self, x: Array, p: Array, v: Array, levels: int) -> Array:
+    def _action(self, x: Array, p: Array, v: Array) -> Array:
         if self.user_jacobian is not None:
             return self.user_jacobian(x, p) @ v
-        return directional_derivative(lambda z: self.rhs(z, p), x, v, levels)
+        return extrapolated_directional(lambda z: self.rhs(z, p), x, v)
 
     def parameter_jacobian(self, x: Array, p: Array) -> Array:
         """df/dp, shape (n, m), by central differences."""
         return central_jacobian(lambda q: self.rhs(x, q), p)
 
     def second(self, x: Array, p: Array, v: Array, w: Array) -> Array:
-        """B(v, w), shape (n,): nested central differences of the Jacobian action."""
-        return self._second(x, p, v, w, self.levels + 1)
-
-    def _second(self, x: Array, p: Array, v: Array, w: Array, levels: int) -> Array:
-        return directional_derivative(lambda z: self._action(z, p, v, levels), x, w, levels)
+        """B(v, w), shape (n,): the user's, or the derivative of J v along w."""
+        if self.user_second is not None:
+            return _multilinear(lambda *d: self.user_second(x, p, *d), (v, w))
+        return extrapolated_directional(lambda z: self._action(z, p, v), x, w)
 
     def third(self, x: Array, p: Array, u: Array, v: Array, w: Array) -> Array:
-        """C(u, v, w), shape (n,): a central difference of B along w."""
-        levels = self.levels + 2
-        return directional_derivative(lambda z: self._second(z, p, u, v, levels), x, w, levels)
+        """C(u, v, w), shape (n,): the user's, or the derivative of B(u, v) along w."""
+        if self.user_third is not None:
+            return _multilinear(lambda *d: self.user_third(x, p, *d), (u, v, w))
+        return extrapolated_directional(lambda z: self.second(z, p, u, v), x, w)
 
     def jacobian_parameter_derivative(self, x: Array, p: Array, v: Array) -> Array:
-        """d/dp (f_x v), shape (n, m), by central differences in each parameter."""
-        levels = self.levels + 1
+        """d/dp (f_x v), shape (n, m), extrapolated in each parameter."""
         p = np.asarray(p, dtype=float)
         columns = []
         for k in range(p.shape[0]):
             direction = np.zeros_like(p)
             direction[k] = 1.0
             columns.append(
-                directional_derivative(
-                    lambda q: self._action(x, q, v, levels), p, direction, levels
-                )
+                extrapolated_directional(lambda q: self._action(x, q, v), p, direction)
             )
         if not columns:
             return np.zeros((np.asarray(x).shape[0], 0))
         return np.column_stack(columns)
+
+
+def _multilinear(form: Callable[..., Array], directions: tuple[Array, ...]) -> Array:
+    """A real multilinear form at possibly complex directions, calling it with real ones.
+
+    Each complex direction a + i b is split: form(..., a + i b, ...) =
+    form(..., a, ...) + i form(..., b, ...).
+    """
+    for index, direction in enumerate(directions):
+        direction = np.asarray(direction)
+        if np.iscomplexobj(direction):
+            head, tail = directions[:index], directions[index + 1 :]
+            real = _multilinear(form, (*head, direction.real, *tail))
+            imag = _multilinear(form, (*head, direction.imag, *tail))
+            return real + 1j * imag
+    return form(*(np.asarray(d, dtype=float) for d in directions))
 
 
 __all__ = [

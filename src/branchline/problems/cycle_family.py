@@ -203,10 +203,10 @@ def corrected_start(problem, u_guess: Array, direction: Array) -> tuple[Array | 
     normal to ``direction``; (u, "") or (None, why not)."""
     counts = correctors.EvaluationCounts()
     with np.errstate(all="ignore"):
-        converged, _, u, _, _, _, message = correctors.correct_newton(
+        correction = correctors.correct_newton(
             correctors.evaluator(problem), u_guess, direction, None, counts
         )
-    return (u, "") if converged else (None, message)
+    return (correction.solution, "") if correction.converged else (None, correction.message)
 
 
 def trace_cycles(

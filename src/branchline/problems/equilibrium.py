@@ -27,8 +27,14 @@ from branchline.numerics.eigenvalues import (
     dense_eigenvalues,
     leading_eigenvalues,
 )
+from branchline.numerics.newton import NewtonTrouble, iterate
 from branchline.numerics.policy import LinearAlgebraPolicy, policy_of
-from branchline.numerics.tolerances import RESIDUAL_TOL, STAGNATION_RTOL
+from branchline.numerics.tolerances import (
+    EQUILIBRIUM_UPDATE_RTOL,
+    MAX_EQUILIBRIUM_ITERATIONS,
+    RESIDUAL_TOL,
+    EquilibriumRule,
+)
 from branchline.vocabulary import Status
 
 if TYPE_CHECKING:
@@ -37,10 +43,6 @@ if TYPE_CHECKING:
 Array = np.ndarray
 
 # --- Newton settings -------------------------------------------------------
-# Newton update accepted as converged relative to 1 + |x|. Quadratic
-# convergence makes the next error about the square of this.
-UPDATE_RTOL = 1e-8
-MAX_NEWTON_ITERATIONS = 50
 # Backtracking: halve the step until the residual norm drops by at least this
 # fraction of the step length (Armijo's sufficient-decrease constant, common practice).
 SUFFICIENT_DECREASE = 1e-4
@@ -211,8 +213,8 @@ def solve_equilibrium(
     p: Array,
     *,
     residual_tol: float = RESIDUAL_TOL,
-    update_rtol: float = UPDATE_RTOL,
-    max_iterations: int = MAX_NEWTON_ITERATIONS,
+    update_rtol: float = EQUILIBRIUM_UPDATE_RTOL,
+    max_iterations: int = MAX_EQUILIBRIUM_ITERATIONS,
 ) -> EquilibriumSolution:
     """Solve f(x, p) = 0 by damped Newton from the guess ``x0``.
 
@@ -252,62 +254,56 @@ def solve_equilibrium(
 
 
 def _newton(model: Model, x, p, residual_tol, update_rtol, max_iterations) -> EquilibriumSolution:
-    f = _evaluate(model.rhs, x, p)
-    if f is None:
-        message = f"{_start_trouble(model, x, p)} {_where(x, p, model)} (start guess)"
-        return _failed(x, p, 0, math.nan, (math.nan,), Status.NON_FINITE, message)
-    residual = linalg.norm(f)
-    history = [residual]
-    if residual == 0.0:
-        return EquilibriumSolution(x, p, True, 0, 0.0, tuple(history), Status.CONVERGED)
-    for iteration in range(1, max_iterations + 1):
-        status, message, step = _newton_direction(model, x, p, f, residual)
-        damping = 1.0
-        if not status:
-            damping, trial, f_trial, residual_trial = _backtrack(model, x, p, step, residual)
-            if trial is None:
-                status = Status.NOT_CONVERGED
-                message = (
-                    f"Newton's method stalled {_where(x, p, model)} with residual "
-                    f"{residual:.3g}: no step along the Newton direction reduces |f|; "
-                    "there may be no equilibrium near the guess, try another guess"
-                )
+    """Damped Newton as the shared loop: f evaluated by the line search, J by the update."""
+    rule = EquilibriumRule(residual_tol, update_rtol, max_iterations, lambda z: _where(z, p, model))
+
+    def start(z: Array) -> tuple[Array, None]:
+        f = _evaluate(model.rhs, z, p)
+        if f is None:
+            message = f"{_start_trouble(model, z, p)} {_where(z, p, model)} (start guess)"
+            raise NewtonTrouble(Status.NON_FINITE, message)
+        return f, None
+
+    def advance(z: Array, f: Array, _jac: None, residual: float):
+        status, message, step, rule.jacobian = _newton_direction(model, z, p, f, residual)
         if status:
-            if residual <= residual_tol and status != Status.NON_FINITE:
-                # Already a solution to roundoff; Newton cannot polish it further here
-                # (for instance at a turning point, where df/dx is singular).
-                return EquilibriumSolution(
-                    x, p, True, iteration - 1, residual, tuple(history), Status.CONVERGED
-                )
-            return _failed(x, p, iteration - 1, residual, history, status, message)
-        x, f, residual = trial, f_trial, residual_trial
-        history.append(residual)
-        update = damping * linalg.norm(step)
-        scale = 1.0 + linalg.norm(x)
-        if (residual <= residual_tol and update <= update_rtol * scale) or (
-            update <= STAGNATION_RTOL * scale and damping == 1.0
-        ):
-            return EquilibriumSolution(
-                x, p, True, iteration, residual, tuple(history), Status.CONVERGED
+            raise NewtonTrouble(status, message)
+        damping, trial, f_trial, _ = _backtrack(model, z, p, step, residual)
+        if trial is None:
+            raise NewtonTrouble(
+                Status.NOT_CONVERGED,
+                f"Newton's method stalled {_where(z, p, model)} with residual "
+                f"{residual:.3g}: no step along the Newton direction reduces |f|; "
+                "there may be no equilibrium near the guess, try another guess",
             )
-    message = (
-        f"no convergence in {max_iterations} Newton iterations; last iterate "
-        f"{_where(x, p, model)} with residual {residual:.3g}"
+        rule.damping = damping
+        return trial, damping * linalg.norm(step), (f_trial, None)
+
+    result = iterate(start, x, advance, rule, max_iterations)
+    history = result.residual_norms or (math.nan,)
+    return EquilibriumSolution(
+        result.solution,
+        p,
+        result.converged,
+        result.iterations,
+        float(result.residual_norm),
+        history,
+        result.status,
+        result.message,
     )
-    return _failed(x, p, max_iterations, residual, history, Status.NOT_CONVERGED, message)
 
 
 def _newton_direction(model: Model, x, p, f, residual):
-    """(status, message, step): status "" and the Newton step, or why there is none."""
+    """(status, message, step, J): status "" and the Newton step, or why there is none."""
     jac = _jacobian_dense_or_sparse(model, x, p)
     if jac is None:
-        return Status.NON_FINITE, f"the Jacobian is not finite {_where(x, p, model)}", None
+        return Status.NON_FINITE, f"the Jacobian is not finite {_where(x, p, model)}", None, None
     if _singular(jac, policy_of(model)):
-        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None, jac
     try:
-        return "", "", -linalg.solve_square(jac, f)
+        return "", "", -linalg.solve_square(jac, f), jac
     except linalg.SingularMatrixError:
-        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None
+        return Status.SINGULAR_JACOBIAN, _singular_message(x, p, residual, model), None, jac
 
 
 def _backtrack(model: Model, x, p, step, residual):
@@ -329,12 +325,6 @@ def _singular_message(x, p, residual, model) -> str:
         f"the Jacobian df/dx is singular {_where(x, p, model)} (residual {residual:.3g}); "
         "the guess may sit at a turning point or there may be no isolated equilibrium "
         "nearby, try another guess or parameter value"
-    )
-
-
-def _failed(x, p, iterations, residual, history, status, message) -> EquilibriumSolution:
-    return EquilibriumSolution(
-        x, p, False, iterations, float(residual), tuple(history), status, message
     )
 
 

@@ -27,12 +27,17 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 
 from branchline.continuation.correctors import COUNT_KEYS
-from branchline.continuation.engine import Curve, CurveProblem, failed_curve, follow_curve
+from branchline.continuation.engine import (
+    Curve,
+    CurveProblem,
+    CurveRows,
+    failed_curve,
+    follow_curve,
+)
 from branchline.continuation.step_control import Limit
 from branchline.numerics import linalg
 from branchline.numerics.tolerances import StepSettings
@@ -80,26 +85,6 @@ class TraceRequest:
     limits: Sequence[Limit] = ()
     start_tangent: Array | None = None
     progress: Callable[[int], None] | None = None
-
-
-@dataclass(frozen=True)
-class TracedRows:
-    """The rows of all sides of a trace in trace order (see the module docstring).
-
-    ``arclength`` is signed (negative on the decreasing side) and ``tangents``
-    point in trace order; ``payloads`` is stacked as the engine stacked it.
-    """
-
-    points: Array
-    tangents: Array
-    arclength: Array
-    newton_iterations: Array
-    residual_norms: Array
-    test_values: Array
-    payloads: Any
-
-    def __len__(self) -> int:
-        return self.points.shape[0]
 
 
 def trace_sides(
@@ -219,12 +204,16 @@ def total_counts(curves: list[tuple[int, Curve]], before: dict[str, int] | None 
     return counts
 
 
-def in_trace_order(curves: list[tuple[int, Curve]]) -> TracedRows | None:
-    """The sides' rows joined in trace order; None when no side has a point."""
+def in_trace_order(curves: list[tuple[int, Curve]]) -> CurveRows | None:
+    """The sides' rows joined in trace order; None when no side has a point.
+
+    ``arclength`` is signed (negative on the decreasing side) and ``tangents``
+    point in trace order; ``payloads`` is stacked as the engine stacked it.
+    """
     pieces = [(orientation, curve) for orientation, curve in curves if len(curve)]
     if not pieces:
         return None
-    columns: dict[str, list] = {key: [] for key in TracedRows.__dataclass_fields__}
+    columns: dict[str, list] = {key: [] for key in CurveRows.__dataclass_fields__}
     for index, (orientation, curve) in enumerate(pieces):
         rows = slice(None)
         if orientation < 0:
@@ -244,13 +233,12 @@ def in_trace_order(curves: list[tuple[int, Curve]]) -> TracedRows | None:
         columns["payloads"].append(np.asarray(curve.payloads)[select])
     joined = {key: np.concatenate(values) for key, values in columns.items()}
     joined["newton_iterations"] = joined["newton_iterations"].astype(int)
-    return TracedRows(**joined)
+    return CurveRows(**joined)
 
 
 __all__ = [
     "DIRECTIONS",
     "TraceRequest",
-    "TracedRows",
     "in_trace_order",
     "summarize",
     "total_counts",

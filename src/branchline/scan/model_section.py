@@ -25,7 +25,15 @@ from branchline.scan.expressions import expression_names, parse_expression
 from branchline.user_cache import remember_names, remembered_names
 
 MODEL_KEYS = ("parameters", "equations", "definitions", "observables", "python")
-PYTHON_KEYS = ("rhs", "size", "jacobian", "states", "observables")
+PYTHON_KEYS = (
+    "rhs",
+    "size",
+    "jacobian",
+    "states",
+    "observables",
+    "second_derivative",
+    "third_derivative",
+)
 
 
 @dataclass(frozen=True)
@@ -52,6 +60,9 @@ class PythonModelSpec:
     jacobian: str | None = None
     states: tuple[str, ...] | None = None
     observables: str | None = None
+    # Optional exact directional derivatives B(v, w) and C(u, v, w) (README).
+    second_derivative: str | None = None
+    third_derivative: str | None = None
 
 
 def read_model(
@@ -201,6 +212,11 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
     observables = None
     if "observables" in python:
         observables = check.import_path(python["observables"], "model.python.observables")
+    forms = {
+        key: check.import_path(python[key], f"model.python.{key}")
+        for key in ("second_derivative", "third_derivative")
+        if key in python
+    }
     states = None
     if "states" in python:
         states = _python_states(check, python["states"], size)
@@ -218,6 +234,7 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
         jacobian=jacobian,
         states=states,
         observables=observables,
+        **forms,
     )
 
 
