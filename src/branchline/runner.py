@@ -175,6 +175,7 @@ def _follow(
             skipped += 1
             continue
         visited.append(event)
+        named = len(visited) <= len(spec.branch_names)  # the scan's branch_names, in order
         children = trace_switched(
             traced,
             parent,
@@ -182,10 +183,12 @@ def _follow(
             spec.steps,
             spec.interval,
             progress=counter(f"{spec.name}, branches switched at {parent.name}"),
-            first_number=started.get(parent.name, 0) + 1,
+            first_number=1 if named else started.get(parent.name, 0) + 1,
             limits=spec.limits,
+            prefix=f"{parent.name}.{spec.branch_names[len(visited) - 1]}" if named else None,
         )
-        started[parent.name] = started.get(parent.name, 0) + len(children)
+        if not named:
+            started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
             child = _interrupted(child, stop)
             if not stopped():

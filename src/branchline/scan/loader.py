@@ -104,6 +104,8 @@ class TraceSpec:
     limits: dict[str, tuple[float, float]] = field(default_factory=dict)
     # equilibria found without a start guess (start = "search" or a search_box)
     search: SearchSpec | None = None
+    # names of the branches switched onto, in the order they are started (one per branch point)
+    branch_names: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -254,6 +256,7 @@ TRACE_KEYS = (
     "direction",
     "steps",
     "switch_branches",
+    "branch_names",
     "limits",
     *SEARCH_KEYS,
 )
@@ -370,6 +373,7 @@ def _trace(
     switch = table.get("switch_branches", True)
     if not isinstance(switch, bool):
         check.fail(f"{path}.switch_branches", f"must be true or false, got {shown(switch)}")
+    branch_names = _branch_names(check, table, path, name, switch)
     return TraceSpec(
         name=name,
         vary=vary,
@@ -381,6 +385,7 @@ def _trace(
         switch_branches=switch,
         limits=limits,
         search=search,
+        branch_names=branch_names,
     )
 
 
@@ -409,6 +414,25 @@ def _trace_name(check: Checker, value: object, key: str) -> str:
             "(<trace>#1, <trace>#2, ...)",
         )
     return name
+
+
+def _branch_names(
+    check: Checker, table: dict, path: str, trace: str, switch: bool
+) -> tuple[str, ...]:
+    """``branch_names``: plain names for the branches switched onto, unique, not dotted."""
+    key = f"{path}.branch_names"
+    if "branch_names" not in table:
+        return ()
+    value = table["branch_names"]
+    if not switch:
+        check.fail(key, "names switched branches, but switch_branches = false follows none")
+    if not isinstance(value, list) or not value:
+        check.fail(key, f"must be a list of names, e.g. [\"high\"], got {shown(value)}")
+    names = tuple(_trace_name(check, item, f"{key}[{i}]") for i, item in enumerate(value, 1))
+    for i, name in enumerate(names, 1):
+        if names.index(name) != i - 1 or name == trace:
+            check.fail(f"{key}[{i}]", f"the name '{name}' is used twice in trace '{trace}'")
+    return names
 
 
 def _overrides(
