@@ -16,8 +16,10 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import math
 import signal
 import threading
+import time
 from collections.abc import Callable, Iterator
 from typing import Any
 
@@ -36,6 +38,8 @@ WATCHED_CALLABLES = (
     "observables",
 )
 HANDLED_SIGNALS = ("SIGINT", "SIGTERM")
+# The "signal name" of a stop by the run's time limit.
+TIME_LIMIT = "time limit"
 
 
 class Interrupted(ObservationFailed):
@@ -43,17 +47,32 @@ class Interrupted(ObservationFailed):
 
 
 class StopRequest:
-    """Whether a stop was requested, by which signal, and whether the model is running."""
+    """Whether a stop was requested, by which signal, and whether the model is running.
 
-    def __init__(self) -> None:
+    With ``time_limit`` (seconds, the scan's ``time_limit``) the request is
+    also made once that much wall-clock time has passed since it was created:
+    checked at every model call, and by an alarm (SIGALRM, main thread only)
+    under :func:`catching_signals`, so that a model call that never returns is
+    cut off too. A stop by the time limit is not an interrupt: the runner
+    reports it as a failure (exit 1) with the reason.
+    """
+
+    def __init__(self, time_limit: float | None = None) -> None:
         self.signal_name: str | None = None
         self.signal_number: int | None = None
         self.inside_model = 0
+        self.time_limit = time_limit
+        self.deadline = time.monotonic() + time_limit if time_limit is not None else math.inf
 
     @property
     def requested(self) -> bool:
         """True once a stop was requested."""
         return self.signal_name is not None
+
+    @property
+    def by_time_limit(self) -> bool:
+        """True when the stop came from the time limit, not from a signal."""
+        return self.signal_name == TIME_LIMIT
 
     def request(self, name: str = "SIGINT", number: int = int(signal.SIGINT)) -> None:
         """Ask the run to stop (what the signal handler does; tests call it directly)."""
@@ -61,11 +80,15 @@ class StopRequest:
 
     @property
     def reason(self) -> str:
-        """Plain words for messages: 'interrupted (SIGINT)'."""
+        """Plain words for messages: 'interrupted (SIGINT)', or the time limit reached."""
+        if self.by_time_limit:
+            return f"the run's time limit of {self.time_limit:g} s was reached (time_limit)"
         return f"interrupted ({self.signal_name})"
 
     def raise_if_requested(self) -> None:
-        """Raise :class:`Interrupted` if a stop was requested."""
+        """Raise :class:`Interrupted` if a stop was requested or the time is up."""
+        if self.signal_name is None and time.monotonic() > self.deadline:
+            self.request(TIME_LIMIT, int(getattr(signal, "SIGALRM", 14)))
         if self.signal_name is not None:
             raise Interrupted(self.reason)
 
@@ -113,12 +136,25 @@ def catching_signals(stop: StopRequest) -> Iterator[StopRequest]:
         if stop.inside_model:
             raise Interrupted(stop.reason)
 
+    def alarm(number: int, frame: Any) -> None:
+        if stop.requested:
+            return
+        stop.request(TIME_LIMIT, number)
+        if stop.inside_model:  # a model call that does not return: cut it off
+            raise Interrupted(stop.reason)
+
     previous = {}
     for name in HANDLED_SIGNALS:
         number = getattr(signal, name)
         previous[number] = signal.signal(number, handler)
+    timed = stop.time_limit is not None and hasattr(signal, "setitimer")
+    if timed:
+        previous[signal.SIGALRM] = signal.signal(signal.SIGALRM, alarm)
+        signal.setitimer(signal.ITIMER_REAL, max(stop.deadline - time.monotonic(), 1e-3))
     try:
         yield stop
     finally:
+        if timed:
+            signal.setitimer(signal.ITIMER_REAL, 0.0)
         for number, old in previous.items():
             signal.signal(number, old)

@@ -122,6 +122,7 @@ class Scan:
     cycles: tuple[CycleSpec, ...] = ()
     boundaries: tuple[BoundarySpec, ...] = ()
     robust_margin: RobustMarginSpec | None = None
+    time_limit: float = 3600.0  # seconds for the whole run (DEFAULT_TIME_LIMIT)
 
     @property
     def stem(self) -> str:
@@ -213,6 +214,11 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
     cycles = read_cycles(check, data.get("cycles"), traces, steps, _steps, _window)
     boundaries = read_boundaries(check, data.get("boundary"), traces, model.parameters, _steps)
     margin = read_robust_margin(check, data.get("robust_margin"), model.parameters)
+    time_limit = DEFAULT_TIME_LIMIT
+    if "time_limit" in data:
+        time_limit = check.number(data["time_limit"], "time_limit")
+        if not time_limit > 0:
+            check.fail("time_limit", f"must be positive (seconds), got {shown(time_limit)}")
     return Scan(
         source=str(source),
         title=title,
@@ -224,6 +230,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>") -> Scan:
         cycles=cycles,
         boundaries=boundaries,
         robust_margin=margin,
+        time_limit=time_limit,
     )
 
 
@@ -239,6 +246,7 @@ def _fixed(traces: tuple[TraceSpec, ...]) -> dict[str, str]:
 
 TOP_KEYS = (
     "title",
+    "time_limit",
     "model",
     "trace",
     "steps",
@@ -247,6 +255,10 @@ TOP_KEYS = (
     "boundary",
     "robust_margin",
 )
+# Seconds of wall-clock time a run may take (top-level time_limit), counted from the
+# start of the run: generous for any scan that finishes (the demos take seconds,
+# large sparse models minutes), yet every run ends, with its points written.
+DEFAULT_TIME_LIMIT = 3600.0
 TRACE_KEYS = (
     "name",
     "vary",

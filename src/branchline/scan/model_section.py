@@ -24,7 +24,11 @@ from branchline.scan.checks import (
 from branchline.scan.expressions import expression_names, parse_expression
 
 MODEL_KEYS = ("parameters", "equations", "definitions", "observables", "python")
-PYTHON_KEYS = ("rhs", "size", "jacobian", "states", "observables")
+PYTHON_KEYS = ("rhs", "size", "jacobian", "states", "observables", "call_time_limit")
+# Seconds one call of a user's Python function may take (model.python.call_time_limit):
+# far above any sane right-hand side (a 10^5-state model takes milliseconds), low
+# enough that a function waiting on a lock or a network share is noticed.
+DEFAULT_CALL_TIME_LIMIT = 60.0
 
 
 @dataclass(frozen=True)
@@ -51,6 +55,7 @@ class PythonModelSpec:
     jacobian: str | None = None
     states: tuple[str, ...] | None = None
     observables: str | None = None
+    call_time_limit: float = DEFAULT_CALL_TIME_LIMIT  # seconds per call of a user function
 
 
 def read_model(check: Checker, value: object) -> ExpressionModelSpec | PythonModelSpec:
@@ -185,6 +190,14 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
     states = None
     if "states" in python:
         states = _python_states(check, python["states"], size)
+    limit = DEFAULT_CALL_TIME_LIMIT
+    if "call_time_limit" in python:
+        limit = check.number(python["call_time_limit"], "model.python.call_time_limit")
+        if not limit > 0:
+            check.fail(
+                "model.python.call_time_limit",
+                f"must be a positive number of seconds, got {shown(limit)}",
+            )
     state_names = states or tuple(f"x{i}" for i in range(size))
     for name in parameters:
         if name in state_names:
@@ -199,6 +212,7 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
         jacobian=jacobian,
         states=states,
         observables=observables,
+        call_time_limit=limit,
     )
 
 
