@@ -66,7 +66,9 @@ class StopRequest:
 
     @property
     def requested(self) -> bool:
-        """True once a stop was requested."""
+        """True once a stop was requested (or the time limit has passed)."""
+        if self.signal_name is None and time.monotonic() > self.deadline:
+            self.request(TIME_LIMIT, int(getattr(signal, "SIGALRM", 14)))
         return self.signal_name is not None
 
     @property
@@ -87,9 +89,7 @@ class StopRequest:
 
     def raise_if_requested(self) -> None:
         """Raise :class:`Interrupted` if a stop was requested or the time is up."""
-        if self.signal_name is None and time.monotonic() > self.deadline:
-            self.request(TIME_LIMIT, int(getattr(signal, "SIGALRM", 14)))
-        if self.signal_name is not None:
+        if self.requested:
             raise Interrupted(self.reason)
 
 
@@ -137,7 +137,7 @@ def catching_signals(stop: StopRequest) -> Iterator[StopRequest]:
             raise Interrupted(stop.reason)
 
     def alarm(number: int, frame: Any) -> None:
-        if stop.requested:
+        if stop.signal_name is not None:  # already stopping (not `requested`: the time is up)
             return
         stop.request(TIME_LIMIT, number)
         if stop.inside_model:  # a model call that does not return: cut it off
