@@ -270,7 +270,7 @@ def _geometry_columns(info, traces: Sequence[str], x: str, states: Sequence[str]
     return list(dict.fromkeys([*varies, *states]))
 
 
-def _fix_layout(fig: Figure) -> RendererBase:
+def settle_layout(fig: Figure) -> RendererBase:
     """Run the constrained layout once, then keep it: return the renderer it used.
 
     Labels are placed against this layout (so it must not move afterwards),
@@ -403,7 +403,7 @@ def _diagram(points, events, info, x, y, cycles) -> Figure:
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
         _legend(fig, events, info, curves, context, orbit_families, hidden)
         _note_hidden_traces(top, points, info, x)
-        place_labels(fig, top, marks, _fix_layout(fig), MARKER_SIZE)
+        place_labels(fig, top, marks, settle_layout(fig), MARKER_SIZE)
     return fig
 
 
@@ -420,7 +420,7 @@ def _empty_figure(info: Mapping[str, Any]) -> Figure:
         ax.text(0.5, 0.5, message, ha="center", va="center", wrap=True, transform=ax.transAxes)
         if info.get("title"):
             fig.suptitle(str(info["title"]), fontsize=FONT_SIZE + 2)
-        _fix_layout(fig)
+        settle_layout(fig)
     return fig
 
 
@@ -717,4 +717,5 @@ __all__ = [
     "bifurcation_figure",
     "hidden_note",
     "save_figure",
+    "settle_layout",
 ]

@@ -166,11 +166,11 @@ def _stability_map_figures(result: RunResult, info, events, folder: Path) -> Non
 
 def _confirmation_figure(result: RunResult, folder: Path) -> None:
     """confirmations.png: one small panel per event the run simulated."""
-    from branchline.present.confirmations import PNG_DPI, confirmations_figure
+    from branchline.present.confirmations import confirmations_figure, save_confirmations_figure
 
     figure = confirmations_figure(result.confirmations)
     if figure is not None:
-        figure.savefig(folder / "confirmations.png", dpi=PNG_DPI)
+        save_confirmations_figure(figure, folder / "confirmations.png")
 
 
 def _read_points(path: Path) -> pd.DataFrame:
