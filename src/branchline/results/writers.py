@@ -98,6 +98,13 @@ def write_results(
     return folder
 
 
+def write_files(result: RunResult, folder: Path, *, figures: bool = True) -> None:
+    """Write every results file into ``folder``, an existing empty folder whose
+    completeness the caller guarantees (a batch member's staging folder, renamed
+    into place when whole); no lock, no staging of its own."""
+    _write_files(result, Path(folder), figures)
+
+
 def _holds_complete_run(folder: Path) -> bool:
     info = read_marker(folder) if folder.is_dir() else None
     return bool(info) and info.get("status") != STATUS_INTERRUPTED
