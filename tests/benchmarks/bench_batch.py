@@ -10,8 +10,10 @@ python3 tests/benchmarks/bench_batch.py [MEMBERS] [--overhead]   (--overhead: pa
    tables and report.
 2. The batch machinery's overhead per member: the --jobs 1 batch's seconds
    per member against a bare single run of the same members (run_scan on the
-   compiled model plus write_results of its folder, no batch), as a
-   percentage.
+   compiled model without confirmations, as members run, plus write_results
+   of its folder, no batch), as a percentage; then the share of it that is the
+   one-off aggregation at the end of each batch (tables, report, figures) and
+   the overhead without it.
 
 Goals (issue 12): 2 workers >= 1.8x serial; overhead under 10 %. On a
 machine shared with other work the parallel figures fall short of what two
@@ -25,6 +27,7 @@ import os
 import sys
 import tempfile
 import time
+from contextlib import contextmanager
 from dataclasses import replace
 from pathlib import Path
 
@@ -71,9 +74,34 @@ def bare_runs(scan: dict, folder: Path) -> float:
     started = time.perf_counter()
     for plan in plan_batch([loaded]):
         own = member_scan(loaded, plan.values)
-        result = run_scan(own, model=replace(model, defaults=model.parameter_vector(plan.values)))
+        # as a member runs: no confirmation by simulation
+        result = run_scan(
+            own, model=replace(model, defaults=model.parameter_vector(plan.values)), confirm=False
+        )
         write_results(result, folder / str(plan.member), figures=False)
     return time.perf_counter() - started
+
+
+@contextmanager
+def timed_aggregation():
+    """Seconds spent aggregating at the end of batches (tables, report), summed in [0]."""
+    from branchline.batch import execute
+
+    spent = [0.0]
+    original = execute._conclude
+
+    def conclude(*args, **kwargs):
+        started = time.perf_counter()
+        try:
+            return original(*args, **kwargs)
+        finally:
+            spent[0] += time.perf_counter() - started
+
+    execute._conclude = conclude
+    try:
+        yield spent
+    finally:
+        execute._conclude = original
 
 
 def throughput(members: int, root: Path) -> None:
@@ -121,17 +149,26 @@ def main() -> None:
         bare_runs(ensemble(10), root / "warm-bare")
         timed_batch(ensemble(10), root / "warm-batch", jobs=1)
         bare = batch = 0.0
-        for round_ in range(OVERHEAD_ROUNDS):
-            small = ensemble(OVERHEAD_MEMBERS)
-            small["ensemble"]["seed"] = 100 + round_
-            bare += bare_runs(small, root / f"bare{round_}")
-            batch += timed_batch(small, root / f"overhead{round_}", jobs=1)[0]
+        with timed_aggregation() as aggregation:
+            for round_ in range(OVERHEAD_ROUNDS):
+                small = ensemble(OVERHEAD_MEMBERS)
+                small["ensemble"]["seed"] = 100 + round_
+                bare += bare_runs(small, root / f"bare{round_}")
+                batch += timed_batch(small, root / f"overhead{round_}", jobs=1)[0]
         count = OVERHEAD_MEMBERS * OVERHEAD_ROUNDS
         per_bare, per_batch = bare / count, batch / count
+        once = aggregation[0] / OVERHEAD_ROUNDS
+        per_member = (batch - aggregation[0]) / count
         print(f"\noverhead, {count} members in this process, {OVERHEAD_ROUNDS} alternating rounds:")
         print(f"  bare single runs   {per_bare * 1e3:8.2f} ms per member")
         print(f"  batch (--jobs 1)   {per_batch * 1e3:8.2f} ms per member")
         print(f"  overhead           {(per_batch / per_bare - 1) * 100:8.1f} %")
+        print(
+            f"  of which the aggregation at the end (tables, report, figures): {once:.2f} s "
+            f"once per batch, {once / OVERHEAD_MEMBERS * 1e3:.2f} ms per member at "
+            f"{OVERHEAD_MEMBERS} members"
+        )
+        print(f"  per member without it {(per_member / per_bare - 1) * 100:8.1f} %")
     print(f"load average after: {os.getloadavg()[0]:.2f}")
 
 
