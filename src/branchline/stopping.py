@@ -40,6 +40,10 @@ WATCHED_CALLABLES = (
 HANDLED_SIGNALS = ("SIGINT", "SIGTERM")
 # The "signal name" of a stop by the run's time limit.
 TIME_LIMIT = "time limit"
+# Model calls between two readings of the clock for the time limit: a call takes
+# microseconds to seconds, so the limit is still seen within a fraction of a second
+# of a fast model's run, and reading the clock at every call would cost a few per cent.
+CLOCK_EVERY = 64
 
 
 class Interrupted(ObservationFailed):
@@ -63,6 +67,7 @@ class StopRequest:
         self.inside_model = 0
         self.time_limit = time_limit
         self.deadline = time.monotonic() + time_limit if time_limit is not None else math.inf
+        self._countdown = 1
 
     @property
     def requested(self) -> bool:
@@ -88,9 +93,16 @@ class StopRequest:
         return f"interrupted ({self.signal_name})"
 
     def raise_if_requested(self) -> None:
-        """Raise :class:`Interrupted` if a stop was requested or the time is up."""
-        if self.requested:
-            raise Interrupted(self.reason)
+        """Raise :class:`Interrupted` if a stop was requested or the time is up
+        (the clock is read every CLOCK_EVERY calls: this runs at every model call)."""
+        if self.signal_name is None:
+            self._countdown -= 1
+            if self._countdown > 0:
+                return
+            self._countdown = CLOCK_EVERY
+            if not self.requested:
+                return
+        raise Interrupted(self.reason)
 
 
 def _watch(function: Callable | None, stop: StopRequest) -> Callable | None:
