@@ -171,6 +171,8 @@ def test_curves_apart_or_crossing_are_not_noted_as_hidden():
     legend = " ".join(t.get_text() for t in figure.legends[0].get_texts())
     assert "lies under" not in legend
     p = np.linspace(0.0, 1.0, 50)
-    # a curve covering only half of another is not hidden; offset by 1 % is not either
-    assert hidden_curves([("a", p, p), ("b", p[:25], p[:25])]) == [("b", "a")]
+    # a short curve drawn first is hidden under a long one drawn over it; drawn
+    # last it stays on top, and the long one shows beyond it; 1 % apart is not hidden
+    assert hidden_curves([("b", p[:25], p[:25]), ("a", p, p)]) == [("b", "a")]
+    assert hidden_curves([("a", p, p), ("b", p[:25], p[:25])]) == []
     assert hidden_curves([("a", p, p), ("b", p, p + 0.01)]) == []

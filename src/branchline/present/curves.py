@@ -35,6 +35,8 @@ CONTINUES_COSINE = -0.9
 HIDDEN_RTOL = 2e-3
 # Points of a curve compared when looking for a hidden curve (evenly subsampled).
 HIDDEN_SAMPLES = 300
+# Points tried first (a quick test that parts most pairs of curves).
+QUICK_SAMPLES = 12
 
 
 @dataclass(frozen=True)
@@ -185,12 +187,14 @@ def _leaving(rows: np.ndarray, at: np.ndarray, tolerance: float) -> np.ndarray |
 def hidden_curves(
     drawn: Sequence[tuple[str, np.ndarray, np.ndarray]],
 ) -> list[tuple[str, str]]:
-    """Pairs (hidden, over): every point of curve ``hidden`` lies on curve ``over``.
+    """Pairs (hidden, over): every point of curve ``hidden`` lies on curve ``over``,
+    drawn after it (on top).
 
     ``drawn`` holds (name, x, y) per curve in drawing order (later ones on
     top), the values as plotted. Distances are measured against the polyline
     of the other curve, in fractions of the spans of all drawn values; a curve
-    covered by several others is reported under the last one drawn.
+    covered by several others is reported under the last one drawn. A curve
+    drawn on top of a longer one hides nothing of itself and is not reported.
     """
     finite = [
         (name, x[np.isfinite(x) & np.isfinite(y)], y[np.isfinite(x) & np.isfinite(y)])
@@ -205,17 +209,33 @@ def hidden_curves(
     sx = float(np.ptp(all_x)) or 1.0
     sy = float(np.ptp(all_y)) or 1.0
     scaled = [(name, np.column_stack((x / sx, y / sy))) for name, x, y in finite]
+    boxes = [
+        (ours.min(axis=0), ours.max(axis=0)) if len(ours) else (None, None) for _, ours in scaled
+    ]
     found = []
     for i, (name, ours) in enumerate(scaled):
         if len(ours) == 0:
             continue
         sample = ours[np.unique(np.linspace(0, len(ours) - 1, HIDDEN_SAMPLES).astype(int))]
-        for j in range(len(scaled) - 1, -1, -1):
+        few = sample[:: max(1, len(sample) // QUICK_SAMPLES)]
+        for j in range(len(scaled) - 1, i, -1):  # only a curve drawn later covers it
             other, theirs = scaled[j]
-            if j != i and len(theirs) and _distance_to_polyline(sample, theirs) <= HIDDEN_RTOL:
+            if not len(theirs) or not _inside(boxes[i], boxes[j]):
+                continue
+            # a few points first: most pairs part there, before the full comparison
+            if _distance_to_polyline(few, theirs) > HIDDEN_RTOL:
+                continue
+            if _distance_to_polyline(sample, theirs) <= HIDDEN_RTOL:
                 found.append((name, other))
                 break
     return found
+
+
+def _inside(inner: tuple, outer: tuple) -> bool:
+    """True when box ``inner`` lies within box ``outer`` (widened by the tolerance)."""
+    return bool(
+        np.all(inner[0] >= outer[0] - HIDDEN_RTOL) and np.all(inner[1] <= outer[1] + HIDDEN_RTOL)
+    )
 
 
 def _distance_to_polyline(points: np.ndarray, line: np.ndarray) -> float:
