@@ -8,6 +8,7 @@ part-way along a trace that starts at F = 0.
 from __future__ import annotations
 
 import sys
+import time
 
 import numpy as np
 import scipy.sparse
@@ -101,3 +102,21 @@ def coupled(x, p):
 
 def coupled_jacobian_transposed(x, p):
     return np.array([[1.0 - 2.0 * x[0] - p["F"], p["F"]], [0.0, -1.0]]).T
+
+
+def healthy_jacobian_doubled(x, p):
+    return 2.0 * healthy_jacobian(x, p)
+
+
+def sleepy_past(x, p):
+    # past the fault each call takes 0.2 s: over a call_time_limit of 0.05 s
+    if _past(p):
+        time.sleep(0.2)
+    return healthy(x, p)
+
+
+def hangs_past(x, p):
+    # past the fault a call would take 60 s: the run's time_limit cuts it off
+    if _past(p):
+        time.sleep(60.0)
+    return healthy(x, p)

@@ -10,6 +10,7 @@ of the scan run. Faults in what a user function *returns at the start*
 from __future__ import annotations
 
 import json
+import time
 from pathlib import Path
 
 import pandas as pd
@@ -204,3 +205,76 @@ def test_jacobian_wrong_away_from_the_start_is_said(tmp_path, capsys):
     rechecks = [w for w in info["warnings"] if "disagrees with finite differences" in w]
     assert rechecks and all("corrector iterations" in w for w in rechecks)
     assert code in (0, 1)
+
+
+def test_doubled_jacobian_ends_as_a_failure_that_blames_it(tmp_path, capsys):
+    # J twice the true one: Newton converges only linearly (ratio 1/2), the steps
+    # shrink and max_points is spent on a short stretch; that must not pass as exit 0.
+    extra = 'jacobian = "faulty_models:healthy_jacobian_doubled"'
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="healthy", extra=extra))
+    capsys.readouterr()
+    assert code == 1
+    info = json.loads((out / "run.json").read_text())
+    faulty = next(t for t in info["traces"] if t["name"] == "faulty")
+    assert faulty["status"] == "failed"
+    assert "healthy_jacobian_doubled" in faulty["message"]
+    assert "disagrees with finite differences" in faulty["message"]
+    assert any("d f[x0] / d x0 is" in w for w in info["warnings"])
+    points = pd.read_csv(out / "points.csv")
+    # every point kept, and each is an equilibrium x0 = 1 - F (solved by hand)
+    rows = points[points["trace"] == "faulty"]
+    assert len(rows) == faulty["points"] > 0
+    assert ((rows["x0"] - (1.0 - rows["F"])).abs() < 1e-8).all()
+
+
+def test_slow_rhs_call_stops_the_trace_at_the_call_time_limit(tmp_path, capsys):
+    # Past F = 0.3 each rhs call sleeps 0.2 s, over call_time_limit = 0.05 s:
+    # the first slow call ends the trace (one sleep), the other trace still runs.
+    extra = "call_time_limit = 0.05"
+    code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="sleepy_past", extra=extra))
+    err = capsys.readouterr().err
+    assert code == 1 and "Traceback" not in err
+    info = json.loads((out / "run.json").read_text())
+    traces = {t["name"]: t for t in info["traces"]}
+    assert traces["faulty"]["status"] == "failed"
+    assert "over the limit of 0.05 s (model.python.call_time_limit)" in traces["faulty"]["message"]
+    assert traces["healthy"]["status"] == "done"
+    faulty = pd.read_csv(out / "points.csv").query("trace == 'faulty'")
+    assert faulty["F"].min() == 0.0 and FAULT_AT - 0.1 < faulty["F"].max() <= FAULT_AT + 0.05
+
+
+def test_rhs_that_never_returns_is_cut_off_by_the_run_time_limit(tmp_path, capsys):
+    # Past F = 0.3 an rhs call would sleep 60 s; time_limit = 1.5 s stops the run
+    # (an alarm interrupts the call), writes every point and exits 1 with the reason.
+    text = "time_limit = 1.5\n" + PYTHON_SCAN.format(rhs="hangs_past", extra="")
+    started = time.monotonic()
+    code, out = _run(tmp_path, text)
+    spent = time.monotonic() - started
+    err = capsys.readouterr().err
+    assert code == 1 and "Traceback" not in err
+    assert spent < 30.0  # far below the 60 s sleep (the bound is loose: shared machines)
+    info = json.loads((out / "run.json").read_text())
+    assert info["status"] == "failed"
+    assert "time limit of 1.5 s was reached (time_limit)" in info["message"]
+    faulty = next(t for t in info["traces"] if t["name"] == "faulty")
+    assert faulty["status"] == "failed" and "time limit" in faulty["message"]
+    faulty_points = pd.read_csv(out / "points.csv").query("trace == 'faulty'")
+    assert faulty_points["F"].max() > FAULT_AT - 0.1  # the points before the hang are kept
+
+
+@pytest.mark.parametrize(
+    ("text", "key"),
+    [
+        ("time_limit = 0\n" + PYTHON_SCAN.format(rhs="healthy", extra=""), "time_limit"),
+        ('time_limit = "1h"\n' + PYTHON_SCAN.format(rhs="healthy", extra=""), "time_limit"),
+        (
+            PYTHON_SCAN.format(rhs="healthy", extra="call_time_limit = -1"),
+            "model.python.call_time_limit",
+        ),
+    ],
+)
+def test_bad_limits_are_refused_with_the_key(tmp_path, capsys, text, key):
+    code, out = _run(tmp_path, text)
+    assert code == 2
+    assert key in capsys.readouterr().err
+    assert not out.exists()

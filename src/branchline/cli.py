@@ -99,7 +99,7 @@ def _run_and_write(scan, out: Path, quiet: bool, confirm: bool = True) -> int:
     if not quiet:
         _python_notice(scan)
     progress = _Progress(enabled=not quiet and sys.stderr.isatty())
-    stop = StopRequest()
+    stop = StopRequest(time_limit=scan.time_limit)
     with catching_signals(stop):
         try:
             result = run_scan(scan, progress=progress, confirm=confirm, stop=stop)

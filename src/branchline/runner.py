@@ -24,7 +24,7 @@ from branchline.problems.stability_regions import stability_maps
 from branchline.problems.start_guess import start_distance
 from branchline.problems.switching import trace_switched
 from branchline.problems.window_search import run_search, search_box
-from branchline.results.records import Branch, Event, RunResult
+from branchline.results.records import STATUS_MAX_POINTS, Branch, Event, RunResult
 from branchline.scan.loader import Scan, TraceSpec
 from branchline.scan.search_section import SEARCH_START
 from branchline.stopping import Interrupted, StopRequest, watched_model
@@ -106,10 +106,13 @@ def _interrupted(branch: Branch, stop: StopRequest | None) -> Branch:
     where = ""
     if len(branch):
         where = f", the last at {branch.vary} = {branch.parameter_values[-1]:.10g}"
+    if stop.by_time_limit:  # a bound on the run's work, not an interrupt: a failure
+        cause = f"the run's time limit ({stop.time_limit:g} s, time_limit)"
+        status = Status.FAILED
+    else:
+        cause, status = str(stop.signal_name), Status.INTERRUPTED
     return replace(
-        branch,
-        status=Status.INTERRUPTED,
-        message=f"stopped by {stop.signal_name} after {len(branch)} points{where}",
+        branch, status=status, message=f"stopped by {cause} after {len(branch)} points{where}"
     )
 
 
@@ -175,6 +178,7 @@ def _follow(
             skipped += 1
             continue
         visited.append(event)
+        named = len(visited) <= len(spec.branch_names)  # the scan's branch_names, in order
         children = trace_switched(
             traced,
             parent,
@@ -182,10 +186,12 @@ def _follow(
             spec.steps,
             spec.interval,
             progress=counter(f"{spec.name}, branches switched at {parent.name}"),
-            first_number=started.get(parent.name, 0) + 1,
+            first_number=1 if named else started.get(parent.name, 0) + 1,
             limits=spec.limits,
+            prefix=f"{parent.name}.{spec.branch_names[len(visited) - 1]}" if named else None,
         )
-        started[parent.name] = started.get(parent.name, 0) + len(children)
+        if not named:
+            started[parent.name] = started.get(parent.name, 0) + len(children)
         for child in children:
             child = _interrupted(child, stop)
             if not stopped():
@@ -238,6 +244,25 @@ def _recheck_jacobian(model: Model, branches: list[Branch]) -> list[str]:
                 )
                 break
     return found
+
+
+def _blame_jacobian(branch: Branch, source: str) -> Branch:
+    """A branch cut short by max_points with a Jacobian known to be wrong: a failure
+    that says so (the corrector converges slowly with a wrong Jacobian, the steps
+    shrink, and the points are spent on a short stretch), not a cap to raise."""
+    if branch.status != STATUS_MAX_POINTS or len(branch) == 0:
+        return branch
+    stretch = float(np.ptp(branch.parameter_values))
+    return replace(
+        branch,
+        status=Status.FAILED,
+        message=(
+            f"{branch.message}; the {len(branch)} points cover only {branch.vary} in a stretch "
+            f"of {stretch:.3g} because the Jacobian function ({source}) disagrees with finite "
+            "differences (see the warnings): fix it, or leave out model.python.jacobian to use "
+            "differences"
+        ),
+    )
 
 
 def _observable_trouble(model: Model, branches: list[Branch]) -> str:
@@ -312,6 +337,8 @@ def run_scan(
     ['fold']
     """
     started = time.perf_counter()
+    if stop is None:  # the scan's time_limit bounds every run, from the command line or not
+        stop = StopRequest(time_limit=scan.time_limit)
     if model is None:
         model = build_model(scan.model, source=scan.source)
     compiled = time.perf_counter()
@@ -345,7 +372,12 @@ def run_scan(
             branches.extend(outcome.branches)
             events.extend(outcome.events)
             if model.jacobian_source:
-                warnings.extend(_recheck_jacobian(model, outcome.branches))
+                rechecks = _recheck_jacobian(model, outcome.branches)
+                warnings.extend(rechecks)
+                if rechecks or not check.ok:
+                    branches[-len(outcome.branches) :] = [
+                        _blame_jacobian(b, model.jacobian_source) for b in outcome.branches
+                    ]
         if spec.search is not None:
 
             def follow(found_spec, found_parameters, root):
@@ -386,7 +418,7 @@ def run_scan(
     )
     status = Status.FAILED if failed or failed_boundaries else Status.DONE
     if stopped:
-        status = Status.INTERRUPTED
+        status = Status.FAILED if stop.by_time_limit else Status.INTERRUPTED
         not_started = f"; not started: {', '.join(skipped)}" if skipped else ""
         message = f"{stop.reason}{': ' + message if message else ''}{not_started}"
     traced = time.perf_counter()

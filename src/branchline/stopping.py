@@ -16,8 +16,10 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import math
 import signal
 import threading
+import time
 from collections.abc import Callable, Iterator
 from typing import Any
 
@@ -36,6 +38,12 @@ WATCHED_CALLABLES = (
     "observables",
 )
 HANDLED_SIGNALS = ("SIGINT", "SIGTERM")
+# The "signal name" of a stop by the run's time limit.
+TIME_LIMIT = "time limit"
+# Model calls between two readings of the clock for the time limit: a call takes
+# microseconds to seconds, so the limit is still seen within a fraction of a second
+# of a fast model's run, and reading the clock at every call would cost a few per cent.
+CLOCK_EVERY = 64
 
 
 class Interrupted(ObservationFailed):
@@ -43,17 +51,35 @@ class Interrupted(ObservationFailed):
 
 
 class StopRequest:
-    """Whether a stop was requested, by which signal, and whether the model is running."""
+    """Whether a stop was requested, by which signal, and whether the model is running.
 
-    def __init__(self) -> None:
+    With ``time_limit`` (seconds, the scan's ``time_limit``) the request is
+    also made once that much wall-clock time has passed since it was created:
+    checked at every model call, and by an alarm (SIGALRM, main thread only)
+    under :func:`catching_signals`, so that a model call that never returns is
+    cut off too. A stop by the time limit is not an interrupt: the runner
+    reports it as a failure (exit 1) with the reason.
+    """
+
+    def __init__(self, time_limit: float | None = None) -> None:
         self.signal_name: str | None = None
         self.signal_number: int | None = None
         self.inside_model = 0
+        self.time_limit = time_limit
+        self.deadline = time.monotonic() + time_limit if time_limit is not None else math.inf
+        self._countdown = 1
 
     @property
     def requested(self) -> bool:
-        """True once a stop was requested."""
+        """True once a stop was requested (or the time limit has passed)."""
+        if self.signal_name is None and time.monotonic() > self.deadline:
+            self.request(TIME_LIMIT, int(getattr(signal, "SIGALRM", 14)))
         return self.signal_name is not None
+
+    @property
+    def by_time_limit(self) -> bool:
+        """True when the stop came from the time limit, not from a signal."""
+        return self.signal_name == TIME_LIMIT
 
     def request(self, name: str = "SIGINT", number: int = int(signal.SIGINT)) -> None:
         """Ask the run to stop (what the signal handler does; tests call it directly)."""
@@ -61,13 +87,22 @@ class StopRequest:
 
     @property
     def reason(self) -> str:
-        """Plain words for messages: 'interrupted (SIGINT)'."""
+        """Plain words for messages: 'interrupted (SIGINT)', or the time limit reached."""
+        if self.by_time_limit:
+            return f"the run's time limit of {self.time_limit:g} s was reached (time_limit)"
         return f"interrupted ({self.signal_name})"
 
     def raise_if_requested(self) -> None:
-        """Raise :class:`Interrupted` if a stop was requested."""
-        if self.signal_name is not None:
-            raise Interrupted(self.reason)
+        """Raise :class:`Interrupted` if a stop was requested or the time is up
+        (the clock is read every CLOCK_EVERY calls: this runs at every model call)."""
+        if self.signal_name is None:
+            self._countdown -= 1
+            if self._countdown > 0:
+                return
+            self._countdown = CLOCK_EVERY
+            if not self.requested:
+                return
+        raise Interrupted(self.reason)
 
 
 def _watch(function: Callable | None, stop: StopRequest) -> Callable | None:
@@ -113,12 +148,25 @@ def catching_signals(stop: StopRequest) -> Iterator[StopRequest]:
         if stop.inside_model:
             raise Interrupted(stop.reason)
 
+    def alarm(number: int, frame: Any) -> None:
+        if stop.signal_name is not None:  # already stopping (not `requested`: the time is up)
+            return
+        stop.request(TIME_LIMIT, number)
+        if stop.inside_model:  # a model call that does not return: cut it off
+            raise Interrupted(stop.reason)
+
     previous = {}
     for name in HANDLED_SIGNALS:
         number = getattr(signal, name)
         previous[number] = signal.signal(number, handler)
+    timed = stop.time_limit is not None and hasattr(signal, "setitimer")
+    if timed:
+        previous[signal.SIGALRM] = signal.signal(signal.SIGALRM, alarm)
+        signal.setitimer(signal.ITIMER_REAL, max(stop.deadline - time.monotonic(), 1e-3))
     try:
         yield stop
     finally:
+        if timed:
+            signal.setitimer(signal.ITIMER_REAL, 0.0)
         for number, old in previous.items():
             signal.signal(number, old)

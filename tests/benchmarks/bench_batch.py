@@ -1,5 +1,6 @@
 """Batch throughput and overhead, run by hand:
-python3 tests/benchmarks/bench_batch.py [MEMBERS] [--overhead]   (--overhead: part 2 only)
+python3 tests/benchmarks/bench_batch.py [MEMBERS] [--overhead] [--cpu]
+(--overhead: part 2 only; --cpu: part 2 in CPU time, the throughput stays wall-clock)
 
 1. Throughput (members per second) of one sampled ensemble of a small model
    (the harvested-stock scan of the tests, MEMBERS members, default 1000) in
@@ -10,8 +11,10 @@ python3 tests/benchmarks/bench_batch.py [MEMBERS] [--overhead]   (--overhead: pa
    tables and report.
 2. The batch machinery's overhead per member: the --jobs 1 batch's seconds
    per member against a bare single run of the same members (run_scan on the
-   compiled model plus write_results of its folder, no batch), as a
-   percentage.
+   compiled model without confirmations, as members run, plus write_results
+   of its folder, no batch), as a percentage; then the share of it that is the
+   one-off aggregation at the end of each batch (tables, report, figures) and
+   the overhead without it.
 
 Goals (issue 12): 2 workers >= 1.8x serial; overhead under 10 %. On a
 machine shared with other work the parallel figures fall short of what two
@@ -25,6 +28,7 @@ import os
 import sys
 import tempfile
 import time
+from contextlib import contextmanager
 from dataclasses import replace
 from pathlib import Path
 
@@ -56,10 +60,20 @@ def ensemble(members: int) -> dict:
     return scan
 
 
-def timed_batch(scan: dict, folder: Path, **backend) -> tuple[float, branchline.BatchResult]:
-    started = time.perf_counter()
+def clock() -> float:
+    """Wall-clock time; with --cpu this process's CPU time (for the overhead part,
+    which runs in this process: a loaded machine disturbs it far less)."""
+    return time.process_time() if "--cpu" in sys.argv else time.perf_counter()
+
+
+def timed_batch(
+    scan: dict, folder: Path, wall: bool = False, **backend
+) -> tuple[float, branchline.BatchResult]:
+    """Seconds of one batch: wall-clock with ``wall`` (workers in other processes), else clock()."""
+    timer = time.perf_counter if wall else clock
+    started = timer()
     result = branchline.run_batch([scan], folder, **backend)
-    seconds = time.perf_counter() - started
+    seconds = timer() - started
     print(f"  {backend}: {seconds:.1f} s (load average {os.getloadavg()[0]:.1f})", flush=True)
     return seconds, result
 
@@ -68,12 +82,37 @@ def bare_runs(scan: dict, folder: Path) -> float:
     """Seconds for the members run one by one without the batch (model compiled once)."""
     loaded = branchline.scan_from_dict(scan)
     model = build_model(loaded.model, source=loaded.source)
-    started = time.perf_counter()
+    started = clock()
     for plan in plan_batch([loaded]):
         own = member_scan(loaded, plan.values)
-        result = run_scan(own, model=replace(model, defaults=model.parameter_vector(plan.values)))
+        # as a member runs: no confirmation by simulation
+        result = run_scan(
+            own, model=replace(model, defaults=model.parameter_vector(plan.values)), confirm=False
+        )
         write_results(result, folder / str(plan.member), figures=False)
-    return time.perf_counter() - started
+    return clock() - started
+
+
+@contextmanager
+def timed_aggregation():
+    """Seconds spent aggregating at the end of batches (tables, report), summed in [0]."""
+    from branchline.batch import execute
+
+    spent = [0.0]
+    original = execute._conclude
+
+    def conclude(*args, **kwargs):
+        started = clock()
+        try:
+            return original(*args, **kwargs)
+        finally:
+            spent[0] += clock() - started
+
+    execute._conclude = conclude
+    try:
+        yield spent
+    finally:
+        execute._conclude = original
 
 
 def throughput(members: int, root: Path) -> None:
@@ -81,9 +120,9 @@ def throughput(members: int, root: Path) -> None:
     from distributed import LocalCluster
 
     scan = ensemble(members)
-    serial, result = timed_batch(scan, root / "serial", jobs=1)
+    serial, result = timed_batch(scan, root / "serial", wall=True, jobs=1)
     assert result.complete
-    two, pool = timed_batch(scan, root / "two", jobs=2)
+    two, pool = timed_batch(scan, root / "two", wall=True, jobs=2)
     assert pool.complete
     with LocalCluster(
         n_workers=2,
@@ -92,7 +131,9 @@ def throughput(members: int, root: Path) -> None:
         dashboard_address="127.0.0.1:0",
         worker_dashboard_address="127.0.0.1:0",
     ) as cluster:
-        dask, remote = timed_batch(scan, root / "dask", cluster=cluster.scheduler_address)
+        dask, remote = timed_batch(
+            scan, root / "dask", wall=True, cluster=cluster.scheduler_address
+        )
     assert remote.complete
     print(f"\n{members} members, harvested-stock model, {result.failed} failed members")
     print(f"{'backend':<28} {'seconds':>9} {'members/s':>10} {'vs serial':>10}")
@@ -121,17 +162,26 @@ def main() -> None:
         bare_runs(ensemble(10), root / "warm-bare")
         timed_batch(ensemble(10), root / "warm-batch", jobs=1)
         bare = batch = 0.0
-        for round_ in range(OVERHEAD_ROUNDS):
-            small = ensemble(OVERHEAD_MEMBERS)
-            small["ensemble"]["seed"] = 100 + round_
-            bare += bare_runs(small, root / f"bare{round_}")
-            batch += timed_batch(small, root / f"overhead{round_}", jobs=1)[0]
+        with timed_aggregation() as aggregation:
+            for round_ in range(OVERHEAD_ROUNDS):
+                small = ensemble(OVERHEAD_MEMBERS)
+                small["ensemble"]["seed"] = 100 + round_
+                bare += bare_runs(small, root / f"bare{round_}")
+                batch += timed_batch(small, root / f"overhead{round_}", jobs=1)[0]
         count = OVERHEAD_MEMBERS * OVERHEAD_ROUNDS
         per_bare, per_batch = bare / count, batch / count
+        once = aggregation[0] / OVERHEAD_ROUNDS
+        per_member = (batch - aggregation[0]) / count
         print(f"\noverhead, {count} members in this process, {OVERHEAD_ROUNDS} alternating rounds:")
         print(f"  bare single runs   {per_bare * 1e3:8.2f} ms per member")
         print(f"  batch (--jobs 1)   {per_batch * 1e3:8.2f} ms per member")
         print(f"  overhead           {(per_batch / per_bare - 1) * 100:8.1f} %")
+        print(
+            f"  of which the aggregation at the end (tables, report, figures): {once:.2f} s "
+            f"once per batch, {once / OVERHEAD_MEMBERS * 1e3:.2f} ms per member at "
+            f"{OVERHEAD_MEMBERS} members"
+        )
+        print(f"  per member without it {(per_member / per_bare - 1) * 100:8.1f} %")
     print(f"load average after: {os.getloadavg()[0]:.2f}")
 
 

@@ -46,6 +46,7 @@ class Backend:
     executor: Executor
     slots: int
     description: str
+    shared_disk: bool = False  # workers write member folders into the batch folder themselves
 
 
 def default_jobs() -> int:
@@ -74,7 +75,7 @@ def open_backend(jobs: int | None = None, cluster: str | None = None) -> Iterato
     if jobs < 1:
         raise BackendError(f"--jobs must be at least 1, got {jobs}")
     if jobs == 1:
-        yield Backend(InlineExecutor(), 1, "this process")
+        yield Backend(InlineExecutor(), 1, "this process", shared_disk=True)
         return
     # Fresh workers from a fork server that has imported branchline once: each
     # worker starts fast, compiles its own models (none inherited half-built
@@ -83,7 +84,7 @@ def open_backend(jobs: int | None = None, cluster: str | None = None) -> Iterato
     context.set_forkserver_preload(["branchline.batch.member"])
     pool = ProcessPoolExecutor(max_workers=jobs, mp_context=context, initializer=_ignore_interrupt)
     try:
-        yield Backend(pool, jobs, f"{jobs} local processes")
+        yield Backend(pool, jobs, f"{jobs} local processes", shared_disk=True)
     finally:
         pool.shutdown(wait=True, cancel_futures=True)
 

@@ -31,6 +31,8 @@ from branchline.scan.loader import Scan, load_scan, scan_from_dict
 # Members in flight per worker slot: enough to keep every worker busy while the
 # batch saves a finished one, few enough that an interruption loses little.
 IN_FLIGHT_PER_SLOT = 2
+# Lost members named in the batch's message; the rest are counted.
+LOST_SHOWN = 10
 
 # progress(finished, to_run, failed, elapsed seconds): after every member of this run.
 BatchProgress = Callable[[int, int, int, float], None]
@@ -68,38 +70,33 @@ def _load(scan: str | Path | dict | Scan) -> Scan:
     return load_scan(scan)
 
 
-def _lost(plan: MemberPlan, error: BaseException) -> MemberOutcome:
-    """The outcome of a member whose task itself failed on the backend."""
-    return MemberOutcome(
-        member=plan.member,
-        status=STATUS_FAILED,
-        seconds=0.0,
-        error=f"the worker failed: {type(error).__name__}: {error}",
-        files={},
-        events=(),
-        margins=(),
-        worker="",
-        built_model=False,
-    )
-
-
 def _run_members(
     todo: list[MemberPlan],
     scans: list[Scan],
     save: Callable[[MemberOutcome, MemberPlan], None],
     backend,
     progress: BatchProgress | None,
+    members: Path | None = None,
 ) -> str:
-    """Run ``todo`` on ``backend``, saving each as it finishes; "" or why it stopped early."""
+    """Run ``todo`` on ``backend``, saving each as it finishes; "" or why it stopped early.
+
+    With ``members`` (a backend on this disk) workers write each member's folder
+    there in place. A member whose task was lost on the backend (its worker
+    killed once too often, say) is not saved: it stays unfinished, is named in
+    the reason, and ``--resume`` runs it again.
+    """
     started = time.perf_counter()
     pending: dict[Future, MemberPlan] = {}
     queue = list(reversed(todo))
     finished = failed = 0
+    lost: list[str] = []
+    where = str(members) if members is not None and backend.shared_disk else None
     try:
         while queue or pending:
             while queue and len(pending) < IN_FLIGHT_PER_SLOT * backend.slots:
                 plan = queue.pop()
-                pending[backend.executor.submit(run_member, scans[plan.scan], plan)] = plan
+                task = backend.executor.submit(run_member, scans[plan.scan], plan, where)
+                pending[task] = plan
             done, _ = wait(pending, return_when=FIRST_COMPLETED)
             for future in sorted(done, key=lambda f: pending[f].member):
                 plan = pending.pop(future)
@@ -108,7 +105,8 @@ def _run_members(
                 except BrokenProcessPool:
                     raise
                 except Exception as error:  # the task never ran to its end on the worker
-                    outcome = _lost(plan, error)
+                    lost.append(f"{plan.member} ({type(error).__name__}: {error})")
+                    continue
                 save(outcome, plan)
                 finished += 1
                 failed += outcome.status == STATUS_FAILED
@@ -119,10 +117,18 @@ def _run_members(
     except BrokenProcessPool:
         reason = "a worker process died"
     else:
-        return ""
+        return _lost_members(lost)
     for future in pending:
         future.cancel()
-    return reason
+    return "; ".join([reason, _lost_members(lost)]) if lost else reason
+
+
+def _lost_members(lost: list[str]) -> str:
+    """Why members are missing after their tasks failed on the backend ("" if none did)."""
+    if not lost:
+        return ""
+    shown = ", ".join(lost[:LOST_SHOWN]) + (", ..." if len(lost) > LOST_SHOWN else "")
+    return f"{len(lost)} member(s) lost on the backend, not saved: {shown}"
 
 
 def run_batch(
@@ -181,7 +187,9 @@ def run_batch(
         finished = disk.prepare(folder, disk.plan_document(sources, plan), resume)
         disk.clear_staging(folder)
         todo = [member for member in plan if member.member not in finished]
-        stopped = _run_members(todo[:limit], loaded, save, backend, progress)
+        stopped = _run_members(
+            todo[:limit], loaded, save, backend, progress, folder / disk.MEMBERS_FOLDER
+        )
         where = backend.description
     return _conclude(folder, loaded, plan, stopped, where, time.perf_counter() - started)
 

@@ -91,7 +91,10 @@ def save_member(
     """Write one finished member's folder whole (staging folder, then a rename)."""
     members = folder / MEMBERS_FOLDER
     target = members / member_name(outcome.member, total)
-    staging = Path(tempfile.mkdtemp(prefix=f".{target.name}-", dir=members))
+    if outcome.staged:  # written in place by a worker on this disk
+        staging = Path(outcome.staged)
+    else:
+        staging = Path(tempfile.mkdtemp(prefix=f".{target.name}-", dir=members))
     try:
         for name, content in outcome.files.items():
             (staging / name).write_bytes(content)

@@ -4,9 +4,10 @@
 with ``--jobs 1``, a local process pool, or a Dask worker). It compiles the
 scan's model once per worker process (kept in :data:`_MODELS`), runs the
 member's scan with its ensemble values as parameter defaults, and returns
-everything the batch keeps as plain picklable data: the bytes of the member's
-results folder (so workers on other machines need no shared disk), its
-events.csv rows and its operating margins. It never raises for a failing
+everything the batch keeps as plain picklable data: its events.csv rows, its
+operating margins and its results folder, written in place under the batch's
+members folder by workers on the batch's own disk (the local backends), or as
+bytes from workers on other machines (Dask), which need no shared disk. It never raises for a failing
 member: the error becomes the outcome's ``status`` and ``error``.
 """
 
@@ -14,6 +15,7 @@ from __future__ import annotations
 
 import math
 import os
+import shutil
 import socket
 import tempfile
 import threading
@@ -28,10 +30,12 @@ from branchline.batch.plan import MemberPlan
 from branchline.model.build import Model, build_model
 from branchline.results.margins import operating_margins
 from branchline.results.records import RunResult
-from branchline.results.writers import write_results
+from branchline.results.writers import write_files, write_results
 from branchline.runner import run_scan
 from branchline.scan.loader import Scan
 
+# Hidden member folders being written start with this (cleared when a batch starts).
+STAGING_PREFIX = "."
 STATUS_DONE = "done"
 STATUS_FAILED = "failed"
 
@@ -54,6 +58,7 @@ class MemberOutcome:
     margins: tuple[dict[str, Any], ...]  # operating margin of each scanned trace
     worker: str  # host:pid of the worker process
     built_model: bool  # True if this member compiled the model (first on its worker)
+    staged: str = ""  # the folder written in place (local backends); then ``files`` is empty
 
 
 def member_scan(scan: Scan, values: dict[str, float]) -> Scan:
@@ -147,7 +152,19 @@ def _folder_bytes(result) -> dict[str, bytes]:
         return {path.name: path.read_bytes() for path in sorted(folder.iterdir())}
 
 
-def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
+def _folder_in_place(result, members: Path, member: int) -> str:
+    """Write the member's results folder straight into a hidden staging folder under
+    ``members`` (a disk the batch shares); the batch renames it into place."""
+    staging = Path(tempfile.mkdtemp(prefix=f"{STAGING_PREFIX}{member}-", dir=members))
+    try:
+        write_files(result, staging, figures=False)
+    except BaseException:
+        shutil.rmtree(staging, ignore_errors=True)
+        raise
+    return str(staging)
+
+
+def run_member(scan: Scan, plan: MemberPlan, members: str | None = None) -> MemberOutcome:
     """Run one member of a batch; a failure is recorded, never raised.
 
     Parameters
@@ -156,6 +173,10 @@ def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
         The batch's scan (its ``[ensemble]`` is ignored here).
     plan : MemberPlan
         The member's number and ensemble values.
+    members : str, optional
+        The batch's members folder, when this worker shares its disk (the local
+        backends): the results folder is written there in place (``staged``)
+        instead of travelling back as bytes (``files``).
 
     Returns
     -------
@@ -181,7 +202,11 @@ def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
             {k: _finite(v) for k, v in row.items()}
             for row in result.events_frame().to_dict(orient="records")
         )
-        files, margins = _folder_bytes(result), _margin_rows(result)
+        margins = _margin_rows(result)
+        if members is None:
+            files, staged = _folder_bytes(result), ""
+        else:
+            files, staged = {}, _folder_in_place(result, Path(members), plan.member)
     except Exception as error:  # any member's failure is recorded; the batch goes on
         return MemberOutcome(
             member=plan.member,
@@ -205,6 +230,7 @@ def run_member(scan: Scan, plan: MemberPlan) -> MemberOutcome:
         margins=margins,
         worker=worker,
         built_model=built,
+        staged=staged,
     )
 
 

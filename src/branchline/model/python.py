@@ -13,6 +13,7 @@ from __future__ import annotations
 import importlib
 import os
 import sys
+import time
 from collections.abc import Callable, Mapping
 from typing import Any
 
@@ -87,7 +88,8 @@ def _import_module(module_name: str, source: str, key: str):
 def python_rhs(spec: PythonModelSpec, source: str) -> Callable[[Array, Array], Array]:
     """The user's rhs as (x, p) -> ndarray (n,), its shape checked on every call."""
     user_rhs = resolve_callable(spec.rhs, source, "model.python.rhs")
-    return _wrap_rhs(_with_parameter_dict(user_rhs, tuple(spec.parameters), spec.rhs), spec, source)
+    user_rhs = _with_parameter_dict(user_rhs, tuple(spec.parameters), spec.rhs)
+    return _wrap_rhs(_timed(user_rhs, spec.call_time_limit, spec.rhs), spec, source)
 
 
 def python_jacobian(
@@ -106,6 +108,7 @@ def python_jacobian(
         return _difference_jacobian(rhs, sparse), sparse, derivatives
     user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
     user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters), spec.jacobian)
+    user_jacobian = _timed(user_jacobian, spec.call_time_limit, spec.jacobian)
     sample = probe(user_jacobian, probe_point, defaults)
     sparse = (
         scipy.sparse.issparse(sample)
@@ -258,6 +261,28 @@ def _with_parameter_dict(
             raise ModelCodeError(f"'{reference}' called sys.exit({error.code!r})") from None
         except Exception as error:
             raise ModelCodeError(f"'{reference}' raised {type(error).__name__}: {error}") from None
+
+    return call
+
+
+def _timed(function: Callable, limit: float, reference: str) -> Callable:
+    """``function`` with a wall-clock limit per call (``model.python.call_time_limit``).
+
+    Checked when the call returns: a call over the limit raises ModelCodeError,
+    so the trace stops there with its points kept. A call that never returns is
+    not seen here; the run's ``time_limit`` cuts it off (see branchline.stopping).
+    """
+
+    def call(x: Array, p: Array) -> Any:
+        started = time.perf_counter()
+        value = function(x, p)
+        spent = time.perf_counter() - started
+        if spent > limit:
+            raise ModelCodeError(
+                f"'{reference}' took {spent:.3g} s for one call, over the limit of {limit:g} s "
+                "(model.python.call_time_limit)"
+            )
+        return value
 
     return call
 

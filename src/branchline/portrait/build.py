@@ -40,7 +40,10 @@ def _traced_guesses(scan: Scan, model, settings: dict[str, float]):
     for spec in scan.traces:
         fixed = {name: value for name, value in settings.items() if name != spec.vary}
         traces.append(replace(spec, set={**spec.set, **fixed}))
-    result = run_scan(replace(scan, traces=tuple(traces)), confirm=False)
+    # only the equilibrium branches matter here: no orbits, boundaries or confirmations,
+    # and the model already compiled
+    plain = replace(scan, traces=tuple(traces), cycles=(), boundaries=())
+    result = run_scan(plain, model=model, confirm=False)
     guesses = []
     met = [b.states for b in result.branches if len(b)]
     for spec in scan.traces:

@@ -329,8 +329,7 @@ def local_comparison(
     ]
     radius = LOCAL_SHARE * (min(others) if others else 1.0) * unit
     jac = np.asarray(model.jacobian(eq.state, parameters), dtype=float)
-    pseudo = np.linalg.pinv(plane.basis)
-    reduced = pseudo @ jac @ plane.basis  # the linearization seen in the plane
+    reduced = plane.pseudo_inverse @ jac @ plane.basis  # the linearization seen in the plane
     rate = _rates(eq)
     slow = [abs(v) for v in eq.eigenvalues if abs(v) > 1e-9 * rate]
     duration = 3.0 / min(slow) if slow else 10.0 / rate

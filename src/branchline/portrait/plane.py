@@ -13,6 +13,7 @@ projected onto the plane.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -47,14 +48,19 @@ class Plane:
         """States of plane points: (2,) -> (n,), (k, 2) -> (k, n)."""
         return self.origin + np.asarray(coordinates) @ self.basis.T
 
+    @cached_property
+    def pseudo_inverse(self) -> Array:
+        """The pseudo-inverse of ``basis`` (2, n), computed once: projections run at
+        every step of every trajectory, and an SVD per call dominated a portrait."""
+        return np.linalg.pinv(self.basis)
+
     def to_plane(self, states: Array) -> Array:
         """Plane coordinates of states (least-squares projection): (n,) -> (2,), (k, n) -> (k, 2)."""
-        pseudo = np.linalg.pinv(self.basis)
-        return (np.asarray(states) - self.origin) @ pseudo.T
+        return (np.asarray(states) - self.origin) @ self.pseudo_inverse.T
 
     def project_vector(self, vectors: Array) -> Array:
         """Plane components of state-space vectors: (n,) -> (2,), (k, n) -> (k, 2)."""
-        return np.asarray(vectors) @ np.linalg.pinv(self.basis).T
+        return np.asarray(vectors) @ self.pseudo_inverse.T
 
     @property
     def exact(self) -> bool:

@@ -15,6 +15,7 @@ import matplotlib as mpl
 import numpy as np
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.ticker import MaxNLocator
 
 from branchline.results.reading import fmt, kind_words
 from branchline.simulation.records import (
@@ -34,6 +35,10 @@ PANEL_SIZE = (3.6, 2.6)
 TITLE_ROOM = 0.3  # inches above the panels for the figure's title
 # The figure is written once per run: a modest resolution keeps the run fast.
 PNG_DPI = 110
+PNG_COMPRESSION = 1
+# Tick marks per axis of a panel, and where its legend goes.
+TICKS = 4
+LEGEND_CORNER = "upper right"
 FONT_SIZE = 8
 SIMULATION_COLOURS = ("#D55E00", "#0072B2", "#009E73", "#CC79A7")  # Okabe & Ito (2008)
 BRANCH_COLOUR = "#888888"
@@ -124,9 +129,17 @@ def _panel(ax, record: Confirmation) -> None:
     handles, labels = ax.get_legend_handles_labels()
     unique = dict(zip(labels, handles))
     if unique:
+        # a fixed corner: "best" searches every curve's points for room at each draw
         ax.legend(
-            unique.values(), unique.keys(), fontsize=FONT_SIZE - 1.5, loc="best", framealpha=0.8
+            unique.values(),
+            unique.keys(),
+            fontsize=FONT_SIZE - 1.5,
+            loc=LEGEND_CORNER,
+            framealpha=0.8,
         )
+    # few ticks and a title at a fixed height: both are laid out again at every draw
+    ax.xaxis.set_major_locator(MaxNLocator(TICKS))
+    ax.yaxis.set_major_locator(MaxNLocator(TICKS))
     ax.set_xlabel(record.x_label)
     ax.set_ylabel(record.y_label)
     status = STATUS_WORDS.get(record.status, record.status)
@@ -135,6 +148,8 @@ def _panel(ax, record: Confirmation) -> None:
         f"{fmt(record.value, 6)}: {status}",
         fontsize=FONT_SIZE,
         color="#B00000" if record.status == MISMATCH else "black",
+        y=1.0,
+        pad=4.0,
     )
 
 
@@ -184,6 +199,13 @@ def confirmations_figure(confirmations: Sequence[Confirmation]) -> Figure | None
             ax.set_axis_off()
         fig.suptitle("Confirmation by simulation", fontsize=FONT_SIZE + 1)
     return fig
+
+
+def save_confirmations_figure(figure: Figure, path) -> None:
+    """Write confirmations.png: PNG_DPI, and light compression (zlib level 1): the
+    default level 6 spends about a third of the drawing time compressing, for a
+    file only about 15 % smaller."""
+    figure.savefig(path, dpi=PNG_DPI, pil_kwargs={"compress_level": PNG_COMPRESSION})
 
 
 def confirmation_summary(confirmations: Sequence[Confirmation], note: str = "") -> str:

@@ -12,6 +12,7 @@ without a screen, and a notebook can still display the returned figure.
 
 from __future__ import annotations
 
+import textwrap
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
@@ -25,6 +26,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from branchline.present.curves import DrawnCurve, connected_curves, hidden_curves
 from branchline.present.labels import GUIDE_GID, LABEL_FONT_SIZE, place_labels
 from branchline.present.oscillations import CYCLE_COLOURS, CYCLE_MARKERS, draw_cycles, families
 from branchline.present.search_strip import STRIP_HEIGHT, draw_search_strip, search_counts
@@ -58,6 +60,8 @@ LABEL_ZERO_RTOL = 1e-12
 # Said under the event kinds whenever a Hopf point is drawn: this diagram holds
 # equilibria only; the periodic orbits born there were not followed.
 HOPF_CYCLES_NOTE = "cycles at Hopf points: not computed"
+# Legend entries wrap at this many characters: three columns must fit the figure.
+LEGEND_WRAP = 40
 # Share of the viridis map used for many traces: its light yellow end is lost on white.
 VIRIDIS_SPAN = 0.85
 FIGURE_SIZE = (7.0, 6.5)  # inches: fits a journal page at full width
@@ -229,13 +233,44 @@ def _trace_legend_label(name: str, info: Mapping[str, Any]) -> str:
     entry = trace_entry(info, name)
     label = name if name.lower().startswith("trace") else f"trace {name}"
     if entry.get("parent"):
-        return f"{label} (branches off {entry['parent']})"
+        return textwrap.fill(f"{label} (branches off {entry['parent']})", LEGEND_WRAP)
     if entry.get("found_by_search"):
-        return f"{label} (found by the search)"
+        return f"{label}\n(found by the search)"
     return label
 
 
-def _fix_layout(fig: Figure) -> RendererBase:
+def _curve_legend_label(curve: DrawnCurve, info: Mapping[str, Any]) -> str:
+    """A curve's legend entry: its name, and what its traces are when it has several,
+    wrapped so that the legend's columns fit the figure's width."""
+    if len(curve.traces) == 1:
+        text = _trace_legend_label(curve.traces[0], info)
+    elif curve.parent and curve.name != " + ".join(curve.traces):
+        common = _common_prefix(curve.traces)
+        text = f"{curve.name}\n(branches off {curve.parent}; traces {common})"
+    elif curve.parent:
+        text = f"{_common_prefix(curve.traces)}\n(one curve, branches off {curve.parent})"
+    else:
+        rest = ", ".join(curve.traces[1:])
+        text = f"{_trace_legend_label(curve.traces[0], info)}\n(continued by {rest})"
+    return "\n".join(textwrap.fill(line, LEGEND_WRAP) for line in text.split("\n"))
+
+
+def _common_prefix(names: Sequence[str]) -> str:
+    """``a.1, .2`` for the halves ``a.1``, ``a.2``: the shared part written once."""
+    stems = {name.rpartition(".")[0] for name in names}
+    if len(stems) == 1 and "" not in stems:
+        return ", ".join([names[0], *("." + n.rpartition(".")[2] for n in names[1:])])
+    return ", ".join(names)
+
+
+def _geometry_columns(info, traces: Sequence[str], x: str, states: Sequence[str]) -> list[str]:
+    """The quantities in which pieces of curves are judged to connect: the
+    varied parameters of ``traces`` and the states."""
+    varies = [str(trace_entry(info, name).get("vary") or x) for name in traces]
+    return list(dict.fromkeys([*varies, *states]))
+
+
+def settle_layout(fig: Figure) -> RendererBase:
     """Run the constrained layout once, then keep it: return the renderer it used.
 
     Labels are placed against this layout (so it must not move afterwards),
@@ -344,7 +379,11 @@ def _diagram(points, events, info, x, y, cycles) -> Figure:
         period_axis = axes.pop(0) if orbit_families else None
         bottom, *rest = axes
         context = _context(points, events, info, x)
-        marks = _draw(top, bottom, points, events, info, (x, y), states)
+        drawn_names = _drawn_traces(points, info, x)
+        curves = connected_curves(
+            points, events, info, drawn_names, _geometry_columns(info, drawn_names, x, states)
+        )
+        marks, hidden = _draw(top, bottom, points, events, info, (x, y), states, curves)
         if orbit_families:
             styles = (STABLE_STYLE, UNSTABLE_STYLE, LINE_WIDTH, MARKER_SIZE)
             marks += draw_cycles(top, period_axis, cycles, events, x, y, styles)
@@ -362,9 +401,9 @@ def _diagram(points, events, info, x, y, cycles) -> Figure:
         title = info.get("title")
         if title:
             fig.suptitle(str(title), fontsize=FONT_SIZE + 2)
-        _legend(fig, points, events, info, x, context, orbit_families)
+        _legend(fig, events, info, curves, context, orbit_families, hidden)
         _note_hidden_traces(top, points, info, x)
-        place_labels(fig, top, marks, _fix_layout(fig), MARKER_SIZE)
+        place_labels(fig, top, marks, settle_layout(fig), MARKER_SIZE)
     return fig
 
 
@@ -381,7 +420,7 @@ def _empty_figure(info: Mapping[str, Any]) -> Figure:
         ax.text(0.5, 0.5, message, ha="center", va="center", wrap=True, transform=ax.transAxes)
         if info.get("title"):
             fig.suptitle(str(info["title"]), fontsize=FONT_SIZE + 2)
-        _fix_layout(fig)
+        settle_layout(fig)
     return fig
 
 
@@ -426,48 +465,64 @@ def trace_colour(k: int, count: int) -> Any:
     return mpl.colormaps["viridis"](VIRIDIS_SPAN * k / max(count - 1, 1))
 
 
-def _draw(top, bottom, points, events, info, names, states):
-    """Draw every trace (runs and event markers) in both panels; return the
-    event marks still to be labelled: (x, y, text, colour)."""
-    vary_of = {str(t.get("name")): str(t.get("vary")) for t in trace_entries(info)}
+def _draw(top, bottom, points, events, info, names, states, curves):
+    """Draw every curve (runs and event markers) in both panels, one colour per
+    connected curve; return the event marks still to be labelled (x, y, text,
+    colour) and the curves hidden under others (:func:`hidden_curves`)."""
     marks = []
     bottom.axhline(0.0, color="#333333", lw=0.9, zorder=1)
-    drawn = _drawn_traces(points, info, names[0])
-    for k, name in enumerate(drawn):
-        colour = trace_colour(k, len(drawn))
-        rows = trace_rows(points, name)
-        if rows.empty:
-            continue
-        vary = vary_of.get(name) or names[0]
-        runs = _runs(rows, events, name, vary, names, states)
-        _join_to_origin(runs, rows, origin_event(events, info, name), names, states)
-        for j, (stable, tx, ty, bx, by) in enumerate(runs):
-            style = STABLE_STYLE if stable else UNSTABLE_STYLE
-            gid = f"branch-{name}-{j}"  # element ids in SVG, for people who edit the file
-            top.plot(tx, ty, color=colour, ls=style, lw=LINE_WIDTH, zorder=3, gid=gid)
-            bottom.plot(
-                bx, by, color=colour, ls=style, lw=LINE_WIDTH * 0.8, zorder=3, gid=gid + "-eig"
-            )
-        for event in trace_events(events, name):
-            ex = _event_coordinate(event, names[0], rows, states)
-            ey = _event_coordinate(event, names[1], rows, states)
-            marker = EVENT_MARKERS.get(str(event.get("kind")), DEFAULT_MARKER)
-            for ax, yy in ((top, ey), (bottom, 0.0)):
-                ax.plot(
-                    ex,
-                    yy,
-                    marker=marker,
-                    ms=MARKER_SIZE if ax is top else MARKER_SIZE - 1.5,
-                    mfc="white",
-                    mec=colour,
-                    mew=1.5,
-                    ls="none",
-                    zorder=5,
-                )
-            marks.append((ex, ey, _mark_text(event, rows), colour))
+    shown = []
+    for k, curve in enumerate(curves):
+        colour = trace_colour(k, len(curves))
+        xs, ys = [], []
+        for name in curve.traces:
+            drawn = _draw_trace(top, bottom, points, events, info, names, states, name, colour)
+            if drawn is None:
+                continue
+            marks += drawn[0]
+            xs.append(drawn[1])
+            ys.append(drawn[2])
+        if xs:
+            shown.append((curve.name, np.concatenate(xs), np.concatenate(ys)))
     top.margins(x=0.03, y=0.08)
     bottom.margins(x=0.03)  # shared x: both panels must ask for the same room
-    return marks
+    return marks, hidden_curves(shown)
+
+
+def _draw_trace(top, bottom, points, events, info, names, states, name, colour):
+    """One trace's runs and event markers: (marks, drawn x, drawn y), None when empty."""
+    rows = trace_rows(points, name)
+    if rows.empty:
+        return None
+    vary = str(trace_entry(info, name).get("vary") or names[0])
+    runs = _runs(rows, events, name, vary, names, states)
+    _join_to_origin(runs, rows, origin_event(events, info, name), names, states)
+    for j, (stable, tx, ty, bx, by) in enumerate(runs):
+        style = STABLE_STYLE if stable else UNSTABLE_STYLE
+        gid = f"branch-{name}-{j}"  # element ids in SVG, for people who edit the file
+        top.plot(tx, ty, color=colour, ls=style, lw=LINE_WIDTH, zorder=3, gid=gid)
+        bottom.plot(bx, by, color=colour, ls=style, lw=LINE_WIDTH * 0.8, zorder=3, gid=gid + "-eig")
+    marks = []
+    for event in trace_events(events, name):
+        ex = _event_coordinate(event, names[0], rows, states)
+        ey = _event_coordinate(event, names[1], rows, states)
+        marker = EVENT_MARKERS.get(str(event.get("kind")), DEFAULT_MARKER)
+        for ax, yy in ((top, ey), (bottom, 0.0)):
+            ax.plot(
+                ex,
+                yy,
+                marker=marker,
+                ms=MARKER_SIZE if ax is top else MARKER_SIZE - 1.5,
+                mfc="white",
+                mec=colour,
+                mew=1.5,
+                ls="none",
+                zorder=5,
+            )
+        marks.append((ex, ey, _mark_text(event, rows), colour))
+    xs = np.concatenate([np.asarray(run[1], dtype=float) for run in runs])
+    ys = np.concatenate([np.asarray(run[2], dtype=float) for run in runs])
+    return marks, xs, ys
 
 
 def _mark_text(event: Mapping[str, Any], rows: pd.DataFrame) -> str:
@@ -541,18 +596,19 @@ def _shade_unstable(ax) -> None:
     ax.set_ylim(lo, hi)
 
 
-def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=()) -> None:
-    """One legend under the figure, in three columns: traces, line styles, event kinds."""
-    drawn = _drawn_traces(points, info, x) + list(orbits)
+def _legend(fig, events, info, curves, context: tuple[list, list], orbits=(), hidden=()):
+    """One legend under the figure, in three columns: curves, line styles, event kinds
+    (with the notes: cycles not computed, curves hidden under others)."""
+    drawn = [name for curve in curves for name in curve.traces]
     traces = [
         Line2D(
             [],
             [],
-            color=trace_colour(k, len(drawn)),
+            color=trace_colour(k, len(curves)),
             lw=LINE_WIDTH,
-            label=_trace_legend_label(name, info),
+            label=_curve_legend_label(curve, info),
         )
-        for k, name in enumerate(drawn[: len(drawn) - len(orbits)])
+        for k, curve in enumerate(curves)
     ] + [
         Line2D(
             [],
@@ -575,9 +631,7 @@ def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=())
         )
     if windows:
         styles.append(
-            Patch(
-                color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="two stable states coexist"
-            )
+            Patch(color=WINDOW_COLOUR, alpha=WINDOW_ALPHA, lw=0, label="two stable states coexist")
         )
     kinds: dict[str, Line2D] = {}
     for event in events:
@@ -596,8 +650,12 @@ def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=())
             ls="none",
             label=label,
         )
+    notes = []
     if any(str(e.get("kind")) == "hopf" and e.get("trace") in drawn for e in events):
-        kinds[HOPF_CYCLES_NOTE] = Line2D([], [], alpha=0.0, label=HOPF_CYCLES_NOTE)
+        notes.append(HOPF_CYCLES_NOTE)
+    notes += [hidden_note(under, over) for under, over in hidden]
+    for note in notes:
+        kinds[note] = Line2D([], [], alpha=0.0, label=note)
     groups = [g for g in (traces, styles, list(kinds.values())) if g]
     rows = max(len(g) for g in groups)
     handles = []
@@ -610,8 +668,13 @@ def _legend(fig, points, events, info, x, context: tuple[list, list], orbits=())
         ncols=len(groups),
         frameon=False,
         handlelength=2.6,
-        columnspacing=2.0,
+        columnspacing=1.5,
     )
+
+
+def hidden_note(under: str, over: str) -> str:
+    """The legend's note for a curve drawn exactly under another."""
+    return textwrap.fill(f"{under} lies under {over}: the same points in this view", LEGEND_WRAP)
 
 
 def save_figure(fig: Figure, path: str | Path) -> Path:
@@ -648,4 +711,11 @@ def _metadata(fmt_name: str) -> dict[str, Any]:
     return {}
 
 
-__all__ = ["TRACE_COLOURS", "available_names", "bifurcation_figure", "save_figure"]
+__all__ = [
+    "TRACE_COLOURS",
+    "available_names",
+    "bifurcation_figure",
+    "hidden_note",
+    "save_figure",
+    "settle_layout",
+]

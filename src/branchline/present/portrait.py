@@ -23,6 +23,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from branchline.portrait.compute import Portrait
+from branchline.present.plotting import settle_layout
 from branchline.results.reading import fmt
 
 FIGURE_SIZE = (12.0, 6.0)
@@ -263,6 +264,7 @@ def portrait_figure(portrait: Portrait) -> Figure:
                 color="#555555",
                 va="top",
             )
+        settle_layout(fig)  # laid out once here, not again by each file saved
     return fig
 
 

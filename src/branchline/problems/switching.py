@@ -181,6 +181,7 @@ def trace_switched(
     progress: Callable[[int], None] | None = None,
     first_number: int = 1,
     limits: Mapping[str | int, tuple[float, float]] | None = None,
+    prefix: str | None = None,
 ) -> list[Branch]:
     """Follow each half of the branch crossing ``parent_branch`` at ``event``.
 
@@ -201,17 +202,20 @@ def trace_switched(
     limits : mapping {state: (lo, hi)}, optional
         The parent trace's state limits; the children inherit them (see
         :func:`branchline.problems.equilibrium_branch.trace_branch`).
+    prefix : str, optional
+        The name put before the numbers instead of the parent's (a named
+        switched branch: ``<parent>.<name>``).
 
     Returns
     -------
     list of Branch
-        Named ``<parent>.<first_number>``, ... in the order started, each
+        Named ``<prefix>.<first_number>``, ... in the order started, each
         traced from its start point away from the branch point only.
     """
     k = model.parameter_index(parent_branch.vary)
     children = []
     for x0, p0, tangent in branch_starts(model, parent_branch, event, limits):
-        name = f"{parent_branch.name}.{first_number + len(children)}"
+        name = f"{prefix or parent_branch.name}.{first_number + len(children)}"
         child = trace_branch(
             model,
             name,

@@ -201,6 +201,7 @@ def _trace_entry(result: RunResult, branch: Branch) -> dict[str, Any]:
         "switch_branches": spec.switch_branches if spec else False,
         "limits": _limits_of(result, branch),
         "parent": branch.parent,
+        **_curve_name(branch),
         "status": branch.status,
         "message": branch.message,
         "points": len(branch),
@@ -209,6 +210,15 @@ def _trace_entry(result: RunResult, branch: Branch) -> dict[str, Any]:
         **found_by(result, branch.name),
     }
     return _jsonable(entry)
+
+
+def _curve_name(branch: Branch) -> dict[str, str]:
+    """``{"curve_name": name}`` for a half of a switched branch named in the scan
+    (``<parent>.<name>.<k>``, see ``branch_names``), else nothing."""
+    if not branch.parent or not branch.name.startswith(branch.parent + "."):
+        return {}
+    middle, _, number = branch.name[len(branch.parent) + 1 :].rpartition(".")
+    return {"curve_name": middle} if middle and number.isdigit() else {}
 
 
 def _limits_of(result: RunResult, branch: Branch) -> dict[str, list[float]]:

@@ -98,6 +98,13 @@ def write_results(
     return folder
 
 
+def write_files(result: RunResult, folder: Path, *, figures: bool = True) -> None:
+    """Write every results file into ``folder``, an existing empty folder whose
+    completeness the caller guarantees (a batch member's staging folder, renamed
+    into place when whole); no lock, no staging of its own."""
+    _write_files(result, Path(folder), figures)
+
+
 def _holds_complete_run(folder: Path) -> bool:
     info = read_marker(folder) if folder.is_dir() else None
     return bool(info) and info.get("status") != STATUS_INTERRUPTED
@@ -166,11 +173,11 @@ def _stability_map_figures(result: RunResult, info, events, folder: Path) -> Non
 
 def _confirmation_figure(result: RunResult, folder: Path) -> None:
     """confirmations.png: one small panel per event the run simulated."""
-    from branchline.present.confirmations import PNG_DPI, confirmations_figure
+    from branchline.present.confirmations import confirmations_figure, save_confirmations_figure
 
     figure = confirmations_figure(result.confirmations)
     if figure is not None:
-        figure.savefig(folder / "confirmations.png", dpi=PNG_DPI)
+        save_confirmations_figure(figure, folder / "confirmations.png")
 
 
 def _read_points(path: Path) -> pd.DataFrame:

@@ -105,6 +105,8 @@ class TraceSpec:
     limits: dict[str, tuple[float, float]] = field(default_factory=dict)
     # equilibria found without a start guess (start = "search" or a search_box)
     search: SearchSpec | None = None
+    # names of the branches switched onto, in the order they are started (one per branch point)
+    branch_names: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -121,6 +123,7 @@ class Scan:
     cycles: tuple[CycleSpec, ...] = ()
     boundaries: tuple[BoundarySpec, ...] = ()
     robust_margin: RobustMarginSpec | None = None
+    time_limit: float = 3600.0  # seconds for the whole run (DEFAULT_TIME_LIMIT)
 
     @property
     def stem(self) -> str:
@@ -216,6 +219,11 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>", *, remember: bo
     cycles = read_cycles(check, data.get("cycles"), traces, steps, _steps, _window)
     boundaries = read_boundaries(check, data.get("boundary"), traces, model.parameters, _steps)
     margin = read_robust_margin(check, data.get("robust_margin"), model.parameters)
+    time_limit = DEFAULT_TIME_LIMIT
+    if "time_limit" in data:
+        time_limit = check.number(data["time_limit"], "time_limit")
+        if not time_limit > 0:
+            check.fail("time_limit", f"must be positive (seconds), got {shown(time_limit)}")
     return Scan(
         source=str(source),
         title=title,
@@ -227,6 +235,7 @@ def scan_from_dict(data: dict[str, Any], source: str = "<dict>", *, remember: bo
         cycles=cycles,
         boundaries=boundaries,
         robust_margin=margin,
+        time_limit=time_limit,
     )
 
 
@@ -242,6 +251,7 @@ def _fixed(traces: tuple[TraceSpec, ...]) -> dict[str, str]:
 
 TOP_KEYS = (
     "title",
+    "time_limit",
     "model",
     "trace",
     "steps",
@@ -250,6 +260,10 @@ TOP_KEYS = (
     "boundary",
     "robust_margin",
 )
+# Seconds of wall-clock time a run may take (top-level time_limit), counted from the
+# start of the run: generous for any scan that finishes (the demos take seconds,
+# large sparse models minutes), yet every run ends, with its points written.
+DEFAULT_TIME_LIMIT = 3600.0
 TRACE_KEYS = (
     "name",
     "vary",
@@ -259,6 +273,7 @@ TRACE_KEYS = (
     "direction",
     "steps",
     "switch_branches",
+    "branch_names",
     "limits",
     *SEARCH_KEYS,
 )
@@ -375,6 +390,7 @@ def _trace(
     switch = table.get("switch_branches", True)
     if not isinstance(switch, bool):
         check.fail(f"{path}.switch_branches", f"must be true or false, got {shown(switch)}")
+    branch_names = _branch_names(check, table, path, name, switch)
     return TraceSpec(
         name=name,
         vary=vary,
@@ -386,6 +402,7 @@ def _trace(
         switch_branches=switch,
         limits=limits,
         search=search,
+        branch_names=branch_names,
     )
 
 
@@ -414,6 +431,25 @@ def _trace_name(check: Checker, value: object, key: str) -> str:
             "(<trace>#1, <trace>#2, ...)",
         )
     return name
+
+
+def _branch_names(
+    check: Checker, table: dict, path: str, trace: str, switch: bool
+) -> tuple[str, ...]:
+    """``branch_names``: plain names for the branches switched onto, unique, not dotted."""
+    key = f"{path}.branch_names"
+    if "branch_names" not in table:
+        return ()
+    value = table["branch_names"]
+    if not switch:
+        check.fail(key, "names switched branches, but switch_branches = false follows none")
+    if not isinstance(value, list) or not value:
+        check.fail(key, f"must be a list of names, e.g. [\"high\"], got {shown(value)}")
+    names = tuple(_trace_name(check, item, f"{key}[{i}]") for i, item in enumerate(value, 1))
+    for i, name in enumerate(names, 1):
+        if names.index(name) != i - 1 or name == trace:
+            check.fail(f"{key}[{i}]", f"the name '{name}' is used twice in trace '{trace}'")
+    return names
 
 
 def _overrides(

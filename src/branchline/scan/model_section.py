@@ -33,7 +33,12 @@ PYTHON_KEYS = (
     "observables",
     "second_derivative",
     "third_derivative",
+    "call_time_limit",
 )
+# Seconds one call of a user's Python function may take (model.python.call_time_limit):
+# far above any sane right-hand side (a 10^5-state model takes milliseconds), low
+# enough that a function waiting on a lock or a network share is noticed.
+DEFAULT_CALL_TIME_LIMIT = 60.0
 
 
 @dataclass(frozen=True)
@@ -63,6 +68,7 @@ class PythonModelSpec:
     # Optional exact directional derivatives B(v, w) and C(u, v, w) (README).
     second_derivative: str | None = None
     third_derivative: str | None = None
+    call_time_limit: float = DEFAULT_CALL_TIME_LIMIT  # seconds per call of a user function
 
 
 def read_model(
@@ -220,6 +226,14 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
     states = None
     if "states" in python:
         states = _python_states(check, python["states"], size)
+    limit = DEFAULT_CALL_TIME_LIMIT
+    if "call_time_limit" in python:
+        limit = check.number(python["call_time_limit"], "model.python.call_time_limit")
+        if not limit > 0:
+            check.fail(
+                "model.python.call_time_limit",
+                f"must be a positive number of seconds, got {shown(limit)}",
+            )
     state_names = states or tuple(f"x{i}" for i in range(size))
     for name in parameters:
         if name in state_names:
@@ -235,6 +249,7 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
         states=states,
         observables=observables,
         **forms,
+        call_time_limit=limit,
     )
 
 
