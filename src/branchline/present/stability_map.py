@@ -23,7 +23,6 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 
 from branchline.present.boundary_report import markdown_table
-from branchline.problems.stability_regions import region_raster
 from branchline.results.reading import fmt, kind_words
 
 FIGURE_SIZE = (7.0, 6.0)  # inches
@@ -141,6 +140,9 @@ def _label(ax, region, first: str, second: str, window) -> None:
 
 
 def _shade(ax, entry, curves, window) -> None:
+    # Imported here: it pulls in scipy, which reading a report must not load.
+    from branchline.problems.stability_regions import region_raster
+
     labels = region_raster(curves, window, int(entry.get("resolution", 200)))
     stable = np.zeros(labels.shape, dtype=float)
     stable[:] = np.nan
