@@ -15,6 +15,7 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -82,21 +83,24 @@ def event_locations(events: pd.DataFrame, scan: Scan, members: Sequence[int]) ->
     vary = {spec.name: spec.vary for spec in scan.traces}
     rows = []
     chosen = events[events["member"].isin(list(members))]
-    for member, group in chosen.groupby("member", sort=True):
-        counts: dict[tuple[str, str], int] = {}
-        for trace, kind, row in zip(group["trace"], group["kind"], group.to_dict("records")):
-            parameter = vary.get(str(trace).split(".")[0])
-            if parameter is None or row.get(parameter) is None:
-                continue
-            number = counts[(trace, kind)] = counts.get((trace, kind), 0) + 1
-            rows.append(
-                {
-                    "member": member,
-                    "label": f"{kind} {number} on {trace}",
-                    "parameter": parameter,
-                    "location": float(row[parameter]),
-                }
-            )
+    # one pass over the rows in member order (a stable sort keeps each member's
+    # trace order): a groupby with a table per member cost milliseconds per member
+    chosen = chosen.sort_values("member", kind="stable")
+    counts: dict[tuple[Any, str, str], int] = {}
+    for row in chosen.to_dict("records"):
+        trace, kind, member = row["trace"], row["kind"], row["member"]
+        parameter = vary.get(str(trace).split(".")[0])
+        if parameter is None or row.get(parameter) is None:
+            continue
+        number = counts[(member, trace, kind)] = counts.get((member, trace, kind), 0) + 1
+        rows.append(
+            {
+                "member": member,
+                "label": f"{kind} {number} on {trace}",
+                "parameter": parameter,
+                "location": float(row[parameter]),
+            }
+        )
     return pd.DataFrame(rows, columns=["member", "label", "parameter", "location"])
 
 

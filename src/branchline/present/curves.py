@@ -87,16 +87,22 @@ def connected_curves(
             first, second = sorted((ra, rb), key=list(traces).index)
             group[second] = first
 
-    scale = _spans(points, columns)
+    try:
+        scale = _spans(points, columns)
+    except (TypeError, ValueError):  # damaged tables: every trace its own curve
+        return [_curve([name], info) for name in traces]
     halves: dict[tuple[str, float], list[str]] = {}
     for name in traces:
         parent = trace_entry(info, name).get("parent")
         origin = origin_event(events, info, name)
         if not parent or origin is None or str(parent) not in group:
             continue
-        halves.setdefault((str(parent), float(origin["value"])), []).append(name)
-        if _continues(points, str(parent), name, origin, columns, scale):
-            join(str(parent), name)
+        try:
+            halves.setdefault((str(parent), float(origin["value"])), []).append(name)
+            if _continues(points, str(parent), name, origin, columns, scale):
+                join(str(parent), name)
+        except (KeyError, TypeError, ValueError):
+            continue  # a damaged record: this trace stays a curve of its own
     for members in halves.values():
         for other in members[1:]:
             join(members[0], other)
@@ -108,9 +114,9 @@ def connected_curves(
 
 def _curve(members: list[str], info: Mapping[str, Any]) -> DrawnCurve:
     entries = [trace_entry(info, name) for name in members]
-    parents = {e.get("parent") for e in entries}
+    parents = {str(e["parent"]) if e.get("parent") else None for e in entries}
     parent = next(iter(parents)) if len(parents) == 1 else None
-    labels = {e.get("curve_name") for e in entries}
+    labels = {str(e["curve_name"]) if e.get("curve_name") else None for e in entries}
     if len(labels) == 1 and None not in labels:
         name = str(next(iter(labels)))
     elif len(members) == 1:
