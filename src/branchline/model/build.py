@@ -19,6 +19,7 @@ derivatives come from finite differences (:mod:`branchline.numerics.differences`
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -29,6 +30,7 @@ import sympy as sp
 from branchline.errors import ExpressionError, ScanError
 from branchline.model.codegen import (
     Lazy,
+    SecondEntries,
     SymbolicDerivatives,
     observable_function,
     real_function,
@@ -97,6 +99,10 @@ class Model:
         df/dx and df/dp from one compiled call (expression models only).
     jacobian_source : str or None
         ``"module:function"`` of a Python model's own Jacobian, if it has one.
+    second_entries : callable () -> SecondEntries, or None
+        The nonzero entries of f_xx and d/dp f_x as one fast compiled call,
+        compiled on the first call (expression models only; boundary curves
+        contract them at every Newton iterate).
     linear_algebra : LinearAlgebraPolicy
         Where dense linear algebra ends and sparse begins for this model (tests
         give :data:`branchline.numerics.policy.DENSE` or ``SPARSE`` to run a case
@@ -122,6 +128,7 @@ class Model:
     derivatives: Callable[[Array, Array], tuple[Array, Array]] | None = None
     jacobian_source: str | None = None
     linear_algebra: LinearAlgebraPolicy = DEFAULT
+    second_entries: Callable[[], SecondEntries] | None = None
 
     @property
     def size(self) -> int:
@@ -255,6 +262,7 @@ def _build_expression_model(spec: ExpressionModelSpec, source: str) -> Model:
         second=Lazy(calculus.compile_second),
         third=Lazy(calculus.compile_third),
         jacobian_parameter_derivative=Lazy(calculus.compile_parameter_derivative),
+        second_entries=functools.cache(calculus.compile_second_entries),
         observables=observables,
         observable_names=tuple(spec.observables),
         equations=dict(spec.equations),

@@ -84,6 +84,111 @@ class SymbolicDerivatives:
         return _complex_function(entries, [self.x, self.p, self.v], shape)
 
 
+    def compile_second_entries(self) -> Callable:
+        """(x, p) -> :class:`SecondEntries`: the nonzero entries of f_xx and d/dp f_x.
+
+        One fast compiled call (Python floats, like ``rhs``) instead of two
+        broadcast numpy evaluations of B(v, .) and d/dp (f_x v): along a
+        two-parameter boundary these are contracted with a few vectors at every
+        Newton iterate (:meth:`SecondEntries.contract`).
+        """
+        hessian_keys, expressions = [], []
+        for i, entries in enumerate(self.hessian()):
+            for (j, k), entry in entries.items():
+                hessian_keys.append((i, j, k))
+                expressions.append(entry)
+        mixed_keys = []
+        for i, row in enumerate(self.jacobian):
+            for j, entry in enumerate(row):
+                for k, pk in enumerate(self.p):
+                    derivative = _derivative(entry, pk) if entry != 0 else sp.S.Zero
+                    if derivative != 0:
+                        mixed_keys.append((i, j, k))
+                        expressions.append(derivative)
+        values = (
+            real_function(expressions, [self.x, self.p], (len(expressions),))
+            if expressions
+            else None
+        )
+        return SecondEntries.build(
+            hessian_keys, mixed_keys, values, len(self.x), len(self.p)
+        )
+
+
+class SecondEntries:
+    """The nonzero entries of the second derivatives of f, and their contractions.
+
+    Holds (i, j, k) of every nonzero d2f_i/dx_j dx_k (both orders of each pair
+    j != k) and of every nonzero d2f_i/dx_j dp_k, and one fast compiled call
+    for their values at (x, p). Built by
+    :meth:`SymbolicDerivatives.compile_second_entries`. Small models contract
+    dense (n * n, n) and (n * n, m) arrays (a few array operations); larger
+    ones contract the entries themselves.
+    """
+
+    DENSE_UP_TO = 24  # states; the dense tensor has n^3 entries
+
+    __slots__ = (
+        "_evaluate",
+        "_split",
+        "dense",
+        "hessian_index",
+        "hessian_source",
+        "mixed_index",
+        "size",
+        "count",
+    )
+
+    @classmethod
+    def build(cls, hessian_keys, mixed_keys, evaluate, size: int, count: int) -> SecondEntries:
+        entries = cls()
+        mirrored = [(i, k, j, s) for s, (i, j, k) in enumerate(hessian_keys) if j != k]
+        keys = [(i, j, k, s) for s, (i, j, k) in enumerate(hessian_keys)] + mirrored
+        table = np.array(keys, dtype=np.intp).reshape(-1, 4)
+        entries.hessian_index = (table[:, 0], table[:, 1], table[:, 2])
+        entries.hessian_source = table[:, 3]
+        mixed = np.array(mixed_keys, dtype=np.intp).reshape(-1, 3)
+        entries.mixed_index = (mixed[:, 0], mixed[:, 1], mixed[:, 2])
+        entries._split = len(hessian_keys)
+        entries._evaluate = evaluate
+        entries.size, entries.count = size, count
+        entries.dense = size <= cls.DENSE_UP_TO
+        return entries
+
+    def __call__(self, x: Array, p: Array) -> tuple[Array, Array]:
+        """(values of the hessian entries (both orders), values of the mixed entries)."""
+        if self._evaluate is None:
+            return np.empty(0), np.empty(0)
+        flat = self._evaluate(x, p)
+        return flat[: self._split][self.hessian_source], flat[self._split :]
+
+    def contract(self, x: Array, p: Array, left: Array, right: Array) -> tuple[Array, Array]:
+        """For each column c of left, right (n, r): (sum_ij left_ic f_i,x_j x_k right_jc
+        over k, shape (n, r); sum_ij left_ic f_i,x_j p_k right_jc over k, (m, r)).
+
+        That is the gradient in x and in p of left^T f_x right, the exact
+        derivative of a bordered test function (Govaerts, chapter 4).
+        """
+        hessian, mixed = self(x, p)
+        n, m = self.size, self.count
+        r = left.shape[1]
+        if self.dense:
+            outer = (left[:, None, :] * right[None, :, :]).reshape(n * n, r)
+            tensor = np.zeros((n, n, n))
+            tensor[self.hessian_index] = hessian
+            bilinear = np.zeros((n, n, m))
+            bilinear[self.mixed_index] = mixed
+            return tensor.reshape(n * n, n).T @ outer, bilinear.reshape(n * n, m).T @ outer
+        shift = np.arange(r)
+        i, j, k = self.hessian_index
+        weights = (hessian[:, None] * left[i] * right[j]).ravel()
+        d_x = np.bincount((k[:, None] * r + shift).ravel(), weights, n * r)
+        i, j, k = self.mixed_index
+        weights = (mixed[:, None] * left[i] * right[j]).ravel()
+        d_p = np.bincount((k[:, None] * r + shift).ravel(), weights, m * r)
+        return d_x.reshape(n, r), d_p.reshape(m, r)
+
+
 def _derivative(expression: sp.Expr, variable: sp.Symbol) -> sp.Expr:
     """d expression / d variable, skipping sympy entirely when it cannot depend on it."""
     if variable not in expression.free_symbols:
@@ -316,6 +421,7 @@ def observable_function(
 
 __all__ = [
     "Lazy",
+    "SecondEntries",
     "SymbolicDerivatives",
     "observable_function",
     "real_function",

@@ -144,31 +144,28 @@ class HopfCurve(BoundaryCurve):
         if sps.issparse(a_matrix):
             square = (a_matrix @ a_matrix + kappa * sps.identity(n, format="csc")).tocsc()
         else:
-            square = a_matrix @ a_matrix + kappa * np.eye(n)
-        factored = Factored(bordered(square, self.left, self.right))
-        units = np.zeros((n + 2, 2))
-        units[n, 0] = units[n + 1, 1] = 1.0
-        solution = factored.solve(units)
-        adjoint = factored.solve(units, transposed=True)
+            square = a_matrix @ a_matrix
+            square.flat[:: n + 1] += kappa
+        solution, adjoint = Factored(bordered(square, self.left, self.right)).border_solutions(2)
         return solution[:n], solution[n:], adjoint[:n]
 
     def _gradients(self, x, p, a_matrix, parts, entries) -> Array:
-        """d G_ij / d(x, p2, kappa, p1) for each (i, j) of ``entries``, shape (len, n + 3)."""
+        """d G_ij / d(x, p2, kappa, p1) for each (i, j) of ``entries``, shape (len, n + 3).
+
+        G_ij,z = -(w_i^T B(A v_j, .) + (A^T w_i)^T B(v_j, .)) in x, likewise with
+        d/dp (f_x .) in p: both terms of every entry from one contraction
+        (:meth:`BoundaryCurve.gradient_forms`)."""
         vg, _, wg = parts
-        used = sorted({j for _, j in entries})
-        vectors = np.column_stack([vg[:, used], a_matrix @ vg[:, used]])
-        seconds = self.second_matrices(x, p, vectors)
-        mixed = self.mixed_blocks(x, p, vectors)
-        rows = []
-        for i, j in entries:
-            at = used.index(j)
-            plain, moved = at, at + len(used)  # columns v_j and A v_j
-            v, w = vg[:, j], wg[:, i]
-            atw = a_matrix.T @ w
-            d_x = seconds[moved].T @ w + seconds[plain].T @ atw
-            d_p = w @ mixed[moved] + atw @ mixed[plain]
-            rows.append(-np.concatenate([d_x, [d_p[0], float(w @ v), d_p[1]]]))
-        return np.array(rows)
+        w = wg[:, [i for i, _ in entries]]
+        v = vg[:, [j for _, j in entries]]
+        count = len(entries)
+        left = np.hstack([w, a_matrix.T @ w])
+        right = np.hstack([a_matrix @ v, v])
+        d_x, d_p = self.gradient_forms(x, p, left, right)
+        d_x = d_x[:, :count] + d_x[:, count:]
+        d_p = d_p[:, :count] + d_p[:, count:]
+        g_kappa = (w * v).sum(axis=0)
+        return -np.vstack([d_x, d_p[:1], g_kappa, d_p[1:]]).T
 
     def parameter_derivatives(self, u: Array, indices: list[int]) -> Array:
         """d(f, G_e1, G_e2)/dp for the parameters ``indices``, shape (n + 2, k), exact
@@ -213,13 +210,28 @@ class HopfCurve(BoundaryCurve):
 
     def evaluate(self, u: Array) -> tuple[Array, Any]:
         """The residual and its Jacobian (n + 2, n + 3), exact derivatives."""
-        x, p = u[: self.n], self.parameters_at(u)
-        a_matrix = self.state_matrix(x, p)
+        n = self.n
+        x, p = u[:n], self.parameters_at(u)
+        together = None if self.sparse else getattr(self.model, "derivatives", None)
+        if together is None:
+            a_matrix = self.state_matrix(x, p)
+            f_p = self.parameter_columns(x, p)
+        else:  # A and df/dp from one compiled call (dense models)
+            a_matrix, f_all = together(x, p)
+            a_matrix = a_matrix.toarray() if sps.issparse(a_matrix) else a_matrix
+            f_p = f_all[:, [self.second, self.first]]
         parts = self._parts(u, a_matrix)
         rows = self._gradients(x, p, a_matrix, parts, self.entries)
-        jacobian = self.stack(a_matrix, self._f_columns(x, p), rows)
-        values = [parts[1][i, j] for i, j in self.entries]
-        return np.concatenate([self.model.rhs(x, p), values]), jacobian
+        g = parts[1]
+        values = np.concatenate([self.model.rhs(x, p), [g[self.entries[0]], g[self.entries[1]]]])
+        if sps.issparse(a_matrix):
+            return values, self.stack(a_matrix, self._f_columns(x, p), rows)
+        jacobian = np.zeros((n + 2, n + 3))
+        jacobian[:n, :n] = a_matrix
+        jacobian[:n, n] = f_p[:, 0]
+        jacobian[:n, n + 2] = f_p[:, 1]
+        jacobian[n:] = rows
+        return values, jacobian
 
     def jacobian(self, u: Array) -> Any:
         """dG/du, shape (n + 2, n + 3); sparse for large sparse models."""
@@ -305,7 +317,9 @@ def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
     """The eigenvalues without the critical pair nearest +-i omega."""
     if eigenvalues.size < 2:
         return eigenvalues[:0]
-    first = int(np.argmin(np.abs(eigenvalues - 1j * omega)))
-    rest = np.delete(eigenvalues, first)
-    second = int(np.argmin(np.abs(rest + 1j * omega)))
-    return np.delete(rest, second)
+    keep = np.ones(eigenvalues.size, dtype=bool)
+    keep[int(np.argmin(np.abs(eigenvalues - 1j * omega)))] = False
+    distance = np.abs(eigenvalues + 1j * omega)
+    distance[~keep] = np.inf
+    keep[int(np.argmin(distance))] = False
+    return eigenvalues[keep]
