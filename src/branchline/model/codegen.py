@@ -129,14 +129,16 @@ class SecondEntries:
     DENSE_UP_TO = 24  # states; the dense tensor has n^3 entries
 
     __slots__ = (
+        "_dense_positions",
+        "_dense_sources",
         "_evaluate",
         "_split",
+        "count",
         "dense",
         "hessian_index",
         "hessian_source",
         "mixed_index",
         "size",
-        "count",
     )
 
     @classmethod
@@ -153,6 +155,18 @@ class SecondEntries:
         entries._evaluate = evaluate
         entries.size, entries.count = size, count
         entries.dense = size <= cls.DENSE_UP_TO
+        # Row-major positions in the (n + m, n * n) table: row k (a state) or n + k (a
+        # parameter), column i * n + j; sources index the compiled call's values.
+        square = size * size
+        entries._dense_positions = np.concatenate(
+            [
+                table[:, 2] * square + table[:, 0] * size + table[:, 1],
+                (size + mixed[:, 2]) * square + mixed[:, 0] * size + mixed[:, 1],
+            ]
+        )
+        entries._dense_sources = np.concatenate(
+            [table[:, 3], len(hessian_keys) + np.arange(len(mixed))]
+        )
         return entries
 
     def __call__(self, x: Array, p: Array) -> tuple[Array, Array]:
@@ -162,6 +176,28 @@ class SecondEntries:
         flat = self._evaluate(x, p)
         return flat[: self._split][self.hessian_source], flat[self._split :]
 
+    def bilinear(self, x: Array, p: Array) -> Callable[[Array, Array], Array] | None:
+        """(a, b) -> B(a, b) (n,) at this (x, p), from the dense Hessian (None for models
+        too large for a dense tensor); a, b may be complex."""
+        if not self.dense:
+            return None
+        n = self.size
+        square = n * n
+        table = np.zeros(square * n)
+        if self._evaluate is not None:
+            chosen = self._dense_positions < square * n
+            values = self._evaluate(x, p)[self._dense_sources[chosen]]
+            positions = self._dense_positions[chosen]  # row k, column i * n + j
+            k, rest = np.divmod(positions, square)
+            i, j = np.divmod(rest, n)
+            table[i * square + j * n + k] = values
+        hessian = table.reshape(n, square)  # row i, column j * n + k
+
+        def form(a: Array, b: Array) -> Array:
+            return hessian @ (np.asarray(a)[:, None] * np.asarray(b)[None, :]).ravel()
+
+        return form
+
     def contract(self, x: Array, p: Array, left: Array, right: Array) -> tuple[Array, Array]:
         """For each column c of left, right (n, r): (sum_ij left_ic f_i,x_j x_k right_jc
         over k, shape (n, r); sum_ij left_ic f_i,x_j p_k right_jc over k, (m, r)).
@@ -169,16 +205,16 @@ class SecondEntries:
         That is the gradient in x and in p of left^T f_x right, the exact
         derivative of a bordered test function (Govaerts, chapter 4).
         """
-        hessian, mixed = self(x, p)
         n, m = self.size, self.count
         r = left.shape[1]
-        if self.dense:
+        if self.dense:  # one (n + m, n * n) matrix of both tensors, times left (x) right
+            table = np.zeros((n + m) * n * n)
+            if self._evaluate is not None:
+                table[self._dense_positions] = self._evaluate(x, p)[self._dense_sources]
             outer = (left[:, None, :] * right[None, :, :]).reshape(n * n, r)
-            tensor = np.zeros((n, n, n))
-            tensor[self.hessian_index] = hessian
-            bilinear = np.zeros((n, n, m))
-            bilinear[self.mixed_index] = mixed
-            return tensor.reshape(n * n, n).T @ outer, bilinear.reshape(n * n, m).T @ outer
+            both = table.reshape(n + m, n * n) @ outer
+            return both[:n], both[n:]
+        hessian, mixed = self(x, p)
         shift = np.arange(r)
         i, j, k = self.hessian_index
         weights = (hessian[:, None] * left[i] * right[j]).ravel()

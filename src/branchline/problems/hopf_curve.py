@@ -127,15 +127,11 @@ class HopfCurve(BoundaryCurve):
         """(Vg (n, 2), G (2, 2), Wg (n, 2)) of the bordered system at u (the last one is
         kept: the engine observes the point it has just evaluated)."""
         last = self._last_parts
-        if (
-            last is not None
-            and last[1] is self.right
-            and last[2] is self.left
-            and np.array_equal(last[0], u)
-        ):
+        key = u.tobytes()
+        if last is not None and last[1] is self.right and last[2] is self.left and last[0] == key:
             return last[3]
         parts = self._solve_parts(u, a_matrix)
-        self._last_parts = (np.array(u, dtype=float), self.right, self.left, parts)
+        self._last_parts = (key, self.right, self.left, parts)
         return parts
 
     def _solve_parts(self, u: Array, a_matrix) -> tuple[Array, Array, Array]:
@@ -159,13 +155,13 @@ class HopfCurve(BoundaryCurve):
         w = wg[:, [i for i, _ in entries]]
         v = vg[:, [j for _, j in entries]]
         count = len(entries)
-        left = np.hstack([w, a_matrix.T @ w])
-        right = np.hstack([a_matrix @ v, v])
+        left = np.concatenate([w, a_matrix.T @ w], axis=1)
+        right = np.concatenate([a_matrix @ v, v], axis=1)
         d_x, d_p = self.gradient_forms(x, p, left, right)
         d_x = d_x[:, :count] + d_x[:, count:]
         d_p = d_p[:, :count] + d_p[:, count:]
         g_kappa = (w * v).sum(axis=0)
-        return -np.vstack([d_x, d_p[:1], g_kappa, d_p[1:]]).T
+        return -np.concatenate([d_x, d_p[:1], g_kappa[None], d_p[1:]]).T
 
     def parameter_derivatives(self, u: Array, indices: list[int]) -> Array:
         """d(f, G_e1, G_e2)/dp for the parameters ``indices``, shape (n + 2, k), exact
@@ -279,8 +275,11 @@ class HopfCurve(BoundaryCurve):
         """The first Lyapunov coefficient l1 at a Hopf point u (contract scaling)."""
         x, p = u[: self.n], self.parameters_at(u)
         omega = float(np.sqrt(max(u[self.n + 1], 0.0)))
+        entries = self._second_entries()
+        form = entries.bilinear(x, p) if entries is not None else None
+        model = self.model if form is None else _WithBilinear(self.model, form)
         try:
-            return hopf_normal_form(self.model, x, p, omega).lyapunov
+            return hopf_normal_form(model, x, p, omega).lyapunov
         except (np.linalg.LinAlgError, ArithmeticError):  # A singular: zero-Hopf, l1 undefined
             return float("nan")
 
@@ -323,3 +322,17 @@ def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
     distance[~keep] = np.inf
     keep[int(np.argmin(distance))] = False
     return eigenvalues[keep]
+
+
+class _WithBilinear:
+    """The model with B(a, b) from its dense Hessian at one point (x, p): l1 there calls B
+    four times, each a numpy-broadcast evaluation otherwise. Valid at that point only."""
+
+    def __init__(self, model, form) -> None:
+        self._model, self._form = model, form
+
+    def second(self, x: Array, p: Array, a: Array, b: Array) -> Array:
+        return self._form(a, b)
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._model, name)
