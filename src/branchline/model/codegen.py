@@ -83,7 +83,6 @@ class SymbolicDerivatives:
         shape = (len(self.x), len(self.p))
         return _complex_function(entries, [self.x, self.p, self.v], shape)
 
-
     def compile_second_entries(self) -> Callable:
         """(x, p) -> :class:`SecondEntries`: the nonzero entries of f_xx and d/dp f_x.
 
@@ -110,9 +109,7 @@ class SymbolicDerivatives:
             if expressions
             else None
         )
-        return SecondEntries.build(
-            hessian_keys, mixed_keys, values, len(self.x), len(self.p)
-        )
+        return SecondEntries.build(hessian_keys, mixed_keys, values, len(self.x), len(self.p))
 
 
 class SecondEntries:
