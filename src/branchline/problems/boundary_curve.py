@@ -207,10 +207,10 @@ class Factored:
             units = np.zeros((size, k))
             units[size - k :] = np.eye(k)
             return self.solve(units), self.solve(units, transposed=True)
-        try:
-            inverse = np.linalg.inv(self.matrix)
-        except np.linalg.LinAlgError as exc:
-            raise linalg.SingularMatrixError(str(exc)) from exc
+        with np.errstate(all="ignore"):
+            inverse = linalg.inverse_unchecked(self.matrix)
+        if not np.isfinite(inverse).all():
+            raise linalg.SingularMatrixError("the bordered matrix is singular or not finite")
         return inverse[:, size - k :], inverse[size - k :].T
 
 

@@ -139,10 +139,14 @@ class HopfCurve(BoundaryCurve):
         kappa = float(u[n + 1])
         if sps.issparse(a_matrix):
             square = (a_matrix @ a_matrix + kappa * sps.identity(n, format="csc")).tocsc()
-        else:
-            square = a_matrix @ a_matrix
-            square.flat[:: n + 1] += kappa
-        solution, adjoint = Factored(bordered(square, self.left, self.right)).border_solutions(2)
+            matrix = bordered(square, self.left, self.right)
+        else:  # [[A^2 + kappa I, W], [V^T, 0]] filled in place
+            matrix = np.zeros((n + 2, n + 2))
+            np.matmul(a_matrix, a_matrix, out=matrix[:n, :n])
+            matrix.flat[: n * (n + 3) : n + 3] += kappa
+            matrix[:n, n:] = self.left
+            matrix[n:, :n] = self.right.T
+        solution, adjoint = Factored(matrix).border_solutions(2)
         return solution[:n], solution[n:], adjoint[:n]
 
     def _gradients(self, x, p, a_matrix, parts, entries) -> Array:
@@ -249,8 +253,10 @@ class HopfCurve(BoundaryCurve):
         if not kappa > 0.0:
             self.neutral = np.array(u, dtype=float)
             raise ObservationFailed(NEUTRAL_SADDLE)
-        x, p = u[:n], self.parameters_at(u)
-        a_matrix = self.state_matrix(x, p)
+        if type(jacobian) is np.ndarray:  # the engine's G_u at u: A is its first block
+            a_matrix = jacobian[:n, :n]
+        else:
+            a_matrix = self.state_matrix(u[:n], self.parameters_at(u))
         vg, _, wg = self._parts(u, a_matrix)
         eigenvalues = self.eigenvalues(a_matrix)
         rest = _other_eigenvalues(eigenvalues, np.sqrt(kappa))
