@@ -195,29 +195,30 @@ class SecondEntries:
 
         return form
 
-    def contract(self, x: Array, p: Array, left: Array, right: Array) -> tuple[Array, Array]:
-        """For each column c of left, right (n, r): (sum_ij left_ic f_i,x_j x_k right_jc
-        over k, shape (n, r); sum_ij left_ic f_i,x_j p_k right_jc over k, (m, r)).
+    def contract(self, x: Array, p: Array, terms) -> tuple[Array, Array]:
+        """The gradient in x and in p of sum_t left_t^T f_x right_t, column by column.
 
-        That is the gradient in x and in p of left^T f_x right, the exact
-        derivative of a bordered test function (Govaerts, chapter 4).
+        ``terms`` is a sequence of (left, right) pairs of shape (n, r); returns
+        (sum_t sum_ij left_ic f_i,x_j x_k right_jc over k, shape (n, r);
+        the same with d/dp_k in place of d/dx_k, shape (m, r)): the exact
+        derivatives of bordered test functions (Govaerts, chapter 4).
         """
         n, m = self.size, self.count
-        r = left.shape[1]
+        r = terms[0][0].shape[1]
         if self.dense:  # one (n + m, n * n) matrix of both tensors, times left (x) right
             table = np.zeros((n + m) * n * n)
             if self._evaluate is not None:
                 table[self._dense_positions] = self._evaluate(x, p)[self._dense_sources]
-            outer = (left[:, None, :] * right[None, :, :]).reshape(n * n, r)
-            both = table.reshape(n + m, n * n) @ outer
+            outer = sum(left[:, None, :] * right[None, :, :] for left, right in terms)
+            both = table.reshape(n + m, n * n) @ outer.reshape(n * n, r)
             return both[:n], both[n:]
         hessian, mixed = self(x, p)
         shift = np.arange(r)
         i, j, k = self.hessian_index
-        weights = (hessian[:, None] * left[i] * right[j]).ravel()
+        weights = (hessian[:, None] * sum(left[i] * right[j] for left, right in terms)).ravel()
         d_x = np.bincount((k[:, None] * r + shift).ravel(), weights, n * r)
         i, j, k = self.mixed_index
-        weights = (mixed[:, None] * left[i] * right[j]).ravel()
+        weights = (mixed[:, None] * sum(left[i] * right[j] for left, right in terms)).ravel()
         d_p = np.bincount((k[:, None] * r + shift).ravel(), weights, m * r)
         return d_x.reshape(n, r), d_p.reshape(m, r)
 

@@ -117,22 +117,25 @@ class BoundaryCurve:
             return [stacked[:, c, :] for c in range(vectors.shape[1])]
         return [directional_jacobian(model, x, p, v) for v in vectors.T]
 
-    def gradient_forms(self, x: Array, p: Array, left: Array, right: Array) -> tuple[Array, Array]:
-        """d/dz (left_c^T f_x right_c) for each column c of left, right (n, r), with z the
-        states and the (second, first) parameters: shapes (n, r) and (2, r).
+    def gradient_forms(self, x: Array, p: Array, terms) -> tuple[Array, Array]:
+        """d/dz sum_t (left_t,c^T f_x right_t,c) for each column c, with ``terms`` pairs
+        (left_t, right_t) of shape (n, r) and z the states and the (second, first)
+        parameters: shapes (n, r) and (2, r).
 
         Expression models contract the nonzero entries of f_xx and d/dp f_x
         from one fast compiled call (``Model.second_entries``); Python models
-        go through B(right_c, .) and d/dp (f_x right_c) by differences.
+        go through B(right, .) and d/dp (f_x right) by differences.
         """
         entries = self._second_entries()
         if entries is not None:
-            d_x, d_p = entries.contract(x, p, left, right)
+            d_x, d_p = entries.contract(x, p, terms)
             return d_x, d_p[[self.second, self.first]]
-        seconds = self.second_matrices(x, p, right)
-        mixed = self.mixed_blocks(x, p, right)
-        d_x = np.column_stack([b.T @ w for b, w in zip(seconds, left.T, strict=True)])
-        d_p = np.column_stack([w @ m for m, w in zip(mixed, left.T, strict=True)])
+        d_x, d_p = 0.0, 0.0
+        for left, right in terms:
+            seconds = self.second_matrices(x, p, right)
+            mixed = self.mixed_blocks(x, p, right)
+            d_x = d_x + np.column_stack([b.T @ w for b, w in zip(seconds, left.T, strict=True)])
+            d_p = d_p + np.column_stack([w @ m for m, w in zip(mixed, left.T, strict=True)])
         return d_x, d_p
 
     def _second_entries(self):

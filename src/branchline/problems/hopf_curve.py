@@ -158,14 +158,13 @@ class HopfCurve(BoundaryCurve):
         vg, _, wg = parts
         w = wg[:, [i for i, _ in entries]]
         v = vg[:, [j for _, j in entries]]
-        count = len(entries)
-        left = np.concatenate([w, a_matrix.T @ w], axis=1)
-        right = np.concatenate([a_matrix @ v, v], axis=1)
-        d_x, d_p = self.gradient_forms(x, p, left, right)
-        d_x = d_x[:, :count] + d_x[:, count:]
-        d_p = d_p[:, :count] + d_p[:, count:]
-        g_kappa = (w * v).sum(axis=0)
-        return -np.concatenate([d_x, d_p[:1], g_kappa[None], d_p[1:]]).T
+        d_x, d_p = self.gradient_forms(x, p, ((w, a_matrix @ v), (a_matrix.T @ w, v)))
+        rows = np.empty((len(entries), self.n + 3))
+        rows[:, : self.n] = d_x.T
+        rows[:, self.n] = d_p[0]
+        rows[:, self.n + 1] = (w * v).sum(axis=0)
+        rows[:, self.n + 2] = d_p[1]
+        return -rows
 
     def parameter_derivatives(self, u: Array, indices: list[int]) -> Array:
         """d(f, G_e1, G_e2)/dp for the parameters ``indices``, shape (n + 2, k), exact
