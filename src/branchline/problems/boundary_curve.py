@@ -238,17 +238,15 @@ def orthonormal(columns: Array) -> Array:
     columns = np.asarray(columns, dtype=float).reshape(columns.shape[0], -1)
     if columns.shape[1] != 2:
         return np.linalg.qr(columns)[0]
-    a, b = columns.T
+    a, b = np.array(columns.T)  # contiguous copies: dot products of strided columns cost more
     first = a / math.sqrt(a.dot(a))
     second = b - first.dot(b) * first
     second -= first.dot(second) * first
     size = math.sqrt(second.dot(second))
     if not size > 1e-12 * math.sqrt(b.dot(b)):
         return np.linalg.qr(columns)[0]
-    out = np.empty_like(columns)
-    out[:, 0] = first
-    out[:, 1] = second / size
-    return out
+    second /= size
+    return np.array([first, second]).T
 
 
 def signed_product(values: Array) -> float:

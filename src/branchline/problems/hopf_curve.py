@@ -321,12 +321,12 @@ def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
     """The eigenvalues without the critical pair nearest +-i omega."""
     if eigenvalues.size < 2:
         return eigenvalues[:0]
-    keep = np.ones(eigenvalues.size, dtype=bool)
-    keep[int(np.argmin(np.abs(eigenvalues - 1j * omega)))] = False
-    distance = np.abs(eigenvalues + 1j * omega)
-    distance[~keep] = np.inf
-    keep[int(np.argmin(distance))] = False
-    return eigenvalues[keep]
+    values = eigenvalues.tolist()  # a few values: plain Python beats numpy's call overhead
+    up = min(range(len(values)), key=lambda k: abs(values[k] - 1j * omega))
+    down = min(
+        (k for k in range(len(values)) if k != up), key=lambda k: abs(values[k] + 1j * omega)
+    )
+    return np.array([v for k, v in enumerate(values) if k != up and k != down], dtype=complex)
 
 
 class _WithBilinear:
