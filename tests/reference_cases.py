@@ -1,19 +1,33 @@
 """Reference cases: small models with events known from published sources.
 
 Each :class:`ReferenceCase` is a record (id, source, model, trace, expected
-events) that the event, switching and continuation tests are parametrized over
-(``tests/test_reference_cases.py``), crossed with the dense and sparse linear
-algebra policies and both correctors. Values are closed forms from the source
-(computed here with scipy's brentq where the source gives an equation), never
-branchline output.
+events, the branches switched to at its branch points) that the continuation,
+event and switching tests (``test_continuation.py``, ``test_events.py``,
+``test_switching.py``) are parametrized over by :data:`COMBINATIONS`: every
+case crossed with the dense and sparse linear algebra policies (given to the
+model as a parameter, :mod:`branchline.numerics.policy`) and both correctors.
+Values are closed forms from the source (computed here with scipy's brentq
+where the source gives an equation), never branchline output. Each combination
+is traced once per test session (:func:`traced`, :func:`switched`) and shared
+by the three files.
 """
 
 from __future__ import annotations
 
+import functools
 import math
-from dataclasses import dataclass, field
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
 
+import numpy as np
+import pytest
 from scipy.optimize import brentq
+
+from branchline.model.build import build_model
+from branchline.numerics.policy import DENSE, SPARSE
+from branchline.problems.equilibrium_branch import locate_events, trace_branch
+from branchline.problems.switching import trace_switched
+from branchline.scan.loader import ExpressionModelSpec, StepSettings
 
 
 @dataclass(frozen=True)
@@ -34,7 +48,9 @@ class ReferenceCase:
 
     ``newton_cap`` is the largest number of corrector iterations any point of the
     trace may take (quadratic convergence from the tangent predictor: two or
-    three; the chord method converges linearly, so its cap is larger).
+    three, common practice; the chord method converges linearly, so its cap is
+    larger). ``child_relation(state, parameters)`` is the source's closed form of
+    the branches that cross at the branch point (zero on them), or None.
     """
 
     id: str
@@ -46,8 +62,9 @@ class ReferenceCase:
     interval: tuple[float, float]
     events: tuple[ExpectedEvent, ...]
     children: int = 0  # half-branches switched to at branch points
-    newton_cap: int = 4
-    chord_cap: int = 10
+    newton_cap: int = 3
+    chord_cap: int = 5
+    child_relation: Callable[[dict, dict], float] | None = None
     value_rtol: float = 1e-10
     notes: dict[str, str] = field(default_factory=dict)
 
@@ -128,6 +145,7 @@ CASES = (
         interval=(-0.5, 0.5),
         events=(ExpectedEvent("branch_point", 0.0, branching="pitchfork"),),
         children=2,
+        child_relation=lambda x, p: x["x"] ** 2 - p["p"],
     ),
     ReferenceCase(
         id="transcritical",
@@ -140,6 +158,7 @@ CASES = (
         interval=(-0.5, 0.5),
         events=(ExpectedEvent("branch_point", 0.0, branching="transcritical"),),
         children=2,
+        child_relation=lambda x, p: x["x"] - p["p"],
     ),
     ReferenceCase(
         id="lorenz_origin",
@@ -152,5 +171,75 @@ CASES = (
         interval=(0.0, 10.0),
         events=(ExpectedEvent("branch_point", 1.0, branching="pitchfork"),),
         children=2,
+        # C+-: x = y = +-sqrt(b (r - 1)), z = r - 1 (Lorenz 1963; Strogatz, section 9.2)
+        child_relation=lambda x, p: (
+            abs(x["x"] ** 2 - p["b"] * (p["r"] - 1.0))
+            + abs(x["y"] - x["x"])
+            + abs(x["z"] - (p["r"] - 1.0))
+        ),
     ),
 )
+
+POLICIES = {"dense": DENSE, "sparse": SPARSE}
+CORRECTORS = ("full", "chord")
+# Rejected steps of a whole trace: none is needed on these smooth branches (measured);
+# a couple is allowed for step control near events, more means the predictor fails.
+MAX_REJECTED_STEPS = 2
+BY_ID = {case.id: case for case in CASES}
+COMBINATIONS = [
+    pytest.param(case, policy, newton, id=f"{case.id}-{policy}-{newton}")
+    for case in CASES
+    for policy in sorted(POLICIES)
+    for newton in CORRECTORS
+]
+
+
+@dataclass(frozen=True)
+class Traced:
+    """One case traced with one policy and corrector, and the events located on it."""
+
+    model: object
+    branch: object
+    events: list
+
+
+@functools.cache
+def _traced(case_id: str, policy: str, newton: str) -> Traced:
+    case = BY_ID[case_id]
+    spec = ExpressionModelSpec(parameters=dict(case.parameters), equations=dict(case.equations))
+    model = replace(build_model(spec), linear_algebra=POLICIES[policy])
+    x0 = np.array([case.start[name] for name in model.states])
+    branch = trace_branch(
+        model,
+        case.id,
+        case.vary,
+        model.defaults,
+        x0,
+        case.interval,
+        "both",
+        StepSettings(),
+        newton=newton,
+    )
+    return Traced(model, branch, locate_events(model, branch))
+
+
+def traced(case: ReferenceCase, policy: str, newton: str) -> Traced:
+    """The case traced (both directions, default steps) with the policy and corrector."""
+    return _traced(case.id, policy, newton)
+
+
+@functools.cache
+def _switched(case_id: str, policy: str, newton: str) -> tuple:
+    case = BY_ID[case_id]
+    run = _traced(case_id, policy, newton)
+    return tuple(
+        child
+        for event in run.events
+        if event.kind == "branch_point"
+        for child in trace_switched(run.model, run.branch, event, StepSettings(), case.interval)
+    )
+
+
+def switched(case: ReferenceCase, policy: str, newton: str) -> tuple:
+    """The half-branches switched to at every branch point of :func:`traced`."""
+    return _switched(case.id, policy, newton)

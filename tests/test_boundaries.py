@@ -276,3 +276,49 @@ def test_bad_boundary_from_a_boundary_is_refused(change, key, words):
     with pytest.raises(ScanError) as err:
         branchline.scan_from_dict(data, "plant.toml")
     assert key in str(err.value) and words in str(err.value)
+
+
+@pytest.mark.parametrize("size", [3, 30])  # the dense table (small models) and the entries
+def test_second_derivative_entries_contract_like_sympy(size):
+    """The boundary curves' exact gradients (``Model.second_entries``) against second
+    derivatives taken by sympy itself, independently of branchline's code generation."""
+    import sympy as sp
+
+    from branchline.model.build import build_model
+    from branchline.scan.loader import ExpressionModelSpec
+
+    equations = {"x0": "a*x0*x1 - sin(x1)*b"}
+    for i in range(1, size):
+        equations[f"x{i}"] = f"x{i - 1}^2*b - exp(a*x{i}) + x{i}*x{(i + 1) % size}*a^2"
+    model = build_model(ExpressionModelSpec(parameters={"a": 0.3, "b": 1.2}, equations=equations))
+    entries = model.second_entries()
+    assert entries.dense == (size <= entries.DENSE_UP_TO)
+    rng = np.random.default_rng(7)
+    x, p = rng.uniform(-1.0, 1.0, size), np.array([0.3, 1.2])
+    terms = [(rng.normal(size=(size, 2)), rng.normal(size=(size, 2))) for _ in range(2)]
+    d_x, d_p = entries.contract(x, p, terms)
+
+    symbols = sp.symbols(f"x0:{size}")
+    a, b = sp.symbols("a b")
+    f = [a * symbols[0] * symbols[1] - sp.sin(symbols[1]) * b]
+    f += [
+        symbols[i - 1] ** 2 * b
+        - sp.exp(a * symbols[i])
+        + symbols[i] * symbols[(i + 1) % size] * a**2
+        for i in range(1, size)
+    ]
+    values = {**dict(zip(symbols, x, strict=True)), a: p[0], b: p[1]}
+    jacobian = sp.Matrix(f).jacobian(symbols)
+    expected_x = np.zeros((size, 2))
+    expected_p = np.zeros((2, 2))
+    for left, right in terms:
+        for c in range(2):
+            form = (sp.Matrix(left[:, c]).T * jacobian * sp.Matrix(right[:, c]))[0]
+            expected_x[:, c] += [float(sp.diff(form, s).subs(values)) for s in symbols]
+            expected_p[:, c] += [float(sp.diff(form, q).subs(values)) for q in (a, b)]
+    np.testing.assert_allclose(d_x, expected_x, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(d_p, expected_p, rtol=1e-12, atol=1e-12)
+    if entries.dense:
+        u, v = rng.normal(size=size) + 1j * rng.normal(size=size), rng.normal(size=size)
+        form = entries.bilinear(x, p)
+        np.testing.assert_allclose(form(u, v), model.second(x, p, u, v), rtol=1e-12, atol=1e-12)

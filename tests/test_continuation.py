@@ -33,6 +33,7 @@ from branchline.model.build import build_model
 from branchline.problems.equilibrium_branch import trace_branch
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
 from models_for_tests import hand_model
+from reference_cases import COMBINATIONS, MAX_REJECTED_STEPS, traced
 
 # ---------------------------------------------------------------------------
 # Spruce budworm (Strogatz, section 3.7)
@@ -641,3 +642,33 @@ def test_large_sparse_model_uses_leading_eigenvalues():
         jac = model.jacobian(branch.states[row], np.array([branch.parameter_values[row]]))
         dense = np.sort(np.linalg.eigvals(jac.toarray()).real)[::-1][:6]
         np.testing.assert_allclose(branch.eigenvalues[row].real, dense, rtol=1e-8)
+
+
+# ---------------------------------------------------------------------------
+# Every published reference case (tests/reference_cases.py), dense and sparse, both
+# correctors: the trace itself. Its events: test_events.py; its switching:
+# test_switching.py.
+# ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(("case", "policy", "newton"), COMBINATIONS)
+def test_reference_case_trace(case, policy, newton):
+    run = traced(case, policy, newton)
+    branch = run.branch
+    assert branch.status == "done", branch.message
+    # Real caps: per point, and on the whole trace's rejected steps.
+    cap = case.newton_cap if newton == "full" else case.chord_cap
+    assert 1 <= int(branch.newton_iterations[1:].max()) <= cap
+    assert branch.counts["rejected_steps"] <= MAX_REJECTED_STEPS
+    assert np.max(branch.residual_norms) <= 1e-10
+    # Every point is an equilibrium of the source's model.
+    k = run.model.parameter_index(case.vary)
+    for x, value in zip(branch.states, branch.parameter_values, strict=True):
+        p = np.array(branch.parameters, dtype=float)
+        p[k] = value
+        assert np.max(np.abs(run.model.rhs(x, p))) <= 1e-10
+    assert np.all(np.diff(branch.arclength) > 0)
+    # Both ends on the interval's edges (the branch leaves it), exactly.
+    lo, hi = case.interval
+    ends = sorted(branch.parameter_values[[0, -1]])
+    assert all(end in (lo, hi) for end in ends), ends

@@ -31,6 +31,7 @@ from branchline.problems.equilibrium_branch import (
     trace_branch,
 )
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
+from reference_cases import COMBINATIONS, traced
 
 PARAMETER_RTOL = 1e-10
 
@@ -458,7 +459,7 @@ SPARSE_CASES = {
 
 
 @pytest.mark.parametrize("case", sorted(SPARSE_CASES))
-def test_sparse_location_agrees_with_dense(case, monkeypatch):
+def test_sparse_location_agrees_with_dense(case):
     # Large models (more than location_sparse_above states) are located with SuperLU and
     # shift-invert Arnoldi; forcing that path on small models must give the same events.
     # A consistency check between two code paths (no external reference): the dense path
@@ -615,3 +616,31 @@ def test_an_event_that_cannot_be_refined_is_still_reported(monkeypatch):
     low, high = sorted(branch.parameter_values[row : row + 2])
     assert low <= fold.value <= high
     json.dumps(fold.details)
+
+
+# ---------------------------------------------------------------------------
+# Every published reference case (tests/reference_cases.py), dense and sparse, both
+# correctors: exactly the source's events, at its values, refined on their defining
+# systems (the sources are named in each record).
+# ---------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize(("case", "policy", "newton"), COMBINATIONS)
+def test_reference_case_events(case, policy, newton):
+    found = traced(case, policy, newton).events
+    assert sorted((e.kind, round(e.value, 6)) for e in found) == sorted(
+        (e.kind, round(e.value, 6)) for e in case.events
+    ), case.source
+    assert [e.arclength for e in found] == sorted(e.arclength for e in found)
+    for expected in case.events:
+        (event,) = [
+            e for e in found if e.kind == expected.kind and abs(e.value - expected.value) <= 1e-6
+        ]
+        assert event.value == pytest.approx(expected.value, rel=case.value_rtol, abs=1e-12)
+        assert "bisection" not in event.note and "not refined" not in event.note
+        if expected.frequency is not None:
+            assert event.frequency == pytest.approx(expected.frequency, rel=1e-10)
+        if expected.lyapunov is not None:
+            assert event.lyapunov == pytest.approx(expected.lyapunov, rel=1e-8)
+        if expected.branching is not None:
+            assert event.branching == expected.branching

@@ -129,3 +129,37 @@ def test_raster_geometry():
     assert set(np.unique(labels[:20])) == {labels[0, 0]} and labels[0, 0] != labels[-1, 0]
     cells = sample_cells(labels == labels[0, 0], 3)
     assert cells[0][0] < 25 and len(cells) == 3
+
+
+def test_plot_redraws_the_stability_map_from_the_folder(tmp_path, cusp, capsys):
+    """`branchline plot DIR` draws the map again from run.json and boundaries.csv alone:
+    the same picture as the run drew, written where the diagram goes."""
+    from branchline.cli import main
+
+    folder = branchline.write_results(cusp, tmp_path / "out")
+    drawn = (folder / "stability_map.png").read_bytes()
+    (folder / "stability_map.png").unlink()
+    assert main(["plot", str(folder)]) == 0
+    assert f"stability map written to {folder / 'stability_map.png'}" in capsys.readouterr().out
+    assert (folder / "stability_map.png").read_bytes() == drawn
+
+    elsewhere = tmp_path / "figures"
+    elsewhere.mkdir()
+    target = elsewhere / "diagram.svg"
+    assert main(["plot", str(folder), "--format", "svg", "--output", str(target)]) == 0
+    assert (elsewhere / "stability_map.svg").read_text().lstrip().startswith("<?xml")
+
+    (folder / "boundaries.csv").unlink()
+    assert main(["plot", str(folder)]) == 2
+    error = capsys.readouterr().err
+    assert "boundaries.csv" in error and "Traceback" not in error
+
+
+def test_plot_of_a_run_without_boundaries_draws_no_map(tmp_path, capsys):
+    from branchline.cli import main
+
+    scan = {key: value for key, value in CUSP.items() if key != "boundary"}
+    folder = branchline.write_results(branchline.run(scan, confirm=False), tmp_path / "out")
+    assert main(["plot", str(folder)]) == 0
+    assert "stability map" not in capsys.readouterr().out
+    assert not (folder / "stability_map.png").exists()

@@ -11,6 +11,7 @@ from branchline.model.build import build_model
 from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.problems.switching import SWITCH_OFFSET, branch_starts, trace_switched
 from branchline.scan.loader import ExpressionModelSpec, StepSettings
+from reference_cases import COMBINATIONS, switched
 
 INTERVAL = (-0.5, 0.5)
 
@@ -131,3 +132,27 @@ def test_no_starts_for_other_events():
     (fold,) = locate_events(model, branch)
     assert branch_starts(model, branch, fold) == []
     assert trace_switched(model, branch, fold, StepSettings(), (0.0, 0.4)) == []
+
+
+# ---------------------------------------------------------------------------
+# Every published reference case with a branch point (tests/reference_cases.py), dense
+# and sparse, both correctors: the half-branches switched to lie on the source's
+# closed form of the crossing branches.
+# ---------------------------------------------------------------------------
+
+SWITCHING = [c for c in COMBINATIONS if c.values[0].children]
+
+
+@pytest.mark.parametrize(("case", "policy", "newton"), SWITCHING)
+def test_reference_case_switching(case, policy, newton):
+    children = switched(case, policy, newton)
+    assert len(children) == case.children, case.source
+    for child in children:
+        assert child.status == "done", child.message
+        assert 1 <= int(child.newton_iterations[1:].max()) <= case.newton_cap
+        assert np.max(child.residual_norms) <= 1e-10
+        for x, value in zip(child.states, child.parameter_values, strict=True):
+            parameters = dict(case.parameters)
+            parameters[case.vary] = value
+            state = dict(zip(case.equations, x, strict=True))  # the model's state order
+            assert abs(case.child_relation(state, parameters)) <= 1e-9, (value, x)

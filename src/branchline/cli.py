@@ -286,6 +286,25 @@ def _command_plot(args: argparse.Namespace) -> int:
         _error(f"--output {target}: cannot write it ({err.strerror or err})")
         return EXIT_INVALID
     print(f"diagram written to {target}")
+    return _redraw_stability_maps(saved, target.parent, args.format)
+
+
+def _redraw_stability_maps(saved, folder: Path, suffix: str) -> int:
+    """The run's stability maps drawn again beside the diagram (none without boundaries)."""
+    from branchline.results.writers import ResultsFolderError, redraw_stability_maps
+
+    try:
+        written = redraw_stability_maps(saved, folder, suffix)
+    except ResultsFolderError as err:
+        _error(str(err))
+        return EXIT_INVALID
+    except OSError as err:
+        _error(f"{folder}: cannot write the stability map ({err.strerror or err})")
+        return EXIT_INVALID
+    except Exception as err:  # a damaged folder must not end in a traceback
+        return _damaged(str(saved.folder), err)
+    for path in written:
+        print(f"stability map written to {path}")
     return EXIT_OK
 
 
@@ -368,7 +387,9 @@ def build_parser() -> argparse.ArgumentParser:
     portrait.add_argument("--quiet", action="store_true", help="print nothing but errors")
     portrait.set_defaults(handler=_command_portrait)
 
-    plot = sub.add_parser("plot", help="redraw the diagram of a results folder")
+    plot = sub.add_parser(
+        "plot", help="redraw the diagram (and any stability map) of a results folder"
+    )
     plot.add_argument("folder")
     plot.add_argument("--x", help="horizontal axis: a parameter or state")
     plot.add_argument("--y", help="vertical axis: a state, parameter, observable or norm")

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -37,6 +38,9 @@ from branchline.model.python import (
 from branchline.numerics.differences import central_jacobian, directional_derivative
 from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 from branchline.scan.model_section import ExpressionModelSpec, PythonModelSpec
+
+if TYPE_CHECKING:
+    from branchline.model.codegen import SecondEntries
 
 Array = np.ndarray
 
@@ -90,6 +94,10 @@ class Model:
         column ``parameter`` (expression models only; what a trace calls).
     jacobian_source : str or None
         ``"module:function"`` of a Python model's own Jacobian, if it has one.
+    second_entries : callable () -> SecondEntries, or None
+        The nonzero entries of f_xx and d/dp f_x as one fast compiled call,
+        compiled on the first call (expression models only; boundary curves
+        contract them at every Newton iterate).
     linear_algebra : LinearAlgebraPolicy
         Where dense linear algebra ends and sparse begins for this model (tests
         give :data:`branchline.numerics.policy.DENSE` or ``SPARSE`` to run a case
@@ -115,6 +123,7 @@ class Model:
     derivatives: Callable[[Array, Array], tuple[Array, Array]] | None = None
     jacobian_source: str | None = None
     linear_algebra: LinearAlgebraPolicy = DEFAULT
+    second_entries: Callable[[], SecondEntries] | None = None
 
     @property
     def size(self) -> int:
@@ -228,6 +237,7 @@ def _build_expression_model(spec: ExpressionModelSpec, source: str) -> Model:
         second=functions.second,
         third=functions.third,
         jacobian_parameter_derivative=functions.jacobian_parameter_derivative,
+        second_entries=functions.second_entries,
         observables=functions.observables if spec.observables else _no_observables,
         observable_names=tuple(spec.observables),
         sparse=functions.sparse,

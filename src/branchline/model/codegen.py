@@ -314,3 +314,114 @@ __all__ = [
     "mixed_contraction",
     "symmetric_contraction",
 ]
+
+
+class SecondEntries:
+    """The nonzero entries of the second derivatives of f, and their contractions.
+
+    Holds (i, j, k) of every nonzero d2f_i/dx_j dx_k (both orders of each pair
+    j != k) and of every nonzero d2f_i/dx_j dp_k, and one fast compiled call
+    for their values at (x, p). Built by
+    :meth:`~branchline.model.expression_model.ExpressionFunctions.second_entries`. Small models contract
+    dense (n * n, n) and (n * n, m) arrays (a few array operations); larger
+    ones contract the entries themselves.
+    """
+
+    DENSE_UP_TO = 24  # states; the dense tensor has n^3 entries
+
+    __slots__ = (
+        "_dense_positions",
+        "_dense_sources",
+        "_evaluate",
+        "_split",
+        "count",
+        "dense",
+        "hessian_index",
+        "hessian_source",
+        "mixed_index",
+        "size",
+    )
+
+    @classmethod
+    def build(cls, hessian_keys, mixed_keys, evaluate, size: int, count: int) -> SecondEntries:
+        entries = cls()
+        mirrored = [(i, k, j, s) for s, (i, j, k) in enumerate(hessian_keys) if j != k]
+        keys = [(i, j, k, s) for s, (i, j, k) in enumerate(hessian_keys)] + mirrored
+        table = np.array(keys, dtype=np.intp).reshape(-1, 4)
+        entries.hessian_index = (table[:, 0], table[:, 1], table[:, 2])
+        entries.hessian_source = table[:, 3]
+        mixed = np.array(mixed_keys, dtype=np.intp).reshape(-1, 3)
+        entries.mixed_index = (mixed[:, 0], mixed[:, 1], mixed[:, 2])
+        entries._split = len(hessian_keys)
+        entries._evaluate = evaluate
+        entries.size, entries.count = size, count
+        entries.dense = size <= cls.DENSE_UP_TO
+        # Row-major positions in the (n + m, n * n) table: row k (a state) or n + k (a
+        # parameter), column i * n + j; sources index the compiled call's values.
+        square = size * size
+        entries._dense_positions = np.concatenate(
+            [
+                table[:, 2] * square + table[:, 0] * size + table[:, 1],
+                (size + mixed[:, 2]) * square + mixed[:, 0] * size + mixed[:, 1],
+            ]
+        )
+        entries._dense_sources = np.concatenate(
+            [table[:, 3], len(hessian_keys) + np.arange(len(mixed))]
+        )
+        return entries
+
+    def __call__(self, x: Array, p: Array) -> tuple[Array, Array]:
+        """(values of the hessian entries (both orders), values of the mixed entries)."""
+        if self._evaluate is None:
+            return np.empty(0), np.empty(0)
+        flat = self._evaluate(x, p)
+        return flat[: self._split][self.hessian_source], flat[self._split :]
+
+    def bilinear(self, x: Array, p: Array) -> Callable[[Array, Array], Array] | None:
+        """(a, b) -> B(a, b) (n,) at this (x, p), from the dense Hessian (None for models
+        too large for a dense tensor); a, b may be complex."""
+        if not self.dense:
+            return None
+        n = self.size
+        square = n * n
+        table = np.zeros(square * n)
+        if self._evaluate is not None:
+            chosen = self._dense_positions < square * n
+            values = self._evaluate(x, p)[self._dense_sources[chosen]]
+            positions = self._dense_positions[chosen]  # row k, column i * n + j
+            k, rest = np.divmod(positions, square)
+            i, j = np.divmod(rest, n)
+            table[i * square + j * n + k] = values
+        hessian = table.reshape(n, square)  # row i, column j * n + k
+
+        def form(a: Array, b: Array) -> Array:
+            return hessian @ (np.asarray(a)[:, None] * np.asarray(b)[None, :]).ravel()
+
+        return form
+
+    def contract(self, x: Array, p: Array, terms) -> tuple[Array, Array]:
+        """The gradient in x and in p of sum_t left_t^T f_x right_t, column by column.
+
+        ``terms`` is a sequence of (left, right) pairs of shape (n, r); returns
+        (sum_t sum_ij left_ic f_i,x_j x_k right_jc over k, shape (n, r);
+        the same with d/dp_k in place of d/dx_k, shape (m, r)): the exact
+        derivatives of bordered test functions (Govaerts, chapter 4).
+        """
+        n, m = self.size, self.count
+        r = terms[0][0].shape[1]
+        if self.dense:  # one (n + m, n * n) matrix of both tensors, times left (x) right
+            table = np.zeros((n + m) * n * n)
+            if self._evaluate is not None:
+                table[self._dense_positions] = self._evaluate(x, p)[self._dense_sources]
+            outer = sum(left[:, None, :] * right[None, :, :] for left, right in terms)
+            both = table.reshape(n + m, n * n) @ outer.reshape(n * n, r)
+            return both[:n], both[n:]
+        hessian, mixed = self(x, p)
+        shift = np.arange(r)
+        i, j, k = self.hessian_index
+        weights = (hessian[:, None] * sum(left[i] * right[j] for left, right in terms)).ravel()
+        d_x = np.bincount((k[:, None] * r + shift).ravel(), weights, n * r)
+        i, j, k = self.mixed_index
+        weights = (mixed[:, None] * sum(left[i] * right[j] for left, right in terms)).ravel()
+        d_p = np.bincount((k[:, None] * r + shift).ravel(), weights, m * r)
+        return d_x.reshape(n, r), d_p.reshape(m, r)

@@ -24,6 +24,7 @@ from branchline.model.codegen import (
     CompiledBlock,
     DenseOrSparse,
     Lazy,
+    SecondEntries,
     generate_block,
     mixed_contraction,
     symmetric_contraction,
@@ -180,6 +181,7 @@ class ExpressionFunctions:
         self.second = Lazy(lambda: self._form("second", 2))
         self.third = Lazy(lambda: self._form("third", 3))
         self.jacobian_parameter_derivative = Lazy(self._mixed)
+        self._second_entries: SecondEntries | None = None
 
     def rhs(self, x: Array, p: Array) -> Array:
         """f(x, p), shape (n,) or (n, *trailing axes of x)."""
@@ -240,6 +242,25 @@ class ExpressionFunctions:
             return values.reshape((self.n, self.m, *values.shape[1:]))
 
         return mixed
+
+    def second_entries(self) -> SecondEntries:
+        """The nonzero entries of f_xx and d/dp f_x as one call (:class:`SecondEntries`),
+        from the ``second`` and ``mixed`` blocks, built on the first call."""
+        if self._second_entries is None:
+            second, mixed = self.blocks.get("second"), self.blocks.get("mixed")
+
+            def evaluate(x: Array, p: Array) -> Array:
+                return np.concatenate([second.values(x, p), mixed.values(x, p)])
+
+            empty = second.count + mixed.count == 0
+            self._second_entries = SecondEntries.build(
+                [tuple(row) for row in second.indices.tolist()],
+                [tuple(row) for row in mixed.indices.tolist()],
+                None if empty else evaluate,
+                self.n,
+                self.m,
+            )
+        return self._second_entries
 
     def observables(self, x: Array, p: Array) -> dict[str, Any]:
         """{name: value} of the observables (floats at one point, arrays over many)."""

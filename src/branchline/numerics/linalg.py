@@ -57,17 +57,31 @@ def _private_gufuncs():
         def eigvals(matrix: Array) -> Array:
             return gufuncs.eigvals(matrix, signature="d->D")
 
+        def inverse(matrix: Array) -> Array:
+            return gufuncs.inv(matrix, signature="d->d")
+
         probe = np.array([[2.0, 1.0], [0.0, 3.0]])
         with np.errstate(all="ignore"):
             good = np.allclose(solve(probe, np.array([3.0, 3.0])), [1.0, 1.0]) and np.allclose(
                 np.sort(eigvals(probe).real), [2.0, 3.0]
             )
-        return (solve, eigvals) if good else (_public_solve, _public_eigvals)
+            good = good and np.allclose(inverse(probe) @ probe, np.eye(2))
+        if good:
+            return solve, eigvals, inverse
+        return _public_solve, _public_eigvals, _public_inverse
     except (ImportError, AttributeError, TypeError, ValueError):
-        return _public_solve, _public_eigvals
+        return _public_solve, _public_eigvals, _public_inverse
 
 
-solve_unchecked, eigvals_unchecked = _private_gufuncs()
+def _public_inverse(matrix: Array) -> Array:
+    try:
+        return np.linalg.inv(matrix)
+    except np.linalg.LinAlgError:
+        return np.full(matrix.shape, np.nan)
+
+
+solve_unchecked, eigvals_unchecked, inverse_unchecked = _private_gufuncs()
+inverse_unchecked.__doc__ = """Dense inverse without checks: NaN (not an exception) when singular."""
 solve_unchecked.__doc__ = """Dense solve without checks: NaN (not an exception) when singular."""
 eigvals_unchecked.__doc__ = """Dense eigenvalues (complex) without checks or sorting."""
 

@@ -12,6 +12,7 @@ Python models (:func:`branchline.events.normal_forms.directional_jacobian`).
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 import numpy as np
@@ -55,6 +56,7 @@ class BoundaryCurve:
             self.n
         )
         self._eye = None
+        self._entries = False  # the model's second-derivative entries, looked up once
 
     # ------------------------------------------------------------------ layout
 
@@ -115,6 +117,35 @@ class BoundaryCurve:
             return [stacked[:, c, :] for c in range(vectors.shape[1])]
         return [directional_jacobian(model, x, p, v) for v in vectors.T]
 
+    def gradient_forms(self, x: Array, p: Array, terms) -> tuple[Array, Array]:
+        """d/dz sum_t (left_t,c^T f_x right_t,c) for each column c, with ``terms`` pairs
+        (left_t, right_t) of shape (n, r) and z the states and the (second, first)
+        parameters: shapes (n, r) and (2, r).
+
+        Expression models contract the nonzero entries of f_xx and d/dp f_x
+        from one fast compiled call (``Model.second_entries``); Python models
+        go through B(right, .) and d/dp (f_x right) by differences.
+        """
+        entries = self._second_entries()
+        if entries is not None:
+            d_x, d_p = entries.contract(x, p, terms)
+            return d_x, d_p[[self.second, self.first]]
+        d_x, d_p = 0.0, 0.0
+        for left, right in terms:
+            seconds = self.second_matrices(x, p, right)
+            mixed = self.mixed_blocks(x, p, right)
+            d_x = d_x + np.column_stack([b.T @ w for b, w in zip(seconds, left.T, strict=True)])
+            d_p = d_p + np.column_stack([w @ m for m, w in zip(mixed, left.T, strict=True)])
+        return d_x, d_p
+
+    def _second_entries(self):
+        """The model's compiled second-derivative entries, or None (Python models)."""
+        if self._entries is False:
+            getter = getattr(self.model, "second_entries", None)
+            exact = getattr(self.model, "exact_derivatives", False)
+            self._entries = getter() if (getter is not None and exact) else None
+        return self._entries
+
     def mixed_blocks(self, x: Array, p: Array, vectors: Array) -> list[Array]:
         """d/dp (f_x v) for the (second, first) parameters, (n, 2) per column v of ``vectors``."""
         indices = [self.second, self.first]
@@ -148,7 +179,8 @@ class BoundaryCurve:
 class Factored:
     """Solves with a square (dense or sparse) matrix and its transpose: one SuperLU
     factorization for sparse matrices; LAPACK ``gesv`` per solve for dense ones (the
-    matrices here are small, and ``gesv`` avoids scipy's slower ``lu_solve`` wrapper)."""
+    matrices here are small, and ``gesv`` avoids scipy's slower ``lu_solve`` wrapper).
+    :meth:`border_solutions` gives both bordered solutions at once."""
 
     def __init__(self, matrix: Any) -> None:
         self.sparse = sps.issparse(matrix)
@@ -167,6 +199,22 @@ class Factored:
             return np.linalg.solve(matrix, rhs)
         except np.linalg.LinAlgError as exc:
             raise linalg.SingularMatrixError(str(exc)) from exc
+
+    def border_solutions(self, k: int) -> tuple[Array, Array]:
+        """(K^-1 E, K^-T E) with E the last k columns of the identity: the bordered
+        system's solutions for its unit right-hand sides, shapes (n + k, k). Dense
+        matrices take one inverse (its last columns and rows), cheaper for these small
+        systems than two solves."""
+        size = self.matrix.shape[0]
+        if self.sparse:
+            units = np.zeros((size, k))
+            units[size - k :] = np.eye(k)
+            return self.solve(units), self.solve(units, transposed=True)
+        with np.errstate(all="ignore"):
+            inverse = linalg.inverse_unchecked(self.matrix)
+        if not np.isfinite(inverse).all():
+            raise linalg.SingularMatrixError("the bordered matrix is singular or not finite")
+        return inverse[:, size - k :], inverse[size - k :].T
 
 
 def bordered(matrix: Any, columns: Array, rows: Array) -> Any:
@@ -190,13 +238,15 @@ def orthonormal(columns: Array) -> Array:
     columns = np.asarray(columns, dtype=float).reshape(columns.shape[0], -1)
     if columns.shape[1] != 2:
         return np.linalg.qr(columns)[0]
-    first = columns[:, 0] / np.linalg.norm(columns[:, 0])
-    second = columns[:, 1] - (first @ columns[:, 1]) * first
-    second -= (first @ second) * first
-    size = np.linalg.norm(second)
-    if not size > 1e-12 * np.linalg.norm(columns[:, 1]):
+    a, b = np.array(columns.T)  # contiguous copies: dot products of strided columns cost more
+    first = a / math.sqrt(a.dot(a))
+    second = b - first.dot(b) * first
+    second -= first.dot(second) * first
+    size = math.sqrt(second.dot(second))
+    if not size > 1e-12 * math.sqrt(b.dot(b)):
         return np.linalg.qr(columns)[0]
-    return np.column_stack([first, second / size])
+    second /= size
+    return np.array([first, second]).T
 
 
 def signed_product(values: Array) -> float:

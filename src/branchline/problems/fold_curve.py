@@ -82,10 +82,9 @@ class FoldCurve(BoundaryCurve):
         x, p = u[: self.n], self.parameters_at(u)
         a_matrix = self.state_matrix(x, p)
         v, g, w = self._null(a_matrix)
-        g_x = -(self.second_matrix(x, p, v).T @ w)
-        g_p = -(w @ self.mixed_columns(x, p, v))
+        g_x, g_p = self.gradient_forms(x, p, ((w[:, None], v[:, None]),))
         jacobian = self.stack(
-            a_matrix, self.parameter_columns(x, p), np.concatenate([g_x, g_p])[None, :]
+            a_matrix, self.parameter_columns(x, p), -np.concatenate([g_x[:, 0], g_p[:, 0]])[None, :]
         )
         return np.append(self.model.rhs(x, p), g), jacobian
 

@@ -127,15 +127,11 @@ class HopfCurve(BoundaryCurve):
         """(Vg (n, 2), G (2, 2), Wg (n, 2)) of the bordered system at u (the last one is
         kept: the engine observes the point it has just evaluated)."""
         last = self._last_parts
-        if (
-            last is not None
-            and last[1] is self.right
-            and last[2] is self.left
-            and np.array_equal(last[0], u)
-        ):
+        key = u.tobytes()
+        if last is not None and last[1] is self.right and last[2] is self.left and last[0] == key:
             return last[3]
         parts = self._solve_parts(u, a_matrix)
-        self._last_parts = (np.array(u, dtype=float), self.right, self.left, parts)
+        self._last_parts = (key, self.right, self.left, parts)
         return parts
 
     def _solve_parts(self, u: Array, a_matrix) -> tuple[Array, Array, Array]:
@@ -143,32 +139,32 @@ class HopfCurve(BoundaryCurve):
         kappa = float(u[n + 1])
         if sps.issparse(a_matrix):
             square = (a_matrix @ a_matrix + kappa * sps.identity(n, format="csc")).tocsc()
-        else:
-            square = a_matrix @ a_matrix + kappa * np.eye(n)
-        factored = Factored(bordered(square, self.left, self.right))
-        units = np.zeros((n + 2, 2))
-        units[n, 0] = units[n + 1, 1] = 1.0
-        solution = factored.solve(units)
-        adjoint = factored.solve(units, transposed=True)
+            matrix = bordered(square, self.left, self.right)
+        else:  # [[A^2 + kappa I, W], [V^T, 0]] filled in place
+            matrix = np.zeros((n + 2, n + 2))
+            np.matmul(a_matrix, a_matrix, out=matrix[:n, :n])
+            matrix.flat[: n * (n + 3) : n + 3] += kappa
+            matrix[:n, n:] = self.left
+            matrix[n:, :n] = self.right.T
+        solution, adjoint = Factored(matrix).border_solutions(2)
         return solution[:n], solution[n:], adjoint[:n]
 
     def _gradients(self, x, p, a_matrix, parts, entries) -> Array:
-        """d G_ij / d(x, p2, kappa, p1) for each (i, j) of ``entries``, shape (len, n + 3)."""
+        """d G_ij / d(x, p2, kappa, p1) for each (i, j) of ``entries``, shape (len, n + 3).
+
+        G_ij,z = -(w_i^T B(A v_j, .) + (A^T w_i)^T B(v_j, .)) in x, likewise with
+        d/dp (f_x .) in p: both terms of every entry from one contraction
+        (:meth:`BoundaryCurve.gradient_forms`)."""
         vg, _, wg = parts
-        used = sorted({j for _, j in entries})
-        vectors = np.column_stack([vg[:, used], a_matrix @ vg[:, used]])
-        seconds = self.second_matrices(x, p, vectors)
-        mixed = self.mixed_blocks(x, p, vectors)
-        rows = []
-        for i, j in entries:
-            at = used.index(j)
-            plain, moved = at, at + len(used)  # columns v_j and A v_j
-            v, w = vg[:, j], wg[:, i]
-            atw = a_matrix.T @ w
-            d_x = seconds[moved].T @ w + seconds[plain].T @ atw
-            d_p = w @ mixed[moved] + atw @ mixed[plain]
-            rows.append(-np.concatenate([d_x, [d_p[0], float(w @ v), d_p[1]]]))
-        return np.array(rows)
+        w = wg[:, [i for i, _ in entries]]
+        v = vg[:, [j for _, j in entries]]
+        d_x, d_p = self.gradient_forms(x, p, ((w, a_matrix @ v), (a_matrix.T @ w, v)))
+        rows = np.empty((len(entries), self.n + 3))
+        rows[:, : self.n] = d_x.T
+        rows[:, self.n] = d_p[0]
+        rows[:, self.n + 1] = (w * v).sum(axis=0)
+        rows[:, self.n + 2] = d_p[1]
+        return -rows
 
     def parameter_derivatives(self, u: Array, indices: list[int]) -> Array:
         """d(f, G_e1, G_e2)/dp for the parameters ``indices``, shape (n + 2, k), exact
@@ -213,13 +209,28 @@ class HopfCurve(BoundaryCurve):
 
     def evaluate(self, u: Array) -> tuple[Array, Any]:
         """The residual and its Jacobian (n + 2, n + 3), exact derivatives."""
-        x, p = u[: self.n], self.parameters_at(u)
-        a_matrix = self.state_matrix(x, p)
+        n = self.n
+        x, p = u[:n], self.parameters_at(u)
+        together = None if self.sparse else getattr(self.model, "derivatives", None)
+        if together is None:
+            a_matrix = self.state_matrix(x, p)
+            f_p = self.parameter_columns(x, p)
+        else:  # A and df/dp from one compiled call (dense models)
+            a_matrix, f_all = together(x, p)
+            a_matrix = a_matrix.toarray() if sps.issparse(a_matrix) else a_matrix
+            f_p = f_all[:, [self.second, self.first]]
         parts = self._parts(u, a_matrix)
         rows = self._gradients(x, p, a_matrix, parts, self.entries)
-        jacobian = self.stack(a_matrix, self._f_columns(x, p), rows)
-        values = [parts[1][i, j] for i, j in self.entries]
-        return np.concatenate([self.model.rhs(x, p), values]), jacobian
+        g = parts[1]
+        values = np.concatenate([self.model.rhs(x, p), [g[self.entries[0]], g[self.entries[1]]]])
+        if sps.issparse(a_matrix):
+            return values, self.stack(a_matrix, self._f_columns(x, p), rows)
+        jacobian = np.zeros((n + 2, n + 3))
+        jacobian[:n, :n] = a_matrix
+        jacobian[:n, n] = f_p[:, 0]
+        jacobian[:n, n + 2] = f_p[:, 1]
+        jacobian[n:] = rows
+        return values, jacobian
 
     def jacobian(self, u: Array) -> Any:
         """dG/du, shape (n + 2, n + 3); sparse for large sparse models."""
@@ -241,8 +252,10 @@ class HopfCurve(BoundaryCurve):
         if not kappa > 0.0:
             self.neutral = np.array(u, dtype=float)
             raise ObservationFailed(NEUTRAL_SADDLE)
-        x, p = u[:n], self.parameters_at(u)
-        a_matrix = self.state_matrix(x, p)
+        if type(jacobian) is np.ndarray:  # the engine's G_u at u: A is its first block
+            a_matrix = jacobian[:n, :n]
+        else:
+            a_matrix = self.state_matrix(u[:n], self.parameters_at(u))
         vg, _, wg = self._parts(u, a_matrix)
         eigenvalues = self.eigenvalues(a_matrix)
         rest = _other_eigenvalues(eigenvalues, np.sqrt(kappa))
@@ -267,8 +280,11 @@ class HopfCurve(BoundaryCurve):
         """The first Lyapunov coefficient l1 at a Hopf point u (contract scaling)."""
         x, p = u[: self.n], self.parameters_at(u)
         omega = float(np.sqrt(max(u[self.n + 1], 0.0)))
+        entries = self._second_entries()
+        form = entries.bilinear(x, p) if entries is not None else None
+        model = self.model if form is None else _WithBilinear(self.model, form)
         try:
-            return hopf_normal_form(self.model, x, p, omega).lyapunov
+            return hopf_normal_form(model, x, p, omega).lyapunov
         except (np.linalg.LinAlgError, ArithmeticError):  # A singular: zero-Hopf, l1 undefined
             return float("nan")
 
@@ -305,7 +321,23 @@ def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
     """The eigenvalues without the critical pair nearest +-i omega."""
     if eigenvalues.size < 2:
         return eigenvalues[:0]
-    first = int(np.argmin(np.abs(eigenvalues - 1j * omega)))
-    rest = np.delete(eigenvalues, first)
-    second = int(np.argmin(np.abs(rest + 1j * omega)))
-    return np.delete(rest, second)
+    values = eigenvalues.tolist()  # a few values: plain Python beats numpy's call overhead
+    up = min(range(len(values)), key=lambda k: abs(values[k] - 1j * omega))
+    down = min(
+        (k for k in range(len(values)) if k != up), key=lambda k: abs(values[k] + 1j * omega)
+    )
+    return np.array([v for k, v in enumerate(values) if k != up and k != down], dtype=complex)
+
+
+class _WithBilinear:
+    """The model with B(a, b) from its dense Hessian at one point (x, p): l1 there calls B
+    four times, each a numpy-broadcast evaluation otherwise. Valid at that point only."""
+
+    def __init__(self, model, form) -> None:
+        self._model, self._form = model, form
+
+    def second(self, x: Array, p: Array, a: Array, b: Array) -> Array:
+        return self._form(a, b)
+
+    def __getattr__(self, name: str) -> Any:
+        return getattr(self._model, name)

@@ -11,6 +11,7 @@ from __future__ import annotations
 import contextlib
 import json
 import shutil
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -159,16 +160,56 @@ def _write_files(result: RunResult, staging: Path, figures: bool) -> None:
 
 def _stability_map_figures(result: RunResult, info, events, folder: Path) -> None:
     """stability_map.png (stability_map-2.png, ... for further planes)."""
-    entries = info.get("stability_maps") or []
-    if not entries:
-        return
+    if info.get("stability_maps"):
+        save_stability_maps(info, result.boundaries_frame(), events, folder)
+
+
+def stability_map_names(info: Mapping[str, Any]) -> list[str]:
+    """The file stems of a run's stability maps: stability_map, stability_map-2, ..."""
+    count = len(info.get("stability_maps") or [])
+    return ["stability_map" if n == 1 else f"stability_map-{n}" for n in range(1, count + 1)]
+
+
+def save_stability_maps(
+    info: Mapping[str, Any],
+    boundaries: pd.DataFrame,
+    events: list[dict[str, Any]],
+    folder: Path,
+    suffix: str = "png",
+) -> list[Path]:
+    """Draw every run.json ``stability_maps`` entry from boundaries.csv rows and the
+    events; write them into ``folder`` (names of :func:`stability_map_names`)."""
     from branchline.present.plotting import save_figure
     from branchline.present.stability_map import stability_map_figure
 
-    frame = result.boundaries_frame()
-    for number, entry in enumerate(entries, start=1):
-        name = "stability_map" if number == 1 else f"stability_map-{number}"
-        save_figure(stability_map_figure(entry, frame, events, info), folder / f"{name}.png")
+    written = []
+    for entry, name in zip(info["stability_maps"], stability_map_names(info), strict=True):
+        target = folder / f"{name}.{suffix}"
+        save_figure(stability_map_figure(entry, boundaries, events, info), target)
+        written.append(target)
+    return written
+
+
+def redraw_stability_maps(saved: SavedRun, folder: Path, suffix: str = "png") -> list[Path]:
+    """The stability maps of a saved run drawn again from its boundaries.csv, run.json
+    and events.json (none when the run has no ``stability_maps``).
+
+    Raises
+    ------
+    ResultsFolderError
+        When run.json lists stability maps but boundaries.csv is missing or unreadable.
+    """
+    if not saved.info.get("stability_maps"):
+        return []
+    path = saved.folder / "boundaries.csv"
+    try:
+        boundaries = pd.read_csv(path)
+    except (OSError, ValueError) as err:
+        raise ResultsFolderError(
+            f"{saved.folder}: run.json lists stability maps but boundaries.csv cannot be read "
+            f"({_short(err)})"
+        ) from None
+    return save_stability_maps(saved.info, boundaries, saved.events, folder, suffix)
 
 
 def _confirmation_figure(result: RunResult, folder: Path) -> None:
