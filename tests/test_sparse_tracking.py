@@ -20,12 +20,15 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+import scipy.sparse as sp
 
 from branchline.cli import main
+from branchline.model.build import build_model
 from branchline.numerics import eigen_tracking
 from branchline.problems import equilibrium_branch
-from branchline.problems.equilibrium_branch import locate_events
+from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.results.tables import run_info
+from branchline.scan.loader import PythonModelSpec, StepSettings
 from branchline.vocabulary import EventKind
 from test_sparse_eigen import (
     D1,
@@ -34,6 +37,7 @@ from test_sparse_eigen import (
     brusselator_jacobian,
     brusselator_model,
     exact_leading,
+    neumann_laplacian,
     trace_uniform_through_hopf,
     uniform_state,
 )
@@ -231,3 +235,52 @@ def test_a_wrong_sparse_jacobian_is_caught_with_a_clear_warning():
 
 def uniform_start(p):
     return uniform_state(NODES, p["b"])
+
+
+# ---------------------------------------------------------------------------
+# a real leading eigenvalue through a fold: x_i' = p - x_i^2 + D (L x)_i on a line
+
+
+def fold_chain_rhs(x, p):
+    return p["p"] - x * x + p["D"] * (neumann_laplacian(x.shape[0]) @ x)
+
+
+def fold_chain_jacobian(x, p):
+    return (sp.diags(-2.0 * x) + p["D"] * neumann_laplacian(x.shape[0])).tocsc()
+
+
+def test_tracked_real_eigenvalues_through_a_fold_and_a_branch_point():
+    # The uniform states x = +-sqrt(p) meet at the fold p = 0 (the fold normal form
+    # x' = p - x^2; Kuznetsov, Elements of Applied Bifurcation Theory, section 3.2).
+    # The Jacobian -2 x I + D L has the real eigenvalues -2 x - D mu_k, mu_k of the
+    # discrete Neumann Laplacian (module docstring of test_sparse_eigen), so on the
+    # lower branch mode 1 crosses zero at the branch point sqrt(p) = D mu_1 / 2.
+    nodes, diffusion = 400, 1e-3
+    model = build_model(
+        PythonModelSpec(
+            parameters={"p": 1e-4, "D": diffusion},
+            rhs="test_sparse_tracking:fold_chain_rhs",
+            jacobian="test_sparse_tracking:fold_chain_jacobian",
+            size=nodes,
+        )
+    )
+    branch = trace_branch(
+        model,
+        "f",
+        "p",
+        model.defaults,
+        np.full(nodes, 1e-2),
+        (0.0, 1e-4),
+        "decreasing",
+        StepSettings(initial=0.01, largest=0.02, max_points=200),
+    )
+    assert branch.status == "done", branch.message
+    mu = 4.0 * (nodes - 1) ** 2 * np.sin(np.arange(nodes) * np.pi / (2.0 * (nodes - 1))) ** 2
+    for row in range(len(branch)):
+        exact = np.sort(-2.0 * branch.states[row, 0] - diffusion * mu)[::-1][:6]
+        np.testing.assert_allclose(branch.eigenvalues[row], exact, rtol=0.0, atol=1e-9)
+    assert branch.counts["eigenvalues_tracked"] > branch.counts["eigenvalue_full_searches"]
+    fold, point = sorted(locate_events(model, branch), key=lambda e: e.kind != "fold")
+    assert fold.kind == "fold" and abs(fold.value) <= 1e-12
+    assert point.kind == "branch_point"
+    assert point.value == pytest.approx((diffusion * mu[1] / 2.0) ** 2, rel=1e-8)

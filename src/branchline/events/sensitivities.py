@@ -53,6 +53,8 @@ def event_sensitivities(model, event: Event) -> dict[str, dict[str, float | None
                 step = _implicit_step(problem.jacobian(u0), n)
             except (np.linalg.LinAlgError, ArithmeticError, ValueError, RuntimeError):
                 return {}
+            except MemoryError:  # a large model's system too big: the event keeps the rest
+                return {}
         derivative = float(step[-1])
         if not np.isfinite(derivative):
             return {}
