@@ -107,3 +107,8 @@ def chain_second(x, p, v, w):
 def chain_third(x, p, u, v, w):
     """C(u, v, w) of the chain."""
     return -6.0 * u * v * w
+
+
+def chain_start(p):
+    """A start guess for the 50-node chain of the scan-file test (lower state)."""
+    return np.full(50, -1.3)
