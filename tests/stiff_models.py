@@ -1,6 +1,7 @@
 """Stiff reaction-diffusion models as [model.python] modules (test helpers).
 
-Brusselator (functions ``rhs``, ``jacobian``, ``second``, ``third``): the Brusselator (Prigogine & Lefever, "Symmetry breaking instabilities in
+Brusselator (functions ``rhs``, ``jacobian``, ``second``, ``third``): the
+Brusselator (Prigogine & Lefever, "Symmetry breaking instabilities in
 dissipative systems II", J. Chem. Phys. 48 (1968) 1695) on N equally spaced
 nodes of [0, 1] with no-flux ends (ghost-point rows, h = 1 / (N - 1)):
 
@@ -26,6 +27,8 @@ from functools import lru_cache
 import numpy as np
 import scipy.sparse as sp
 
+from test_sparse_eigen import brusselator_jacobian, brusselator_rhs
+
 
 @lru_cache(maxsize=8)
 def second_difference(nodes: int) -> sp.csr_matrix:
@@ -39,46 +42,13 @@ def second_difference(nodes: int) -> sp.csr_matrix:
 
 
 @lru_cache(maxsize=8)
-def neumann_laplacian(nodes: int) -> sp.csr_matrix:
-    """The ghost-point Neumann second-difference matrix on [0, 1], scaled by 1 / h^2."""
-    h = 1.0 / (nodes - 1)
-    return (second_difference(nodes) / h**2).tocsr()
-
-
-@lru_cache(maxsize=8)
 def _profile(nodes: int) -> np.ndarray:
     return np.cos(np.pi * np.linspace(0.0, 1.0, nodes))
 
 
-def rhs(x, p):
-    nodes = x.shape[0] // 2
-    lap = neumann_laplacian(nodes)
-    u, v = x[:nodes], x[nodes:]
-    b = p["b"]
-    # An optional ripple of the feed, a (1 + ripple cos(pi s)) (our own variation; 0 by
-    # default): it makes the equilibrium non-uniform, so that the diffusion terms no
-    # longer cancel exactly and f carries rounding of about eps * d1 / h^2.
-    a = p["a"] * (1.0 + p.get("ripple", 0.0) * _profile(nodes))
-    return np.concatenate(
-        [
-            a - (b + 1.0) * u + u * u * v + p["d1"] * (lap @ u),
-            b * u - u * u * v + p["d2"] * (lap @ v),
-        ]
-    )
-
-
-def jacobian(x, p):
-    nodes = x.shape[0] // 2
-    lap = neumann_laplacian(nodes)
-    u, v = x[:nodes], x[nodes:]
-    b = p["b"]
-    return sp.bmat(
-        [
-            [sp.diags(-(b + 1.0) + 2.0 * u * v) + p["d1"] * lap, sp.diags(u * u)],
-            [sp.diags(b - 2.0 * u * v), sp.diags(-u * u) + p["d2"] * lap],
-        ],
-        format="csr",
-    )
+# The Brusselator's f and df/dx are those of the sparse-eigenvalue tests (same equations).
+rhs = brusselator_rhs
+jacobian = brusselator_jacobian
 
 
 def second(x, p, v, w):
@@ -137,3 +107,8 @@ def chain_second(x, p, v, w):
 def chain_third(x, p, u, v, w):
     """C(u, v, w) of the chain."""
     return -6.0 * u * v * w
+
+
+def chain_start(p):
+    """A start guess for the 50-node chain of the scan-file test (lower state)."""
+    return np.full(50, -1.3)

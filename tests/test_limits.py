@@ -129,7 +129,7 @@ def test_washout_branch_on_the_limit_is_followed_and_switches_inside_only():
     assert child.status == "done" and child.parameter_values[-1] == 0.05
     assert child.states[:, 1].min() > 0.0
     s_star = 0.1 * 0.05 / (0.5 - 0.05)
-    # Edge points carry Newton's accuracy (UPDATE_RTOL 1e-6 leaves ~1e-12 absolute).
+    # Edge points carry Newton's accuracy (CORRECTOR_UPDATE_RTOL 1e-6 leaves ~1e-12 absolute).
     assert child.states[-1, 0] == pytest.approx(s_star, abs=1e-11)
     assert child.states[-1, 1] == pytest.approx(0.5 * (4.0 - s_star), abs=1e-11)
 

@@ -13,13 +13,14 @@ import numpy as np
 import pytest
 
 from branchline.continuation.engine import follow_curve
+from branchline.errors import ScanError
 from branchline.events.normal_forms import fold_normal_form, hopf_normal_form
 from branchline.model.build import build_model
 from branchline.numerics import tolerances
 from branchline.numerics.differences import directional_derivative, extrapolated_derivative
 from branchline.problems.equilibrium import solve_equilibrium
 from branchline.problems.tracing import TraceRequest, summarize, trace_sides
-from branchline.scan.loader import PythonModelSpec, StepSettings
+from branchline.scan.loader import PythonModelSpec, StepSettings, scan_from_dict
 from branchline.vocabulary import Status
 from stiff_models import uniform_state
 from test_normal_forms import brusselator_lyapunov_by_planar_formula
@@ -206,3 +207,35 @@ def test_richardson_extrapolation_recovers_a_derivative_despite_large_terms():
     assert abs(value[0] - 1.0) <= 10.0 * error  # the estimate is of the right size
     fixed = directional_derivative(lambda z: phi(z[0]), np.zeros(1), np.ones(1), 1)
     assert abs(fixed[0] - 1.0) > 5.0 * abs(value[0] - 1.0)
+
+
+def scan_with_forms(**forms) -> dict:
+    python = {"rhs": "stiff_models:chain_rhs", "jacobian": "stiff_models:chain_jacobian"}
+    return {
+        "model": {
+            "parameters": {"p": -0.3849, "k": 1e7, "ripple": 0.0},
+            "python": {**python, "size": 50, **forms},
+        },
+        "trace": [{"vary": "p", "interval": [-1.0, 1.0], "start": "stiff_models:chain_start"}],
+    }
+
+
+def test_scan_files_name_the_directional_derivatives_and_bad_ones_are_refused():
+    # Scan-file plumbing: the keys reach the model (its B is the user's, exactly
+    # -6 x v w here), and a reference to a missing function is a ScanError naming
+    # the key, never a traceback.
+    forms = {
+        "second_derivative": "stiff_models:chain_second",
+        "third_derivative": "stiff_models:chain_third",
+    }
+    scan = scan_from_dict(scan_with_forms(**forms), "stiff.toml")
+    model = build_model(scan.model, "stiff.toml")
+    x, v, w = np.full(50, 0.5), np.linspace(0.0, 1.0, 50), np.linspace(1.0, 2.0, 50)
+    np.testing.assert_array_equal(model.second(x, model.defaults, v, w), -6.0 * x * v * w)
+    bad = scan_from_dict(scan_with_forms(second_derivative="stiff_models:nowhere"), "s.toml")
+    with pytest.raises(ScanError) as info:
+        build_model(bad.model, "s.toml")
+    assert info.value.key == "model.python.second_derivative"
+    with pytest.raises(ScanError) as info:
+        scan_from_dict(scan_with_forms(third_derivative="no colon"), "s.toml")
+    assert info.value.key == "model.python.third_derivative"

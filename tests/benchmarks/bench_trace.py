@@ -119,7 +119,7 @@ def bare_loop(model, count, step):
             delta = np.linalg.solve(square, rhs_vector)
             v = v - delta
             iterations += 1
-            # The engine's convergence test (continuation.RESIDUAL_TOL, UPDATE_RTOL).
+            # The engine's convergence test (tolerances.RESIDUAL_TOL, CORRECTOR_UPDATE_RTOL).
             if np.linalg.norm(delta) <= 1e-6 * (1.0 + np.linalg.norm(v)):
                 p[0] = v[-1]
                 if np.linalg.norm(rhs(v[:-1], p)) <= 1e-10:

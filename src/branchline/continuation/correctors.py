@@ -177,12 +177,6 @@ def correct_newton(
     square = None
     rhs = np.zeros(size)
 
-    def counted(z: Array) -> tuple[Array, Any]:
-        g, jac = evaluate(z)
-        counts.rhs += 1
-        counts.jacobian += 1
-        return g, jac
-
     def advance(z: Array, g: Array, jac: Any, residual: float):
         nonlocal square
         rhs[:-1] = g
@@ -209,7 +203,12 @@ def correct_newton(
             )
         return z - step, update, None
 
-    return iterate(counted, u, advance, CorrectorRule(max_iterations), max_iterations)
+    result = iterate(evaluate, u, advance, CorrectorRule(max_iterations), max_iterations)
+    # Every evaluation that returned has its residual norm recorded: count them so.
+    evaluations = len(result.residual_norms)
+    counts.rhs += evaluations
+    counts.jacobian += evaluations
+    return result
 
 
 def correct_chord(
@@ -262,7 +261,8 @@ def correct_chord(
             raise NewtonTrouble(Status.NOT_CONVERGED, "the chord iteration does not contract")
         return z + step, update, None
 
-    result = iterate(residual_only, u, advance, ChordRule(), ChordRule().max_iterations, (g, None))
+    rule = ChordRule()
+    result = iterate(residual_only, u, advance, rule, rule.max_iterations, (g, None))
     if not result.converged:
         return result
     try:
@@ -413,7 +413,6 @@ def _limit_by_interpolation(
 class _LeastSquaresRule(CorrectorRule):
     """Gauss-Newton on an edge: the corrector's test on the residual before an update."""
 
-    __slots__ = ()
     final_evaluation = False
 
     def accepts(self, iteration, z, residual, residual_norm, jacobian) -> bool:

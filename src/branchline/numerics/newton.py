@@ -38,8 +38,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
-from typing import Any, Protocol
+from typing import Any, NamedTuple, Protocol
 
 import numpy as np
 
@@ -67,9 +66,10 @@ class NewtonTrouble(Exception):
         self.message = message
 
 
-@dataclass(frozen=True, slots=True)
-class NewtonResult:
-    """How one Newton iteration ended.
+class NewtonResult(NamedTuple):
+    """How one Newton iteration ended (immutable; a named tuple because the
+    continuation corrector builds one per step on the engine's hot path, where a
+    frozen dataclass costs measurably more).
 
     Attributes
     ----------
@@ -187,6 +187,8 @@ def iterate(
     cached = start
     sqrt = math.sqrt
     residual_norm = math.nan
+    # Bound once: this loop runs at every continuation step (the engine's hot path).
+    accepts, after_update, append = rule.accepts, rule.after_update, norms.append
     while True:
         if cached is None:
             if iteration >= max_iterations and not rule.final_evaluation:
@@ -208,12 +210,12 @@ def iterate(
         else:
             f, jac = cached
         residual_norm = sqrt(f.dot(f))
-        norms.append(residual_norm)
+        append(residual_norm)
         if not residual_norm < math.inf:
             return NewtonResult(
                 Status.NON_FINITE, z, iteration, residual_norm, tuple(norms), message=rule.not_finite()
             )
-        if rule.accepts(iteration, z, f, residual_norm, jac):
+        if accepts(iteration, z, f, residual_norm, jac):
             return NewtonResult(Status.CONVERGED, z, iteration, residual_norm, tuple(norms), f, jac)
         if iteration >= max_iterations:
             message = rule.no_convergence(iteration, z, residual_norm)
@@ -222,7 +224,7 @@ def iterate(
             )
         try:
             z_next, update_norm, cached = advance(z, f, jac, residual_norm)
-            verdict = rule.after_update(iteration, z, z_next, residual_norm, jac, update_norm)
+            verdict = after_update(iteration, z, z_next, residual_norm, jac, update_norm)
         except NewtonTrouble as trouble:
             if rule.accepts_despite(trouble, z, residual_norm):
                 return NewtonResult(

@@ -63,8 +63,8 @@ ROUNDING_FACTOR = 100.0
 # iterations on a well-predicted step instead of three.
 CORRECTOR_UPDATE_RTOL = 1e-6
 MAX_CORRECTOR_ITERATIONS = 6
-# A Newton update larger than this times the previous one means divergence,
-# unless the iterate is already at the rounding level (then it is converged).
+# A Newton update larger than this times the previous one means divergence
+# (an iterate at the rounding level of f is accepted before this test).
 DIVERGENCE_RATIO = 1.0
 # The chord method (Jacobian frozen at the predicted point) converges linearly;
 # it is abandoned when an update does not shrink at least by this factor.
@@ -169,21 +169,21 @@ class CorrectorRule:
     (|F| <= RESIDUAL_TOL, or at the rounding level of the evaluation, and the
     update <= update_rtol (1 + |u|)), or when the update is down to roundoff.
     An update larger than ``growth`` times the one before fails the step
-    (``diverges`` says how), unless the iterate is at the rounding level already.
+    (``diverges`` says how); an iterate at the rounding level with a small update
+    is accepted before that test is reached, so rounding noise in the updates of a
+    converged stiff problem is not taken for divergence.
     """
 
-    __slots__ = ("diverges", "growth", "max_iterations", "update", "update_rtol")
+    # Class-level defaults: one rule is made per corrector call (the engine's hot path).
     final_evaluation = True
+    max_iterations = MAX_CORRECTOR_ITERATIONS
+    growth = DIVERGENCE_RATIO
+    diverges = "Newton's method diverges"
+    update_rtol = CORRECTOR_UPDATE_RTOL
 
-    def __init__(
-        self,
-        max_iterations: int = MAX_CORRECTOR_ITERATIONS,
-        growth: float = DIVERGENCE_RATIO,
-        diverges: str = "Newton's method diverges",
-        update_rtol: float = CORRECTOR_UPDATE_RTOL,
-    ) -> None:
-        self.max_iterations, self.growth, self.diverges = max_iterations, growth, diverges
-        self.update_rtol = update_rtol
+    def __init__(self, max_iterations: int | None = None) -> None:
+        if max_iterations is not None:
+            self.max_iterations = max_iterations
         self.update = math.inf
 
     def accepts(self, iteration, z, residual, residual_norm, jacobian) -> bool:
@@ -222,12 +222,9 @@ class CorrectorRule:
 class ChordRule(CorrectorRule):
     """The chord corrector: as :class:`CorrectorRule`, with contraction required."""
 
-    __slots__ = ()
-
-    def __init__(self) -> None:
-        super().__init__(
-            MAX_CHORD_ITERATIONS, CHORD_CONTRACTION, "the chord iteration does not contract"
-        )
+    max_iterations = MAX_CHORD_ITERATIONS
+    growth = CHORD_CONTRACTION
+    diverges = "the chord iteration does not contract"
 
     def no_convergence(self, iterations, z, residual_norm) -> str:
         return "no convergence of the chord iteration"

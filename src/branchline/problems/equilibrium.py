@@ -219,9 +219,11 @@ def solve_equilibrium(
     """Solve f(x, p) = 0 by damped Newton from the guess ``x0``.
 
     Each step solves J dx = -f and backtracks (halving) until the residual
-    norm decreases sufficiently (Armijo). Converged when |f| <= residual_tol
-    and the last update |dx| <= update_rtol (1 + |x|), or when the update has
-    reached roundoff.
+    norm decreases sufficiently (Armijo). Converged when |f| <= residual_tol (or
+    at the rounding level of evaluating f, for large or stiff models) and the
+    last update |dx| <= update_rtol (1 + |x|), or when the update has reached
+    roundoff; the loop is the shared one (:func:`branchline.numerics.newton.iterate`
+    with :class:`~branchline.numerics.tolerances.EquilibriumRule`).
 
     Parameters
     ----------
