@@ -69,17 +69,23 @@ def brusselator_rhs(x: np.ndarray, p: dict) -> np.ndarray:
     return f
 
 
-def brusselator_jacobian(x: np.ndarray, p: dict) -> np.ndarray:
-    """Exact df/dx of :func:`brusselator_rhs` (dense)."""
-    u, v = x[0::2], x[1::2]
-    b, d = p["b"], p["d"]
-    size = x.shape[0]
-    cells = size // 2
+def coupling_matrix(cells: int) -> np.ndarray:
+    """The coupling of a path of cells with no-flux ends, (cells, cells) dense."""
     coupling = np.zeros((cells, cells))
     for i in range(cells):
         coupling[i, max(i - 1, 0)] += 1.0
         coupling[i, min(i + 1, cells - 1)] += 1.0
         coupling[i, i] -= 2.0
+    return coupling
+
+
+def brusselator_jacobian(x: np.ndarray, p: dict, coupling: np.ndarray | None = None) -> np.ndarray:
+    """Exact df/dx of :func:`brusselator_rhs` (dense); ``coupling`` may be given precomputed."""
+    u, v = x[0::2], x[1::2]
+    b, d = p["b"], p["d"]
+    size = x.shape[0]
+    if coupling is None:
+        coupling = coupling_matrix(size // 2)
     jac = np.zeros((size, size))
     jac[0::2, 0::2] = d * coupling + np.diag(-(b + 1.0) + 2.0 * u * v)
     jac[0::2, 1::2] = np.diag(u * u)

@@ -57,7 +57,11 @@ import numpy as np  # noqa: E402
 
 from branchline.model.build import build_model  # noqa: E402
 from branchline.scan.loader import ExpressionModelSpec  # noqa: E402
-from cell_chains import brusselator_equations  # noqa: E402
+from cell_chains import (  # noqa: E402
+    brusselator_equations,
+    brusselator_jacobian,
+    coupling_matrix,
+)
 
 try:  # a private cache for the benchmark; older versions have none
     from branchline.model import cache as model_cache
@@ -177,11 +181,7 @@ STARTUP_REPEATS = 3
 def _chain_numpy(cells: int):
     """The chain's rhs and exact dense Jacobian written by hand in numpy, as a user would."""
     n = 2 * cells
-    laplacian = np.zeros((cells, cells))
-    for i in range(cells):
-        laplacian[i, max(i - 1, 0)] += 1.0
-        laplacian[i, min(i + 1, cells - 1)] += 1.0
-        laplacian[i, i] -= 2.0
+    laplacian = coupling_matrix(cells)
 
     def rhs(x, a, b, d):
         u, v = x[0::2], x[1::2]
@@ -191,13 +191,7 @@ def _chain_numpy(cells: int):
         return f
 
     def jacobian(x, a, b, d):
-        u, v = x[0::2], x[1::2]
-        jac = np.zeros((n, n))
-        jac[0::2, 0::2] = d * laplacian + np.diag(-(b + 1.0) + 2.0 * u * v)
-        jac[0::2, 1::2] = np.diag(u * u)
-        jac[1::2, 0::2] = np.diag(b - 2.0 * u * v)
-        jac[1::2, 1::2] = d * laplacian + np.diag(-u * u)
-        return jac
+        return brusselator_jacobian(x, {"b": b, "d": d}, laplacian)
 
     return rhs, jacobian
 
