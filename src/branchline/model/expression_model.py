@@ -45,7 +45,8 @@ SPARSE_DENSITY = 0.1
 class ExpressionBlocks:
     """The compiled blocks of one expression model: from memory, the cache, or sympy.
 
-    Block names: ``rhs``, ``jacobian``, ``parameter.<k>``, ``second``,
+    Block names: ``rhs``, ``jacobian``, ``parameter.<k>`` (one column of
+    df/dp), ``parameters`` (all of them), ``second``,
     ``third``, ``mixed``, ``observables``. Symbolic work (parsing, sympy
     derivatives, code generation) happens only for a block the cache lacks.
     """
@@ -66,6 +67,7 @@ class ExpressionBlocks:
             "second": (n, n, n),
             "third": (n, n, n, n),
             "mixed": (n, n, m),
+            "parameters": (n, m),
         }.get(name, (n,))
 
     def symbolic(self) -> _Symbolic:
@@ -140,6 +142,12 @@ class _Symbolic:
             return calculus.higher(3)
         if name == "mixed":
             return calculus.mixed()
+        if name == "parameters":
+            return [
+                ((i, k), value)
+                for k in range(len(calculus.p))
+                for (i,), value in calculus.parameter_column(k)
+            ]
         return calculus.parameter_column(int(name.split(".")[1]))
 
 
@@ -210,11 +218,12 @@ class ExpressionFunctions:
         return out
 
     def parameter_jacobian(self, x: Array, p: Array) -> Array:
-        """df/dp for every parameter, shape (n, m) or (n, m, *trailing)."""
-        columns = [self.parameter_column(x, p, k) for k in range(self.m)]
-        if not columns:
-            return np.zeros((self.n, 0))
-        return np.stack(columns, axis=1)
+        """df/dp for every parameter, shape (n, m) or (n, m, *trailing) (one block)."""
+        block = self.blocks.get("parameters")
+        values = block.values(x, p)
+        out = np.zeros((self.n, self.m, *values.shape[1:]))
+        out[block.indices[:, 0], block.indices[:, 1]] = values
+        return out
 
     def derivatives(self, x: Array, p: Array, parameter: int | None = None) -> tuple[Any, Array]:
         """(df/dx, df/dp): every column of df/dp, or only column ``parameter`` (shape (n,))."""
