@@ -399,6 +399,16 @@ class SecondEntries:
 
         return form
 
+    def table(self, x: Array, p: Array) -> Array:
+        """Both tensors as one dense (n + m, n * n) matrix (models with ``dense`` only):
+        row k is d2f_i/dx_j dx_k, row n + k is d2f_i/dx_j dp_k, column i * n + j.
+        Contracting it with left (x) right gives the exact gradient of left^T f_x right."""
+        n, m = self.size, self.count
+        table = np.zeros((n + m) * n * n)
+        if self._evaluate is not None:
+            table[self._dense_positions] = self._evaluate(x, p)[self._dense_sources]
+        return table.reshape(n + m, n * n)
+
     def contract(self, x: Array, p: Array, terms) -> tuple[Array, Array]:
         """The gradient in x and in p of sum_t left_t^T f_x right_t, column by column.
 
@@ -407,15 +417,13 @@ class SecondEntries:
         the same with d/dp_k in place of d/dx_k, shape (m, r)): the exact
         derivatives of bordered test functions (Govaerts, chapter 4).
         """
-        n, m = self.size, self.count
+        n = self.size
         r = terms[0][0].shape[1]
         if self.dense:  # one (n + m, n * n) matrix of both tensors, times left (x) right
-            table = np.zeros((n + m) * n * n)
-            if self._evaluate is not None:
-                table[self._dense_positions] = self._evaluate(x, p)[self._dense_sources]
             outer = sum(left[:, None, :] * right[None, :, :] for left, right in terms)
-            both = table.reshape(n + m, n * n) @ outer.reshape(n * n, r)
+            both = self.table(x, p) @ outer.reshape(n * n, r)
             return both[:n], both[n:]
+        m = self.count
         hessian, mixed = self(x, p)
         shift = np.arange(r)
         i, j, k = self.hessian_index

@@ -212,6 +212,9 @@ class HopfCurve(BoundaryCurve):
         n = self.n
         x, p = u[:n], self.parameters_at(u)
         together = None if self.sparse else getattr(self.model, "derivatives", None)
+        table = self._dense_table()
+        if together is not None and table is not None:
+            return self._evaluate_fused(u, x, p, together, table)
         if together is None:
             a_matrix = self.state_matrix(x, p)
             f_p = self.parameter_columns(x, p)
@@ -231,6 +234,62 @@ class HopfCurve(BoundaryCurve):
         jacobian[:n, n + 2] = f_p[:, 1]
         jacobian[n:] = rows
         return values, jacobian
+
+    def _dense_table(self):
+        """The compiled (n + m, n * n) second-derivative table's maker for small dense
+        expression models, else None."""
+        entries = self._second_entries()
+        return entries.table if entries is not None and entries.dense else None
+
+    def _evaluate_fused(self, u: Array, x: Array, p: Array, together, table) -> tuple[Array, Any]:
+        """:meth:`evaluate` for small dense expression models: the same values and exact
+        Jacobian, assembled in place with as few array operations as possible (at a
+        few states numpy's per-call overhead, not arithmetic, is the cost of a point)."""
+        n = self.n
+        column = getattr(together, "__self__", None)
+        column = getattr(column, "parameter_column", None)
+        if column is None:
+            a_matrix, f_second = together(x, p, self.second)
+            f_first = together(x, p, self.first)[1]
+        else:  # A once, then the two parameter columns alone
+            a_matrix = self.model.jacobian(x, p)
+            f_second, f_first = column(x, p, self.second), column(x, p, self.first)
+        if type(a_matrix) is not np.ndarray:
+            a_matrix = a_matrix.toarray() if sps.issparse(a_matrix) else np.asarray(a_matrix)
+        vg, g, wg = self._parts(u, a_matrix)
+        (i1, j1), (i2, j2) = self.entries
+        w = -wg[:, _columns(i1, i2)]  # negated here: G_ij,z = -(...) below
+        v = vg[:, _columns(j1, j2)]
+        # G_ij,z = -(w^T f_x,z (A v) + (A^T w)^T f_x,z v): both terms in one product,
+        # then G_ij,kappa = -w^T v; rows reordered to (x, p2, kappa, p1) in one take
+        outer = w[:, None, :] * (a_matrix @ v)[None, :, :]
+        outer += (a_matrix.T @ w)[:, None, :] * v[None, :, :]
+        rows = np.empty((n + self.p.size + 1, 2))
+        np.matmul(table(x, p), outer.reshape(n * n, 2), out=rows[:-1])
+        rows[-1] = (w * v).sum(axis=0)
+        top = (a_matrix, f_second[:, None], self._zero_column(), f_first[:, None])
+        jacobian = np.concatenate((np.concatenate(top, axis=1), rows[self._row_order()].T))
+        values = np.empty(n + 2)
+        values[:n] = self.model.rhs(x, p)
+        values[n] = g[i1, j1]
+        values[n + 1] = g[i2, j2]
+        return values, jacobian
+
+    def _zero_column(self) -> Array:
+        """df/dkappa = 0, shape (n, 1), made once."""
+        zero = getattr(self, "_zero", None)
+        if zero is None:
+            zero = self._zero = np.zeros((self.n, 1))
+        return zero
+
+    def _row_order(self) -> Array:
+        """Rows of the fused gradient table in the order (x, p2, kappa, p1)."""
+        order = getattr(self, "_order", None)
+        if order is None:
+            n, m = self.n, self.p.size
+            order = np.array([*range(n), n + self.second, n + m, n + self.first])
+            self._order = order
+        return order
 
     def jacobian(self, u: Array) -> Any:
         """dG/du, shape (n + 2, n + 3); sparse for large sparse models."""
@@ -307,6 +366,13 @@ class HopfCurve(BoundaryCurve):
     def frequency(self, u: Array) -> float:
         """omega = sqrt(kappa)."""
         return float(np.sqrt(max(u[self.n + 1], 0.0)))
+
+
+def _columns(first: int, second: int) -> Any:
+    """Index picking columns (first, second) of an (n, 2) array: a view when it can."""
+    if first == second:
+        return [first, second]
+    return slice(None) if first == 0 else slice(None, None, -1)
 
 
 def _square_null_spaces(a_matrix) -> tuple[Array, Array]:
