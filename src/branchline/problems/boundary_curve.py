@@ -234,10 +234,14 @@ def bordered(matrix: Any, columns: Array, rows: Array) -> Any:
 
 def orthonormal(columns: Array) -> Array:
     """An orthonormal basis (n, k) of the span of ``columns`` (reduced QR; two columns by
-    Gram-Schmidt with one reorthogonalization, cheaper than LAPACK's call overhead)."""
+    Gram-Schmidt with one reorthogonalization, cheaper than LAPACK's call overhead, in
+    plain Python floats up to :data:`PLAIN_FLOATS_UP_TO` states)."""
     columns = np.asarray(columns, dtype=float).reshape(columns.shape[0], -1)
     if columns.shape[1] != 2:
         return np.linalg.qr(columns)[0]
+    if columns.shape[0] <= PLAIN_FLOATS_UP_TO:
+        basis = _two_orthonormal_floats(*columns.T.tolist())
+        return np.linalg.qr(columns)[0] if basis is None else np.array(basis).T
     a, b = np.array(columns.T)  # contiguous copies: dot products of strided columns cost more
     first = a / math.sqrt(a.dot(a))
     second = b - first.dot(b) * first
@@ -249,8 +253,31 @@ def orthonormal(columns: Array) -> Array:
     return np.array([first, second]).T
 
 
+# Below this many states small vector algebra is cheaper in Python floats than in numpy
+# calls (each costs about a microsecond whatever its size).
+PLAIN_FLOATS_UP_TO = 16
+
+
+def _two_orthonormal_floats(a: list, b: list) -> tuple[list, list] | None:
+    """:func:`orthonormal` of two columns given as lists; None when b is (nearly) in
+    the span of a."""
+    scale = math.sqrt(math.fsum(t * t for t in a))
+    first = [t / scale for t in a]
+    along = math.fsum(f * t for f, t in zip(first, b, strict=True))
+    second = [t - along * f for f, t in zip(first, b, strict=True)]
+    along = math.fsum(f * t for f, t in zip(first, second, strict=True))
+    second = [t - along * f for f, t in zip(first, second, strict=True)]
+    size = math.sqrt(math.fsum(t * t for t in second))
+    if not size > 1e-12 * math.sqrt(math.fsum(t * t for t in b)):
+        return None
+    return first, [t / size for t in second]
+
+
 def signed_product(values: Array) -> float:
-    """prod(v / (1 + |v|)): sign of the product, finite for any size (1.0 when empty)."""
+    """prod(v / (1 + |v|)): sign of the product, finite for any size (1.0 when empty);
+    ``values`` an array or a list of floats."""
+    if isinstance(values, list):  # a few Python floats: no numpy calls
+        return math.prod(v / (1.0 + abs(v)) for v in values)
     values = np.asarray(values, dtype=float)
     if values.size == 0:
         return 1.0

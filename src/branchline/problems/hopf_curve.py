@@ -29,6 +29,7 @@ complex pairs).
 from __future__ import annotations
 
 import itertools
+import math
 from typing import Any
 
 import numpy as np
@@ -36,6 +37,8 @@ import scipy.sparse as sps
 
 from branchline.continuation.engine import ObservationFailed
 from branchline.events.normal_forms import hopf_normal_form
+from branchline.numerics import eigenvalues as eigen
+from branchline.numerics import linalg
 from branchline.numerics.eigenvalues import eigenvector_near
 from branchline.problems.boundary_curve import (
     BoundaryCurve,
@@ -140,14 +143,29 @@ class HopfCurve(BoundaryCurve):
         if sps.issparse(a_matrix):
             square = (a_matrix @ a_matrix + kappa * sps.identity(n, format="csc")).tocsc()
             matrix = bordered(square, self.left, self.right)
-        else:  # [[A^2 + kappa I, W], [V^T, 0]] filled in place
-            matrix = np.zeros((n + 2, n + 2))
+        else:  # [[A^2 + kappa I, W], [V^T, 0]] filled in place: one inverse
+            matrix = self._bordered_template().copy()
             np.matmul(a_matrix, a_matrix, out=matrix[:n, :n])
-            matrix.flat[: n * (n + 3) : n + 3] += kappa
-            matrix[:n, n:] = self.left
-            matrix[n:, :n] = self.right.T
+            matrix.ravel()[: n * (n + 3) : n + 3] += kappa
+            with np.errstate(all="ignore"):
+                inverse = linalg.inverse_unchecked(matrix)
+            if not math.isfinite(inverse.sum()):
+                raise linalg.SingularMatrixError("the bordered matrix is singular or not finite")
+            return inverse[:n, n:], inverse[n:, n:], inverse[n:, :n].T
         solution, adjoint = Factored(matrix).border_solutions(2)
         return solution[:n], solution[n:], adjoint[:n]
+
+    def _bordered_template(self) -> Array:
+        """[[0, W], [V^T, 0]] for the current borders (dense), made once per border."""
+        kept = getattr(self, "_template", None)
+        if kept is not None and kept[0] is self.right and kept[1] is self.left:
+            return kept[2]
+        n = self.n
+        template = np.zeros((n + 2, n + 2))
+        template[:n, n:] = self.left
+        template[n:, :n] = self.right.T
+        self._template = (self.right, self.left, template)
+        return template
 
     def _gradients(self, x, p, a_matrix, parts, entries) -> Array:
         """d G_ij / d(x, p2, kappa, p1) for each (i, j) of ``entries``, shape (len, n + 3).
@@ -316,16 +334,21 @@ class HopfCurve(BoundaryCurve):
         else:
             a_matrix = self.state_matrix(u[:n], self.parameters_at(u))
         vg, _, wg = self._parts(u, a_matrix)
-        eigenvalues = self.eigenvalues(a_matrix)
-        rest = _other_eigenvalues(eigenvalues, np.sqrt(kappa))
         self._lyapunov_pending = self._since_lyapunov >= LYAPUNOV_EVERY - 1
-        tests = np.array(
-            [
-                self.lyapunov(u) if self._lyapunov_pending else np.nan,
-                signed_product(rest[rest.imag == 0].real) if eigenvalues.size else np.nan,
-                signed_product(rest[rest.imag > 0].real) if eigenvalues.size else np.nan,
-            ]
-        )
+        if self._lyapunov_pending and type(a_matrix) is np.ndarray:
+            # one eigen-decomposition gives the eigenvalues and l1's eigenvector q
+            eigenvalues, q = _eigenvalues_and_vector(a_matrix, math.sqrt(kappa))
+            lyapunov = self.lyapunov(u, q)
+        else:
+            eigenvalues = self.eigenvalues(a_matrix)
+            lyapunov = self.lyapunov(u) if self._lyapunov_pending else math.nan
+        if eigenvalues.size:
+            rest = _other_values(eigenvalues.tolist(), math.sqrt(kappa))
+            real = [v.real for v in rest if v.imag == 0]
+            pairs = [v.real for v in rest if v.imag > 0]
+            tests = np.array([lyapunov, signed_product(real), signed_product(pairs)])
+        else:
+            tests = np.array([lyapunov, math.nan, math.nan])
         self._pending = (orthonormal(vg), orthonormal(wg))
         return eigenvalues, tests
 
@@ -335,15 +358,16 @@ class HopfCurve(BoundaryCurve):
         self._since_lyapunov = 0 if self._lyapunov_pending else self._since_lyapunov + 1
         return u, tangent
 
-    def lyapunov(self, u: Array) -> float:
-        """The first Lyapunov coefficient l1 at a Hopf point u (contract scaling)."""
+    def lyapunov(self, u: Array, q: Array | None = None) -> float:
+        """The first Lyapunov coefficient l1 at a Hopf point u (contract scaling); ``q``
+        the unit eigenvector of A for i omega when the caller has it."""
         x, p = u[: self.n], self.parameters_at(u)
         omega = float(np.sqrt(max(u[self.n + 1], 0.0)))
         entries = self._second_entries()
         form = entries.bilinear(x, p) if entries is not None else None
         model = self.model if form is None else _WithBilinear(self.model, form)
         try:
-            return hopf_normal_form(model, x, p, omega).lyapunov
+            return hopf_normal_form(model, x, p, omega, q=q).lyapunov
         except (np.linalg.LinAlgError, ArithmeticError):  # A singular: zero-Hopf, l1 undefined
             return float("nan")
 
@@ -375,6 +399,19 @@ def _columns(first: int, second: int) -> Any:
     return slice(None) if first == 0 else slice(None, None, -1)
 
 
+def _eigenvalues_and_vector(a_matrix: Array, omega: float) -> tuple[Array, Array | None]:
+    """All eigenvalues of a dense A (sorted by decreasing real part) and the unit
+    eigenvector of the one nearest i omega (None if LAPACK fails): what
+    :func:`~branchline.numerics.eigenvalues.eigenvector_near` gives, from the same call."""
+    try:
+        values, vectors = np.linalg.eig(a_matrix)
+    except np.linalg.LinAlgError:
+        return eigen.sort_eigenvalues(eigen.eigvals_unchecked(a_matrix)), None
+    index = int(np.argmin(np.abs(values - 1j * omega)))
+    q = vectors[:, index] / np.linalg.norm(vectors[:, index])
+    return eigen.sort_eigenvalues(values), q
+
+
 def _square_null_spaces(a_matrix) -> tuple[Array, Array]:
     """Orthonormal bases (n, 2) of the right and left null spaces of A^2 (dense SVD): at a
     Bogdanov-Takens point they hold the generalized eigenvectors of the double zero."""
@@ -387,12 +424,19 @@ def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
     """The eigenvalues without the critical pair nearest +-i omega."""
     if eigenvalues.size < 2:
         return eigenvalues[:0]
-    values = eigenvalues.tolist()  # a few values: plain Python beats numpy's call overhead
+    # a few values: plain Python beats numpy's call overhead
+    return np.array(_other_values(eigenvalues.tolist(), omega), dtype=complex)
+
+
+def _other_values(values: list, omega: float) -> list:
+    """:func:`_other_eigenvalues` on a list of complex numbers."""
+    if len(values) < 2:
+        return []
     up = min(range(len(values)), key=lambda k: abs(values[k] - 1j * omega))
     down = min(
         (k for k in range(len(values)) if k != up), key=lambda k: abs(values[k] + 1j * omega)
     )
-    return np.array([v for k, v in enumerate(values) if k != up and k != down], dtype=complex)
+    return [v for k, v in enumerate(values) if k != up and k != down]
 
 
 class _WithBilinear:
