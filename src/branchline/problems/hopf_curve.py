@@ -80,6 +80,10 @@ class HopfCurve(BoundaryCurve):
         self._since_lyapunov = LYAPUNOV_EVERY  # the start point gets its l1
         self._lyapunov_pending = False
         self._last_parts = None
+        self._template: tuple[Array, Array, Array] | None = None  # (V, W, bordered zeros)
+        self._zero = np.zeros((self.n, 1))  # df/dkappa
+        n, m = self.n, self.p.size  # rows of the fused gradient table in the order of u
+        self._order = np.array([*range(n), n + self.second, n + m, n + self.first])
         self.reset_borders(u0)
 
     # ------------------------------------------------------------------ borders
@@ -157,7 +161,7 @@ class HopfCurve(BoundaryCurve):
 
     def _bordered_template(self) -> Array:
         """[[0, W], [V^T, 0]] for the current borders (dense), made once per border."""
-        kept = getattr(self, "_template", None)
+        kept = self._template
         if kept is not None and kept[0] is self.right and kept[1] is self.left:
             return kept[2]
         n = self.n
@@ -285,29 +289,13 @@ class HopfCurve(BoundaryCurve):
         rows = np.empty((n + self.p.size + 1, 2))
         np.matmul(table(x, p), outer.reshape(n * n, 2), out=rows[:-1])
         rows[-1] = (w * v).sum(axis=0)
-        top = (a_matrix, f_second[:, None], self._zero_column(), f_first[:, None])
-        jacobian = np.concatenate((np.concatenate(top, axis=1), rows[self._row_order()].T))
+        top = (a_matrix, f_second[:, None], self._zero, f_first[:, None])
+        jacobian = np.concatenate((np.concatenate(top, axis=1), rows[self._order].T))
         values = np.empty(n + 2)
         values[:n] = self.model.rhs(x, p)
         values[n] = g[i1, j1]
         values[n + 1] = g[i2, j2]
         return values, jacobian
-
-    def _zero_column(self) -> Array:
-        """df/dkappa = 0, shape (n, 1), made once."""
-        zero = getattr(self, "_zero", None)
-        if zero is None:
-            zero = self._zero = np.zeros((self.n, 1))
-        return zero
-
-    def _row_order(self) -> Array:
-        """Rows of the fused gradient table in the order (x, p2, kappa, p1)."""
-        order = getattr(self, "_order", None)
-        if order is None:
-            n, m = self.n, self.p.size
-            order = np.array([*range(n), n + self.second, n + m, n + self.first])
-            self._order = order
-        return order
 
     def jacobian(self, u: Array) -> Any:
         """dG/du, shape (n + 2, n + 3); sparse for large sparse models."""
