@@ -110,7 +110,7 @@ def _nudge(model, branches, params, k, name, state, local, scale) -> Nudge:
     rates = np.abs(lin.eigenvalues.real)
     slowest = max(float(rates.min()), SLOWEST_SHARE * float(rates.max()), 1e-300)
     duration = SETTLE_TIMES / slowest
-    trajectory = simulate(model, params, state + push, duration)
+    trajectory = simulate(model, params, state + push, duration, interpolant=False)
     value = float(params[k])
     if not trajectory.ok:
         return Nudge(value, name, lin.positive == 0, False, None, trajectory)

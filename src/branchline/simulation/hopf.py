@@ -89,10 +89,12 @@ def simulate_past_hopf(model: Model, event: Event) -> HopfRun | str:
     duration = SETTLE_TIMES / alpha + MEASURE_PERIODS * period
     reach = DEPARTURE_FACTOR * scale * shape
 
-    def departed(t: float, x: Array) -> float:
-        return float(np.max(np.abs(x - x0) / reach)) - 1.0
+    centre, limits = x0.tolist(), reach.tolist()
 
-    trajectory = simulate(model, params, start, duration, stop=departed)
+    def departed(t: float, x: Array) -> float:  # at every step: Python floats are cheaper
+        return max(abs(a - b) / r for a, b, r in zip(x.tolist(), centre, limits)) - 1.0
+
+    trajectory = simulate(model, params, start, duration, stop=departed, interpolant=False)
     predicted = "small stable cycle" if lyapunov < 0 else "departure"
     amplitude = scale * shape if lyapunov < 0 else None
     if not trajectory.ok:
