@@ -209,7 +209,9 @@ def test_jacobian_wrong_away_from_the_start_is_said(tmp_path, capsys):
 
 def test_doubled_jacobian_ends_as_a_failure_that_blames_it(tmp_path, capsys):
     # J twice the true one: Newton converges only linearly (ratio 1/2), the steps
-    # shrink and max_points is spent on a short stretch; that must not pass as exit 0.
+    # shrink and max_points would be spent on a short stretch; that must not pass as
+    # exit 0, and the trace must stop as soon as the struggle repeats and the
+    # Jacobian check there fails, not after max_points.
     extra = 'jacobian = "faulty_models:healthy_jacobian_doubled"'
     code, out = _run(tmp_path, PYTHON_SCAN.format(rhs="healthy", extra=extra))
     capsys.readouterr()
@@ -219,6 +221,11 @@ def test_doubled_jacobian_ends_as_a_failure_that_blames_it(tmp_path, capsys):
     assert faulty["status"] == "failed"
     assert "healthy_jacobian_doubled" in faulty["message"]
     assert "disagrees with finite differences" in faulty["message"]
+    assert "struggled at 3 points in a row" in faulty["message"]
+    assert "max_points" not in faulty["message"]
+    # stopped at the third struggling point of the increasing side (plus the points
+    # of the decreasing side, which reaches F = 0 in a few steps), far from 2000
+    assert faulty["points"] <= 20
     assert any("d f[x0] / d x0 is" in w for w in info["warnings"])
     points = pd.read_csv(out / "points.csv")
     # every point kept, and each is an equilibrium x0 = 1 - F (solved by hand)

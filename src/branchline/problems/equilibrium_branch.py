@@ -55,6 +55,7 @@ from branchline.numerics.eigen_tracking import SpectrumTrack, track_leading_eige
 from branchline.numerics.eigenvalues import dense_eigenvalues, sort_eigenvalues
 from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy, policy_of
 from branchline.problems.equilibrium import solve_equilibrium
+from branchline.problems.jacobian_watch import watch_for
 from branchline.problems.tracing import (
     DIRECTIONS,
     TraceRequest,
@@ -165,6 +166,8 @@ class EquilibriumBranch:
         # and the branch-point test read from the tangent's factorization.
         self.spectrum: SpectrumTrack | None = None
         self._determinant: tuple[Any, float] | None = None
+        # A user's own Jacobian is checked again where the corrector keeps struggling.
+        self.watch = watch_for(model)
 
     def _parameters(self, u: Array) -> Array:
         # One buffer, updated in place: the model functions read p and keep no
@@ -207,10 +210,14 @@ class EquilibriumBranch:
 
     def jacobian(self, u: Array) -> Any:
         """[f_x, f_p] at u, shape (n, n + 1): ndarray, or scipy.sparse CSC for sparse models."""
+        if self.watch is not None:
+            self.watch.evaluations += 1
         return self._stacked(u[:-1], self._parameters(u))
 
     def evaluate(self, u: Array) -> tuple[Array, Any]:
         """(residual, jacobian) at u in one call, sharing the parameter vector."""
+        if self.watch is not None:
+            self.watch.evaluations += 1
         x = u[:-1]
         p = self._parameters(u)
         return np.asarray(self._rhs(x, p), dtype=float), self._stacked(x, p)
@@ -247,9 +254,15 @@ class EquilibriumBranch:
         ObservationFailed
             When a large sparse model's leading eigenvalues cannot be computed
             (the engine then stops the branch there, status ``failed``): a row
-            of unknown stability would hide stability changes.
+            of unknown stability would hide stability changes. Also when the
+            model's own Jacobian fails its check where the corrector keeps
+            struggling (:mod:`branchline.problems.jacobian_watch`).
         """
         n = self.size
+        if self.watch is not None:
+            trouble = self.watch.verdict(u[:-1], self._parameters(u).copy())
+            if trouble:
+                raise ObservationFailed(trouble)
         if linalg.is_sparse(jacobian):
             jac = jacobian.tocsc()
             fx = jac[:, :n]
