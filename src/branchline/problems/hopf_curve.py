@@ -81,6 +81,7 @@ class HopfCurve(BoundaryCurve):
         self._lyapunov_pending = False
         self._last_parts = None
         self._template: tuple[Array, Array, Array] | None = None  # (V, W, bordered zeros)
+        self._fused: tuple | None = None  # decided at the first evaluation
         self._zero = np.zeros((self.n, 1))  # df/dkappa
         n, m = self.n, self.p.size  # rows of the fused gradient table in the order of u
         self._order = np.array([*range(n), n + self.second, n + m, n + self.first])
@@ -233,10 +234,11 @@ class HopfCurve(BoundaryCurve):
         """The residual and its Jacobian (n + 2, n + 3), exact derivatives."""
         n = self.n
         x, p = u[:n], self.parameters_at(u)
+        if self._fused is None:
+            self._fused = self._fused_pieces()
+        if self._fused:
+            return self._evaluate_fused(u, x, p, *self._fused)
         together = None if self.sparse else getattr(self.model, "derivatives", None)
-        table = self._dense_table()
-        if together is not None and table is not None:
-            return self._evaluate_fused(u, x, p, together, table)
         if together is None:
             a_matrix = self.state_matrix(x, p)
             f_p = self.parameter_columns(x, p)
@@ -257,25 +259,29 @@ class HopfCurve(BoundaryCurve):
         jacobian[n:] = rows
         return values, jacobian
 
-    def _dense_table(self):
-        """The compiled (n + m, n * n) second-derivative table's maker for small dense
-        expression models, else None."""
+    def _fused_pieces(self) -> tuple:
+        """(df/dp_k maker (x, p, k) -> (n,), the (n + m, n * n) second-derivative table
+        maker) for small dense expression models; () for the others."""
+        together = None if self.sparse else getattr(self.model, "derivatives", None)
         entries = self._second_entries()
-        return entries.table if entries is not None and entries.dense else None
+        if together is None or entries is None or not entries.dense:
+            return ()
+        # the compiled functions' own df/dp_k (A is not needed twice), else via together
+        column = getattr(getattr(together, "__self__", None), "parameter_column", None)
+        if column is None:
 
-    def _evaluate_fused(self, u: Array, x: Array, p: Array, together, table) -> tuple[Array, Any]:
+            def column(x: Array, p: Array, k: int) -> Array:
+                return together(x, p, k)[1]
+
+        return column, entries.table
+
+    def _evaluate_fused(self, u: Array, x: Array, p: Array, column, table) -> tuple[Array, Any]:
         """:meth:`evaluate` for small dense expression models: the same values and exact
         Jacobian, assembled in place with as few array operations as possible (at a
         few states numpy's per-call overhead, not arithmetic, is the cost of a point)."""
         n = self.n
-        column = getattr(together, "__self__", None)
-        column = getattr(column, "parameter_column", None)
-        if column is None:
-            a_matrix, f_second = together(x, p, self.second)
-            f_first = together(x, p, self.first)[1]
-        else:  # A once, then the two parameter columns alone
-            a_matrix = self.model.jacobian(x, p)
-            f_second, f_first = column(x, p, self.second), column(x, p, self.first)
+        a_matrix = self.model.jacobian(x, p)
+        f_second, f_first = column(x, p, self.second), column(x, p, self.first)
         if type(a_matrix) is not np.ndarray:
             a_matrix = a_matrix.toarray() if sps.issparse(a_matrix) else np.asarray(a_matrix)
         vg, g, wg = self._parts(u, a_matrix)
