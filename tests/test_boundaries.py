@@ -322,3 +322,72 @@ def test_second_derivative_entries_contract_like_sympy(size):
         u, v = rng.normal(size=size) + 1j * rng.normal(size=size), rng.normal(size=size)
         form = entries.bilinear(x, p)
         np.testing.assert_allclose(form(u, v), model.second(x, p, u, v), rtol=1e-12, atol=1e-12)
+
+
+LORENZ = {
+    "model": {
+        "parameters": {"rho": 20.0, "sigma": 10.0, "beta": 8.0 / 3.0},
+        "equations": {"x": "sigma*(y - x)", "y": "x*(rho - z) - y", "z": "x*y - beta*z"},
+    },
+    "trace": [
+        {
+            "name": "line",
+            "vary": "rho",
+            "interval": [1.5, 40.0],
+            "start": {"x": float(np.sqrt(8.0 / 3.0 * 19.0)), "y": 0.0, "z": 19.0},
+        }
+    ],
+    "boundary": [
+        {
+            "name": "onset",
+            "from": "line",
+            "kind": "hopf",
+            "second": "sigma",
+            "window": {"rho": [1.5, 60.0], "sigma": [5.0, 20.0]},
+        }
+    ],
+}
+LORENZ["trace"][0]["start"]["y"] = LORENZ["trace"][0]["start"]["x"]
+
+
+def test_hopf_curve_of_the_lorenz_equations_and_its_exact_jacobian():
+    """The Hopf curve of the nontrivial equilibria of the Lorenz equations (Lorenz,
+    "Deterministic nonperiodic flow", J. Atmos. Sci. 20, 1963): with the characteristic
+    polynomial l^3 + (sigma + beta + 1) l^2 + beta (sigma + rho) l + 2 beta sigma (rho - 1)
+    there, a pair +-i omega needs a2 a1 = a0, i.e. rho = sigma (sigma + beta + 3) /
+    (sigma - beta - 1), and omega^2 = a1 = beta (sigma + rho) (derived by hand from the
+    Routh-Hurwitz condition; the formula for rho is the one in Sparrow, The Lorenz
+    Equations, 1982, from memory). The small-model fast path of the Hopf curve's
+    evaluation must agree with the general one to rounding and with differences."""
+    from branchline.model.build import build_model
+    from branchline.problems.hopf_curve import HopfCurve
+    from branchline.scan.loader import ExpressionModelSpec
+
+    result = branchline.run(LORENZ)
+    frame = result.boundaries_frame()
+    rho, sigma = frame["rho"].to_numpy(), frame["sigma"].to_numpy()
+    beta = 8.0 / 3.0
+    assert len(frame) > 20 and sigma.min() == 5.0 and sigma.max() == 20.0  # edge to edge
+    expected = sigma * (sigma + beta + 3.0) / (sigma - beta - 1.0)
+    assert np.max(np.abs(rho / expected - 1.0)) < 1e-9
+    omega_squared = frame["frequency"].to_numpy() ** 2
+    assert np.max(np.abs(omega_squared / (beta * (sigma + rho)) - 1.0)) < 1e-9
+
+    model = build_model(ExpressionModelSpec(**LORENZ["model"]))
+    row = frame.iloc[len(frame) // 3]
+    states = row[["x", "y", "z"]].to_numpy(dtype=float)
+    u = np.concatenate([states, [row["sigma"], row["frequency"] ** 2, row["rho"]]])
+    curve = HopfCurve(model, 0, 1, model.defaults.copy(), u)
+    u = u + 1e-3 * np.array([1.0, -2.0, 0.5, 0.3, -0.7, 1.1])  # off the curve: G != 0
+    fast_values, fast_jacobian = curve.evaluate(u)
+    assert curve._fused  # the small-model path was taken
+    curve._fused, curve._last_parts = (), None
+    values, jacobian = curve.evaluate(u)
+    np.testing.assert_allclose(fast_values, values, rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose(fast_jacobian, jacobian, rtol=1e-12, atol=1e-13)
+    step = 1e-6
+    for k in range(u.size):  # central differences of the residual, column by column
+        shift = np.zeros(u.size)
+        shift[k] = step
+        column = (curve.residual(u + shift) - curve.residual(u - shift)) / (2.0 * step)
+        np.testing.assert_allclose(fast_jacobian[:, k], column, rtol=1e-6, atol=1e-7)
