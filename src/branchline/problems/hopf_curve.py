@@ -260,28 +260,21 @@ class HopfCurve(BoundaryCurve):
         return values, jacobian
 
     def _fused_pieces(self) -> tuple:
-        """(df/dp_k maker (x, p, k) -> (n,), the (n + m, n * n) second-derivative table
-        maker) for small dense expression models; () for the others."""
+        """(the (n + m, n * n) second-derivative table's maker,) for small dense
+        expression models; () for the others."""
         together = None if self.sparse else getattr(self.model, "derivatives", None)
         entries = self._second_entries()
         if together is None or entries is None or not entries.dense:
             return ()
-        # the compiled functions' own df/dp_k (A is not needed twice), else via together
-        column = getattr(getattr(together, "__self__", None), "parameter_column", None)
-        if column is None:
+        return (entries.table,)
 
-            def column(x: Array, p: Array, k: int) -> Array:
-                return together(x, p, k)[1]
-
-        return column, entries.table
-
-    def _evaluate_fused(self, u: Array, x: Array, p: Array, column, table) -> tuple[Array, Any]:
+    def _evaluate_fused(self, u: Array, x: Array, p: Array, table) -> tuple[Array, Any]:
         """:meth:`evaluate` for small dense expression models: the same values and exact
         Jacobian, assembled in place with as few array operations as possible (at a
         few states numpy's per-call overhead, not arithmetic, is the cost of a point)."""
         n = self.n
         a_matrix = self.model.jacobian(x, p)
-        f_second, f_first = column(x, p, self.second), column(x, p, self.first)
+        f_p = self.model.parameter_jacobian(x, p)  # one compiled call for all of df/dp
         if type(a_matrix) is not np.ndarray:
             a_matrix = a_matrix.toarray() if sps.issparse(a_matrix) else np.asarray(a_matrix)
         vg, g, wg = self._parts(u, a_matrix)
@@ -295,7 +288,8 @@ class HopfCurve(BoundaryCurve):
         rows = np.empty((n + self.p.size + 1, 2))
         np.matmul(table(x, p), outer.reshape(n * n, 2), out=rows[:-1])
         rows[-1] = (w * v).sum(axis=0)
-        top = (a_matrix, f_second[:, None], self._zero, f_first[:, None])
+        second, first = self.second, self.first
+        top = (a_matrix, f_p[:, second : second + 1], self._zero, f_p[:, first : first + 1])
         jacobian = np.concatenate((np.concatenate(top, axis=1), rows[self._order].T))
         values = np.empty(n + 2)
         values[:n] = self.model.rhs(x, p)
