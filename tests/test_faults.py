@@ -121,21 +121,70 @@ def test_nan_on_part_of_the_range_stops_there(tmp_path, capsys):
     assert ((points["x"] - points["F"]).abs() < 1e-12).all()
 
 
-def test_escape_to_infinity_stops_with_a_message(tmp_path, capsys):
-    text = (
-        'title = "escape"\n[model.parameters]\nF = 1.0\n[model.equations]\nx = "F*x - 1"\n'
-        '[[trace]]\nname = "t"\nvary = "F"\ninterval = [0.0, 1.0]\nstart = { x = 1.0 }\n'
-    )
+ESCAPE_SCAN = """
+title = "escape"
+[model.parameters]
+F = 1.0
+G = 0.0
+[model.equations]
+x = "{x}"
+y = "G - y"
+[steps]
+largest = {largest}
+[[trace]]
+name = "runaway"
+vary = "F"
+interval = [{lo}, {hi}]
+start = {{ x = {x0}, y = 0.0 }}
+[[trace]]
+name = "healthy"
+vary = "G"
+interval = [0.0, 1.0]
+start = {{ x = {x0}, y = 0.0 }}
+"""
+
+
+@pytest.mark.parametrize(
+    "x, exact",
+    [("1 - F*x", lambda f: 1.0 / f), ("1 - F*F*x", lambda f: 1.0 / f**2)],
+    ids=["1/F", "1/F^2"],
+)
+def test_escape_to_infinity_stops_with_a_message(tmp_path, capsys, x, exact):
+    """x' = 1 - F^k x has the equilibrium x = 1/F^k (exact, by hand), a pole at F = 0:
+    the trace stops there by the rule of continuation/escape.py, exit 1, points kept."""
+    text = ESCAPE_SCAN.format(x=x, largest=0.05, lo=0.0, hi=1.0, x0=1.0)
     code, out = _run(tmp_path, text)
-    capsys.readouterr()
+    err = capsys.readouterr().err
+    assert code == 1, err
+    assert "Traceback" not in err and "Warning" not in err
     info = json.loads((out / "run.json").read_text())
+    runaway, healthy = info["traces"]
+    assert runaway["status"] == "failed" and healthy["status"] == "done"
+    message = runaway["message"]
+    assert "the state x grows without bound" in message
     points = pd.read_csv(out / "points.csv")
-    # The equilibrium x = 1/F is followed exactly while it exists (F > 0).
-    assert ((points["x"] * points["F"] - 1.0).abs() < 1e-9).all()
-    assert points["F"].max() == 1.0
-    (trace,) = info["traces"]
-    assert trace["status"] in ("failed", "max_points")
-    assert code in (0, 1) and (code == 1) == (trace["status"] == "failed")
+    mine = points[points["trace"] == "runaway"]
+    # Every point kept is on the exact branch; the last one is the one named.
+    assert (abs(mine["x"] / exact(mine["F"]) - 1.0) < 1e-9).all()
+    assert mine["F"].max() == 1.0
+    last = mine.loc[mine["F"].idxmin()]
+    assert f"x={last['x']:.6g} at F={last['F']:.10g}" in message
+    assert 10.0 < last["x"] < 2000.0  # stopped soon after the watch began, not at max_points
+    assert len(mine) < 2000
+    assert "grows without bound" in (out / "report.md").read_text()
+
+
+def test_large_but_finite_growth_is_not_an_escape(tmp_path, capsys):
+    """x = exp(F) (x' = exp(F) - x) grows to 1.6e5 on [0, 12] but has no pole: done, exit 0."""
+    text = ESCAPE_SCAN.format(x="exp(F) - x", largest=5000.0, lo=0.0, hi=12.0, x0=1.0)
+    text = text.replace("F = 1.0", "F = 0.0")
+    code, out = _run(tmp_path, text)
+    err = capsys.readouterr().err
+    assert code == 0, err
+    info = json.loads((out / "run.json").read_text())
+    assert [t["status"] for t in info["traces"]] == ["done", "done"]
+    points = pd.read_csv(out / "points.csv")
+    assert points.loc[points["trace"] == "runaway", "x"].max() > 1e5
 
 
 def test_newton_cycling_at_start_is_reported(tmp_path, capsys):

@@ -87,7 +87,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from branchline.continuation import correctors, step_control
+from branchline.continuation import correctors, escape, step_control
 from branchline.continuation.correctors import EvaluationCounts
 from branchline.continuation.step_control import Limit
 from branchline.numerics import linalg
@@ -336,6 +336,7 @@ class _Walk:
         "adapt",
         "arclength",
         "counts",
+        "escape",
         "evaluate",
         "hi",
         "largest",
@@ -375,6 +376,7 @@ class _Walk:
         self.rows: list[tuple] = []
         self.status, self.message = "", ""
         self.arclength = 0.0
+        self.escape = None
 
     def start(self, u: Array, t: Array, tangent_exact: bool) -> str:
         """Record the start point; "" or why the curve cannot start there."""
@@ -403,6 +405,7 @@ class _Walk:
         self.rows.append((u, t, 0.0, 0, linalg.norm(g0), tests, payload))
         self.tracked = step_control.track_tests(tests.tolist())
         self.u, self.t = self.u_start, self.t_start = u, t
+        self.escape = escape.watch_for(problem, u)
         self.status, self.message = _outside_at_start(self, u)
         return ""
 
@@ -456,6 +459,9 @@ def _correct(walk: _Walk) -> NewtonResult:
 
 def _step(walk: _Walk) -> str:
     """One step: predict, correct, accept or shrink, stop on an edge, observe, record."""
+    runaway = walk.escape.check(walk.u) if walk.escape is not None else ""
+    if runaway:
+        return walk.stop(Status.FAILED, runaway)
     if len(walk.rows) >= walk.max_points:
         return walk.stop(
             Status.MAX_POINTS,

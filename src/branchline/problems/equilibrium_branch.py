@@ -168,6 +168,8 @@ class EquilibriumBranch:
         self._determinant: tuple[Any, float] | None = None
         # A user's own Jacobian is checked again where the corrector keeps struggling.
         self.watch = watch_for(model)
+        # Names for the rule that stops a branch running off to infinity (continuation/escape).
+        self.escape_names = (tuple(model.states), model.parameters[self.vary_index])
 
     def _parameters(self, u: Array) -> Array:
         # One buffer, updated in place: the model functions read p and keep no
