@@ -248,10 +248,13 @@ def _read_saved(folder: str):
     from branchline.results.writers import ResultsFolderError, read_results
 
     try:
-        return read_results(folder)
+        saved = read_results(folder)
     except ResultsFolderError as err:
         _error(str(err))
         return None
+    for sentence in saved.skipped:
+        print(f"branchline: note: {folder}: {sentence}", file=sys.stderr)
+    return saved
 
 
 def _damaged(folder: str, error: Exception) -> int:

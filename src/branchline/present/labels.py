@@ -49,10 +49,17 @@ def _line_vertices(lines) -> np.ndarray:
             continue  # an event marker: kept clear through its own box
         shown = line.get_transform().transform(xy)  # axvline: blended data/axes coords
         gaps = np.hypot(*np.diff(shown, axis=0).T)
-        pieces = np.maximum(1, np.ceil(gaps / LINE_SAMPLE_SPACING).astype(int))
-        for a, b, n in zip(shown[:-1], shown[1:], pieces, strict=True):
-            chunks.append(a + np.linspace(0.0, 1.0, n, endpoint=False)[:, None] * (b - a))
-        chunks.append(shown[-1:])
+        # Empty cells (NaN) are gaps in the drawn line: segments touching one are not
+        # sampled (casting their NaN length to a count would warn and mean nothing).
+        drawn = np.isfinite(gaps)
+        pieces = np.ones(gaps.shape, dtype=int)
+        pieces[drawn] = np.maximum(1, np.ceil(gaps[drawn] / LINE_SAMPLE_SPACING).astype(int))
+        for a, b, n, ok in zip(shown[:-1], shown[1:], pieces, drawn, strict=True):
+            if ok:
+                chunks.append(a + np.linspace(0.0, 1.0, n, endpoint=False)[:, None] * (b - a))
+        last = shown[-1:]
+        if np.isfinite(last).all():
+            chunks.append(last)
     return np.vstack(chunks) if chunks else np.empty((0, 2))
 
 

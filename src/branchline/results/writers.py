@@ -45,6 +45,8 @@ class SavedRun:
     events: list[dict[str, Any]]
     info: dict[str, Any]
     cycles: pd.DataFrame | None = None
+    # What the reader had to leave out (a table cut short mid-row), in words for the user.
+    skipped: tuple[str, ...] = ()
 
 
 def _csv(frame: pd.DataFrame, path: Path) -> None:
@@ -221,11 +223,29 @@ def _confirmation_figure(result: RunResult, folder: Path) -> None:
         save_confirmations_figure(figure, folder / "confirmations.png")
 
 
-def _read_points(path: Path) -> pd.DataFrame:
+def _read_points(path: Path, skipped: list[str] | None = None) -> pd.DataFrame:
+    """The table at ``path``; a last row cut short (no final newline: the file was
+    truncated mid-row) is left out, and ``skipped`` gets a sentence saying so."""
     frame = pd.read_csv(path)
+    if len(frame) and not _ends_with_newline(path):
+        frame = frame.iloc[:-1]
+        if skipped is not None:
+            skipped.append(
+                f"{path.name} ends mid-row (the file was cut short); its last, incomplete "
+                f"row was skipped and {len(frame)} complete rows were used"
+            )
     if "stable" in frame.columns:
         frame["stable"] = frame["stable"].astype(str).str.lower().eq("true")
     return frame
+
+
+def _ends_with_newline(path: Path) -> bool:
+    with path.open("rb") as handle:
+        handle.seek(0, 2)
+        if handle.tell() == 0:
+            return True
+        handle.seek(-1, 2)
+        return handle.read(1) in (b"\n", b"\r")
 
 
 class ResultsFolderError(Exception):
@@ -243,17 +263,26 @@ def read_results(folder: str | Path) -> SavedRun:
         raise ResultsFolderError(
             f"{folder}: not a branchline results folder (missing {', '.join(missing)})"
         )
+    skipped: list[str] = []
     try:
-        points = _read_points(folder / "points.csv")
+        points = _read_points(folder / "points.csv", skipped)
         events = json.loads((folder / "events.json").read_text(encoding="utf-8"))
         info = json.loads((folder / "run.json").read_text(encoding="utf-8"))
-        cycles = _read_points(folder / "cycles.csv") if (folder / "cycles.csv").is_file() else None
+        cycles_path = folder / "cycles.csv"
+        cycles = _read_points(cycles_path, skipped) if cycles_path.is_file() else None
     except (ValueError, KeyError, OSError, RecursionError, UnicodeDecodeError) as err:
         raise ResultsFolderError(f"{folder}: cannot read the results ({_short(err)})") from None
     problem = _layout_problem(points, events, info)
     if problem:
         raise ResultsFolderError(f"{folder}: not a readable results folder: {problem}")
-    return SavedRun(folder=folder, points=points, events=events["events"], info=info, cycles=cycles)
+    return SavedRun(
+        folder=folder,
+        points=points,
+        events=events["events"],
+        info=info,
+        cycles=cycles,
+        skipped=tuple(skipped),
+    )
 
 
 # Error texts from parsers can quote whole files; this much is enough to locate trouble.

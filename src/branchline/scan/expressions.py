@@ -33,6 +33,7 @@ import ast
 import difflib
 import importlib
 import math
+import warnings
 from collections.abc import Callable
 from typing import Any
 
@@ -299,12 +300,17 @@ def _powers_as_python(text: str) -> tuple[str, list[int]]:
 
 def _syntax_tree(python_text: str, columns: list[int]) -> ast.Expression:
     try:
-        return ast.parse(python_text, mode="eval")
-    except SyntaxError as err:
+        # Python's tokenizer warns about text like "2if" (invalid decimal literal) on
+        # stderr; as errors they become the clean refusal below instead.
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", SyntaxWarning)
+            warnings.simplefilter("error", DeprecationWarning)
+            return ast.parse(python_text, mode="eval")
+    except (SyntaxError, SyntaxWarning, DeprecationWarning) as err:
         column = None
-        if err.offset is not None and err.lineno == 1:
+        if getattr(err, "offset", None) is not None and getattr(err, "lineno", None) == 1:
             column = columns[min(max(err.offset - 1, 0), len(columns) - 1)]
-        reason = (err.msg or "invalid syntax").split(". Maybe")[0]
+        reason = (getattr(err, "msg", None) or str(err) or "invalid syntax").split(". Maybe")[0]
         raise _Refusal(f"not a valid expression ({reason})", column) from None
     except (RecursionError, MemoryError, ValueError):
         # CPython's parser signals absurd nesting this way (MemoryError for
