@@ -10,6 +10,8 @@ of the scan run. Faults in what a user function *returns at the start*
 from __future__ import annotations
 
 import json
+import math
+import re
 import time
 from pathlib import Path
 
@@ -196,11 +198,54 @@ def test_newton_cycling_at_start_is_reported(tmp_path, capsys):
     code, out = _run(tmp_path, text)
     err = capsys.readouterr().err
     info = json.loads((out / "run.json").read_text())
-    if code == 1:  # the damped Newton may also rescue it; then x = 0 is found
-        assert "no equilibrium found at the start" in info["traces"][0]["message"]
-    else:
-        assert code == 0, err
-        assert abs(pd.read_csv(out / "points.csv")["x"]).max() < 1e-9
+    # Plain Newton on atan overshoots from |x0| > 1.39 and diverges; the damped
+    # solve (steps cut back until |f| falls) rescues it and finds x = 0.
+    assert code == 0, err
+    assert info["traces"][0]["status"] == "done"
+    assert abs(pd.read_csv(out / "points.csv")["x"]).max() < 1e-9
+
+
+def test_newton_that_cycles_stops_the_trace_at_its_start(tmp_path, capsys):
+    """f(x) = x^3 - 2x + 2 from x0 = 0: plain Newton cycles 0 -> 1 -> 0 for ever (a standard
+    example of Newton cycling, e.g. Burden and Faires, Numerical Analysis, chapter 2; from
+    memory, section not checked; the two steps are verified below). The damped solve
+    refuses the step back to 0 (|f| would rise from 1 to 2) and stalls at the local
+    minimum of |f|, x = sqrt(2/3), f = 2 - (4/3) sqrt(2/3) = 0.9113 (by hand: f' = 0): no
+    equilibrium near the guess (the only real root is x = -1.769). Exit 1, where and why,
+    no hang, and the other trace runs."""
+
+    def plain_newton(x):
+        return x - (x**3 - 2 * x + 2) / (3 * x**2 - 2)
+
+    assert plain_newton(0.0) == 1.0 and plain_newton(1.0) == 0.0
+    text = (
+        'title = "cycling"\n[model.parameters]\nF = 0.5\n[model.equations]\n'
+        'x = "x^3 - 2*x + 2 + 0*F"\ny = "F - y"\n'
+        '[[trace]]\nname = "cycling"\nvary = "F"\ninterval = [0.0, 1.0]\n'
+        "start = { x = 0.0, y = 0.5 }\n"
+        '[[trace]]\nname = "found"\nvary = "F"\ninterval = [0.0, 1.0]\n'
+        "start = { x = -1.8, y = 0.5 }\n"
+    )
+    code, out = _run(tmp_path, text)
+    err = capsys.readouterr().err
+    assert code == 1, err
+    assert "Traceback" not in err
+    info = json.loads((out / "run.json").read_text())
+    cycling, found = info["traces"]
+    assert cycling["status"] == "failed" and found["status"] == "done"
+    message = cycling["message"]
+    assert "no equilibrium found at the start F=0.5" in message
+    assert "stalled" in message and "try another guess" in message
+    stalled_at = float(re.search(r"stalled at x=([-+0-9.e]+)", message).group(1))
+    assert abs(stalled_at - math.sqrt(2.0 / 3.0)) < 1e-3
+    residual = float(re.search(r"residual ([-+0-9.e]+)", message).group(1))
+    assert abs(residual - (2.0 - 4.0 / 3.0 * math.sqrt(2.0 / 3.0))) < 1e-3
+    assert cycling["counts"]["newton_iterations"] < 100
+    assert "no equilibrium found at the start" in (out / "report.md").read_text()
+    points = pd.read_csv(out / "points.csv")
+    assert set(points["trace"]) == {"found"}
+    # The root of x^3 - 2x + 2 (Cardano; by hand): -1.76929235...
+    assert (abs(points["x"] ** 3 - 2 * points["x"] + 2) < 1e-9).all()
 
 
 @pytest.mark.parametrize(
