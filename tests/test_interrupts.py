@@ -166,3 +166,79 @@ def test_stop_request_in_process_keeps_points_and_skips_the_rest():
 
 def test_model_file_is_valid_python():
     compile(textwrap.dedent(MODEL.format(send=SEND_NOW.format(name="SIGINT"))), "m", "exec")
+
+
+# Runs branchline with its table writer wrapped so that the process signals itself
+# right after points.csv is written into the staging folder: mid-write, at a known place.
+SIGNAL_WHILE_WRITING = """
+import os, signal, sys
+import branchline.results.writers as writers
+
+SIGNALS = {"term": ["SIGTERM"], "term-twice": ["SIGTERM", "SIGTERM"], "kill": ["SIGKILL"]}
+write_table = writers._csv
+
+def _csv(frame, path):
+    write_table(frame, path)
+    if path.name == "points.csv":
+        for name in SIGNALS[sys.argv[1]]:
+            os.kill(os.getpid(), getattr(signal, name))
+
+writers._csv = _csv
+from branchline.cli import main
+raise SystemExit(main(sys.argv[2:]))
+"""
+
+SMALL_SCAN = (
+    'title = "{title}"\n[model.parameters]\nF = 0.0\n[model.equations]\n'
+    'N = "N*(1 - N) - F*N"\n[[trace]]\nvary = "F"\ninterval = [0.0, {hi}]\n'
+    "start = {{ N = 1.0 }}\n"
+)
+
+
+def _hidden(folder: Path) -> list[str]:
+    return sorted(p.name for p in folder.iterdir() if p.name.startswith("."))
+
+
+@pytest.mark.parametrize("how", ["term", "term-twice", "kill"])
+def test_signal_while_writing_never_leaves_a_half_written_folder(tmp_path, how):
+    """SIGTERM once while writing: the write finishes (whole new results), exit 143 saying
+    so. A second SIGTERM or SIGKILL mid-write: the earlier results stay byte for byte;
+    a killed run's marked staging folder and lock are cleared by the next run."""
+    out = tmp_path / "out"
+    first, second = tmp_path / "first.toml", tmp_path / "second.toml"
+    first.write_text(SMALL_SCAN.format(title="first", hi=0.5))
+    second.write_text(SMALL_SCAN.format(title="second", hi=0.8))
+    assert main(["run", str(first), "--out", str(out), "--quiet"]) == 0
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    (tmp_path / "signal_while_writing.py").write_text(SIGNAL_WHILE_WRITING)
+    done = subprocess.run(
+        [sys.executable, "signal_while_writing.py", how, "run", str(second), "--out", str(out)],
+        cwd=tmp_path,
+        env={"PYTHONPATH": SRC, "PATH": "/usr/bin:/bin", "MPLBACKEND": "Agg"},
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
+    assert "Traceback" not in done.stderr
+    after = {p.name: p.read_bytes() for p in out.iterdir()}
+    if how == "term":
+        assert done.returncode == 143, done.stderr
+        assert "interrupted (SIGTERM) while the results were being written" in done.stderr
+        info = json.loads(after["run.json"])
+        assert info["title"] == "second" and info["status"] == "done"
+        points = pd.read_csv(out / "points.csv")
+        assert points["F"].max() == 0.8  # whole: the trace reaches its edge
+        assert set(info["files"]) <= set(after)
+        assert _hidden(tmp_path) == []
+        return
+    assert after == before  # the earlier results, untouched
+    if how == "term-twice":
+        assert done.returncode == 130, done.stderr
+        assert "nothing more was written" in done.stderr
+        assert _hidden(tmp_path) == []
+        return
+    assert done.returncode == -9
+    assert _hidden(tmp_path) != []  # what SIGKILL leaves: a marked staging folder, the lock
+    assert main(["run", str(second), "--out", str(out), "--quiet"]) == 0
+    assert json.loads((out / "run.json").read_text())["title"] == "second"
+    assert _hidden(tmp_path) == []

@@ -120,6 +120,14 @@ def _run_and_write(scan, out: Path, quiet: bool, confirm: bool = True) -> int:
             "(run.json says interrupted)"
         )
         return EXIT_SIGNAL_BASE + (stop.signal_number or 2)
+    if stop.requested and not stop.by_time_limit:
+        # The signal came after the computation, while writing: the write was let
+        # finish (the results are whole; the old ones were replaced only then).
+        _error(
+            f"{stop.reason} while the results were being written; the computation was "
+            f"complete and the results were written whole to {written}/"
+        )
+        return EXIT_SIGNAL_BASE + (stop.signal_number or 2)
     if not quiet:
         for warning in result.warnings:
             print(f"warning: {warning}", file=sys.stderr)
