@@ -261,7 +261,8 @@ class EquilibriumBranch:
                 eigenvalues = dense_eigenvalues(fx.toarray())
             else:
                 search, self.spectrum = track_leading_eigenvalues(
-                    fx, self.spectrum, policy=self.policy
+                    fx, self.spectrum, policy=self.policy,
+                    determinant_sign=self._jacobian_sign(jacobian, tangent),
                 )
                 if not search.found:
                     raise ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
@@ -279,6 +280,19 @@ class EquilibriumBranch:
                 tests[2] = -tests[2]  # the last row is -t in trace order
             return eigenvalues, tests
         return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues, self.policy)
+
+    def _jacobian_sign(self, jacobian: Any, tangent: Array) -> float | None:
+        """The sign of det f_x from the tangent's factorization, or None when unknown.
+
+        With the unit tangent t = (t_x, t_p) in the direction of travel and
+        f_x t_x + f_p t_p = 0, the Schur complement of f_x in [G_u; t^T] is
+        t_p + |t_x|^2 / t_p = 1 / t_p, so det f_x = det [G_u; t^T] t_p.
+        """
+        known = self._determinant
+        if known is None or known[0] is not jacobian:
+            return None
+        sign = float(np.sign(known[1]) * np.sign(tangent[-1]))
+        return sign or None
 
     def describe(self, u: Array) -> str:
         """The point for messages: the varied parameter and the first few states."""
