@@ -50,6 +50,11 @@ Optional members:
     z = its solution for e_(N+1); the tangent is z / |z|), before the ``observe``
     that follows, so that a problem can keep what it gives (the equilibrium
     branch reads its branch-point test from it).
+``tangent(jacobian, previous) -> ndarray (N + 1,)``
+    For sparse Jacobians only, instead of the engine's own factorization: the
+    unit tangent at a corrected point (raising
+    :class:`branchline.numerics.linalg.SingularMatrixError` when undefined); the
+    ``reuse`` corrector then has no factors to reuse and runs full Newton.
 ``adapt(u, tangent) -> (u, tangent)``
     Called after each accepted step, before the next prediction, with the
     point just recorded and its unit tangent; returns the pair (same shapes)
