@@ -644,3 +644,20 @@ def test_reference_case_events(case, policy, newton):
             assert event.lyapunov == pytest.approx(expected.lyapunov, rel=1e-8)
         if expected.branching is not None:
             assert event.branching == expected.branching
+
+
+def test_permutation_parity_memo_agrees_with_sympy():
+    # The parity behind the sign of a sparse determinant (numerics/linalg.py), memoized
+    # per permutation, against sympy's Permutation.signature (a reference library),
+    # each permutation asked twice (the second answer comes from the memo).
+    from sympy.combinatorics import Permutation
+
+    from branchline.numerics import linalg
+
+    rng = np.random.default_rng(11)
+    for size in (2, 3, 17, 250, 251):
+        for _ in range(3):
+            permutation = rng.permutation(size)
+            expected = float(Permutation(permutation.tolist()).signature())
+            assert linalg._permutation_sign(permutation) == expected
+            assert linalg._permutation_sign(permutation) == expected

@@ -95,6 +95,68 @@ def test_tracking_that_loses_confidence_falls_back_to_the_full_search():
     np.testing.assert_allclose(again.values, exact, atol=1e-9)
 
 
+def test_one_factorization_per_point_and_every_point_on_the_uniform_state(traced):
+    _, branch = traced
+    # newton="auto" picks the chord corrector on the tangent's factors for this large
+    # sparse model: one factorization per point tried (the tangent's, also at a point
+    # the test-function rule rejects, and the edge point's), none for the correctors
+    # (full Newton takes two per point here: 53 against 28).
+    counts = branch.counts
+    assert counts["factorizations"] <= len(branch) + counts["rejected_steps"] + 2
+    # every point solves f = 0: the uniform state x = a, y = b / a (Prigogine &
+    # Lefever 1968, the homogeneous equilibrium of the Brusselator)
+    for row, b in enumerate(branch.parameter_values):
+        np.testing.assert_allclose(branch.states[row], uniform_state(NODES, b), atol=1e-9)
+
+
+def mode_determinant_sign(nodes: int, b: float) -> float:
+    """sign det J at the uniform state: the product of the 2 x 2 mode blocks'
+    determinants (closed form, as ``exact_leading``)."""
+    k = np.arange(nodes)
+    mu = 4.0 * (nodes - 1) ** 2 * np.sin(k * np.pi / (2.0 * (nodes - 1))) ** 2
+    det = (b - 1.0 - D1 * mu) * (-A * A - D2 * mu) + A * A * b
+    return float(np.prod(np.sign(det)))
+
+
+def test_determinant_sign_of_f_x_from_the_tangent_factorization():
+    # det f_x = det [G_u; t^T] t_p for the unit tangent t (Schur complement 1 / t_p),
+    # against the closed-form product of the mode determinants
+    nodes = 30
+    for b in (1.5, 1.97, 2.1):
+        params = {"a": A, "b": b, "d1": D1, "d2": D2}
+        fx = brusselator_jacobian(uniform_state(nodes, b), params).tocsc()
+        # the uniform branch: d(x, y)/db = (0, 1 / a), so f_p = -f_x (0, 1 / a)
+        slope = np.concatenate([np.zeros(nodes), np.full(nodes, 1.0 / A)])
+        fp = -(fx @ slope)
+        tangent = np.append(slope, 1.0)
+        tangent /= np.linalg.norm(tangent)
+        square = np.vstack([np.column_stack([fx.toarray(), fp]), tangent])
+        sign, _ = np.linalg.slogdet(square)
+        assert sign * np.sign(tangent[-1]) == mode_determinant_sign(nodes, b)
+
+
+def test_a_determinant_sign_change_unmatched_by_tracked_values_forces_the_full_search():
+    b = 1.9
+    matrix = brusselator_jacobian(uniform_state(NODES, b), {"a": A, "b": b, "d1": D1, "d2": D2})
+    matrix = matrix.tocsc()
+    exact = exact_leading(NODES, b)
+    sign = mode_determinant_sign(NODES, b)
+    _, first = eigen_tracking.track_leading_eigenvalues(matrix, None, determinant_sign=sign)
+    assert (first.tracked, first.full_searches) == (0, 1)
+    # the same sign: tracking is confident
+    same, second = eigen_tracking.track_leading_eigenvalues(matrix, first, determinant_sign=sign)
+    assert same.method == "tracked shift-invert Arnoldi"
+    assert (second.tracked, second.full_searches) == (1, 1)
+    # the sign flips (a real eigenvalue would have crossed zero somewhere) while the
+    # tracked real values did not cross: rule 5 sends it to the full search
+    flipped, third = eigen_tracking.track_leading_eigenvalues(
+        matrix, second, determinant_sign=-sign
+    )
+    assert flipped.method != "tracked shift-invert Arnoldi"
+    assert (third.tracked, third.full_searches) == (1, 2)
+    np.testing.assert_allclose(flipped.values, exact, atol=1e-9)
+
+
 # ---------------------------------------------------------------------------
 # memory: no n x n dense array on the sparse path; a run that runs out keeps its points
 

@@ -226,8 +226,6 @@ def correct_chord(
     and ``jacobian`` (the Jacobian is evaluated again only at the solution).
     Otherwise as :func:`correct_newton`.
     """
-    size = u.shape[0]
-    sqrt = math.sqrt
     g, jac, message = safe_evaluate(evaluate, u)
     counts.rhs += 1
     counts.jacobian += 1
@@ -245,6 +243,54 @@ def correct_chord(
             solve = inverse.__matmul__
     except (np.linalg.LinAlgError, RuntimeError):
         return _failed(u, 0, math.nan, "the bordered Jacobian is singular")
+    return _chord_iteration(residual_fn, jacobian_fn, u, g, solve, counts)
+
+
+def correct_with_factors(
+    residual_fn: Callable[[Array], Array],
+    jacobian_fn: Callable[[Array], Any],
+    u: Array,
+    border: Array,
+    factors: tuple[Any, Array, Array],
+    counts: EvaluationCounts,
+) -> NewtonResult:
+    """Chord method on [G(u); border . (u - u_start)] = 0 with a factorization already made.
+
+    ``factors`` is (SuperLU of M = [G_u(u_prev); b_prev^T], z = M^-1 e_last, b_prev):
+    the tangent's factorization at the last accepted point. The iteration matrix
+    [G_u(u_prev); border^T] differs from M in its last row only, a rank-one change
+    e_last d^T with d = border - b_prev, so its solves come from M's factors by the
+    Sherman-Morrison formula (Golub & Van Loan, Matrix Computations, 4th ed.,
+    section 2.1.4): x = y - z (d . y) / (1 + d . z), y = M^-1 r; for the tangent
+    border (border = z / |z|, b_prev . z = 1) the denominator is |z| >= 1. No
+    factorization and no Jacobian at the predicted point; the Jacobian is
+    evaluated at the solution only. Otherwise as :func:`correct_chord`.
+    """
+    lu, z, previous_border = factors
+    difference = border - previous_border
+    denominator = 1.0 + float(difference.dot(z))
+    if not abs(denominator) > 1e-8:
+        return _failed(u, 0, math.nan, "the last factorization does not fit this border")
+    solve_last = lu.solve
+
+    def solve(rhs: Array) -> Array:
+        y = solve_last(rhs)
+        return y - z * (float(difference.dot(y)) / denominator)
+
+    try:
+        g = residual_fn(u)
+    except (ArithmeticError, ValueError) as exc:
+        return _failed(u, 0, math.nan, raised("the model", exc))
+    counts.rhs += 1
+    g = np.asarray(g, dtype=float)
+    return _chord_iteration(residual_fn, jacobian_fn, u, g, solve, counts)
+
+
+def _chord_iteration(residual_fn, jacobian_fn, u: Array, g: Array, solve, counts) -> NewtonResult:
+    """The chord loop from u (G(u) = ``g``) with the iteration matrix's ``solve``; the
+    Jacobian evaluated at the solution."""
+    size = u.shape[0]
+    sqrt = math.sqrt
     if not sqrt(g.dot(g)) < math.inf:
         return _failed(u, 0, math.nan, NOT_FINITE)
     rhs = np.zeros(size)

@@ -44,12 +44,17 @@ Optional members:
     Both at once, when that is cheaper (shared subexpressions).
 ``describe(u) -> str``
     A short text naming the point for messages ("at D=0.3, S=1.2").
+``tangent_factorization(jacobian, lu, z) -> None``
+    For sparse Jacobians only: told the factorization the engine made for the
+    tangent at a corrected point (SuperLU ``lu`` of [G_u; previous^T] and
+    z = its solution for e_(N+1); the tangent is z / |z|), before the ``observe``
+    that follows, so that a problem can keep what it gives (the equilibrium
+    branch reads its branch-point test from it).
 ``tangent(jacobian, previous) -> ndarray (N + 1,)``
-    For sparse Jacobians only: the unit tangent at a corrected point, as
-    :func:`branchline.continuation.correctors.unit_tangent` computes it (raising
-    :class:`branchline.numerics.linalg.SingularMatrixError` when undefined), so
-    that a problem can keep what its factorization gives (the equilibrium branch
-    reads its branch-point test from it) for the ``observe`` that follows.
+    For sparse Jacobians only, instead of the engine's own factorization: the
+    unit tangent at a corrected point (raising
+    :class:`branchline.numerics.linalg.SingularMatrixError` when undefined); the
+    ``reuse`` corrector then has no factors to reuse and runs full Newton.
 ``adapt(u, tangent) -> (u, tangent)``
     Called after each accepted step, before the next prediction, with the
     point just recorded and its unit tangent; returns the pair (same shapes)
@@ -66,6 +71,17 @@ functions must not modify ``u``, print or write files; for numerical trouble the
 return NaN rather than raise (ArithmeticError and ValueError are caught anyway and
 count as a failed step).
 The engine runs under ``np.errstate(all="ignore")``.
+
+One factorization per point (sparse Jacobians)
+-----------------------------------------------
+With ``newton="reuse"`` and a sparse Jacobian the engine factorizes the bordered
+matrix once per accepted point, for the tangent there, and uses those factors
+three times: the tangent, the problem's ``tangent_factorization`` hook, and the
+next step's corrector, a chord iteration on that matrix with the border swapped
+for the new tangent by a rank-one update
+(:func:`branchline.continuation.correctors.correct_with_factors`). When that
+chord iteration does not contract, full Newton from the same predicted point
+takes over. The points satisfy the same convergence test either way.
 
 How a curve ends
 ----------------
@@ -97,6 +113,8 @@ from branchline.vocabulary import Status
 
 Array = np.ndarray
 
+# The correctors (``newton`` of follow_curve).
+CORRECTORS = ("full", "chord", "reuse")
 # The progress callback is called every this many accepted points.
 PROGRESS_INTERVAL = 50
 
@@ -239,9 +257,12 @@ def follow_curve(
         and ``max_points`` (including the start point).
     bounds : (lo, hi)
         Window for the parameter u[-1]; the curve stops on its edge.
-    newton : {"full", "chord"}
+    newton : {"full", "chord", "reuse"}
         Corrector: full Newton (Jacobian at every iterate) or the chord method
-        (bordered matrix factorized once per step). Full Newton needs fewer
+        (bordered matrix factorized once per step), or for sparse Jacobians the
+        chord method on the last point's tangent factorization, full Newton
+        when that does not contract (one factorization per point; see "One
+        factorization per point" above; dense Jacobians: full Newton). Full Newton needs fewer
         iterations and is faster for small dense models (see
         tests/benchmarks/bench_trace.py); the chord method saves
         factorizations for large sparse ones.
@@ -276,8 +297,8 @@ def follow_curve(
     >>> curve.status, round(float(curve.arclength[-1]), 2)
     ('closed', 6.28)
     """
-    if newton not in ("full", "chord"):
-        raise ValueError(f"newton must be 'full' or 'chord', not {newton!r}")
+    if newton not in CORRECTORS:
+        raise ValueError(f"newton must be one of {CORRECTORS}, not {newton!r}")
     u0 = np.array(u0, dtype=float)
     with np.errstate(all="ignore"):
         walk = _Walk(problem, settings, bounds, newton, _as_limits(limits, u0.shape[0]))
@@ -335,9 +356,12 @@ class _Walk:
     __slots__ = (
         "adapt",
         "arclength",
+        "chord_on_factors",
         "counts",
         "escape",
         "evaluate",
+        "factors",
+        "factors_hook",
         "hi",
         "largest",
         "limits",
@@ -345,6 +369,7 @@ class _Walk:
         "max_points",
         "message",
         "newton",
+        "pending_factors",
         "problem",
         "rows",
         "smallest",
@@ -365,6 +390,9 @@ class _Walk:
         self.evaluate = correctors.evaluator(problem)
         self.adapt = getattr(problem, "adapt", None)
         self.tangent_hook = getattr(problem, "tangent", None)
+        self.factors_hook = getattr(problem, "tangent_factorization", None)
+        self.factors = self.pending_factors = None
+        self.chord_on_factors = False
         self.newton = newton
         self.lo, self.hi = float(bounds[0]), float(bounds[1])
         self.limits = limits
@@ -396,6 +424,7 @@ class _Walk:
             )
             if reason:
                 return f"cannot start {describe_point(problem, u)}: {reason}"
+            self.factors = self.pending_factors
         try:
             payload, tests = problem.observe(u, t, jac)
         except ObservationFailed as exc:
@@ -411,13 +440,28 @@ class _Walk:
 
     def tangent_at(self, jac, previous: Array, singular_message: str):
         """(unit tangent, "") at a corrected point with Jacobian ``jac``, or (None, why not)."""
+        self.pending_factors = None
         try:
             self.counts.factorizations += 1
             if self.sparse and self.tangent_hook is not None:
                 return self.tangent_hook(jac, previous), ""
+            if self.sparse:
+                return self.factored_tangent(jac, previous), ""
             return correctors.unit_tangent(jac, previous, self.sparse), ""
         except linalg.SingularMatrixError:
             return None, singular_message
+
+    def factored_tangent(self, jac, previous: Array) -> Array:
+        """The unit tangent from one SuperLU factorization of [G_u; previous^T], whose
+        factors are kept for the next corrector (see the module docstring)."""
+        lu, z = linalg.bordered_factor_solve(linalg.bordered_matrix(jac, previous))
+        length = linalg.norm(z)
+        if not 0.0 < length < math.inf:
+            raise linalg.SingularMatrixError("the tangent is not finite")
+        if self.factors_hook is not None:
+            self.factors_hook(jac, lu, z)
+        self.pending_factors = (lu, z, previous)
+        return z / length
 
     def stop(self, status: Status, message: str) -> str:
         self.status, self.message = status, message
@@ -449,11 +493,20 @@ def _outside_at_start(walk: _Walk, u: Array) -> tuple[str, str]:
 def _correct(walk: _Walk) -> NewtonResult:
     """The corrector's run from the predicted point u + h t (pseudo-arclength border t)."""
     predicted = walk.u + walk.step * walk.t
+    problem = walk.problem
+    walk.chord_on_factors = False
     if walk.newton == "chord":
-        problem = walk.problem
         return correctors.correct_chord(
             walk.evaluate, problem.residual, problem.jacobian, predicted, walk.t, walk.counts
         )
+    if walk.factors is not None and walk.newton == "reuse":
+        reused = correctors.correct_with_factors(
+            problem.residual, problem.jacobian, predicted, walk.t, walk.factors, walk.counts
+        )
+        if reused.converged:
+            walk.chord_on_factors = True
+            return reused
+        walk.counts.newton += reused.iterations
     return correctors.correct_newton(walk.evaluate, predicted, walk.t, None, walk.counts)
 
 
@@ -533,7 +586,10 @@ def _record(walk, u_new, t_new, chord_length, values, correction, tests, payload
     if walk.adapt is not None:
         u_new, t_new = _adapted(walk.adapt, u_new, t_new)
     walk.u, walk.t = u_new, t_new
-    walk.step = step_control.grown(walk.step, iterations, walk.largest)
+    walk.factors = walk.pending_factors
+    chord = walk.chord_on_factors
+    easy = step_control.EASY_CHORD_ITERATIONS if chord else step_control.EASY_ITERATIONS
+    walk.step = step_control.grown(walk.step, iterations, walk.largest, easy)
 
 
 def _leaves_window(walk: _Walk, u_new: Array) -> bool:

@@ -50,6 +50,12 @@ from branchline.numerics import linalg
 Array = np.ndarray
 
 EASY_ITERATIONS = 2  # converged this fast: the step may grow
+# The same for the chord iteration on the last point's factorization (engine,
+# ``newton="reuse"``, large sparse Jacobians): it converges linearly, and each of its
+# iterations costs one residual and one pair of triangular solves, about a twentieth
+# of a factorization at 20,000 states (tests/benchmarks/bench_sparse.py); so the step
+# is held back only when the chord nears its cap (MAX_CHORD_ITERATIONS = 10).
+EASY_CHORD_ITERATIONS = 8
 GROW_FACTOR = 1.5
 SHRINK_FACTOR = 0.5
 # Largest angle between successive tangents (radians); ~17 degrees keeps the
@@ -99,9 +105,10 @@ def shrunk(step: float, floor: float) -> float:
     return max(step * SHRINK_FACTOR, floor)
 
 
-def grown(step: float, iterations: int, largest: float) -> float:
-    """The step after an accepted point whose corrector took ``iterations``."""
-    if iterations <= EASY_ITERATIONS:
+def grown(step: float, iterations: int, largest: float, easy: int = EASY_ITERATIONS) -> float:
+    """The step after an accepted point whose corrector took ``iterations`` (``easy``
+    or fewer let it grow)."""
+    if iterations <= easy:
         return min(step * GROW_FACTOR, largest)
     return step
 

@@ -25,7 +25,16 @@ eigenvalues, with our own thresholds; the constants below):
 4. the number of leading values with positive real part is unchanged, and
    fewer than ``REFRESH_POINTS`` points were tracked since the last full
    search: a stability change, and every so many points, is confirmed by the
-   full search.
+   full search;
+5. when the caller knows the sign of det A at this point and the last (the
+   equilibrium branch reads it off the tangent's factorization at no cost:
+   det f_x = det [G_u; t^T] t_p), a change of that sign, which means an odd
+   number of real eigenvalues crossed zero anywhere in the spectrum, is matched
+   by an odd change in the number of tracked real values above zero. This
+   check at every point covers the whole spectrum for real eigenvalues, so the
+   periodic full search of rule 4 is rarer than it was (every 200 points, was
+   50: at 20,000 states a full search costs about 80 factorizations, and the
+   periodic ones were a quarter of the run's time).
 
 Otherwise the full search runs and its values are used; :class:`SpectrumTrack`
 counts both (``tracked`` and ``full_searches``; run.json carries the counts).
@@ -61,8 +70,8 @@ TRACK_SPARE = 2
 # Rule 3: a previous leading value must have moved less than this fraction of the
 # trusted radius of the run covering it.
 MOVE_FRACTION = 0.25
-# Rule 4: a full search at least every this many points.
-REFRESH_POINTS = 50
+# Rule 4: a full search at least every this many points (rule 5 checks every point).
+REFRESH_POINTS = 200
 # At most this many tracking shifts per point (one per cluster of leading values
 # that the disks of the runs before do not cover: a real one and a complex pair,
 # say); more clusters mean a full search.
@@ -99,6 +108,8 @@ class SpectrumTrack:
         A start vector per shift (eigenvectors of that run), None after a full search.
     since_full : int
         Points tracked since the last full search.
+    determinant_sign : float or None
+        The sign of det A at the last point when the caller gave it (rule 5).
     tracked, full_searches : int
         Points whose eigenvalues came from tracking, and full searches run.
     """
@@ -110,6 +121,7 @@ class SpectrumTrack:
     since_full: int = 0
     tracked: int = 0
     full_searches: int = 0
+    determinant_sign: float | None = None
 
 
 def unstable_leading(values: Array, scale: float) -> int:
@@ -122,6 +134,7 @@ def track_leading_eigenvalues(
     previous: SpectrumTrack | None,
     count: int = SPARSE_EIGEN_COUNT,
     policy: LinearAlgebraPolicy = DEFAULT,
+    determinant_sign: float | None = None,
 ) -> tuple[LeadingEigenvalues, SpectrumTrack]:
     """The ``count`` leading eigenvalues of a large sparse matrix, tracked from ``previous``.
 
@@ -133,6 +146,9 @@ def track_leading_eigenvalues(
     count : int
     policy : LinearAlgebraPolicy
         Passed to the full search.
+    determinant_sign : float or None
+        +1 or -1, the sign of det ``matrix`` when the caller knows it (rule 5 of
+        the module docstring), else None.
 
     Returns
     -------
@@ -141,10 +157,15 @@ def track_leading_eigenvalues(
         confident, else the full search's), and the track for the next point.
     """
     matrix = sp.csc_matrix(matrix, dtype=float)
+    if determinant_sign is not None and not determinant_sign:
+        determinant_sign = None
     if previous is not None and previous.since_full < REFRESH_POINTS:
         tracked = _track(matrix, previous, count)
-        if tracked is not None:
-            return tracked
+        if tracked is not None and _real_crossings_agree(
+            previous, tracked[1].values, determinant_sign
+        ):
+            search, track = tracked
+            return search, _with_sign(track, determinant_sign)
     search = search_leading_eigenvalues(matrix, count, policy)
     base = previous or SpectrumTrack(np.empty(0, dtype=complex))
     if not search.found:
@@ -156,8 +177,32 @@ def track_leading_eigenvalues(
         since_full=0,
         tracked=base.tracked,
         full_searches=base.full_searches + 1,
+        determinant_sign=determinant_sign,
     )
     return search, track
+
+
+def _with_sign(track: SpectrumTrack, sign: float | None) -> SpectrumTrack:
+    return SpectrumTrack(
+        track.values, track.shifts, track.radii, track.vectors, track.since_full,
+        track.tracked, track.full_searches, sign,
+    )
+
+
+def _real_crossings_agree(previous: SpectrumTrack, values: Array, sign: float | None) -> bool:
+    """Rule 5: a change of sign of det A is matched by an odd change in the number of
+    real tracked values above zero (True when either sign is unknown)."""
+    if sign is None or previous.determinant_sign is None:
+        return True
+    flipped = sign != previous.determinant_sign
+
+    def real_positive(array: Array) -> int:
+        scale = float(np.max(np.abs(array))) if array.size else 0.0
+        real = np.abs(array.imag) <= REAL_RTOL * max(scale, 1.0)
+        return int(np.count_nonzero(real & (array.real > 0.0)))
+
+    odd = (real_positive(values) - real_positive(previous.values)) % 2 == 1
+    return flipped == odd
 
 
 def _upper_values(values: Array, scale: float) -> list:

@@ -224,29 +224,19 @@ class EquilibriumBranch:
         p = self._parameters(u)
         return np.asarray(self._rhs(x, p), dtype=float), self._stacked(x, p)
 
-    def tangent(self, jacobian: Any, previous: Array) -> Array:
-        """The unit tangent at a point with sparse Jacobian [f_x, f_p] (the engine's hook).
+    def tangent_factorization(self, jacobian: Any, lu: Any, z: Array) -> None:
+        """Keep the branch-point test from the engine's tangent factorization (its hook).
 
-        Solves [G_u; previous^T] z = e_(n+1) with one SuperLU factorization and
-        keeps the branch-point test det [G_u; t^T] for ``observe``: with
-        t = z / |z|, det [G_u; t^T] = |z| det [G_u; previous^T] (the last row
-        changes by a rank-one term whose factor is 1 + (t - previous) . z = |z|,
-        since G_u z = 0 and previous . z = 1), so no second factorization is needed.
-
-        Raises
-        ------
-        branchline.numerics.linalg.SingularMatrixError
-            When the bordered matrix is singular (a branch point, say).
+        ``lu`` factorizes [G_u; previous^T] at a corrected point with sparse Jacobian
+        ``jacobian`` = [f_x, f_p], and z solves it for e_(n+1). With t = z / |z|,
+        det [G_u; t^T] = |z| det [G_u; previous^T] (the last row changes by a
+        rank-one term whose factor is 1 + (t - previous) . z = |z|, since G_u z = 0
+        and previous . z = 1), so no second factorization is needed.
         """
-        self._determinant = None
-        lu, z = linalg.bordered_factor_solve(linalg.bordered_matrix(jacobian, previous))
         length = linalg.norm(z)
-        if not 0.0 < length < np.inf:
-            raise linalg.SingularMatrixError("the tangent is not finite")
         sign, log_det = linalg.lu_slogdet(lu)
         value = 0.0 if sign == 0.0 else linalg.from_signed_log(sign, log_det + np.log(length))
         self._determinant = (jacobian, value)
-        return z / length
 
     def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[Array, Array]:
         """Eigenvalues of f_x (sorted by decreasing real part) and the test functions.
@@ -273,7 +263,8 @@ class EquilibriumBranch:
                 eigenvalues = dense_eigenvalues(fx.toarray())
             else:
                 search, self.spectrum = track_leading_eigenvalues(
-                    fx, self.spectrum, policy=self.policy
+                    fx, self.spectrum, policy=self.policy,
+                    determinant_sign=self._jacobian_sign(jacobian, tangent),
                 )
                 if not search.found:
                     raise ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
@@ -291,6 +282,19 @@ class EquilibriumBranch:
                 tests[2] = -tests[2]  # the last row is -t in trace order
             return eigenvalues, tests
         return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues, self.policy)
+
+    def _jacobian_sign(self, jacobian: Any, tangent: Array) -> float | None:
+        """The sign of det f_x from the tangent's factorization, or None when unknown.
+
+        With the unit tangent t = (t_x, t_p) in the direction of travel and
+        f_x t_x + f_p t_p = 0, the Schur complement of f_x in [G_u; t^T] is
+        t_p + |t_x|^2 / t_p = 1 / t_p, so det f_x = det [G_u; t^T] t_p.
+        """
+        known = self._determinant
+        if known is None or known[0] is not jacobian:
+            return None
+        sign = float(np.sign(known[1]) * np.sign(tangent[-1]))
+        return sign or None
 
     def describe(self, u: Array) -> str:
         """The point for messages: the varied parameter and the first few states."""
@@ -317,7 +321,7 @@ def trace_branch(
     parent: str | None = None,
     start_tangent: Array | None = None,
     progress: Callable[[int], None] | None = None,
-    newton: str = "full",
+    newton: str = "auto",
     limits: Mapping[str | int, tuple[float, float]] | None = None,
 ) -> Branch:
     """Follow the equilibrium branch through (x_start, parameters) as ``vary`` moves.
@@ -349,8 +353,10 @@ def trace_branch(
         is when its residual is below ``SWITCH_START_RESIDUAL``.
     progress : callable(int), optional
         Called with the number of points computed so far.
-    newton : {"full", "chord"}
-        Corrector of the engine.
+    newton : {"auto", "full", "chord", "reuse"}
+        Corrector of the engine (:func:`branchline.continuation.engine.follow_curve`);
+        "auto": "reuse" (one factorization per point) for sparse models above the
+        policy's ``eigenvalues_dense_up_to`` states, else "full".
     limits : mapping {state: (lo, hi)}, optional
         Windows for states (by name or index in ``model.states``): a side stops
         when a state leaves its window, its last point exactly on the limit
@@ -390,6 +396,11 @@ def trace_branch(
                 f"its limits [{limit.lo:.10g}, {limit.hi:.10g}] (trace limits)"
             )
             return record([], Status.FAILED, message, start_counts)
+    if newton == "auto":
+        large = bool(getattr(model, "sparse", False)) and (
+            len(model.states) > policy_of(model).eigenvalues_dense_up_to
+        )
+        newton = "reuse" if large else "full"
     request = TraceRequest(
         start=u0,
         bounds=(lo, hi),

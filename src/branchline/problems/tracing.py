@@ -65,7 +65,7 @@ class TraceRequest:
         Sides to trace ("both": the decreasing-parameter side first).
     steps : StepSettings
         Step lengths; ``max_points`` applies to each side separately.
-    newton : {"full", "chord"}
+    newton : {"full", "chord", "reuse"}
         The engine's corrector.
     limits : tuple of Limit
         Windows for other components (states); a side stops on one.
