@@ -19,20 +19,34 @@ substrate inhibition (2 states) and a ring of ten saturating enzyme stages
 
 Then, for chains of coupled Brusselator cells written as expressions
 (``tests/cell_chains.py``) of 20, 100 and 1,000 states, it traces the uniform
-branch through its Hopf point and prints, against a warm-started
+branch through its Hopf points and prints, against a warm-started
 ``scipy.optimize.root`` sweep (hand-written numpy rhs and exact dense
 Jacobian, then ``np.linalg.eigvals``) over the same parameter values, in the
-same run: the build time (fresh, with an empty model cache, and again from
-the cache) as a multiple of the whole sweep, and the time per traced point
-(with stability at every point) as a multiple of the sweep's time per point
-(goal: at or below 1). These are wall times of one run each.
+same run, two tables:
+
+- build and trace: the build time (fresh, with an empty model cache, and again
+  from the cache) as a multiple of the whole sweep, and the time per point of
+  the trace alone (``trace_branch``: corrector, tangent, all eigenvalues and the
+  test functions at every point, like the sweep) as a multiple of the sweep's
+  time per point (goal: at or below 1);
+- one-off costs, each as a multiple of the whole sweep: locating and refining
+  the events (crowded steps resolved, then every bracket located on its
+  defining system with its normal form), their parameter sensitivities, the
+  tables and report (``write_results`` without figures), and the first use of
+  the lazily compiled higher derivatives (the first location pass minus a warm
+  one); last, the whole warm ``run_scan`` per point against the sweep per point.
+
+Times are CPU times of this process (``time.process_time``; BLAS runs on one
+thread, so on an idle machine they equal wall times, and on the shared machine
+they are much steadier), the best of ``CHAIN_REPEATS`` runs for the small
+chains, one run for the 1,000-state chain.
 
 Last, the wall time of the demo run (``branchline run scans/cooled_reactor.toml``,
 confirmations and diagram included) and of ``branchline --help``, each in a
 fresh interpreter, best of ``STARTUP_REPEATS``, against a bare
 ``python3 -c pass`` (the interpreter's own start).
 
-``--quick`` skips the 1,000-state chain, ``--large`` runs only that one (whose
+``--quick`` skips the 1,000-state chain, ``--large`` runs only that one and nothing else (whose
 sweep ends at b = 4.9, before the crowd of its modes' Hopf points).
 """
 
@@ -181,6 +195,9 @@ CHAIN_INTERVAL = (3.0, 5.5)
 # them and measures tracing with stability at every point.
 LARGE_CHAIN_INTERVAL = (3.0, 4.9)
 STARTUP_REPEATS = 3
+CHAIN_REPEATS = 3
+# The chains' clock: CPU time of this process (see the module docstring).
+CLOCK = time.process_time
 
 
 def _chain_numpy(cells: int):
@@ -202,18 +219,18 @@ def _chain_numpy(cells: int):
 
 
 def _scipy_sweep(cells: int, values, start) -> float:
-    """Wall seconds of a warm-started scipy.optimize.root sweep plus eigvals at each value."""
+    """CPU seconds of a warm-started scipy.optimize.root sweep plus eigvals at each value."""
     from scipy.optimize import root
 
     rhs, jacobian = _chain_numpy(cells)
     a, d = CHAIN_PARAMETERS["a"], CHAIN_PARAMETERS["d"]
     x = np.array(start, dtype=float)
-    begin = time.perf_counter()
+    begin = CLOCK()
     for b in values:
         solution = root(rhs, x, args=(a, b, d), jac=jacobian, method="hybr")
         x = solution.x
         np.linalg.eigvals(jacobian(x, a, b, d))
-    return time.perf_counter() - begin
+    return CLOCK() - begin
 
 
 def _chain_scan(cells: int, interval: tuple[float, float]):
@@ -236,34 +253,95 @@ def _chain_scan(cells: int, interval: tuple[float, float]):
 
 
 def _timed_build(spec) -> tuple[float, object]:
-    begin = time.perf_counter()
+    begin = CLOCK()
     model = build_model(spec)
-    return time.perf_counter() - begin, model
+    return CLOCK() - begin, model
 
 
-def _chain_report(cells: int) -> None:
+def _best_wall(function, repeats: int) -> tuple[float, object]:
+    """(best CPU seconds over ``repeats`` calls, the last call's result)."""
+    best, result = float("inf"), None
+    for _ in range(repeats):
+        begin = CLOCK()
+        result = function()
+        best = min(best, CLOCK() - begin)
+    return best, result
+
+
+def _events_one_off(model, branch) -> tuple[float, float, list]:
+    """(seconds, sensitivity seconds, events): crowded steps resolved, events located
+    and refined (the runner's order), then their parameter sensitivities."""
+    from branchline.events.sensitivities import with_sensitivities
+    from branchline.problems.crowding import resolve_crowded_steps
+    from branchline.problems.equilibrium_branch import locate_events
+
+    begin = CLOCK()
+    events = locate_events(model, resolve_crowded_steps(model, branch))
+    located = CLOCK()
+    with_sensitivities(model, events)
+    return located - begin, CLOCK() - located, events
+
+
+def _report_seconds(result) -> float:
+    """CPU seconds of writing the tables and report (no figures) of a run."""
+    from branchline.results.writers import write_results
+
+    with tempfile.TemporaryDirectory() as folder:
+        begin = CLOCK()
+        write_results(result, Path(folder) / "run", figures=False)
+        return CLOCK() - begin
+
+
+def _chain_report(cells: int) -> tuple[str, str]:
+    """The chain's two table rows: build and trace, one-off costs."""
+    from branchline.problems.equilibrium_branch import trace_branch
     from branchline.runner import run_scan
 
     scan = _chain_scan(cells, CHAIN_INTERVAL if cells < 500 else LARGE_CHAIN_INTERVAL)
+    repeats = CHAIN_REPEATS if cells < 500 else 1
     if model_cache is not None:
         model_cache.clear(scan.model)
     fresh, model = _timed_build(scan.model)
     cached = _timed_build(scan.model)[0] if model_cache is not None else float("nan")
-    begin = time.perf_counter()
-    result = run_scan(scan, model=model, confirm=False)
-    traced = time.perf_counter() - begin
-    points = sum(len(branch.parameter_values) for branch in result.branches)
-    branch = result.branches[0]
+    spec = scan.traces[0]
+    start = np.array([spec.start[name] for name in model.states])
+
+    def trace():
+        return trace_branch(
+            model, spec.name, spec.vary, model.defaults, start, spec.interval,
+            spec.direction, spec.steps, limits=spec.limits,
+        )
+
+    traced, branch = _best_wall(trace, repeats)
+    points = len(branch)
     order = np.argsort(branch.parameter_values)
     values = branch.parameter_values[order]
-    sweep = _scipy_sweep(cells, values, branch.states[order[0]])
-    per_point, per_sweep_point = traced / points, sweep / len(values)
-    hopf = [e for e in result.events if "hopf" in str(e.kind).lower()]
-    print(
-        f"  {2 * cells:>6}{fresh:>9.2f}{cached:>9.2f}{fresh / sweep:>9.2f}{cached / sweep:>9.2f}"
-        f"{points:>7}{per_point * 1e3:>10.2f}{per_sweep_point * 1e3:>10.2f}"
-        f"{per_point / per_sweep_point:>8.2f}   {len(hopf)} Hopf, {result.status}"
+    sweep = min(
+        _scipy_sweep(cells, values, branch.states[order[0]]) for _ in range(repeats)
     )
+    per_point, per_sweep_point = traced / points, sweep / points
+    first_locate, first_sensitivities, _ = _events_one_off(model, branch)
+    locate, sensitivities, events = first_locate, first_sensitivities, []
+    for _ in range(repeats):
+        again = _events_one_off(model, branch)
+        locate, sensitivities = min(locate, again[0]), min(sensitivities, again[1])
+        events = again[2]
+    lazy = max(first_locate + first_sensitivities - locate - sensitivities, 0.0)
+    whole, result = _best_wall(lambda: run_scan(scan, model=model, confirm=False), repeats)
+    report = min(_report_seconds(result) for _ in range(repeats))
+    run_points = sum(len(b.parameter_values) for b in result.branches)
+    hopf = sum("hopf" in str(e.kind).lower() for e in events)
+    trace_row = (
+        f"  {2 * cells:>6}{fresh:>9.2f}{cached:>9.2f}{fresh / sweep:>9.2f}{cached / sweep:>9.2f}"
+        f"{points:>7}{per_point * 1e3:>10.3f}{per_sweep_point * 1e3:>10.3f}"
+        f"{per_point / per_sweep_point:>8.2f}"
+    )
+    one_off_row = (
+        f"  {2 * cells:>6}{len(events):>7}{hopf:>6}{locate / sweep:>9.2f}"
+        f"{sensitivities / sweep:>9.2f}{report / sweep:>9.2f}{lazy / sweep:>9.2f}"
+        f"{whole / run_points / per_sweep_point:>10.2f}   {result.status}"
+    )
+    return trace_row, one_off_row
 
 
 def _wall(command: list[str], env: dict, cwd: str) -> float:
@@ -292,14 +370,25 @@ def _startup_report() -> None:
 
 def main() -> None:
     quick, large = "--quick" in sys.argv, "--large" in sys.argv
+    chosen = CHAIN_CELLS[:2] if quick else CHAIN_CELLS[2:] if large else CHAIN_CELLS
+    rows = [_chain_report(cells) for cells in chosen]
     print("expression chains (Brusselator cells) against a scipy.optimize.root + eigvals sweep")
+    print("build and trace alone (stability at every point, like the sweep)")
     print(
         f"  {'states':>6}{'build s':>9}{'cached':>9}{'/sweep':>9}{'cached/':>9}"
         f"{'points':>7}{'ms/pt':>10}{'scipy':>10}{'ratio':>8}"
     )
-    chosen = CHAIN_CELLS[:2] if quick else CHAIN_CELLS[2:] if large else CHAIN_CELLS
-    for cells in chosen:
-        _chain_report(cells)
+    for trace_row, _ in rows:
+        print(trace_row)
+    print("one-off costs, in whole sweeps; last, the whole warm run per point against the sweep")
+    print(
+        f"  {'states':>6}{'events':>7}{'Hopf':>6}{'locate':>9}{'sensit.':>9}{'report':>9}"
+        f"{'lazy':>9}{'run/pt':>10}"
+    )
+    for _, one_off_row in rows:
+        print(one_off_row)
+    if large:
+        return
     _startup_report()
     _report(
         "bioreactor",

@@ -40,6 +40,7 @@ from branchline.events.eigenvalue_pairs import (
 from branchline.numerics.linalg import (
     bordered_matrix,
     bordered_square,
+    determinant_unchecked,
     from_signed_log,
     signed_product,
     sparse_slogdet,
@@ -101,11 +102,11 @@ def _leading_pairs_test(eigenvalues: Array) -> float:
     lam = eigenvalues[np.isfinite(eigenvalues)]
     if lam.shape[0] == 0:
         return 1.0
-    upper = lam[lam.imag > COMPLEX_RTOL * float(np.max(np.abs(lam)))]
+    upper = lam[lam.imag > COMPLEX_RTOL * float(np.abs(lam).max())]
     if upper.shape[0] == 0:
         return 1.0
     unstable = int(np.count_nonzero(upper.real > 0.0))
-    return (-1.0) ** unstable * float(np.min(np.abs(upper.real)))
+    return (-1.0) ** unstable * float(np.abs(upper.real).min())
 
 
 def bordered_determinant(
@@ -132,7 +133,7 @@ def bordered_determinant(
         g, h, i = tangent.tolist()
         return a * (d * i - f * h) - b * (c * i - f * g) + e * (c * h - d * g)
     bordered = bordered_square(jac_x, jac_p, tangent)
-    value = float(np.linalg.det(bordered))
+    value = float(determinant_unchecked(bordered))
     if math.isfinite(value) and value != 0.0:
         return value
     sign, log_det = np.linalg.slogdet(bordered)

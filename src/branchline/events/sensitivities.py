@@ -43,13 +43,17 @@ def event_sensitivities(model, event: Event) -> dict[str, dict[str, float | None
     first = model.parameter_index(event.vary)
     n = len(model.states)
     out: dict[str, dict[str, float | None]] = {}
+    # The borders (critical eigen- or null vectors of f_x) depend on the event's point
+    # only, not on which parameter is the second: computed once, for the first problem.
+    borders = None
     for index, name in enumerate(model.parameters):
         if index == first:
             continue
         u0 = start_point(problem_class, event, first, index)
         with np.errstate(all="ignore"):
             try:
-                problem = problem_class(model, first, index, event.parameters, u0)
+                problem = problem_class(model, first, index, event.parameters, u0, borders)
+                borders = (problem.right, problem.left)
                 step = _implicit_step(problem.jacobian(u0), n)
             except (np.linalg.LinAlgError, ArithmeticError, ValueError, RuntimeError):
                 return {}

@@ -60,17 +60,25 @@ def _private_gufuncs():
         def inverse(matrix: Array) -> Array:
             return gufuncs.inv(matrix, signature="d->d")
 
+        def determinant(matrix: Array) -> float:
+            return gufuncs.det(matrix, signature="d->d")
+
         probe = np.array([[2.0, 1.0], [0.0, 3.0]])
         with np.errstate(all="ignore"):
             good = np.allclose(solve(probe, np.array([3.0, 3.0])), [1.0, 1.0]) and np.allclose(
                 np.sort(eigvals(probe).real), [2.0, 3.0]
             )
             good = good and np.allclose(inverse(probe) @ probe, np.eye(2))
+            good = good and bool(np.isclose(determinant(probe), 6.0))
         if good:
-            return solve, eigvals, inverse
-        return _public_solve, _public_eigvals, _public_inverse
+            return solve, eigvals, inverse, determinant
+        return _PUBLIC
     except (ImportError, AttributeError, TypeError, ValueError):
-        return _public_solve, _public_eigvals, _public_inverse
+        return _PUBLIC
+
+
+def _public_determinant(matrix: Array) -> float:
+    return np.linalg.det(matrix)
 
 
 def _public_inverse(matrix: Array) -> Array:
@@ -80,7 +88,10 @@ def _public_inverse(matrix: Array) -> Array:
         return np.full(matrix.shape, np.nan)
 
 
-solve_unchecked, eigvals_unchecked, inverse_unchecked = _private_gufuncs()
+_PUBLIC = (_public_solve, _public_eigvals, _public_inverse, _public_determinant)
+solve_unchecked, eigvals_unchecked, inverse_unchecked, determinant_unchecked = _private_gufuncs()
+determinant_unchecked.__doc__ = """Dense determinant (float) without checks, the same value as
+``np.linalg.det`` (0.0 for a singular matrix, inf or NaN on overflow or non-finite input)."""
 inverse_unchecked.__doc__ = """Dense inverse without checks: NaN (not an exception) when singular."""
 solve_unchecked.__doc__ = """Dense solve without checks: NaN (not an exception) when singular."""
 eigvals_unchecked.__doc__ = """Dense eigenvalues (complex) without checks or sorting."""

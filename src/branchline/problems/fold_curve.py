@@ -50,12 +50,21 @@ class FoldCurve(BoundaryCurve):
     kind = "fold"
     tests = FOLD_CURVE_TESTS
 
-    def __init__(self, model, first: int, second: int, parameters: Array, u0: Array) -> None:
+    def __init__(
+        self, model, first: int, second: int, parameters: Array, u0: Array, borders=None
+    ) -> None:
         super().__init__(model, first, second, parameters)
-        self.reset_borders(u0)
+        self.reset_borders(u0, borders)
 
-    def reset_borders(self, u: Array) -> None:
-        """Borders from the null vectors of f_x at u (used at a start and before locating)."""
+    def reset_borders(self, u: Array, borders: tuple[Array, Array] | None = None) -> None:
+        """Borders from the null vectors of f_x at u (used at a start and before locating).
+
+        ``borders``: the (right, left) borders already computed at the same state and
+        parameters (by another problem at this point): used as they are.
+        """
+        if borders is not None:
+            self.right, self.left = borders
+            return
         x, p = u[: self.n], self.parameters_at(u)
         left, right = null_vectors(self.state_matrix(x, p))
         self.right = np.real(right) / np.linalg.norm(np.real(right))

@@ -74,7 +74,9 @@ class HopfCurve(BoundaryCurve):
     tests = HOPF_CURVE_TESTS
     sparse_tests = ("bautin",)  # computed on a sparser schedule: NaN at most points
 
-    def __init__(self, model, first: int, second: int, parameters: Array, u0: Array) -> None:
+    def __init__(
+        self, model, first: int, second: int, parameters: Array, u0: Array, borders=None
+    ) -> None:
         super().__init__(model, first, second, parameters, extra=1)
         self.neutral: Array | None = None
         self._since_lyapunov = LYAPUNOV_EVERY  # the start point gets its l1
@@ -85,12 +87,22 @@ class HopfCurve(BoundaryCurve):
         self._zero = np.zeros((self.n, 1))  # df/dkappa
         n, m = self.n, self.p.size  # rows of the fused gradient table in the order of u
         self._order = np.array([*range(n), n + self.second, n + m, n + self.first])
-        self.reset_borders(u0)
+        self.reset_borders(u0, borders)
 
     # ------------------------------------------------------------------ borders
 
-    def reset_borders(self, u: Array) -> None:
-        """Borders from the critical eigenvectors at u, and the pair of entries of G used."""
+    def reset_borders(self, u: Array, borders: tuple[Array, Array] | None = None) -> None:
+        """Borders from the critical eigenvectors at u, and the pair of entries of G used.
+
+        ``borders``: the (right, left) borders already computed at the same state,
+        parameters and kappa (by another problem at this point, whose second parameter
+        differs): the eigenvector computation is skipped; the entries are chosen anew.
+        """
+        if borders is not None:
+            self.right, self.left = borders
+            self.entries = ((0, 0), (1, 1))
+            self.entries = self._best_entries(u)
+            return
         x, p, kappa = u[: self.n], self.parameters_at(u), float(u[self.n + 1])
         a_matrix = self.state_matrix(x, p)
         if kappa <= 0.0:  # a Bogdanov-Takens point: A^2 has a two-dimensional null space
