@@ -1,7 +1,8 @@
 """One member of a batch, run wherever a worker runs it.
 
-:func:`run_member` is the one task every backend executes (the calling process
-with ``--jobs 1``, a local process pool, or a Dask worker). It compiles the
+:func:`run_member` is the one job every backend executes (the calling process
+with ``--jobs 1``, a local process pool, or a Dask worker), in chunks of
+members of one scan (:func:`run_members`, one task per chunk). It compiles the
 scan's model once per worker process (kept in :data:`_MODELS`), runs the
 member's scan with its ensemble values as parameter defaults, and returns
 everything the batch keeps as plain picklable data: its events.csv rows, its
@@ -234,4 +235,24 @@ def run_member(scan: Scan, plan: MemberPlan, members: str | None = None) -> Memb
     )
 
 
-__all__ = ["STATUS_DONE", "STATUS_FAILED", "MemberOutcome", "compiled_model", "run_member"]
+def run_members(
+    scan: Scan, plans: tuple[MemberPlan, ...], members: str | None = None
+) -> tuple[MemberOutcome, ...]:
+    """Run a chunk of members of one scan, one after another: one task on a backend.
+
+    A chunk sends ``scan`` to the worker once for all its members (sending it
+    with every member made the task overhead rival a small member's run). Each
+    member is run by :func:`run_member`, which never raises, so a failing member
+    is recorded in its outcome and the rest of the chunk goes on.
+    """
+    return tuple(run_member(scan, plan, members) for plan in plans)
+
+
+__all__ = [
+    "STATUS_DONE",
+    "STATUS_FAILED",
+    "MemberOutcome",
+    "compiled_model",
+    "run_member",
+    "run_members",
+]
