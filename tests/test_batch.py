@@ -10,13 +10,16 @@ from __future__ import annotations
 import json
 import math
 import os
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
 import branchline
+from branchline.batch import execute
 from branchline.batch.analysis import clopper_pearson
+from branchline.batch.member import run_members
 from branchline.batch.plan import plan_batch, unit_points
 
 # Invented model (plumbing only): a harvested stock with a saturating take; its
@@ -147,6 +150,39 @@ def test_resume_refuses_another_batch_and_a_new_run_refuses_an_old_folder(tmp_pa
         branchline.run_batch([FRAGILE], tmp_path / "b", jobs=1)
     with pytest.raises(branchline.batch.folder.BatchFolderError, match="another batch"):
         branchline.run_batch([STOCK], tmp_path / "b", jobs=1, resume=True)
+
+
+def test_a_failing_member_inside_a_chunk_is_recorded_and_the_chunk_goes_on():
+    # One task runs a chunk of members; the failing one (b = -1, no equilibrium at
+    # its start, see FRAGILE) is an outcome with its error, not a lost chunk.
+    scan = branchline.scan_from_dict(FRAGILE)
+    outcomes = run_members(scan, plan_batch([scan]))
+    assert [o.member for o in outcomes] == [1, 2, 3]
+    assert [o.status for o in outcomes] == ["done", "failed", "done"]
+    assert "no equilibrium found at the start" in outcomes[1].error
+    assert outcomes[2].files and not outcomes[1].events  # the member after it ran whole
+    assert [row["kind"] for row in outcomes[2].events] == ["fold"]
+
+
+def test_chunks_shrink_toward_the_end_and_hold_members_of_one_scan():
+    assert execute.chunk_size(1000, 2, inline=False) == execute.MAX_CHUNK
+    assert execute.chunk_size(5, 2, inline=False) == 1  # the last tasks are single members
+    assert execute.chunk_size(1000, 2, inline=True) == 1  # this process: per member
+    plans = plan_batch([branchline.scan_from_dict(STOCK), branchline.scan_from_dict(FRAGILE)])
+    queue = list(reversed(plans))
+    chunks = [execute._next_chunk(queue, 4) for _ in range(3)]
+    assert [[m.member for m in chunk] for chunk in chunks] == [[1, 2, 3, 4], [5, 6], [7, 8, 9]]
+    assert not queue and all(len({m.scan for m in chunk}) == 1 for chunk in chunks)
+
+
+def test_workers_write_in_place_only_where_they_see_the_batch_disk_mark(tmp_path):
+    scan = branchline.scan_from_dict(FRAGILE)
+    first = plan_batch([scan])[:1]
+    (tmp_path / ".disk-mark").mkdir()
+    here = run_members(scan, first, str(tmp_path), ".disk-mark")[0]
+    assert here.staged and not here.files and Path(here.staged).parent == tmp_path
+    elsewhere = run_members(scan, first, str(tmp_path), ".another-disk")[0]
+    assert not elsewhere.staged and "points.csv" in elsewhere.files
 
 
 def test_local_processes_match_this_process_and_compile_once_per_worker(tmp_path):

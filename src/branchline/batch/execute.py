@@ -11,7 +11,9 @@ the end of every run, complete or interrupted.
 from __future__ import annotations
 
 import json
+import shutil
 import time
+import uuid
 from collections.abc import Callable, Sequence
 from concurrent.futures import FIRST_COMPLETED, Future, wait
 from concurrent.futures.process import BrokenProcessPool
@@ -24,7 +26,7 @@ import pandas as pd
 from branchline import __version__
 from branchline.batch import folder as disk
 from branchline.batch.backends import InlineExecutor, open_backend
-from branchline.batch.member import STATUS_FAILED, MemberOutcome, run_members
+from branchline.batch.member import STAGING_PREFIX, STATUS_FAILED, MemberOutcome, run_members
 from branchline.batch.plan import MemberPlan, ensemble_parameters, plan_batch
 from branchline.batch.tables import events_frame, margins_frame, members_frame, write_table
 from branchline.scan.loader import Scan, load_scan, scan_from_dict
@@ -118,13 +120,16 @@ def _run_members(
     queue = list(reversed(todo))
     finished = failed = 0
     lost: list[str] = []
-    where = str(members) if members is not None and backend.shared_disk else None
+    where = str(members) if members is not None else None
+    mark = None if where is None or backend.shared_disk else _disk_mark(members)
     inline = isinstance(backend.executor, InlineExecutor)
     try:
         while queue or pending:
             while queue and len(pending) < IN_FLIGHT_PER_SLOT * backend.slots:
                 chunk = _next_chunk(queue, chunk_size(len(queue), backend.slots, inline))
-                task = backend.executor.submit(run_members, scans[chunk[0].scan], chunk, where)
+                task = backend.executor.submit(
+                    run_members, scans[chunk[0].scan], chunk, where, mark
+                )
                 pending[task] = chunk
             done, _ = wait(pending, return_when=FIRST_COMPLETED)
             for future in sorted(done, key=lambda f: pending[f][0].member):
@@ -149,9 +154,22 @@ def _run_members(
         reason = "a worker process died"
     else:
         return _lost_members(lost)
+    finally:
+        if mark:
+            shutil.rmtree(members / mark, ignore_errors=True)
     for future in pending:
         future.cancel()
     return "; ".join([reason, _lost_members(lost)]) if lost else reason
+
+
+def _disk_mark(members: Path) -> str:
+    """Make a uniquely named hidden folder in ``members`` and return its name: a
+    worker that sees it shares this disk (a Dask worker on this machine or on a
+    shared file system) and writes member folders in place instead of sending
+    them back as bytes, which costs this process the writing."""
+    mark = f"{STAGING_PREFIX}disk-{uuid.uuid4().hex}"
+    (members / mark).mkdir()
+    return mark
 
 
 def _lost_members(lost: list[str]) -> str:
@@ -222,6 +240,8 @@ def run_batch(
             todo[:limit], loaded, save, backend, progress, folder / disk.MEMBERS_FOLDER
         )
         where = backend.description
+    # members of chunks lost or cut short may have left staging folders behind
+    disk.clear_staging(folder)
     return _conclude(folder, loaded, plan, stopped, where, time.perf_counter() - started)
 
 

@@ -7,8 +7,9 @@ scan's model once per worker process (kept in :data:`_MODELS`), runs the
 member's scan with its ensemble values as parameter defaults, and returns
 everything the batch keeps as plain picklable data: its events.csv rows, its
 operating margins and its results folder, written in place under the batch's
-members folder by workers on the batch's own disk (the local backends), or as
-bytes from workers on other machines (Dask), which need no shared disk. It never raises for a failing
+members folder by workers that share the batch's disk (the local backends, and
+Dask workers that find the batch's disk mark), or as bytes from workers on
+other machines, which need no shared disk. It never raises for a failing
 member: the error becomes the outcome's ``status`` and ``error``.
 """
 
@@ -236,7 +237,10 @@ def run_member(scan: Scan, plan: MemberPlan, members: str | None = None) -> Memb
 
 
 def run_members(
-    scan: Scan, plans: tuple[MemberPlan, ...], members: str | None = None
+    scan: Scan,
+    plans: tuple[MemberPlan, ...],
+    members: str | None = None,
+    disk_mark: str | None = None,
 ) -> tuple[MemberOutcome, ...]:
     """Run a chunk of members of one scan, one after another: one task on a backend.
 
@@ -244,7 +248,15 @@ def run_members(
     with every member made the task overhead rival a small member's run). Each
     member is run by :func:`run_member`, which never raises, so a failing member
     is recorded in its outcome and the rest of the chunk goes on.
+
+    ``disk_mark`` (Dask workers, which may run on other machines): the name of a
+    folder the batch made, uniquely named, in ``members``; a worker that sees it
+    shares the batch's disk and writes the member folders in place, any other
+    sends them back as bytes.
     """
+    if members is not None and disk_mark is not None:
+        if not (Path(members) / disk_mark).is_dir():
+            members = None
     return tuple(run_member(scan, plan, members) for plan in plans)
 
 
