@@ -346,3 +346,42 @@ def test_tracked_real_eigenvalues_through_a_fold_and_a_branch_point():
     assert fold.kind == "fold" and abs(fold.value) <= 1e-12
     assert point.kind == "branch_point"
     assert point.value == pytest.approx((diffusion * mu[1] / 2.0) ** 2, rel=1e-8)
+
+
+def _chain_leading(cells: int, a: float, b: float, d: float) -> np.ndarray:
+    """The six leading eigenvalues of the Brusselator chain at its uniform state, in
+    closed form: lambda(J_cell) - d mu_k per mode (equal diffusion; tests/cell_chains.py,
+    Prigogine & Lefever 1968 for the cell, Strang, SIAM Review 41 (1999) section 2 for
+    mu_k, from memory)."""
+    from cell_chains import mode_rates
+
+    trace, det = b - 1.0 - a * a, a * a
+    root = np.sqrt(complex(trace * trace - 4.0 * det))
+    cell = np.array([(trace + root) / 2.0, (trace - root) / 2.0])
+    values = np.concatenate([cell - d * mu for mu in mode_rates(cells)])
+    return values[np.argsort(-values.real, kind="stable")][:6]
+
+
+def test_tracking_engages_on_a_clustered_chain_spectrum():
+    # 600 states: hundreds of modes within 0.1 of the leading pair, the three
+    # leading pairs within 1e-4 of each other (the crowd of issue 11)
+    from cell_chains import brusselator_jacobian as chain_jacobian
+    from cell_chains import coupling_matrix
+
+    cells, a, d = 300, 2.0, 0.1
+    coupling = coupling_matrix(cells)
+
+    def matrix(b):
+        x = np.empty(2 * cells)
+        x[0::2], x[1::2] = a, b / a
+        return sp.csc_matrix(chain_jacobian(x, {"b": b, "d": d}, coupling))
+
+    found, track = eigen_tracking.track_leading_eigenvalues(matrix(4.0), None)
+    assert found.found and track.full_searches == 1
+    for b in (4.01, 4.02):
+        found, track = eigen_tracking.track_leading_eigenvalues(matrix(b), track)
+        assert found.method == "tracked shift-invert Arnoldi"
+        exact = _chain_leading(cells, a, b, d)
+        np.testing.assert_allclose(np.sort_complex(found.values), np.sort_complex(exact),
+                                   rtol=0.0, atol=1e-9)
+    assert (track.tracked, track.full_searches) == (2, 1)
