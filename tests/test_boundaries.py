@@ -23,20 +23,9 @@ from branchline.errors import ScanError
 
 sys.path.insert(0, str(Path(__file__).parent))
 
-CUSP = {
-    "model": {"parameters": {"a": 0.0, "b": 1.0}, "equations": {"x": "a + b*x - x^3"}},
-    "trace": [{"name": "line", "vary": "a", "interval": [-1.0, 1.0], "start": {"x": 1.0}}],
-    "boundary": [
-        {
-            "name": "folds",
-            "from": "line",
-            "kind": "fold",
-            "index": 1,
-            "second": "b",
-            "window": {"a": [-1.0, 1.0], "b": [-1.0, 2.0]},
-        }
-    ],
-}
+import boundary_models
+
+CUSP = boundary_models.cusp_fold_scan(a=0.0, x=1.0, b_low=-1.0)
 
 TAKENS = {
     "model": {

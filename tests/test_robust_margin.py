@@ -30,6 +30,7 @@ import pytest
 from scipy import optimize
 
 import branchline
+from boundary_models import cusp_fold_scan
 from branchline.errors import ScanError
 
 HOPF_TEMPLATE = {
@@ -85,27 +86,7 @@ def test_straight_line_boundary_closed_form(kind):
         assert abs(point.frequency - 1.0) < 1e-10  # omega = 1 on the whole line (sec. 3.4)
 
 
-CUSP_SCAN = scan(
-    {"x": "a + b*x - x^3"},
-    {"a": 0.05, "b": 1.0},
-    {"x": 1.2},
-    "a",
-    [-1.0, 1.0],
-    {"a": 0.1, "b": 0.3},
-    extra={
-        "boundary": [
-            {
-                "name": "folds",
-                "from": "line",
-                "kind": "fold",
-                "index": 1,
-                "second": "b",
-                "window": {"a": [-1.0, 1.0], "b": [-0.5, 2.0]},
-                "steps": {"largest": 0.01},
-            }
-        ]
-    },
-)
+CUSP_SCAN = {**cusp_fold_scan(largest_step=0.01), "robust_margin": {"scale": {"a": 0.1, "b": 0.3}}}
 
 
 @pytest.fixture(scope="module")

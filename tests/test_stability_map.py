@@ -15,22 +15,10 @@ import numpy as np
 import pytest
 
 import branchline
+from boundary_models import cusp_fold_scan
 from branchline.problems.stability_regions import region_raster, sample_cells
 
-CUSP = {
-    "model": {"parameters": {"a": 0.05, "b": 1.0}, "equations": {"x": "a + b*x - x^3"}},
-    "trace": [{"name": "line", "vary": "a", "interval": [-1.0, 1.0], "start": {"x": 1.2}}],
-    "boundary": [
-        {
-            "name": "folds",
-            "from": "line",
-            "kind": "fold",
-            "index": 1,
-            "second": "b",
-            "window": {"a": [-1.0, 1.0], "b": [-0.5, 2.0]},
-        }
-    ],
-}
+CUSP = cusp_fold_scan()
 
 
 @pytest.fixture(scope="module")
