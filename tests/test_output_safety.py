@@ -181,3 +181,37 @@ def test_marker_needs_a_dict_run_json(tmp_path):
         (tmp_path / "run.json").write_text(text)
         assert output_folder.read_marker(tmp_path) is None
         assert output_folder.foreign_entries(tmp_path) == ["run.json"]
+
+
+def test_a_folder_held_by_another_process_is_refused_until_released(scan, tmp_path):
+    # Two real processes, as two users' runs would be: the lock is an flock, which
+    # only means anything across processes.
+    import subprocess
+    import sys
+
+    out = tmp_path / "out"
+    holder_code = (
+        "import sys\n"
+        "from pathlib import Path\n"
+        "from branchline.results.output_folder import reserve_output\n"
+        f"with reserve_output(Path({str(out)!r})):\n"
+        "    print('held', flush=True)\n"
+        "    sys.stdin.read()\n"
+    )
+    holder = subprocess.Popen(
+        [sys.executable, "-c", holder_code], stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True
+    )
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        command = [sys.executable, "-m", "branchline", "run", str(scan), "--out", str(out), "--quiet"]
+        refused = subprocess.run(command, capture_output=True, text=True, timeout=120)
+        assert refused.returncode == 2
+        assert "another branchline run" in refused.stderr
+        assert not (out / "points.csv").exists()
+    finally:
+        holder.communicate("", timeout=60)
+    assert holder.returncode == 0
+    done = subprocess.run(command, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert (out / "points.csv").exists() and (out / "run.json").exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["out", "stock.toml"]
