@@ -434,3 +434,35 @@ def test_plot_output_into_a_missing_folder_is_refused(saved_run, tmp_path, capsy
     code = main(["plot", str(saved_run), "--output", str(tmp_path / "nowhere" / "d.png")])
     assert code == 2
     assert "does not exist" in capsys.readouterr().err
+
+
+NAME_OR_JUNK = st.one_of(st.sampled_from(["r", "F", "N", "x", "", "=", "r=1"]), st.text(max_size=8))
+VALUE_OR_JUNK = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),
+    st.sampled_from(["", "1e400", "-0", "nan", "0x10", "1_000", "2*3", "__import__('os')"]),
+    st.text(max_size=8),
+)
+OPTION = st.tuples(st.sampled_from(["--set", "--start", "--trace"]), NAME_OR_JUNK, VALUE_OR_JUNK)
+
+
+@pytest.fixture(scope="module")
+def good_scan(tmp_path_factory) -> Path:
+    path = tmp_path_factory.mktemp("inspect") / "stock.toml"
+    path.write_text(GOOD)
+    return path
+
+
+@_settings(60)
+@given(st.lists(OPTION, max_size=4))
+def test_inspect_with_fuzzed_options_answers_or_refuses(good_scan, capsys, options):
+    args = ["inspect", str(good_scan)]
+    for flag, name, value in options:
+        args += [flag, name if flag == "--trace" else f"{name}={value}"]
+    with watchdog():
+        try:
+            code = main(args)
+        except SystemExit as exit_:  # argparse refuses a malformed option line itself
+            code = exit_.code
+    err = capsys.readouterr().err
+    assert code in (0, 2), err
+    assert "Traceback" not in err and len(err) < 2000
