@@ -369,3 +369,34 @@ def test_large_python_models_without_jacobian_or_pattern_are_told_the_cost():
     assert result.branches[0].status in ("done", "max_points"), result.branches[0].message
     small = build_model(scan_from_dict(chain_scan(200), "chain.toml").model, "chain.toml")
     assert difference_jacobian_warning(small) == ""
+
+
+def test_the_command_line_refuses_a_bad_pattern_with_exit_2_and_writes_nothing(
+    tmp_path, capsys, monkeypatch
+):
+    from branchline.cli import main
+
+    monkeypatch.chdir(tmp_path)
+    (tmp_path / "pattern_cli_model.py").write_text(
+        "import numpy as np\n"
+        "import scipy.sparse as sp\n"
+        "def rhs(x, p):\n"
+        "    return p['k'] - x\n"
+        "def pattern(size):\n"
+        "    return sp.eye(size + 1)\n"
+    )
+    scan = tmp_path / "bad.toml"
+    scan.write_text(
+        "[model.parameters]\nk = 1.0\n"
+        '[model.python]\nrhs = "pattern_cli_model:rhs"\nsize = 3\n'
+        'jacobian_pattern = "pattern_cli_model:pattern"\n'
+        '[[trace]]\nvary = "k"\ninterval = [0.0, 2.0]\nstart = { x0 = 1.0, x1 = 1.0, x2 = 1.0 }\n'
+    )
+    out = tmp_path / "out"
+    code = main(["run", str(scan), "--out", str(out)])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "bad.toml" in err and "model.python.jacobian_pattern" in err
+    assert "shape (4, 4); expected (3, 3)" in err
+    assert "Traceback" not in err
+    assert not out.exists()
