@@ -84,6 +84,14 @@ def pattern_of_wrong_type(size: int):
     return {"rows": [0]}
 
 
+def pattern_as_list(size: int) -> list:
+    return [[0, 1], [0, 1]]
+
+
+def pattern_as_stacked_indices(size: int) -> np.ndarray:
+    return np.array([[0, 1, 2], [0, 1, 2]])
+
+
 def empty_pattern(size: int) -> sp.csr_matrix:
     return sp.csr_matrix((size, size))
 
@@ -267,6 +275,8 @@ def python_scan(size: int = 40, **python) -> dict:
         ("pattern_with_float_indices", "expected integer indices"),
         ("pattern_of_wrong_type", "returned dict; expected a scipy.sparse matrix"),
         ("empty_pattern", "no entries"),
+        ("pattern_as_list", "a list; return index arrays as a tuple (rows, cols)"),
+        ("pattern_as_stacked_indices", "shape (2, 3); expected (40, 40) (for index arrays"),
     ],
 )
 def test_bad_patterns_are_scan_errors_naming_the_key(function, words):

@@ -4,8 +4,8 @@ The user names ``"module:function"``; branchline calls ``function(size)`` once,
 when the model is built, and reads what it returns as the structure of df/dx:
 
 - a scipy.sparse matrix of shape (size, size): its stored entries;
-- a pair ``(rows, cols)`` of integer index arrays of equal length;
-- a dense array of shape (size, size): its nonzero entries.
+- a tuple ``(rows, cols)`` of integer index arrays of equal length;
+- a dense numpy array of shape (size, size): its nonzero entries.
 
 Anything else, a wrong shape, an index out of range, an empty pattern or an
 exception in the function is a :class:`~branchline.errors.ScanError` naming the
@@ -97,11 +97,24 @@ def _as_entries(value: Any, size: int, reference: str, source: str) -> sp.csc_ma
                 source, reference, f"a sparse matrix of shape {value.shape}; expected {expected}"
             )
         return structure(value)
-    if isinstance(value, tuple | list) and len(value) == 2:
+    if isinstance(value, tuple) and len(value) == 2:
         return _from_indices(value, size, reference, source)
+    if isinstance(value, list):
+        # A list of two lists could be either form (at size 2): ask for the unambiguous ones.
+        _refuse(
+            source,
+            reference,
+            "a list; return index arrays as a tuple (rows, cols) and a dense pattern as a "
+            "numpy array or scipy.sparse matrix",
+        )
     if isinstance(value, np.ndarray) and value.ndim == 2:
         if value.shape != expected:
-            _refuse(source, reference, f"an array of shape {value.shape}; expected {expected}")
+            _refuse(
+                source,
+                reference,
+                f"an array of shape {value.shape}; expected {expected} (for index arrays, "
+                "return a tuple (rows, cols))",
+            )
         if value.dtype.kind not in "biuf":
             _refuse(source, reference, f"an array of {value.dtype}; expected numbers or booleans")
         return structure(sp.csc_matrix(value != 0))
