@@ -15,6 +15,7 @@ import numpy as np
 from branchline.errors import ScanError
 from branchline.events.sensitivities import with_sensitivities
 from branchline.model.build import Model, build_model, check_jacobian, resolve_callable
+from branchline.model.pattern_check import check_pattern, difference_jacobian_warning
 from branchline.problems.boundary import follow_boundaries
 from branchline.problems.crowding import resolve_crowded_steps
 from branchline.problems.cycle_runs import run_cycles
@@ -342,7 +343,7 @@ def run_scan(
     if model is None:
         model = build_model(scan.model, source=scan.source)
     compiled = time.perf_counter()
-    warnings = []
+    warnings = [advice for advice in (difference_jacobian_warning(model),) if advice]
     branches: list[Branch] = []
     events: list[Event] = []
     searches = []
@@ -359,6 +360,11 @@ def run_scan(
             check = check_jacobian(model, where, parameters)
             if not check.ok:
                 warnings.append(check.message)
+        if model.jacobian_pattern is not None:
+            where = x0 if guessed else search_box(model, spec).centre
+            for found in check_pattern(model, where, parameters):
+                if found not in warnings:
+                    warnings.append(found)
         if guessed:
             try:
                 outcome = _follow(model, spec, parameters, x0, progress, stop)

@@ -28,10 +28,12 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from branchline.errors import ScanError
+from branchline.model.jacobian_pattern import JacobianPattern
 from branchline.model.python import (
     probe,
     python_jacobian,
     python_observables,
+    python_pattern,
     python_rhs,
     resolve_callable,
 )
@@ -98,6 +100,9 @@ class Model:
         The nonzero entries of f_xx and d/dp f_x as one fast compiled call,
         compiled on the first call (expression models only; boundary curves
         contract them at every Newton iterate).
+    jacobian_pattern : JacobianPattern or None
+        A Python model's sparsity pattern of df/dx (``model.python.jacobian_pattern``):
+        without a Jacobian of its own, its Jacobian is differences by column groups.
     linear_algebra : LinearAlgebraPolicy
         Where dense linear algebra ends and sparse begins for this model (tests
         give :data:`branchline.numerics.policy.DENSE` or ``SPARSE`` to run a case
@@ -124,6 +129,7 @@ class Model:
     jacobian_source: str | None = None
     linear_algebra: LinearAlgebraPolicy = DEFAULT
     second_entries: Callable[[], SecondEntries] | None = None
+    jacobian_pattern: JacobianPattern | None = None
 
     @property
     def size(self) -> int:
@@ -261,7 +267,10 @@ def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
     rhs = python_rhs(spec, source)
     probe_point = np.ones(n)
     probe(rhs, probe_point, defaults)
-    jacobian, sparse, derivatives = python_jacobian(spec, rhs, probe_point, defaults, source)
+    pattern = python_pattern(spec, source)
+    jacobian, sparse, derivatives = python_jacobian(
+        spec, rhs, probe_point, defaults, source, pattern
+    )
     observables, names = _no_observables, ()
     if spec.observables:
         observables, names = python_observables(spec, probe_point, defaults, source)
@@ -283,6 +292,7 @@ def _build_python_model(spec: PythonModelSpec, source: str) -> Model:
         python_source=spec.rhs,
         exact_derivatives=False,
         jacobian_source=spec.jacobian,
+        jacobian_pattern=pattern,
     )
 
 

@@ -21,7 +21,13 @@ import numpy as np
 import scipy.sparse
 
 from branchline.errors import ModelCodeError, ScanError
-from branchline.numerics.differences import central_jacobian, extrapolated_directional
+from branchline.model.jacobian_pattern import KEY as PATTERN_KEY
+from branchline.model.jacobian_pattern import JacobianPattern, read_pattern
+from branchline.numerics.differences import (
+    central_jacobian,
+    extrapolated_directional,
+    grouped_central_jacobian,
+)
 from branchline.numerics.policy import DEFAULT
 from branchline.scan.loader import PythonModelSpec
 
@@ -92,19 +98,36 @@ def python_rhs(spec: PythonModelSpec, source: str) -> Callable[[Array, Array], A
     return _wrap_rhs(_timed(user_rhs, spec.call_time_limit, spec.rhs), spec, source)
 
 
+def python_pattern(spec: PythonModelSpec, source: str) -> JacobianPattern | None:
+    """The model's Jacobian sparsity pattern (``model.python.jacobian_pattern``), or None."""
+    if spec.jacobian_pattern is None:
+        return None
+    function = resolve_callable(spec.jacobian_pattern, source, PATTERN_KEY)
+    return read_pattern(function, int(spec.size), spec.jacobian_pattern, source)
+
+
 def python_jacobian(
-    spec: PythonModelSpec, rhs: Callable, probe_point: Array, defaults: Array, source: str
+    spec: PythonModelSpec,
+    rhs: Callable,
+    probe_point: Array,
+    defaults: Array,
+    source: str,
+    pattern: JacobianPattern | None = None,
 ) -> tuple[Callable, bool, DifferenceDerivatives]:
     """df/dx of a Python model, whether it is sparse, and the source of its other derivatives.
 
     The user's Jacobian (wrapped; sparse if it returns scipy.sparse at the
-    probe point) when the spec names one, else central differences of ``rhs``
-    (sparse above ``DEFAULT.finite_differences_dense_up_to`` states).
+    probe point) when the spec names one; else, with a ``pattern``, central
+    differences by column groups (a scipy.sparse matrix, 2 rhs calls per group;
+    sparse like a user's sparse Jacobian); else central differences column by
+    column (sparse above ``DEFAULT.finite_differences_dense_up_to`` states).
     """
     n = int(spec.size)
     if spec.jacobian is None:
-        sparse = n > DEFAULT.finite_differences_dense_up_to
         derivatives = DifferenceDerivatives(rhs, None, *_user_forms(spec, source))
+        if pattern is not None:
+            return _grouped_jacobian(rhs, pattern), True, derivatives
+        sparse = n > DEFAULT.finite_differences_dense_up_to
         return _difference_jacobian(rhs, sparse), sparse, derivatives
     user_jacobian = resolve_callable(spec.jacobian, source, "model.python.jacobian")
     user_jacobian = _with_parameter_dict(user_jacobian, tuple(spec.parameters), spec.jacobian)
@@ -340,6 +363,17 @@ def _difference_jacobian(rhs: Callable, sparse: bool):
     return jacobian
 
 
+def _grouped_jacobian(rhs: Callable, pattern: JacobianPattern):
+    """df/dx by central differences, one per column group of the pattern (CSC)."""
+
+    def jacobian(x: Array, p: Array):
+        return grouped_central_jacobian(
+            lambda z: rhs(z, p), x, pattern.entries, pattern.groups
+        )
+
+    return jacobian
+
+
 class DifferenceDerivatives:
     """df/dp, B, C and d/dp (f_x v) of a Python model.
 
@@ -420,6 +454,7 @@ __all__ = [
     "probe",
     "python_jacobian",
     "python_observables",
+    "python_pattern",
     "python_rhs",
     "resolve_callable",
 ]

@@ -18,7 +18,9 @@ Two kinds of step rule:
   derivative sought is of order one, so the balance point of the rule below
   lies far from its nominal step and l1 lost digits (0.5 % measured).
 - a fixed central step (:func:`central_jacobian`, :func:`directional_derivative`:
-  the Jacobian, df/dp, the Jacobian check).
+  the Jacobian, df/dp, the Jacobian check; :func:`grouped_central_jacobian`, the
+  Jacobian of a model with a sparsity pattern, one difference per group of
+  structurally orthogonal columns, see :mod:`branchline.numerics.column_groups`).
 
 For the fixed steps, every formula is a central difference. When differences are nested (B is a
 difference of Jacobian actions, C a difference of B), all levels use the same
@@ -36,6 +38,9 @@ import math
 from collections.abc import Callable
 
 import numpy as np
+import scipy.sparse as sp
+
+from branchline.numerics.column_groups import ColumnGroups, curtis_powell_reid_groups, structure
 
 Array = np.ndarray
 VectorFunction = Callable[[Array], Array]
@@ -84,6 +89,77 @@ def central_jacobian(func: VectorFunction, z: Array, levels: int = 1) -> Array:
         size = np.asarray(func(z)).shape[0]
         return np.zeros((size, 0))
     return np.column_stack(columns)
+
+
+def grouped_central_jacobian(
+    func: VectorFunction,
+    z: Array,
+    pattern: object,
+    groups: ColumnGroups | None = None,
+    levels: int = 1,
+) -> sp.csc_matrix:
+    """Sparse Jacobian of ``func`` at ``z`` from one central difference per column group.
+
+    The columns of a group are structurally orthogonal (no row has a structural
+    nonzero in two of them), so moving all of them at once, each by its own step,
+    changes row i through at most one column j of the group, and
+    (f_i(z + h) - f_i(z - h)) / (2 h_j) is entry (i, j). This is the method of
+    Curtis, Powell and Reid ("On the estimation of sparse Jacobian matrices",
+    J. Inst. Maths Applics 13 (1974) 117-119) with central differences; each
+    column has the step of :func:`central_jacobian`, so every entry equals the
+    one that function gives up to rounding.
+
+    Parameters
+    ----------
+    func : callable (k,) -> (n,)
+    z : ndarray (k,)
+    pattern : scipy.sparse matrix or array_like, shape (n, k)
+        Where the Jacobian may be nonzero (stored entries count). Entries
+        outside it are taken to be zero and are not looked at.
+    groups : ColumnGroups, optional
+        Structurally orthogonal column groups of ``pattern``
+        (:func:`~branchline.numerics.column_groups.curtis_powell_reid_groups`
+        when not given; pass them to save that work on repeated calls).
+    levels : int
+        Total nesting depth of differences this Jacobian takes part in.
+
+    Returns
+    -------
+    scipy.sparse.csc_matrix (n, k)
+        With exactly the pattern's entries stored. Costs 2 * groups.count calls of ``func``.
+
+    Examples
+    --------
+    >>> import scipy.sparse as sp
+    >>> f = lambda x: np.array([x[0] ** 2, x[0] * x[1], np.sin(x[2])])
+    >>> pattern = sp.csc_matrix(np.array([[1, 0, 0], [1, 1, 0], [0, 0, 1]]))
+    >>> jacobian = grouped_central_jacobian(f, np.array([1.0, 2.0, 0.0]), pattern)
+    >>> np.round(jacobian.toarray(), 8)
+    array([[2., 0., 0.],
+           [2., 1., 0.],
+           [0., 0., 1.]])
+    """
+    z = np.array(z, dtype=float)
+    entries = structure(pattern)
+    if groups is None:
+        groups = curtis_powell_reid_groups(entries)
+    steps = central_step(levels) * np.maximum(1.0, np.abs(z))
+    # The steps as represented in floating point (see central_jacobian).
+    taken = (z + steps) - (z - steps)
+    rows = entries.indices
+    columns = np.repeat(np.arange(entries.shape[1]), np.diff(entries.indptr))
+    entry_groups = groups.group_of[columns]
+    order = np.argsort(entry_groups, kind="stable")
+    bounds = np.searchsorted(entry_groups[order], np.arange(groups.count + 1))
+    values = np.empty(entries.nnz)
+    for group in range(groups.count):
+        moved = groups.group_of == group
+        shift = np.where(moved, steps, 0.0)
+        upper = np.asarray(func(z + shift), dtype=float)
+        lower = np.asarray(func(z - shift), dtype=float)
+        mine = order[bounds[group] : bounds[group + 1]]
+        values[mine] = (upper[rows[mine]] - lower[rows[mine]]) / taken[columns[mine]]
+    return sp.csc_matrix((values, entries.indices, entries.indptr), shape=entries.shape)
 
 
 def directional_derivative(
@@ -224,4 +300,5 @@ __all__ = [
     "directional_derivative",
     "extrapolated_derivative",
     "extrapolated_directional",
+    "grouped_central_jacobian",
 ]

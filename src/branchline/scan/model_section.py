@@ -29,6 +29,7 @@ PYTHON_KEYS = (
     "rhs",
     "size",
     "jacobian",
+    "jacobian_pattern",
     "states",
     "observables",
     "second_derivative",
@@ -63,6 +64,8 @@ class PythonModelSpec:
     rhs: str
     size: int
     jacobian: str | None = None
+    # Optional "module:function" giving df/dx's sparsity structure for the model's size (README).
+    jacobian_pattern: str | None = None
     states: tuple[str, ...] | None = None
     observables: str | None = None
     # Optional exact directional derivatives B(v, w) and C(u, v, w) (README).
@@ -215,6 +218,9 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
     jacobian = None
     if "jacobian" in python:
         jacobian = check.import_path(python["jacobian"], "model.python.jacobian")
+    pattern = None
+    if "jacobian_pattern" in python:
+        pattern = check.import_path(python["jacobian_pattern"], "model.python.jacobian_pattern")
     observables = None
     if "observables" in python:
         observables = check.import_path(python["observables"], "model.python.observables")
@@ -246,6 +252,7 @@ def _python_model(check: Checker, model: dict, parameters: dict[str, float]) -> 
         rhs=rhs,
         size=size,
         jacobian=jacobian,
+        jacobian_pattern=pattern,
         states=states,
         observables=observables,
         **forms,
