@@ -80,6 +80,7 @@ import scipy.linalg as sla
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from branchline.numerics import linalg
 from branchline.numerics.eigenvalues import (
     ARNOLDI_TOL,
     REAL_AXIS_RTOL,
@@ -374,10 +375,9 @@ def _tracking_run(matrix, shift: complex, nev: int, start: Array | None):
     n = matrix.shape[0]
     complex_shift = shift.imag != 0.0
     dtype = complex if complex_shift else float
-    identity = sp.identity(n, format="csc", dtype=dtype)
     center = shift if complex_shift else shift.real
     try:
-        lu = spla.splu((matrix.astype(dtype) - center * identity).tocsc())
+        lu = linalg.factor_reusing_ordering(shifted_matrix(matrix, center))
     except RuntimeError:
         return None
     operator = spla.LinearOperator((n, n), matvec=lu.solve, dtype=dtype)
@@ -411,6 +411,13 @@ def _tracking_run(matrix, shift: complex, nev: int, start: Array | None):
     weights = 1.0 / (1.0 + np.abs(values - center) / max(radius, 1e-300))
     combined = vectors @ weights
     return complex(center), radius, values, combined, vectors
+
+
+def shifted_matrix(matrix, shift: complex):
+    """A - shift I as CSC (complex for a complex shift), A a square scipy.sparse matrix."""
+    dtype = complex if complex(shift).imag != 0.0 else float
+    identity = sp.identity(matrix.shape[0], format="csc", dtype=dtype)
+    return (matrix.astype(dtype) - shift * identity).tocsc()
 
 
 def _collect(runs, scale: float) -> Array:
