@@ -256,9 +256,7 @@ class EquilibriumBranch:
             if trouble:
                 raise ObservationFailed(trouble)
         if linalg.is_sparse(jacobian):
-            jac = jacobian.tocsc()
-            fx = jac[:, :n]
-            fp = np.asarray(jac[:, n].toarray()).ravel()
+            fx, fp = linalg.split_last_column(jacobian)
             if n <= self.policy.eigenvalues_dense_up_to:
                 eigenvalues = dense_eigenvalues(fx.toarray())
             else:
