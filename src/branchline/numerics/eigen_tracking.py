@@ -145,7 +145,7 @@ CROSSING_IMAG_RTOL = 1e-3
 # CERTIFY_MAX_COLUMNS basis vectors (a cluster run's 80 would cost more than it
 # saves); basis vectors whose pivoted-QR diagonal falls below CERTIFY_RANK_RTOL of
 # the first are dependent and dropped.
-CERTIFY_POINTS = 10
+CERTIFY_POINTS = 20
 CERTIFY_RTOL = 1e-9
 CERTIFY_MARGIN = 1e-3
 CERTIFY_MAX_COLUMNS = 16

@@ -21,6 +21,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from branchline.numerics import linalg
 from branchline.numerics.linalg import eigvals_unchecked
 from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 
@@ -368,8 +369,9 @@ def _arpack(operator, nev: int, which: str, tol: float, maxiter: int, retry: boo
 
 
 def _factor(matrix):
+    # every shift's matrix has the pattern of A plus its diagonal: one column ordering
     try:
-        return spla.splu(matrix)
+        return linalg.factor_reusing_ordering(matrix)
     except RuntimeError:  # exactly singular
         return None
 
