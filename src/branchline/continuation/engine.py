@@ -454,7 +454,7 @@ class _Walk:
     def factored_tangent(self, jac, previous: Array) -> Array:
         """The unit tangent from one SuperLU factorization of [G_u; previous^T], whose
         factors are kept for the next corrector (see the module docstring)."""
-        lu, z = linalg.bordered_factor_solve(linalg.bordered_matrix(jac, previous))
+        lu, z = linalg.factor_bordered(jac, previous)
         length = linalg.norm(z)
         if not 0.0 < length < math.inf:
             raise linalg.SingularMatrixError("the tangent is not finite")
