@@ -478,6 +478,11 @@ def factor_reusing_ordering(matrix: object) -> object:
 # residual |M z - e_last| is below this multiple of eps |M| |z| (after one step of
 # iterative refinement), else the bordered matrix itself is factorized.
 BLOCK_RESIDUAL_FACTOR = 1e3
+# ... and when A is not much worse conditioned than M: the ratio of the lower bounds
+# |A| |A^-1 c| / |c| <= cond(A) and |M| |z| <= cond(M) (infinity norms) stays below
+# this. Near a fold A is nearly singular while M is not, and every solve through A
+# (the corrector's too, not only the tangent's) would lose that many more digits.
+BLOCK_GROWTH_LIMIT = 1e6
 
 
 class BlockBorderedFactors:
@@ -544,7 +549,13 @@ def factor_bordered(jacobian: object, border: Array) -> tuple[object, Array]:
         rhs = np.zeros(n + 1)
         rhs[-1] = 1.0
         z = factors.solve(rhs)
-        scale = _bordered_scale(square, column, border)
+        rows = np.bincount(square.indices, weights=np.abs(square.data), minlength=n)
+        scale = float(max(np.max(rows + np.abs(column)), np.sum(np.abs(border))))
+        w_size, c_size = float(np.max(np.abs(factors.w))), float(np.max(np.abs(column)))
+        z_size = float(np.max(np.abs(z)))
+        growth = float(np.max(rows)) * w_size / (c_size * scale * z_size) if c_size else 1.0
+        if not growth <= BLOCK_GROWTH_LIMIT:
+            return bordered_factor_solve(bordered_matrix(jacobian, border))
         for _ in range(2):
             residual = _bordered_residual(square, column, border, z, rhs)
             size = float(np.max(np.abs(z)))
@@ -557,12 +568,6 @@ def factor_bordered(jacobian: object, border: Array) -> tuple[object, Array]:
 
 
 EPS = float(np.finfo(float).eps)
-
-
-def _bordered_scale(square, column: Array, border: Array) -> float:
-    """max row sum of |M| for M = [[square, column], [border^T]] (the infinity norm)."""
-    rows = np.bincount(square.indices, weights=np.abs(square.data), minlength=square.shape[0])
-    return float(max(np.max(rows + np.abs(column)), np.sum(np.abs(border))))
 
 
 def _bordered_residual(square, column: Array, border: Array, z: Array, rhs: Array) -> Array:
