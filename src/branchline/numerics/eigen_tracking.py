@@ -51,7 +51,9 @@ eigenvalues, with our own thresholds; the constants below):
    bound kappa min(r, s) on its distance to an eigenvalue, kappa = 1 / |y^H x|
    (the eigenvalue's condition number; Wilkinson, The Algebraic Eigenvalue
    Problem, 1965, chapter 2, sections 8-10, from memory). The point is
-   accepted when every bound is below ``CERTIFY_RTOL`` |theta| and below
+   accepted when every bound is below ``CERTIFY_RTOL`` |theta| (or, when larger,
+   ``CERTIFY_ROUNDING`` eps |A| kappa: the rounding level of any backward-stable
+   eigensolver on A, reached on very large stiff matrices) and below
    ``CERTIFY_MARGIN`` times both |Re theta| (the stability of each value is
    certain) and its distance to every other Ritz value (each bound belongs to
    one simple eigenvalue); when the leading values lie in the last run's
@@ -139,13 +141,17 @@ REAL_RTOL = REAL_AXIS_RTOL
 # its modulus at both points (well off the real axis: a genuine complex pair).
 CROSSING_IMAG_RTOL = 1e-3
 # Rule 7 (the certificate): a tracking run at least every CERTIFY_POINTS points;
-# each Ritz value's error bound below CERTIFY_RTOL times its modulus (the tracking
-# run's own accuracy, ARNOLDI_TOL, is of that order) and below CERTIFY_MARGIN
+# each Ritz value's error bound below CERTIFY_RTOL times its modulus, or below
+# CERTIFY_ROUNDING eps |A| kappa when that is larger (rounding alone puts the
+# eigenvalues of any backward-stable method, the tracking run's included, that
+# far off: eps |A| is the backward error of one product with A), and below CERTIFY_MARGIN
 # times its distance to the imaginary axis and to every other Ritz value; at most
 # CERTIFY_MAX_COLUMNS basis vectors (a cluster run's 80 would cost more than it
 # saves); basis vectors whose pivoted-QR diagonal falls below CERTIFY_RANK_RTOL of
 # the first are dependent and dropped.
 CERTIFY_POINTS = 20
+CERTIFY_ROUNDING = 10.0
+EPS = float(np.finfo(float).eps)
 CERTIFY_RTOL = 1e-9
 CERTIFY_MARGIN = 1e-3
 CERTIFY_MAX_COLUMNS = 16
@@ -559,8 +565,12 @@ def _certify(matrix, previous: SpectrumTrack, count: int, sign: float | None):
     size = np.abs(theta)
     gaps = np.abs(theta[:, None] - theta[None, :])
     np.fill_diagonal(gaps, np.inf)
+    # the accuracy asked: CERTIFY_RTOL |theta|, or what any backward-stable method
+    # reaches on this matrix (CERTIFY_ROUNDING eps |A| times the condition number)
+    # when that is larger: at 100,000 states |A| is 2e7 and eps |A| alone 4e-9
+    accuracy = np.maximum(CERTIFY_RTOL * size, CERTIFY_ROUNDING * EPS * scale / overlap)
     if not (
-        np.all(bound <= CERTIFY_RTOL * size)
+        np.all(bound <= accuracy)
         and np.all(bound <= CERTIFY_MARGIN * np.abs(theta.real))
         and np.all(bound <= CERTIFY_MARGIN * np.min(gaps, axis=1))
     ):
