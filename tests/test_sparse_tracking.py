@@ -509,3 +509,36 @@ def test_block_bordered_factors_agree_with_lapack(pivot):
     assert sign == reference_sign and log_det == pytest.approx(reference_log, abs=1e-9)
     # block elimination only where A is well conditioned
     assert isinstance(factors, linalg.BlockBorderedFactors) == (pivot == 1.0)
+
+
+def test_the_certificate_backs_off_where_it_keeps_refusing(monkeypatch):
+    # a perturbation growing from point to point in a quarter of the cells turns the
+    # eigenvectors at every step: the certificate refuses, so after CERTIFY_MISSES
+    # refusals it is tried only every CERTIFY_RETRY points; every point's values
+    # against dense LAPACK (numpy.linalg.eigvals)
+    calls = []
+    certify = eigen_tracking._certify
+
+    def counted(*args):
+        calls.append(1)
+        return certify(*args)
+
+    monkeypatch.setattr(eigen_tracking, "_certify", counted)
+    bump = np.zeros(2 * NODES)
+    bump[: NODES // 4] = 1.0
+    track = None
+    points = 12
+    for step in range(points + 1):
+        matrix = (_jacobian_at(1.9 + 2e-4 * step) + sp.diags(2e-3 * step * bump)).tocsc()
+        found, track = eigen_tracking.track_leading_eigenvalues(matrix, track)
+        dense = np.linalg.eigvals(matrix.toarray())
+        exact = dense[np.argsort(-dense.real, kind="stable")][:6]
+        np.testing.assert_allclose(
+            np.sort_complex(found.values), np.sort_complex(exact), rtol=0.0, atol=1e-9
+        )
+    assert track.certified == 0 and track.full_searches == 1
+    # tried after the full search and two tracking runs, then again CERTIFY_RETRY
+    # points after the first skip
+    misses, retry = eigen_tracking.CERTIFY_MISSES, eigen_tracking.CERTIFY_RETRY
+    expected = sum(1 for before in range(points) if before < misses or before % retry == 0)
+    assert len(calls) == expected < points

@@ -62,6 +62,9 @@ eigenvalues, with our own thresholds; the constants below):
    when the number of unstable values is unchanged; and rule 5 holds.
    Otherwise a tracking run decides. A stability change therefore always goes
    through a tracking run (|Re theta| is then small, or the count differs).
+   After ``CERTIFY_MISSES`` points in a row without a certified one, the
+   certificate is tried only every ``CERTIFY_RETRY`` points (its cost is
+   wasted on models whose eigenvectors turn along the branch).
 
 Clustered spectra (many modes within a small fraction of the leading value's
 size) get one more run per cluster with ``CLUSTER_TRACK_VALUES`` values when the
@@ -151,6 +154,11 @@ CROSSING_IMAG_RTOL = 1e-3
 # the first are dependent and dropped.
 CERTIFY_POINTS = 20
 CERTIFY_ROUNDING = 10.0
+# Rule 7's back-off: after this many points in a row without a certified one, the
+# certificate (two sparse products and small dense work: about half an LU at
+# 20,000 states) is tried only every CERTIFY_RETRY points.
+CERTIFY_MISSES = 3
+CERTIFY_RETRY = 8
 EPS = float(np.finfo(float).eps)
 CERTIFY_RTOL = 1e-9
 CERTIFY_MARGIN = 1e-3
@@ -188,6 +196,8 @@ class SpectrumTrack:
     certified, crossings : int
         Points certified without a solve (rule 7), and stability changes accepted
         from tracking alone (rule 6).
+    certificate_misses : int
+        Points in a row whose values were not certified (rule 7's back-off).
     """
 
     values: Array
@@ -203,6 +213,7 @@ class SpectrumTrack:
     since_solve: int = 0
     certified: int = 0
     crossings: int = 0
+    certificate_misses: int = 0
 
 
 def unstable_leading(values: Array, scale: float) -> int:
@@ -240,16 +251,20 @@ def track_leading_eigenvalues(
     matrix = sp.csc_matrix(matrix, dtype=float)
     if determinant_sign is not None and not determinant_sign:
         determinant_sign = None
+    misses = 0 if previous is None else previous.certificate_misses + 1
     if previous is not None and previous.since_full < REFRESH_POINTS:
-        certified = _certify(matrix, previous, count, determinant_sign)
-        if certified is not None:
-            return certified
+        if _certificate_worth_trying(previous):
+            certified = _certify(matrix, previous, count, determinant_sign)
+            if certified is not None:
+                return certified
         tracked = _track(matrix, previous, count)
         if tracked is not None and _real_crossings_agree(
             previous, tracked[1].values, determinant_sign
         ):
             search, track = tracked
-            return search, replace(track, determinant_sign=determinant_sign)
+            return search, replace(
+                track, determinant_sign=determinant_sign, certificate_misses=misses
+            )
     search = search_leading_eigenvalues(matrix, count, policy)
     base = previous or SpectrumTrack(np.empty(0, dtype=complex))
     counts = {
@@ -257,11 +272,20 @@ def track_leading_eigenvalues(
         "full_searches": base.full_searches + 1,
         "certified": base.certified,
         "crossings": base.crossings,
+        "certificate_misses": misses,
     }
     if not search.found:
         return search, SpectrumTrack(np.empty(0, dtype=complex), **counts)
     track = SpectrumTrack(search.values, since_full=0, determinant_sign=determinant_sign, **counts)
     return search, track
+
+
+def _certificate_worth_trying(previous: SpectrumTrack) -> bool:
+    """Rule 7's back-off: after ``CERTIFY_MISSES`` points in a row without a certified
+    one (a model whose eigenvectors turn along the branch: the old basis never
+    passes), the certificate is tried only every ``CERTIFY_RETRY`` points."""
+    misses = previous.certificate_misses
+    return misses < CERTIFY_MISSES or misses % CERTIFY_RETRY == 0
 
 
 def _real_crossings_agree(previous: SpectrumTrack, values: Array, sign: float | None) -> bool:
@@ -599,6 +623,7 @@ def _certify(matrix, previous: SpectrumTrack, count: int, sign: float | None):
         tracked=previous.tracked + 1,
         certified=previous.certified + 1,
         determinant_sign=sign,
+        certificate_misses=0,
     )
     return LeadingEigenvalues(leading, True, "certified from the last eigenvectors"), track
 
