@@ -323,6 +323,9 @@ def _off(sigma: complex) -> complex:
 
 def norm_estimate(matrix) -> float:
     """The infinity norm of a sparse matrix (max row sum of |A|), cheap for CSC/CSR."""
+    if sp.isspmatrix_csc(matrix):  # row sums straight from the arrays, no |A| copy
+        sums = np.bincount(matrix.indices, weights=np.abs(matrix.data), minlength=matrix.shape[0])
+        return float(sums.max()) if sums.size else 0.0
     sums = np.asarray(abs(matrix).sum(axis=1)).ravel()
     return float(sums.max()) if sums.size else 0.0
 
