@@ -467,7 +467,10 @@ def factor_reusing_ordering(matrix: object) -> object:
         return PermutedFactors(spla.splu(matrix[:, order], permc_spec="NATURAL"), order)
     factors = spla.splu(matrix)
     if len(_ORDERINGS) >= _ORDERINGS_KEPT:
-        _ORDERINGS.pop(next(iter(_ORDERINGS)))
+        try:
+            _ORDERINGS.pop(next(iter(_ORDERINGS)), None)
+        except (RuntimeError, StopIteration):  # another thread changed the cache
+            pass
     # SuperLU's Pr A Pc = L U with (A Pc)[:, j] = A[:, argsort(perm_c)[j]]
     order = np.argsort(np.asarray(factors.perm_c))
     _ORDERINGS[key] = (matrix.indptr.copy(), matrix.indices.copy(), order)
