@@ -44,7 +44,7 @@ import pytest
 import scipy.sparse as sp
 
 from branchline.model.build import build_model
-from branchline.numerics import eigenvalues
+from branchline.numerics import eigen_tracking, eigenvalues
 from branchline.numerics.policy import LinearAlgebraPolicy
 from branchline.problems.equilibrium_branch import EIGENVALUES_FAILED, locate_events, trace_branch
 from branchline.scan.loader import PythonModelSpec, StepSettings
@@ -225,6 +225,15 @@ def test_a_branch_stops_where_its_eigenvalues_cannot_be_computed(monkeypatch):
         return real_run(matrix, sigma, nev, scale)
 
     monkeypatch.setattr(eigenvalues, "_shift_invert_run", run)
+    # tracking runs (ARPACK too) fail there as well; otherwise tracking alone would
+    # see the clean pair crossing at b = 2 (rule 6 of eigen_tracking) and go on
+    real_track = eigen_tracking._tracking_run
+
+    def track_run(matrix, shift, nev, start):
+        b = matrix[0, 0] + 1.0 + 2.0 * D1 * (nodes - 1) ** 2
+        return None if b >= failing_from else real_track(matrix, shift, nev, start)
+
+    monkeypatch.setattr(eigen_tracking, "_tracking_run", track_run)
     model = replace(model, linear_algebra=NO_DENSE_FALLBACK)
     branch = trace_branch(
         model,

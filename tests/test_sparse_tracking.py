@@ -24,7 +24,7 @@ import scipy.sparse as sp
 
 from branchline.cli import main
 from branchline.model.build import build_model
-from branchline.numerics import eigen_tracking
+from branchline.numerics import eigen_tracking, linalg
 from branchline.problems import equilibrium_branch
 from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.results.tables import run_info
@@ -385,3 +385,162 @@ def test_tracking_engages_on_a_clustered_chain_spectrum():
         np.testing.assert_allclose(np.sort_complex(found.values), np.sort_complex(exact),
                                    rtol=0.0, atol=1e-9)
     assert (track.tracked, track.full_searches) == (2, 1)
+
+
+# ---------------------------------------------------------------------------
+# the certificate between tracking runs (rule 7) and crossings seen by tracking (rule 6)
+
+
+def _jacobian_at(b: float, nodes: int = NODES) -> sp.csc_matrix:
+    return brusselator_jacobian(uniform_state(nodes, b), {"a": A, "b": b, "d1": D1, "d2": D2})
+
+
+def test_a_certified_point_matches_the_closed_form_mode_eigenvalues():
+    # full search, one tracking run, then points whose eigenvalues are certified
+    # from that run's eigenvectors without any factorization; each against the
+    # exact mode eigenvalues (Prigogine & Lefever 1968 cell, discrete Neumann modes)
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9), None)
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9004), track)
+    assert found.method == "tracked shift-invert Arnoldi" and track.basis is not None
+    for step in range(1, 4):
+        b = 1.9004 + 4e-4 * step
+        found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(b), track)
+        assert found.method == "certified from the last eigenvectors"
+        np.testing.assert_allclose(found.values, exact_leading(NODES, b), rtol=0.0, atol=1e-9)
+    assert (track.tracked, track.certified, track.full_searches) == (4, 3, 1)
+
+
+def test_the_certificate_refuses_when_the_eigenvectors_moved():
+    # a non-uniform perturbation turns the eigenvectors: the old basis's residual is
+    # far above the bound, so a tracking run decides; reference: dense LAPACK
+    # (numpy.linalg.eigvals) of the perturbed matrix
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9), None)
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9004), track)
+    bump = np.zeros(2 * NODES)
+    bump[: NODES // 4] = 1e-2  # reaction changed in a quarter of the cells only
+    matrix = (_jacobian_at(1.9008) + sp.diags(bump)).tocsc()
+    found, after = eigen_tracking.track_leading_eigenvalues(matrix, track)
+    assert found.method == "tracked shift-invert Arnoldi"
+    assert (after.certified, after.tracked, after.since_solve) == (0, 2, 0)
+    dense = np.linalg.eigvals(matrix.toarray())
+    exact = dense[np.argsort(-dense.real, kind="stable")][:6]
+    np.testing.assert_allclose(np.sort_complex(found.values), np.sort_complex(exact), atol=1e-9)
+
+
+def test_a_tracking_run_at_least_every_certify_points():
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9), None)
+    methods = []
+    for step in range(1, eigen_tracking.CERTIFY_POINTS + 2):
+        b = 1.9 + 2e-4 * step
+        found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(b), track)
+        methods.append(found.method)
+        np.testing.assert_allclose(found.values, exact_leading(NODES, b), rtol=0.0, atol=1e-9)
+    runs = [index for index, method in enumerate(methods) if method.startswith("tracked")]
+    # the first point after the full search, and again CERTIFY_POINTS later
+    assert runs == [0, eigen_tracking.CERTIFY_POINTS]
+    assert track.certified == eigen_tracking.CERTIFY_POINTS - 1
+
+
+def test_a_clean_pair_crossing_is_accepted_from_tracking_without_the_full_search():
+    # the uniform mode's pair crosses at b = 1 + a^2 = 2 (Prigogine & Lefever 1968):
+    # the certificate refuses (the number of unstable values changes), the tracking
+    # run sees the pair move across the axis and rule 6 accepts it
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9996), None)
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(1.9998), track)
+    found, track = eigen_tracking.track_leading_eigenvalues(_jacobian_at(2.0002), track)
+    assert found.method == "tracked shift-invert Arnoldi"
+    assert (track.crossings, track.full_searches) == (1, 1)
+    assert np.count_nonzero(found.values.real > 0.0) == 2
+    np.testing.assert_allclose(found.values, exact_leading(NODES, 2.0002), rtol=0.0, atol=1e-9)
+
+
+def test_a_real_value_crossing_still_goes_to_the_full_search():
+    # rule 6 is for complex pairs only: a diagonal matrix (its eigenvalues are its
+    # entries) whose rightmost real value moved from -1e-3 to +1e-3; tracking sees
+    # it, but a real crossing is confirmed by the full search
+    n = 400
+    diagonal = -np.linspace(0.0, 4.0, n) - 0.5
+    before = diagonal.copy()
+    before[0] = -1e-3
+    after = diagonal.copy()
+    after[0] = 1e-3
+    previous = eigen_tracking.SpectrumTrack(
+        np.sort(before)[::-1][:6] + 0j, tracked=3, full_searches=1
+    )
+    found, track = eigen_tracking.track_leading_eigenvalues(sp.diags(after).tocsc(), previous)
+    assert found.method == "shift-invert Arnoldi"
+    assert (track.crossings, track.full_searches) == (0, 2)
+    np.testing.assert_allclose(found.values, np.sort(after)[::-1][:6], atol=1e-9)
+
+
+# ---------------------------------------------------------------------------
+# the sparse tangent's factorization: block elimination, the bordered LU as fallback
+
+
+@pytest.mark.parametrize("pivot", [1.0, 1e-15, 0.0])
+def test_block_bordered_factors_agree_with_lapack(pivot):
+    # [[A, c], [r^T, d]] z = e_last and its determinant against numpy.linalg.solve
+    # and slogdet (LAPACK); A's first diagonal entry ``pivot``: regular, nearly
+    # singular (near a fold: every solve through A would lose 15 digits) and exactly
+    # singular (a fold: SuperLU refuses A); in both the bordered matrix is factorized
+    # instead. The bordered matrix is regular in all three cases.
+    n = 60
+    rng = np.random.default_rng(11)
+    diagonal = np.linspace(1.0, 3.0, n)
+    diagonal[0] = pivot
+    square = sp.diags([diagonal, 0.3 * np.ones(n - 1)], [0, 1], format="lil")
+    square[1, 0] = 0.0
+    square = square.tocsc()
+    column = rng.normal(size=n)
+    column[0] = 1.0
+    border = rng.normal(size=n + 1)
+    border[0] = 1.0
+    jacobian = sp.hstack([square, sp.csc_matrix(column.reshape(-1, 1))], format="csc")
+    dense = np.vstack([np.column_stack([square.toarray(), column]), border])
+    expected = np.linalg.solve(dense, np.eye(n + 1)[-1])
+    rhs = rng.normal(size=n + 1)
+    reference_sign, reference_log = np.linalg.slogdet(dense)
+    # twice: the second factorization of the pattern reuses the first one's ordering
+    for _ in range(2):
+        factors, z = linalg.factor_bordered(jacobian, border)
+        np.testing.assert_allclose(z, expected, rtol=1e-10, atol=1e-12)
+        np.testing.assert_allclose(
+            factors.solve(rhs), np.linalg.solve(dense, rhs), rtol=1e-9, atol=1e-12
+        )
+        sign, log_det = linalg.lu_slogdet(factors)
+        assert sign == reference_sign and log_det == pytest.approx(reference_log, abs=1e-9)
+        # block elimination only where A is well conditioned
+        assert isinstance(factors, linalg.BlockBorderedFactors) == (pivot == 1.0)
+
+
+def test_the_certificate_backs_off_where_it_keeps_refusing(monkeypatch):
+    # a perturbation growing from point to point in a quarter of the cells turns the
+    # eigenvectors at every step: the certificate refuses, so after CERTIFY_MISSES
+    # refusals it is tried only every CERTIFY_RETRY points; every point's values
+    # against dense LAPACK (numpy.linalg.eigvals)
+    calls = []
+    certify = eigen_tracking._certify
+
+    def counted(*args):
+        calls.append(1)
+        return certify(*args)
+
+    monkeypatch.setattr(eigen_tracking, "_certify", counted)
+    bump = np.zeros(2 * NODES)
+    bump[: NODES // 4] = 1.0
+    track = None
+    points = 12
+    for step in range(points + 1):
+        matrix = (_jacobian_at(1.9 + 2e-4 * step) + sp.diags(2e-3 * step * bump)).tocsc()
+        found, track = eigen_tracking.track_leading_eigenvalues(matrix, track)
+        dense = np.linalg.eigvals(matrix.toarray())
+        exact = dense[np.argsort(-dense.real, kind="stable")][:6]
+        np.testing.assert_allclose(
+            np.sort_complex(found.values), np.sort_complex(exact), rtol=0.0, atol=1e-9
+        )
+    assert track.certified == 0 and track.full_searches == 1
+    # tried after the full search and two tracking runs, then again CERTIFY_RETRY
+    # points after the first skip
+    misses, retry = eigen_tracking.CERTIFY_MISSES, eigen_tracking.CERTIFY_RETRY
+    expected = sum(1 for before in range(points) if before < misses or before % retry == 0)
+    assert len(calls) == expected < points

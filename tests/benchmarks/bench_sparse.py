@@ -123,9 +123,10 @@ def trace_cost(nodes):
     calls = {"seconds": 0.0, "count": 0}
     track = equilibrium_branch.track_leading_eigenvalues
 
-    def timed(matrix, previous, count=eigenvalues.SPARSE_EIGEN_COUNT, policy=eigenvalues.DEFAULT):
+    def timed(matrix, previous, count=eigenvalues.SPARSE_EIGEN_COUNT, policy=eigenvalues.DEFAULT,
+              determinant_sign=None):
         start = time.perf_counter()
-        result = track(matrix, previous, count, policy)
+        result = track(matrix, previous, count, policy, determinant_sign)
         calls["seconds"] += time.perf_counter() - start
         calls["count"] += 1
         return result

@@ -256,7 +256,7 @@ def correct_with_factors(
 ) -> NewtonResult:
     """Chord method on [G(u); border . (u - u_start)] = 0 with a factorization already made.
 
-    ``factors`` is (SuperLU of M = [G_u(u_prev); b_prev^T], z = M^-1 e_last, b_prev):
+    ``factors`` is (factors solving with M = [G_u(u_prev); b_prev^T], z = M^-1 e_last, b_prev):
     the tangent's factorization at the last accepted point. The iteration matrix
     [G_u(u_prev); border^T] differs from M in its last row only, a rank-one change
     e_last d^T with d = border - b_prev, so its solves come from M's factors by the

@@ -46,7 +46,8 @@ Optional members:
     A short text naming the point for messages ("at D=0.3, S=1.2").
 ``tangent_factorization(jacobian, lu, z) -> None``
     For sparse Jacobians only: told the factorization the engine made for the
-    tangent at a corrected point (SuperLU ``lu`` of [G_u; previous^T] and
+    tangent at a corrected point (factors ``lu`` of [G_u; previous^T], from
+    :func:`branchline.numerics.linalg.factor_bordered`, and
     z = its solution for e_(N+1); the tangent is z / |z|), before the ``observe``
     that follows, so that a problem can keep what it gives (the equilibrium
     branch reads its branch-point test from it).
@@ -74,8 +75,10 @@ The engine runs under ``np.errstate(all="ignore")``.
 
 One factorization per point (sparse Jacobians)
 -----------------------------------------------
-With ``newton="reuse"`` and a sparse Jacobian the engine factorizes the bordered
-matrix once per accepted point, for the tangent there, and uses those factors
+With ``newton="reuse"`` and a sparse Jacobian the engine factorizes once per
+accepted point, for the tangent there (f_x alone with block elimination for the
+border, or the bordered matrix near a fold: ``linalg.factor_bordered``), and uses
+those factors
 three times: the tangent, the problem's ``tangent_factorization`` hook, and the
 next step's corrector, a chord iteration on that matrix with the border swapped
 for the new tangent by a rank-one update
@@ -452,9 +455,10 @@ class _Walk:
             return None, singular_message
 
     def factored_tangent(self, jac, previous: Array) -> Array:
-        """The unit tangent from one SuperLU factorization of [G_u; previous^T], whose
-        factors are kept for the next corrector (see the module docstring)."""
-        lu, z = linalg.bordered_factor_solve(linalg.bordered_matrix(jac, previous))
+        """The unit tangent from one sparse factorization for [G_u; previous^T] (of f_x
+        by block elimination, or of the bordered matrix: ``linalg.factor_bordered``),
+        whose factors are kept for the next corrector (see the module docstring)."""
+        lu, z = linalg.factor_bordered(jac, previous)
         length = linalg.norm(z)
         if not 0.0 < length < math.inf:
             raise linalg.SingularMatrixError("the tangent is not finite")

@@ -21,6 +21,7 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+from branchline.numerics import linalg
 from branchline.numerics.linalg import eigvals_unchecked
 from branchline.numerics.policy import DEFAULT, LinearAlgebraPolicy
 
@@ -322,6 +323,9 @@ def _off(sigma: complex) -> complex:
 
 def norm_estimate(matrix) -> float:
     """The infinity norm of a sparse matrix (max row sum of |A|), cheap for CSC/CSR."""
+    if sp.isspmatrix_csc(matrix):  # row sums straight from the arrays, no |A| copy
+        sums = np.bincount(matrix.indices, weights=np.abs(matrix.data), minlength=matrix.shape[0])
+        return float(sums.max()) if sums.size else 0.0
     sums = np.asarray(abs(matrix).sum(axis=1)).ravel()
     return float(sums.max()) if sums.size else 0.0
 
@@ -368,8 +372,9 @@ def _arpack(operator, nev: int, which: str, tol: float, maxiter: int, retry: boo
 
 
 def _factor(matrix):
+    # every shift's matrix has the pattern of A plus its diagonal: one column ordering
     try:
-        return spla.splu(matrix)
+        return linalg.factor_reusing_ordering(matrix)
     except RuntimeError:  # exactly singular
         return None
 

@@ -166,18 +166,39 @@ def bordered_matrix(jacobian: Array, border: Array) -> Array:
 def append_row(matrix: object, row: Array) -> object:
     """[matrix; row^T] as CSC, the dense ``row`` stored in full (scipy.sparse ``matrix``).
 
-    Assembled from the CSR arrays directly: ``sp.vstack`` costs ten times more
-    on large Jacobians (measured ~20 ms at 20,000 states), every point.
+    Assembled from the CSC arrays directly (one new entry at the end of each
+    column): ``sp.vstack`` costs ten times more on large Jacobians (measured ~20 ms
+    at 20,000 states), and a detour through CSR two format conversions, every point.
     """
-    csr = sp.csr_matrix(matrix)
-    csr.sum_duplicates()
-    rows, columns = csr.shape
-    row = np.asarray(row, dtype=np.result_type(csr.dtype, np.asarray(row).dtype)).ravel()
-    indptr = np.append(csr.indptr, csr.indptr[-1] + columns).astype(np.int64)
-    indices = np.concatenate([csr.indices, np.arange(columns)]).astype(np.int64)
-    data = np.concatenate([csr.data, row])
-    stacked = sp.csr_matrix((data, indices, indptr), shape=(rows + 1, columns))
-    return stacked.tocsc()
+    csc = sp.csc_matrix(matrix)
+    csc.sum_duplicates()
+    rows, columns = csc.shape
+    row = np.asarray(row, dtype=np.result_type(csc.dtype, np.asarray(row).dtype)).ravel()
+    indptr = (csc.indptr + np.arange(columns + 1)).astype(np.int64)
+    last = indptr[1:] - 1  # the new entry closes each column
+    indices = np.empty(csc.nnz + columns, dtype=np.int64)
+    data = np.empty(csc.nnz + columns, dtype=row.dtype)
+    old = np.ones(csc.nnz + columns, dtype=bool)
+    old[last] = False
+    indices[old] = csc.indices
+    data[old] = csc.data
+    indices[last] = rows
+    data[last] = row
+    return sp.csc_matrix((data, indices, indptr), shape=(rows + 1, columns))
+
+
+def split_last_column(matrix: object) -> tuple[object, Array]:
+    """(matrix[:, :-1] as CSC, its last column as a dense array) of a CSC ``matrix``
+    without a format conversion (the first shares the arrays of ``matrix``)."""
+    csc = matrix if sp.isspmatrix_csc(matrix) else sp.csc_matrix(matrix)
+    rows, columns = csc.shape
+    end = csc.indptr[columns - 1]
+    head = sp.csc_matrix(
+        (csc.data[:end], csc.indices[:end], csc.indptr[:columns]), shape=(rows, columns - 1)
+    )
+    last = np.zeros(rows, dtype=csc.dtype)
+    np.add.at(last, csc.indices[end:], csc.data[end:])
+    return head, last
 
 
 def append_column(matrix: object, column: Array) -> object:
@@ -366,7 +387,7 @@ def bordered_factor_solve(square: object) -> tuple[object, Array]:
         When the matrix is exactly singular.
     """
     try:
-        lu = spla.splu(sp.csc_matrix(square))
+        lu = factor_reusing_ordering(sp.csc_matrix(square))
     except RuntimeError as exc:
         raise SingularMatrixError(str(exc)) from exc
     rhs = np.zeros(square.shape[0])
@@ -374,8 +395,196 @@ def bordered_factor_solve(square: object) -> tuple[object, Array]:
     return lu, lu.solve(rhs)
 
 
+# Column orderings of the last few sparsity patterns factorized (key: shape, nnz and
+# a hash of the pattern; the pattern itself is kept to rule out collisions). Along a
+# branch the Jacobian's pattern stays the same, and SuperLU's default ordering
+# (COLAMD) depends on the pattern only, yet costs about half of each factorization
+# at 20,000 states (measured: 5.8 ms with, 3.7 ms without). The first matrix of a
+# pattern is factorized as usual; later ones are permuted by its ordering and
+# factorized without reordering: the same factors SuperLU's own call would compute
+# (its partial pivoting still runs on the values).
+_ORDERINGS: dict[tuple, tuple[Array, Array, Array]] = {}
+_ORDERINGS_KEPT = 4
+
+
+class PermutedFactors:
+    """SuperLU factors of A P (P a column permutation, ``order``) that solve with A.
+
+    ``solve``, ``perm_r``, ``perm_c``, ``L``, ``U`` and ``shape`` as scipy's SuperLU
+    object; ``perm_c`` is the composed column permutation (parity included), so
+    :func:`lu_slogdet` reads det A from it.
+    """
+
+    def __init__(self, factors: object, order: Array) -> None:
+        self.factors = factors
+        self.order = order
+        self.shape = factors.shape
+        self.perm_r = factors.perm_r
+        self.perm_c = order[factors.perm_c]
+        self.nnz = factors.nnz
+
+    # SuperLU builds L and U as new sparse matrices at each access: only on demand
+    # (upper-case names as SuperLU's own)
+    @property
+    def L(self) -> object:
+        return self.factors.L
+
+    @property
+    def U(self) -> object:
+        return self.factors.U
+
+    def solve(self, rhs: Array, trans: str = "N") -> Array:
+        # A P y = b  =>  x = P y;   (A P)^T y = P^T A^T y = b  =>  A^T x = b, x = P y
+        if trans == "N":
+            y = self.factors.solve(rhs)
+            x = np.empty_like(y)
+            x[self.order] = y
+            return x
+        permuted = rhs[self.order]
+        return self.factors.solve(permuted, trans=trans)
+
+
+def factor_reusing_ordering(matrix: object) -> object:
+    """SuperLU factors of a square CSC ``matrix``, reusing the column ordering of the
+    last matrix with the same sparsity pattern (see ``_ORDERINGS``).
+
+    Returns a scipy SuperLU object (first matrix of a pattern) or a
+    :class:`PermutedFactors` with the same interface. Raises RuntimeError when
+    the matrix is exactly singular (as ``splu``).
+    """
+    matrix.sort_indices()
+    key = (
+        matrix.shape,
+        matrix.nnz,
+        hash(matrix.indptr.tobytes()),
+        hash(matrix.indices.tobytes()),
+    )
+    known = _ORDERINGS.get(key)
+    if known is not None and np.array_equal(known[0], matrix.indptr) and np.array_equal(
+        known[1], matrix.indices
+    ):
+        order = known[2]
+        return PermutedFactors(spla.splu(matrix[:, order], permc_spec="NATURAL"), order)
+    factors = spla.splu(matrix)
+    if len(_ORDERINGS) >= _ORDERINGS_KEPT:
+        try:
+            _ORDERINGS.pop(next(iter(_ORDERINGS)), None)
+        except (RuntimeError, StopIteration):  # another thread changed the cache
+            pass
+    # SuperLU's Pr A Pc = L U with (A Pc)[:, j] = A[:, argsort(perm_c)[j]]
+    order = np.argsort(np.asarray(factors.perm_c))
+    _ORDERINGS[key] = (matrix.indptr.copy(), matrix.indices.copy(), order)
+    return factors
+
+
+# Block elimination of a bordered sparse system: accepted when the tangent's
+# residual |M z - e_last| is below this multiple of eps |M| |z| (after one step of
+# iterative refinement), else the bordered matrix itself is factorized.
+BLOCK_RESIDUAL_FACTOR = 1e3
+# ... and when A is not much worse conditioned than M: the ratio of the lower bounds
+# |A| |A^-1 c| / |c| <= cond(A) and |M| |z| <= cond(M) (infinity norms) stays below
+# this. Near a fold A is nearly singular while M is not, and every solve through A
+# (the corrector's too, not only the tangent's) would lose that many more digits.
+BLOCK_GROWTH_LIMIT = 1e6
+
+
+class BlockBorderedFactors:
+    """Solves with M = [[A, c], [r^T, d]] (A sparse n x n) from SuperLU factors of A
+    alone: block elimination with the Schur complement s = d - r^T A^-1 c (Keller's
+    bordering algorithm; Govaerts, Numerical Methods for Bifurcations of Dynamical
+    Equilibria, SIAM 2000, chapter 3, on its stability: the caller checks the
+    residual and falls back to factorizing M when A is too ill-conditioned).
+
+    ``solve(rhs)`` as a SuperLU object (``trans`` "N" only); ``slogdet()`` gives
+    (sign, log|det M|) = det A * s.
+    """
+
+    def __init__(self, factors: object, column: Array, row: Array, corner: float) -> None:
+        self.factors = factors
+        self.row = row
+        self.w = factors.solve(column)
+        self.schur = float(corner - row.dot(self.w))
+        self.shape = (column.shape[0] + 1, column.shape[0] + 1)
+
+    def solve(self, rhs: Array, trans: str = "N") -> Array:
+        if trans != "N":
+            raise NotImplementedError("block bordered factors solve with M only")
+        n = self.shape[0] - 1
+        head = self.factors.solve(rhs[:n])
+        last = (rhs[n] - self.row.dot(head)) / self.schur
+        out = np.empty(n + 1, dtype=np.result_type(head, last))
+        out[:n] = head - self.w * last
+        out[n] = last
+        return out
+
+    def slogdet(self) -> tuple[float, float]:
+        sign, log_det = lu_slogdet(self.factors)
+        if sign == 0.0 or self.schur == 0.0 or not math.isfinite(self.schur):
+            return 0.0, -math.inf
+        return sign * math.copysign(1.0, self.schur), log_det + math.log(abs(self.schur))
+
+
+def factor_bordered(jacobian: object, border: Array) -> tuple[object, Array]:
+    """(factors, z) with z solving [jacobian; border^T] z = e_last, jacobian sparse (N, N + 1).
+
+    Block elimination on the LU of jacobian[:, :N] first (no dense row or column
+    in the factorization: measured 4.5 against 7.9 ms at 20,000 states), checked by
+    the residual of z and one step of iterative refinement; the bordered matrix's
+    own LU when that check fails or jacobian[:, :N] is singular (at a fold).
+    The factors solve with the bordered matrix (``solve``) and give its
+    determinant through :func:`lu_slogdet`.
+
+    Raises
+    ------
+    SingularMatrixError
+        When the bordered matrix is exactly singular.
+    """
+    square, column = split_last_column(jacobian)
+    border = np.asarray(border, dtype=float)
+    n = square.shape[0]
+    try:
+        factors = BlockBorderedFactors(
+            factor_reusing_ordering(square.copy()), column, border[:n], float(border[n])
+        )
+    except RuntimeError:
+        factors = None
+    if factors is not None and factors.schur != 0.0 and math.isfinite(factors.schur):
+        rhs = np.zeros(n + 1)
+        rhs[-1] = 1.0
+        z = factors.solve(rhs)
+        rows = np.bincount(square.indices, weights=np.abs(square.data), minlength=n)
+        scale = float(max(np.max(rows + np.abs(column)), np.sum(np.abs(border))))
+        w_size, c_size = float(np.max(np.abs(factors.w))), float(np.max(np.abs(column)))
+        z_size = float(np.max(np.abs(z)))
+        growth = float(np.max(rows)) * w_size / (c_size * scale * z_size) if c_size else 1.0
+        if not growth <= BLOCK_GROWTH_LIMIT:
+            return bordered_factor_solve(bordered_matrix(jacobian, border))
+        for _ in range(2):
+            residual = _bordered_residual(square, column, border, z, rhs)
+            size = float(np.max(np.abs(z)))
+            if not math.isfinite(size):
+                break
+            if float(np.max(np.abs(residual))) <= BLOCK_RESIDUAL_FACTOR * EPS * scale * size:
+                return factors, z
+            z = z - factors.solve(residual)
+    return bordered_factor_solve(bordered_matrix(jacobian, border))
+
+
+EPS = float(np.finfo(float).eps)
+
+
+def _bordered_residual(square, column: Array, border: Array, z: Array, rhs: Array) -> Array:
+    n = square.shape[0]
+    out = np.empty(n + 1)
+    out[:n] = square @ z[:n] + column * z[n] - rhs[:n]
+    out[n] = border.dot(z) - rhs[n]
+    return out
+
+
 def lu_slogdet(lu: object) -> tuple[float, float]:
     """(sign, log|det|) of the matrix a SuperLU object factorized ((0.0, -inf) if singular)."""
+    if hasattr(lu, "slogdet"):
+        return lu.slogdet()
     diagonal = lu.U.diagonal()
     if np.any(diagonal == 0.0):
         return 0.0, -math.inf

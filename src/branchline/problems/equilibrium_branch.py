@@ -256,9 +256,7 @@ class EquilibriumBranch:
             if trouble:
                 raise ObservationFailed(trouble)
         if linalg.is_sparse(jacobian):
-            jac = jacobian.tocsc()
-            fx = jac[:, :n]
-            fp = np.asarray(jac[:, n].toarray()).ravel()
+            fx, fp = linalg.split_last_column(jacobian)
             if n <= self.policy.eigenvalues_dense_up_to:
                 eigenvalues = dense_eigenvalues(fx.toarray())
             else:
@@ -424,14 +422,17 @@ def trace_branch(
 
 def eigenvalue_counts(problems: list[EquilibriumBranch]) -> dict[str, int]:
     """How the leading eigenvalues of a large sparse model were found, over all sides:
-    points where tracking was confident, and full multi-shift searches (none for
-    dense models)."""
+    points where tracking was confident (certified points among them: no
+    factorization, rule 7 of eigen_tracking), full multi-shift searches, and
+    stability changes accepted from tracking alone (rule 6); none for dense models."""
     tracks = [problem.spectrum for problem in problems if problem.spectrum is not None]
     if not tracks:
         return {}
     return {
         "eigenvalues_tracked": sum(track.tracked for track in tracks),
         "eigenvalue_full_searches": sum(track.full_searches for track in tracks),
+        "eigenvalues_certified": sum(track.certified for track in tracks),
+        "eigenvalue_crossings_tracked": sum(track.crossings for track in tracks),
     }
 
 
