@@ -85,3 +85,33 @@ def chain_model(cells: int, b: float, d: float, ramp: float, policy=None):
 
         model = replace(model, linear_algebra=policy)
     return model
+
+
+def uniform_hopf(model, cells: int):
+    """The Hopf point of the uniform chain (ramp = 0, a = 1) in closed form, as an Event.
+
+    The uniform mode is the single cell's linearization: Hopf at b = 1 + a^2 with
+    frequency a and eigenvector (a^2, -a^2 + i a) in every cell (Prigogine and
+    Lefever 1968; trace b - 1 - a^2 and determinant a^2 of the cell's Jacobian).
+    """
+    from branchline.results.records import Event
+
+    a = 1.0
+    b = 1.0 + a * a
+    state = np.empty(2 * cells)
+    state[0::2], state[1::2] = a, b / a
+    cell = np.array([a * a, -a * a + 1j * a])
+    vector = np.tile(cell, cells)
+    parameters = model.defaults.copy()
+    parameters[model.parameter_index("b")] = b
+    return Event(
+        trace="rest",
+        kind="hopf",
+        vary="b",
+        value=b,
+        state=state,
+        parameters=parameters,
+        arclength=0.0,
+        frequency=a,
+        details={"eigenvectors": {"right": [[z.real, z.imag] for z in vector]}},
+    )

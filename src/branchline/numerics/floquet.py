@@ -95,9 +95,9 @@ class MonodromyAction:
         Most products allowed (``MAX_PRODUCTS``); beyond it :class:`FloquetFailed`.
     """
 
-    def __init__(self, system: sp.spmatrix, size: int, limit: int = MAX_PRODUCTS) -> None:
+    def __init__(self, system: sp.spmatrix, size: int, limit: int | None = None) -> None:
         self.size = int(size)
-        self.limit = int(limit)
+        self.limit = int(MAX_PRODUCTS if limit is None else limit)
         self.products = 0
         try:
             self._lu = spla.splu(sp.csc_matrix(system))
