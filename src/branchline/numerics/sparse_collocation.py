@@ -78,7 +78,15 @@ def from_matrices(matrices: Sequence[object], size: int) -> PointJacobians:
 
 
 def from_dense_stack(stack: Array) -> PointJacobians:
-    """The entries of a stack of dense Jacobians (P, n, n) on their common nonzero pattern."""
+    """The entries of a stack of dense Jacobians (P, n, n) on their common nonzero pattern.
+
+    >>> stack = np.array([[[1.0, 0.0], [2.0, 3.0]], [[4.0, 0.0], [5.0, 6.0]]])
+    >>> entries = from_dense_stack(stack)
+    >>> entries.point.tolist(), entries.rows.tolist(), entries.cols.tolist()
+    ([0, 0, 0, 1, 1, 1], [0, 1, 1, 0, 1, 1], [0, 0, 1, 0, 0, 1])
+    >>> entries.values.tolist()
+    [1.0, 2.0, 3.0, 4.0, 5.0, 6.0]
+    """
     stack = np.asarray(stack, dtype=float)
     count, size, _ = stack.shape
     rows, cols = np.nonzero(np.any(stack != 0.0, axis=0))
