@@ -387,7 +387,8 @@ class PeriodicOrbitProblem:
 
         ``jacobian`` is G_u at u when the caller has it (sparse), else it is evaluated.
         """
-        if jacobian is None or not sp.issparse(jacobian):
+        size = self.points * self.n
+        if not sp.issparse(jacobian) or jacobian.shape != (size + 1, size + 2):
             jacobian = self.evaluate(u)[1]
             if not sp.issparse(jacobian):
                 jacobian = sp.csc_matrix(jacobian)
