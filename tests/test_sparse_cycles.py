@@ -33,6 +33,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
+from branchline.model.build import build_model
 from branchline.numerics import floquet
 from branchline.numerics.collocation import evaluate_periodic
 from branchline.numerics.policy import DEFAULT, SPARSE
@@ -46,6 +47,7 @@ from branchline.problems.cycle_runs import run_cycles
 from branchline.problems.cycles import PeriodicOrbitProblem
 from branchline.runner import run_scan
 from branchline.scan.loader import StepSettings, scan_from_dict
+from cell_chains import brusselator_equations
 from sparse_chain import chain_model, uniform_hopf
 
 CELLS = 30  # 60 states: above the policy's thresholds, so the sparse path
@@ -276,3 +278,34 @@ def test_period_doubling_and_doubled_start_on_the_sparse_path():
     for ours, theirs in zip(doubled.orbits[:3], doubled_dense.orbits[:3], strict=True):
         assert ours.period == pytest.approx(theirs.period, rel=1e-8)
         assert ours.parameter == pytest.approx(theirs.parameter, rel=1e-8)
+
+
+def test_expression_chain_on_the_sparse_path_matches_the_dense_blocks():
+    # The same chain as an expression model (tests/cell_chains.py, dense Jacobian
+    # at 60 states): its per-point Jacobians reach the sparse assembly as one dense
+    # stack. Same orbit and same leading multipliers as the dense-block path.
+    cells = CELLS
+    start = {f"u{i}": 1.0 for i in range(cells)} | {f"v{i}": 2.0 for i in range(cells)}
+    scan = scan_from_dict(
+        {
+            "model": {
+                "parameters": {"a": 1.0, "b": 2.0, "d": COUPLING},
+                "equations": brusselator_equations(cells),
+            },
+            "trace": [{"vary": "b", "interval": list(WINDOW), "start": start}],
+        }
+    )
+    model = build_model(scan.model)
+    found = []
+    for policy in (DEFAULT, DENSE_BLOCKS):
+        chosen = replace(model, linear_algebra=policy)
+        problem, guess, direction = hopf_start(
+            chosen, uniform_hopf(chosen, cells), WINDOW, 20, 4, 0.05
+        )
+        u, why = corrected_start(problem, guess, direction)
+        assert u is not None, why
+        found.append((problem.sparse_blocks, u, problem.orbit_point(u).multipliers))
+    (sparse, u_sparse, kept), (dense, u_dense, everything) = found
+    assert sparse and not dense
+    np.testing.assert_allclose(u_sparse, u_dense, rtol=0, atol=1e-11)
+    np.testing.assert_allclose(kept, everything[: kept.size], rtol=0, atol=1e-9)
