@@ -6,8 +6,8 @@ Run by hand (not collected by pytest)::
     python3 tests/benchmarks/compare_behaviour.py /tmp/base/src [src]
 
 Runs ``python3 -m branchline run`` on the four demo scans and on the test models
-below with each source tree first on PYTHONPATH, then compares ``points.csv`` and
-``events.csv`` cell by cell: text cells must be equal, numbers must agree to
+below with each source tree first on PYTHONPATH, then compares ``points.csv``,
+``events.csv`` and (for scans with periodic orbits) ``cycles.csv`` cell by cell: text cells must be equal, numbers must agree to
 ``RTOL`` relative to the larger of the two values and the column's largest
 magnitude (a state that is zero up to roundoff is compared on the scale of its
 column). It says which files are byte-identical and exits 1 on any difference.
@@ -15,8 +15,9 @@ column). It says which files are byte-identical and exits 1 on any difference.
 The test models are the ones the test files use (named there with their sources):
 spruce budworm (two folds), an isola, pitchforks with branch switching (toggle
 switch, subcritical normal form, Lorenz), a chemostat stopped by a state limit,
-the Brusselator (Hopf) and a 400-state Python Brusselator line with a sparse
-Jacobian (its Hopf point found by the leading-eigenvalue search).
+the Brusselator (Hopf, with its periodic orbits) and a 400-state Python
+Brusselator line with a sparse Jacobian (its Hopf point found by the
+leading-eigenvalue search).
 """
 
 from __future__ import annotations
@@ -104,9 +105,13 @@ b = 1.0
 x = "a - (b + 1)*x + x^2*y"
 y = "b*x - x^2*y"
 [[trace]]
+name = "rest"
 vary = "b"
 interval = [0.5, 3.0]
 start = { x = 1.0, y = 1.0 }
+[[cycles]]
+from = "rest"
+interval = [0.5, 3.0]
 """,
     "sparse_brusselator": """
 [model.parameters]
@@ -229,7 +234,7 @@ def main(argv: list[str]) -> int:
     base = Path(argv[1]).resolve()
     new = Path(argv[2] if len(argv) > 2 else ROOT / "src").resolve()
     print(f"before: {base}\nafter:  {new}\ntolerance: {RTOL:g} relative\n")
-    print(f"{'scan':24} {'exit':>9}  {'points.csv':28} {'events.csv':28}")
+    print(f"{'scan':24} {'exit':>9}  {'points.csv':28} {'events.csv':28} {'cycles.csv':28}")
     bad = 0
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
@@ -237,8 +242,11 @@ def main(argv: list[str]) -> int:
             codes = [run(src, scan, folder / side / scan.stem) for side, src in
                      (("before", base), ("after", new))]
             cells = []
-            for table in ("points.csv", "events.csv"):
+            for table in ("points.csv", "events.csv", "cycles.csv"):
                 a, b = (folder / side / scan.stem / table for side in ("before", "after"))
+                if table == "cycles.csv" and not (a.exists() or b.exists()):
+                    cells.append("none")  # no [[cycles]] in this scan
+                    continue
                 if not (a.exists() and b.exists()):
                     verdict, worst = f"missing ({a.exists()}, {b.exists()})", math.inf
                 else:
@@ -248,7 +256,10 @@ def main(argv: list[str]) -> int:
                 cells.append(verdict if verdict != "within" else f"within ({worst:.1e})")
             if codes[0] != codes[1]:
                 bad += 1
-            print(f"{scan.stem:24} {codes[0]:>4}/{codes[1]:<4}  {cells[0]:28} {cells[1]:28}")
+            print(
+                f"{scan.stem:24} {codes[0]:>4}/{codes[1]:<4}  {cells[0]:28} {cells[1]:28} "
+                f"{cells[2]:28}"
+            )
     print("\nall tables agree" if not bad else f"\n{bad} difference(s)")
     return 1 if bad else 0
 

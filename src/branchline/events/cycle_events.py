@@ -21,6 +21,7 @@ import numpy as np
 
 from branchline.continuation import correctors
 from branchline.numerics import collocation
+from branchline.numerics.floquet import FloquetFailed
 from branchline.problems.cycles import PeriodicOrbitProblem, cycle_tests
 from branchline.results.records import CycleFamily, Event
 from branchline.vocabulary import EventKind
@@ -145,7 +146,10 @@ def locate_cycle_events(model, family: CycleFamily, tests: Array) -> list[Event]
         problem = problem_for(family, model, row + 1)
         u_a = orbit_vector(problem, family.orbits[row])
         u_b = orbit_vector(problem, family.orbits[row + 1])
-        located = refine(problem, u_a, u_b, which)
+        try:
+            located = refine(problem, u_a, u_b, which)
+        except FloquetFailed:
+            continue  # the multipliers fail inside the bracket: the event stays unlocated
         if located is None or located[0] is None:
             continue
         u, _tangent, point, iterations, _ = located

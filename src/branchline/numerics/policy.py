@@ -68,6 +68,16 @@ class LinearAlgebraPolicy:
         An expression model with more states than this, whose Jacobian has few
         structural nonzeros, returns it as a scipy.sparse matrix (and is
         continued with sparse LU); smaller ones return dense arrays.
+    cycle_blocks_dense_up_to : int
+        Periodic orbits of models up to this size assemble their collocation
+        Jacobian from dense per-interval blocks (N, m, n, m + 1, n); above, from
+        the model's sparse Jacobian at each collocation point
+        (:mod:`branchline.numerics.sparse_collocation`). The dense blocks hold
+        N m (m + 1) n^2 numbers: ~2-3 GB at 200 states on 40 x 4 points.
+    floquet_dense_up_to : int
+        Floquet multipliers of models up to this size come from the dense
+        monodromy matrix (all n of them); above, the few of largest modulus by
+        Arnoldi on its action (:mod:`branchline.numerics.floquet`).
     """
 
     force: str | None = None
@@ -79,6 +89,8 @@ class LinearAlgebraPolicy:
     finite_differences_dense_up_to: int = 200
     determinant_dense_up_to: int = 50
     expression_sparse_above: int = 200
+    cycle_blocks_dense_up_to: int = 50
+    floquet_dense_up_to: int = 50
 
     def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
         """Whether a curve of a model with ``size`` states is continued with sparse LU."""
@@ -95,6 +107,23 @@ class LinearAlgebraPolicy:
         if self.force is not None:
             return self.force == "sparse" and size >= ARNOLDI_SMALLEST_SIZE
         return size > self.location_sparse_above
+
+    def sparse_cycle_blocks(self, size: int) -> bool:
+        """Whether periodic orbits of a ``size``-state model assemble sparse collocation blocks."""
+        if self.force is not None:
+            return self.force == "sparse"
+        return size > self.cycle_blocks_dense_up_to
+
+    def sparse_floquet(self, size: int) -> bool:
+        """Whether Floquet multipliers of a ``size``-state model come from Arnoldi.
+
+        Forced sparse applies at every size: below ``ARNOLDI_SMALLEST_SIZE`` + a
+        few states the monodromy matrix is built column by column from the same
+        factorization instead.
+        """
+        if self.force is not None:
+            return self.force == "sparse"
+        return size > self.floquet_dense_up_to
 
 
 # Decide by size and by the model's own Jacobian (what every scan uses).

@@ -22,7 +22,7 @@ import numpy as np
 
 from branchline.continuation import correctors
 from branchline.continuation import engine as continuation
-from branchline.numerics import collocation, linalg
+from branchline.numerics import collocation, floquet, linalg
 from branchline.numerics.eigenvalues import eigenvector_near
 from branchline.problems.cycles import OrbitPoint, PeriodicOrbitProblem
 from branchline.problems.equilibrium import linearize, solve_equilibrium
@@ -310,8 +310,50 @@ def doubled_start(
     antiperiodic (phi, then -phi), and it spans the new direction at the period
     doubling, where the doubled family crosses the orbit traversed twice (a pitchfork
     in the doubled system; Kuznetsov, Elements of Applied Bifurcation Theory,
-    section 10.3; from memory).
+    section 10.3; from memory). On the sparse path the multiplier and its
+    eigenvector come from Arnoldi, the eigenfunction from the cut-open system.
+    Raises :class:`branchline.numerics.floquet.FloquetFailed` when the
+    multipliers cannot be computed.
     """
+    values, period, parameter = problem.unpack(u)
+    m = problem.degree
+    if problem.sparse_floquet:
+        phi = _doubling_eigenfunction(problem, u)
+    else:
+        phi = _doubling_eigenfunction_dense(problem, u)
+    mesh = np.concatenate([problem.mesh / 2.0, 0.5 + problem.mesh[1:] / 2.0])
+    twice = np.concatenate([values, values])
+    doubled = type(problem)(
+        problem.model,
+        problem.vary_index,
+        problem._parameters(parameter),
+        mesh,
+        m,
+        twice,
+        dense=problem.dense,
+    )
+    u0 = doubled.pack(twice, 2.0 * period, parameter)
+    direction = doubled.pack(np.concatenate([phi, -phi]), 0.0, 0.0)
+    return doubled, u0, direction / linalg.norm(direction)
+
+
+def _doubling_eigenfunction(problem: PeriodicOrbitProblem, u: Array) -> Array:
+    """The eigenfunction of the kept multiplier nearest -1 (sparse path), (N m, n).
+
+    One factorization of the cut-open collocation system gives both the
+    multipliers (Arnoldi) and the eigenfunction (one more solve from its start).
+    """
+    action = problem.monodromy_action(u)
+    result = floquet.leading_multipliers(action)
+    vector = result.vectors[:, int(np.argmin(np.abs(result.multipliers + 1.0)))]
+    # an eigenvector of a real eigenvalue is real up to a complex factor: rotate it real
+    vector = vector * np.exp(-1j * np.angle(vector[int(np.argmax(np.abs(vector)))]))
+    start = vector.real / np.linalg.norm(vector.real)
+    return floquet.eigenfunction(action, start)
+
+
+def _doubling_eigenfunction_dense(problem: PeriodicOrbitProblem, u: Array) -> Array:
+    """The eigenfunction of the multiplier nearest -1 from the dense monodromy, (N m, n)."""
     values, period, parameter = problem.unpack(u)
     _, fx, _ = problem._model_at(
         problem._nodes(values)[0].reshape(-1, problem.n), problem._parameters(parameter)
@@ -331,20 +373,7 @@ def doubled_start(
         interior = (transfer @ current).reshape(m, n)
         phi[j * m + 1 : j * m + m] = interior[:-1]
         current = interior[-1]
-    mesh = np.concatenate([problem.mesh / 2.0, 0.5 + problem.mesh[1:] / 2.0])
-    twice = np.concatenate([values, values])
-    doubled = type(problem)(
-        problem.model,
-        problem.vary_index,
-        problem._parameters(parameter),
-        mesh,
-        m,
-        twice,
-        dense=problem.dense,
-    )
-    u0 = doubled.pack(twice, 2.0 * period, parameter)
-    direction = doubled.pack(np.concatenate([phi, -phi]), 0.0, 0.0)
-    return doubled, u0, direction / linalg.norm(direction)
+    return phi
 
 
 __all__ = [

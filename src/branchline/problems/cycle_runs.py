@@ -7,6 +7,7 @@ from collections.abc import Callable, Sequence
 import numpy as np
 
 from branchline.events.cycle_events import locate_cycle_events
+from branchline.numerics.floquet import FloquetFailed
 from branchline.problems.cycle_family import (
     doubled_start,
     family_record,
@@ -90,13 +91,27 @@ def trace_doubled(model, family: CycleFamily, event: Event, spec, progress) -> C
     k = model.parameter_index(family.vary)
     problem = PeriodicOrbitProblem(model, k, family.parameters, mesh, family.degree, values)
     u = problem.pack(values, event.details["period"], event.value)
-    doubled, u0, direction = doubled_start(problem, u)
     name = f"{family.name}.2"
+    origin = f"the period doubling at {family.vary}={event.value:.10g} on {family.name}"
+    try:
+        doubled, u0, direction = doubled_start(problem, u)
+    except FloquetFailed as failure:
+        return family_record(
+            name,
+            family.vary,
+            family.parameters,
+            None,
+            family.degree,
+            spec.interval,
+            STATUS_FAILED,
+            f"no doubled orbit started at {origin}: {failure}",
+            origin=origin,
+            parent=family.name,
+        )
     callback = (lambda count: progress(name, count)) if progress else None
     curve, status, message = follow_family(
         doubled, u0, direction, spec.steps, spec.interval, exact_tangent=True, progress=callback
     )
-    origin = f"the period doubling at {family.vary}={event.value:.10g} on {family.name}"
     return family_record(
         name,
         family.vary,

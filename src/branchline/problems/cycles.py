@@ -26,6 +26,13 @@ when the error estimate is no longer equidistributed.
 Floquet multipliers come from the monodromy matrix obtained by condensing the
 linearized collocation system interval by interval
 (:func:`branchline.numerics.collocation.transfer_product`).
+
+Large models (the model's :class:`~branchline.numerics.policy.LinearAlgebraPolicy`
+decides the size) take the sparse path: the Jacobian is assembled from the
+model's sparse df/dx at each collocation point
+(:mod:`branchline.numerics.sparse_collocation`) and only the few multipliers of
+largest modulus are computed, by Arnoldi on the monodromy matrix's action
+(:mod:`branchline.numerics.floquet`); the test functions use those.
 """
 
 from __future__ import annotations
@@ -38,7 +45,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from branchline.continuation import engine as continuation
-from branchline.numerics import collocation
+from branchline.numerics import collocation, differences, floquet, sparse_collocation
+from branchline.numerics.policy import policy_of
 
 if TYPE_CHECKING:
     from branchline.model.build import Model
@@ -66,8 +74,10 @@ class OrbitPoint:
         The mesh in normalized time the orbit was computed on.
     values : ndarray (N m, n)
         The mesh values (the orbit at ``collocation.representation_times(mesh, m)``).
-    multipliers : ndarray (n,) complex
-        All Floquet multipliers, sorted by decreasing modulus.
+    multipliers : ndarray (n,) or (k,) complex
+        All Floquet multipliers, sorted by decreasing modulus; on the sparse
+        path only the trivial one and the others of largest modulus
+        (``floquet.KEPT_MULTIPLIERS`` in all).
     trivial : int
         Index in ``multipliers`` of the trivial one (nearest to 1).
     minima, maxima : ndarray (n,)
@@ -111,6 +121,10 @@ def cycle_tests(tangent: Array, multipliers: Array, trivial: int) -> Array:
       complex pair crosses the unit circle (also for real pairs with product 1,
       neutral saddles, which location discards).
 
+    On the sparse path ``multipliers`` holds a fixed number of the largest ones:
+    the factors of the left-out ones (|mu| smaller than every kept one) keep their
+    signs along a family, so the sign changes are the same.
+
     These are the discrete-time analogues of the equilibrium test functions
     (Kuznetsov, Elements of Applied Bifurcation Theory, section 10.3; from memory).
     """
@@ -139,6 +153,9 @@ class PeriodicOrbitProblem:
         Mesh values of the phase reference orbit (on ``mesh``).
     dense : bool
         Assemble dense Jacobians (for the benchmark's comparison) instead of sparse.
+
+    The model's policy chooses the sparse path (``sparse_cycle_blocks``,
+    ``sparse_floquet``); ``dense`` always takes the dense blocks.
     """
 
     def __init__(
@@ -165,7 +182,11 @@ class PeriodicOrbitProblem:
         self.dense = bool(dense)
         self.unknowns = self.points * self.n + 2
         self._vectorized = model.derivatives is not None and not model.python_source
-        self._pattern()
+        policy = policy_of(model)
+        self.sparse_blocks = not self.dense and policy.sparse_cycle_blocks(self.n)
+        self.sparse_floquet = policy.sparse_floquet(self.n) and self.intervals >= 2
+        if not self.sparse_blocks:
+            self._pattern()
         self.set_mesh(np.array(mesh, dtype=float), np.array(reference, dtype=float))
 
     # -- layout ---------------------------------------------------------------
@@ -244,6 +265,39 @@ class PeriodicOrbitProblem:
         fp = np.array([model.parameter_jacobian(x, p)[:, self.vary_index] for x in points])
         return f, fx, fp
 
+    def _sparse_model_at(self, points: Array, p: Array):
+        """f (P, n), df/dx at each point as :class:`PointJacobians`, df/dp_vary (P, n).
+
+        Never forms the dense (P, n, n) stack for models with a sparse Jacobian: their
+        Jacobian is asked for point by point.
+        """
+        model = self.model
+        if self._vectorized and not model.sparse:
+            f, fx, fp = self._model_at(points, p)
+            return f, sparse_collocation.from_dense_stack(fx), fp
+        if self._vectorized:
+            f = np.asarray(model.rhs(points.T, p), dtype=float).reshape(self.n, -1).T
+            fp = np.asarray(model.parameter_jacobian(points.T, p))[:, self.vary_index].T
+        else:
+            f = np.array([model.rhs(x, p) for x in points], dtype=float)
+            fp = np.array([self._parameter_column(x, p) for x in points])
+        matrices = [model.jacobian(x, p) for x in points]
+        return f, sparse_collocation.from_matrices(matrices, self.n), fp
+
+    def _parameter_column(self, x: Array, p: Array) -> Array:
+        """df/dp_vary at one point (n,): for Python models the one central difference of
+        that parameter (the same column as their full df/dp, at 2 instead of 2 m calls)."""
+        model, k = self.model, self.vary_index
+        if not model.python_source:
+            return model.parameter_jacobian(x, p)[:, k]
+
+        def along(value: Array) -> Array:
+            shifted = p.copy()
+            shifted[k] = value[0]
+            return model.rhs(x, shifted)
+
+        return differences.central_jacobian(along, p[k : k + 1])[:, 0]
+
     def _nodes(self, values: Array) -> tuple[Array, Array]:
         """Orbit and its s-derivative times h at the nodes: two (N, m, n) arrays."""
         blocks = values[self.index]
@@ -270,7 +324,12 @@ class PeriodicOrbitProblem:
         """(residual, Jacobian) sharing one evaluation of the model at the nodes."""
         values, period, parameter = self.unpack(u)
         at_nodes, slopes = self._nodes(values)
-        f, fx, fp = self._model_at(at_nodes.reshape(-1, self.n), self._parameters(parameter))
+        points, p = at_nodes.reshape(-1, self.n), self._parameters(parameter)
+        if self.sparse_blocks:
+            f, jacobians, fp = self._sparse_model_at(points, p)
+            residual = self._residual(at_nodes, slopes, f, period)
+            return residual, self._assemble_sparse(f, jacobians, fp, period)
+        f, fx, fp = self._model_at(points, p)
         residual = self._residual(at_nodes, slopes, f, period)
         return residual, self._assemble(f, fx, fp, period)
 
@@ -292,10 +351,8 @@ class PeriodicOrbitProblem:
 
     def _assemble(self, f: Array, fx: Array, fp: Array, period: float) -> Any:
         data = self.blocks(fx, period).ravel() / self.scale
-        h = np.repeat(self.widths, self.degree * self.n)
         size = self.points * self.n
-        period_column = -h * f.ravel()
-        parameter_column = -h * period * fp.ravel()
+        period_column, parameter_column = self._border(f, fp, period)
         if self.dense:
             jac = np.zeros((size + 1, size + 2))
             jac[self._rows, self._cols] = data
@@ -307,6 +364,39 @@ class PeriodicOrbitProblem:
         order, indices, indptr = self._csc
         return sp.csc_matrix((entries[order], indices, indptr), shape=(size + 1, size + 2))
 
+    def _border(self, f: Array, fp: Array, period: float) -> tuple[Array, Array]:
+        h = np.repeat(self.widths, self.degree * self.n)
+        return -h * f.ravel(), -h * period * fp.ravel()
+
+    def _assemble_sparse(self, f: Array, jacobians, fp: Array, period: float) -> sp.csc_matrix:
+        period_column, parameter_column = self._border(f, fp, period)
+        return sparse_collocation.collocation_jacobian(
+            self.table,
+            self.widths,
+            self.index,
+            period,
+            jacobians,
+            self.scale,
+            period_column,
+            parameter_column,
+            self._phase_row,
+        )
+
+    def monodromy_action(self, u: Array, jacobian: Any = None) -> floquet.MonodromyAction:
+        """v -> M v for the orbit u, from one SuperLU factorization (sparse path).
+
+        ``jacobian`` is G_u at u when the caller has it (sparse), else it is evaluated.
+        """
+        size = self.points * self.n
+        if not sp.issparse(jacobian) or jacobian.shape != (size + 1, size + 2):
+            jacobian = self.evaluate(u)[1]
+            if not sp.issparse(jacobian):
+                jacobian = sp.csc_matrix(jacobian)
+        system = sparse_collocation.initial_value_matrix(
+            jacobian, self.n, self.intervals, self.degree, self.scale
+        )
+        return floquet.MonodromyAction(system, self.n)
+
     def monodromy(self, u: Array) -> Array:
         """The monodromy matrix (n, n) of the orbit u, by condensation of the collocation system."""
         values, period, parameter = self.unpack(u)
@@ -316,12 +406,24 @@ class PeriodicOrbitProblem:
         blocks = self.blocks(fx, period).reshape(self.intervals, size, size + self.n)
         return collocation.transfer_product(blocks, self.degree, self.n)
 
-    def orbit_point(self, u: Array) -> OrbitPoint:
-        """The payload of the orbit u: multipliers, extremes, mesh and values."""
+    def leading_floquet(self, u: Array, jacobian: Any = None) -> floquet.FloquetResult:
+        """The kept Floquet multipliers of u by Arnoldi (sparse path); raises FloquetFailed."""
+        return floquet.leading_multipliers(self.monodromy_action(u, jacobian))
+
+    def orbit_point(self, u: Array, jacobian: Any = None) -> OrbitPoint:
+        """The payload of the orbit u: multipliers, extremes, mesh and values.
+
+        On the sparse path ``jacobian`` (G_u at u) saves an evaluation; a failure of
+        the multipliers raises :class:`branchline.numerics.floquet.FloquetFailed`.
+        """
         values, period, parameter = self.unpack(u)
-        multipliers = np.linalg.eigvals(self.monodromy(u)).astype(complex)
-        multipliers = multipliers[np.argsort(-np.abs(multipliers), kind="stable")]
-        trivial = int(np.argmin(np.abs(multipliers - 1.0)))
+        if self.sparse_floquet:
+            result = self.leading_floquet(u, jacobian)
+            multipliers, trivial = result.multipliers, result.trivial
+        else:
+            multipliers = np.linalg.eigvals(self.monodromy(u)).astype(complex)
+            multipliers = multipliers[np.argsort(-np.abs(multipliers), kind="stable")]
+            trivial = int(np.argmin(np.abs(multipliers - 1.0)))
         minima, maxima = orbit_extremes(self.mesh, self.degree, values)
         return OrbitPoint(
             period, parameter, self.mesh.copy(), values, multipliers, trivial, minima, maxima
@@ -329,7 +431,10 @@ class PeriodicOrbitProblem:
 
     def observe(self, u: Array, tangent: Array, jacobian: Any) -> tuple[OrbitPoint, Array]:
         """(OrbitPoint, test values (cycle fold, period doubling, torus))."""
-        point = self.orbit_point(u)
+        try:
+            point = self.orbit_point(u, jacobian)
+        except floquet.FloquetFailed as failure:
+            raise continuation.ObservationFailed(str(failure)) from None
         if not np.all(np.isfinite(point.multipliers)):
             raise continuation.ObservationFailed("the Floquet multipliers are not finite")
         if point.period <= 0.0:
@@ -370,6 +475,21 @@ def _dense(matrix: Any) -> Array:
     return matrix.toarray() if sp.issparse(matrix) else np.asarray(matrix, dtype=float)
 
 
+def _state_columns(mesh: Array, degree: int, values: Array, at: Array) -> Array:
+    """State i of the piecewise polynomial at the times ``at[i]``: (n, k) from (n, k) times."""
+    at = np.mod(at, 1.0)
+    intervals = mesh.shape[0] - 1
+    which = np.clip(np.searchsorted(mesh, at, side="right") - 1, 0, intervals - 1)
+    sigma = (at - mesh[which]) / (mesh[which + 1] - mesh[which])
+    basis, _ = collocation.lagrange_basis(
+        np.linspace(0.0, 1.0, degree + 1), sigma.ravel(), slopes=False
+    )
+    index = collocation.interval_indices(intervals, degree)[which]  # (n, k, m + 1)
+    state = np.arange(values.shape[1])[:, None, None]
+    gathered = values[index, state]  # (n, k, m + 1)
+    return np.einsum("kl,kl->k", basis, gathered.reshape(-1, degree + 1)).reshape(at.shape)
+
+
 def orbit_extremes(mesh: Array, degree: int, values: Array) -> tuple[Array, Array]:
     """Each state's minimum and maximum over the orbit, shapes (n,), (n,).
 
@@ -383,20 +503,22 @@ def orbit_extremes(mesh: Array, degree: int, values: Array) -> tuple[Array, Arra
     samples = collocation.evaluate_periodic(mesh, degree, values, times)  # (S, n)
     spacing = float(np.max(np.diff(mesh))) / EXTREME_SAMPLES
     offsets = np.linspace(-1.0, 1.0, 2 * EXTREME_SAMPLES + 1) * spacing
-    minima, maxima = np.empty(values.shape[1]), np.empty(values.shape[1])
-    for state in range(values.shape[1]):
-        for sign, out in ((1.0, maxima), (-1.0, minima)):
-            centre = times[int(np.argmax(sign * samples[:, state]))]
-            column = collocation.evaluate_periodic(mesh, degree, values, centre + offsets)[:, state]
-            best = int(np.clip(np.argmax(sign * column), 1, column.size - 2))
-            left, middle, right = column[best - 1], column[best], column[best + 1]
-            curvature = left - 2.0 * middle + right
-            vertex = middle
-            if curvature * sign < 0.0:
-                shift = 0.5 * (left - right) / curvature
-                if abs(shift) <= 1.0:
-                    vertex = middle - (right - left) ** 2 / (8.0 * curvature)
-            out[state] = vertex
+    states = np.arange(values.shape[1])
+    found = []
+    # every state at once (one gather per side): the loop over states cost seconds at
+    # a thousand states
+    for sign in (-1.0, 1.0):
+        centres = times[np.argmax(sign * samples, axis=0)]  # (n,)
+        columns = _state_columns(mesh, degree, values, centres[:, None] + offsets[None, :])
+        best = np.clip(np.argmax(sign * columns, axis=1), 1, columns.shape[1] - 2)
+        left, middle, right = (columns[states, best + shift] for shift in (-1, 0, 1))
+        curvature = left - 2.0 * middle + right
+        with np.errstate(divide="ignore", invalid="ignore"):
+            shift = 0.5 * (left - right) / curvature
+            vertex = middle - (right - left) ** 2 / (8.0 * curvature)
+        refine = (curvature * sign < 0.0) & (np.abs(shift) <= 1.0)
+        found.append(np.where(refine, vertex, middle))
+    minima, maxima = found
     return minima, maxima
 
 
