@@ -68,6 +68,13 @@ class LinearAlgebraPolicy:
         An expression model with more states than this, whose Jacobian has few
         structural nonzeros, returns it as a scipy.sparse matrix (and is
         continued with sparse LU); smaller ones return dense arrays.
+    reuse_rejected_points_above : int
+        An equilibrium branch with a dense Jacobian and more states than this keeps
+        the points the test-function rule rejects, with their eigenvalues, and
+        records them later when they pass (continuation/revisit.py): all eigenvalues
+        are most of a point's cost there (~80% at 100 states), and about one step
+        in five is rejected. Below it the points stay where plain step control puts
+        them (the saving would be small, and small models' tests pin their points).
     """
 
     force: str | None = None
@@ -79,6 +86,7 @@ class LinearAlgebraPolicy:
     finite_differences_dense_up_to: int = 200
     determinant_dense_up_to: int = 50
     expression_sparse_above: int = 200
+    reuse_rejected_points_above: int = 50
 
     def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
         """Whether a curve of a model with ``size`` states is continued with sparse LU."""

@@ -168,6 +168,13 @@ class EquilibriumBranch:
         self._determinant: tuple[Any, float] | None = None
         # A user's own Jacobian is checked again where the corrector keeps struggling.
         self.watch = watch_for(model)
+        # The engine may keep points rejected by its test-function rule and record them
+        # later (continuation/revisit.py) when observe is pure: a dense Jacobian (no
+        # eigenvalues tracked, no factorization hook) and no Jacobian watch.
+        dense = not self.policy.sparse_curve(self.size, self.sparse)
+        self.revisit_rejected = (
+            dense and self.watch is None and self.size > self.policy.reuse_rejected_points_above
+        )
         # Names for the rule that stops a branch running off to infinity (continuation/escape).
         self.escape_names = (tuple(model.states), model.parameters[self.vary_index])
 
