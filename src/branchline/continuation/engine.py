@@ -554,7 +554,9 @@ def _move(walk: _Walk) -> str:
             verdict = _judge(walk, point, revisited=True)
             if verdict is _Step.ACCEPT:
                 walk.revisited += 1
-            return verdict
+            if verdict is not _Step.REJECT:
+                return verdict
+            # not taken from here (it stays kept): a new step follows at once
     candidate = _step(walk)
     if isinstance(candidate, str):
         return candidate
@@ -620,8 +622,12 @@ def _judge(walk: _Walk, point: revisit.ObservedPoint, revisited: bool = False) -
         step_control.TEST_CHANGE_LIMIT,
     ):
         if walk.revisit:
-            walk.kept = revisit.kept_with(walk.kept, point)
+            walk.kept = revisit.kept_with(walk.kept, point, u, walk.t)
             walk.kept_at = len(walk.rows)
+        if revisited:
+            # an offer declined is no step: neither counted nor shrinking the step, so
+            # that a kept point never holds the steps down
+            return _Step.REJECT
         return walk.reject(walk.tests_floor)
     if step_control.closes_loop(
         walk.u_start, walk.t_start, u, walk.t, chord, chord_length, len(walk.rows)

@@ -15,11 +15,12 @@ the shorter step u -> m follows as usual; once m is accepted, w is offered as th
 point before any new prediction, when it lies ahead of m and its tangent turns by at
 most the engine's angle limit (:func:`offered`). It is then judged like a new point
 (test-function rule with the slopes of the step u -> m and the chord m -> w as the
-step, closing an isola) and recorded as is; when the rule rejects it again the step
-shrinks as after any rejection and w stays kept, to be offered after the next accepted
-point (never again from the point it was judged from). So a rejected step is bisected
-on the curve with its far end reused, and an observation is computed at most once per
-point, accepted or rejected. Every recorded point is still a corrected point
+step, closing an isola) and recorded as is. When the rule declines it, that is no step
+(not counted, the step length unchanged, so that a kept point never holds the steps
+down): a new step from m follows at once, and w stays kept, to be offered after the
+next accepted point (never again from the point it was judged from), until a point
+beyond it is accepted. So a rejected step is bisected on the curve with its far end
+reused, and an observation is computed at most once per point, accepted or rejected. Every recorded point is still a corrected point
 of the curve whose step passed the same rules; only where the points lie changes (the
 far end of a rejected step instead of a new prediction from m).
 
@@ -77,14 +78,14 @@ class ObservedPoint(NamedTuple):
     tests: Array
 
 
-def kept_with(kept: tuple[ObservedPoint, ...], rejected: ObservedPoint) -> tuple:
-    """The kept points after the rule rejected the step to ``rejected``, nearest first.
-
-    A rejection always follows a shorter step from the same point as the one before,
-    so the newest rejected point is the nearest; the farthest beyond ``MAX_KEPT``
-    are dropped.
-    """
-    return (rejected, *kept)[:MAX_KEPT]
+def kept_with(
+    kept: tuple[ObservedPoint, ...], rejected: ObservedPoint, u: Array, tangent: Array
+) -> tuple[ObservedPoint, ...]:
+    """The kept points with ``rejected`` added, ordered by their distance ahead of ``u``
+    along ``tangent`` (the point the rule judged them from); beyond ``MAX_KEPT`` the
+    farthest are dropped."""
+    ordered = sorted((rejected, *kept), key=lambda point: float(tangent.dot(point.u - u)))
+    return tuple(ordered[:MAX_KEPT])
 
 
 def offered(
