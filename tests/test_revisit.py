@@ -6,7 +6,8 @@ observe is pure: dense equilibrium branches above
 ``LinearAlgebraPolicy.reuse_rejected_points_above`` states). These tests check that it
 changes where the points lie and nothing else: every recorded row carries its own
 point's eigenvalues, the located Hopf points are the same, each spectrum is computed
-at most once, and the switch is where the policy says.
+at most once, and the switch is where the policy says. Also: on sparse branches with
+tracked eigenvalues the start point's full search serves both sides of a trace.
 
 The reference model is a chain of Brusselator cells coupled by diffusion
 (tests/cell_chains.py; Prigogine & Lefever, "Symmetry breaking instabilities in
@@ -210,3 +211,30 @@ def test_engine_records_a_kept_point_as_it_was_observed(revisit):
     else:
         assert "revisited_points" not in curve.counts
         assert len(problem.observed) - len(curve) == curve.counts["rejected_steps"]
+
+
+@pytest.mark.parametrize("start", [INTERVAL[0], 4.97])
+def test_the_start_points_full_search_serves_both_sides(start):
+    # Sparse tracking (forced here for 100 states): the side traced second takes the
+    # start point's leading eigenvalues from the first side's full search instead of
+    # searching again, also when the first side leaves the interval at once (a start on
+    # its edge). Below b = 5 no stability changes (closed form above), and fewer than
+    # 200 points need no periodic search: one full search in all. The start row's
+    # values are the closed-form spectrum's leading ones.
+    policy = replace(SPARSE, eigenvalues_dense_up_to=20)
+    model = replace(chain_model(), linear_algebra=policy)
+    x = np.empty(model.size)
+    x[0::2], x[1::2] = A, start / A
+    p = model.defaults.copy()
+    p[model.parameters.index("b")] = start
+    interval = (INTERVAL[0], 4.99)
+    branch = trace_branch(model, "uniform", "b", p, x, interval, "both", StepSettings())
+    assert branch.status == "done"
+    assert np.all(branch.unstable_count == 0)
+    assert branch.counts["eigenvalue_full_searches"] == 1
+    row = int(np.flatnonzero(branch.parameter_values == start)[0])
+    leading = branch.eigenvalues[row]
+    leading = leading[np.isfinite(leading)]
+    expected = block_eigenvalues(start)
+    expected = expected[np.argsort(-expected.real, kind="stable")][: leading.shape[0]]
+    assert np.max(np.abs(as_sorted(leading) - as_sorted(expected))) < 1e-8
