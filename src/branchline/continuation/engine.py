@@ -69,7 +69,8 @@ Optional members:
     from one call to the next): a point whose step the test-function rule rejects
     is then kept with its observation and offered again as the next point once a
     shorter step is accepted (:mod:`branchline.continuation.revisit`), so that no
-    observation is thrown away. Absent or False: every step is predicted anew.
+    observation is thrown away. Absent or False, or with ``adapt``: every step is
+    predicted anew.
 
 Rules a problem must follow: ``u``'s last component is the curve's parameter
 (the one the ``bounds`` apply to; ``limits`` may bound any other component); the
@@ -418,7 +419,8 @@ class _Walk:
         self.escape = None
         # Points rejected by the test-function rule, kept with their observation
         # (continuation/revisit.py), for problems whose observe is pure.
-        self.revisit = bool(getattr(problem, "revisit_rejected", False))
+        # Not with ``adapt``: a kept point would miss the changes it makes between steps.
+        self.revisit = bool(getattr(problem, "revisit_rejected", False)) and self.adapt is None
         self.kept: tuple = ()
         self.kept_at = 0  # the number of rows when the last point was kept
         self.revisited = 0
