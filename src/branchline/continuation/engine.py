@@ -65,6 +65,13 @@ Optional members:
     limit, or at the closing point of an isola. A periodic-orbit problem
     redistributes its mesh here (and may update its own reference data, such
     as a phase condition); it must return a point on the same curve.
+``revisit_rejected`` (bool attribute)
+    True when ``observe`` is a pure function of its arguments (nothing carried
+    from one call to the next): a point whose step the test-function rule rejects
+    is then kept with its observation and offered again as the next point once a
+    shorter step is accepted (:mod:`branchline.continuation.revisit`), so that no
+    observation is thrown away. Absent or False, or with ``adapt``: every step is
+    predicted anew.
 
 Rules a problem must follow: ``u``'s last component is the curve's parameter
 (the one the ``bounds`` apply to; ``limits`` may bound any other component); the
@@ -106,7 +113,7 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from branchline.continuation import correctors, escape, step_control
+from branchline.continuation import correctors, escape, revisit, step_control
 from branchline.continuation.correctors import EvaluationCounts
 from branchline.continuation.step_control import Limit
 from branchline.numerics import linalg
@@ -197,7 +204,8 @@ class Curve(CurveRows):
         How it ended; on failure where (parameter, state) and why.
     counts : dict[str, int]
         ``rhs_evaluations``, ``jacobian_evaluations``, ``factorizations``,
-        ``rejected_steps``, ``newton_iterations`` (total).
+        ``rejected_steps``, ``newton_iterations`` (total); ``revisited_points`` (kept
+        points recorded later) for problems with ``revisit_rejected``.
     """
 
     status: Status
@@ -310,7 +318,7 @@ def follow_curve(
             return failed_curve(u0, why_not, walk.counts.as_dict())
         while not walk.status:
             try:
-                accepted = _step(walk) is _Step.ACCEPT
+                accepted = _move(walk) is _Step.ACCEPT
             except MemoryError as exc:
                 # the points so far are kept: the curve ends here like a failed step
                 walk.stop(
@@ -323,7 +331,7 @@ def follow_curve(
                 progress(len(walk.rows))
     if progress is not None:
         progress(len(walk.rows))
-    return _curve_from_rows(walk.rows, walk.status, walk.message, walk.counts.as_dict())
+    return _curve_from_rows(walk.rows, walk.status, walk.message, walk.curve_counts())
 
 
 def _as_limits(limits, size: int) -> tuple[Limit, ...]:
@@ -366,6 +374,8 @@ class _Walk:
         "factors",
         "factors_hook",
         "hi",
+        "kept",
+        "kept_at",
         "largest",
         "limits",
         "lo",
@@ -374,6 +384,8 @@ class _Walk:
         "newton",
         "pending_factors",
         "problem",
+        "revisit",
+        "revisited",
         "rows",
         "smallest",
         "sparse",
@@ -408,6 +420,20 @@ class _Walk:
         self.status, self.message = "", ""
         self.arclength = 0.0
         self.escape = None
+        # Points rejected by the test-function rule, kept with their observation
+        # (continuation/revisit.py), for problems whose observe is pure.
+        # Not with ``adapt``: a kept point would miss the changes it makes between steps.
+        self.revisit = bool(getattr(problem, "revisit_rejected", False)) and self.adapt is None
+        self.kept: tuple = ()
+        self.kept_at = 0  # the number of rows when the last point was kept
+        self.revisited = 0
+
+    def curve_counts(self) -> dict[str, int]:
+        """The curve's counts; with ``revisited_points`` when kept points are offered."""
+        counts = self.counts.as_dict()
+        if self.revisit:
+            counts["revisited_points"] = self.revisited
+        return counts
 
     def start(self, u: Array, t: Array, tangent_exact: bool) -> str:
         """Record the start point; "" or why the curve cannot start there."""
@@ -514,8 +540,9 @@ def _correct(walk: _Walk) -> NewtonResult:
     return correctors.correct_newton(walk.evaluate, predicted, walk.t, None, walk.counts)
 
 
-def _step(walk: _Walk) -> str:
-    """One step: predict, correct, accept or shrink, stop on an edge, observe, record."""
+def _move(walk: _Walk) -> str:
+    """One move along the curve: a kept point offered again (see
+    :mod:`branchline.continuation.revisit`), else a new step; then judged."""
     runaway = walk.escape.check(walk.u) if walk.escape is not None else ""
     if runaway:
         return walk.stop(Status.FAILED, runaway)
@@ -525,6 +552,26 @@ def _step(walk: _Walk) -> str:
             f"stopped after {walk.max_points} points (steps.max_points) "
             f"{describe_point(walk.problem, walk.u)}",
         )
+    if walk.kept and len(walk.rows) > walk.kept_at:
+        # a point was accepted since the last one was kept (never offered again
+        # from the point whose step the rule rejected)
+        point, walk.kept = revisit.offered(walk.kept, walk.u, walk.t)
+        if point is not None:
+            verdict = _judge(walk, point, revisited=True)
+            if verdict is _Step.ACCEPT:
+                walk.revisited += 1
+            if verdict is not _Step.REJECT:
+                return verdict
+            # not taken from here (it stays kept): a new step follows at once
+    candidate = _step(walk)
+    if isinstance(candidate, str):
+        return candidate
+    return _judge(walk, candidate)
+
+
+def _step(walk: _Walk) -> revisit.ObservedPoint | str:
+    """Predict, correct, check the tangent's turn and the window, observe: the new
+    point, or what happened instead (a rejected step or the curve's end)."""
     correction = _correct(walk)
     walk.counts.newton += correction.iterations
     failure = correction.message
@@ -551,21 +598,42 @@ def _step(walk: _Walk) -> str:
         payload, tests = walk.problem.observe(u_new, t_new, correction.jacobian)
     except ObservationFailed as exc:
         return walk.stop(Status.FAILED, f"stopped {describe_point(walk.problem, u_new)}: {exc}")
-    tests = np.asarray(tests, dtype=float)
+    return revisit.ObservedPoint(
+        u_new,
+        t_new,
+        correction,
+        walk.pending_factors,
+        walk.chord_on_factors,
+        payload,
+        np.asarray(tests, dtype=float),
+    )
+
+
+def _judge(walk: _Walk, point: revisit.ObservedPoint, revisited: bool = False) -> str:
+    """The test-function rule and the isola check on the step from the last point to
+    ``point``; record it when it passes (a rejected point is kept when the problem
+    allows it). A ``revisited`` point's step is its chord, not the current step."""
     u = walk.u
-    chord = u_new - u
+    chord = point.u - u
     chord_length = math.sqrt(chord.dot(chord))  # .dot: see correctors
-    values = tests.tolist()
+    values = point.tests.tolist()
     # The limit is read from step_control at run time, so that it can be tuned (or
     # switched off, as tests/test_continuation.py does) in one place.
     if step_control.tests_unresolved(
         walk.tracked,
         values,
         chord_length,
-        walk.step,
+        chord_length if revisited else walk.step,
         walk.tests_floor,
         step_control.TEST_CHANGE_LIMIT,
     ):
+        if walk.revisit:
+            walk.kept = revisit.kept_with(walk.kept, point, u, walk.t)
+            walk.kept_at = len(walk.rows)
+        if revisited:
+            # an offer declined is no step: neither counted nor shrinking the step, so
+            # that a kept point never holds the steps down
+            return _Step.REJECT
         return walk.reject(walk.tests_floor)
     if step_control.closes_loop(
         walk.u_start, walk.t_start, u, walk.t, chord, chord_length, len(walk.rows)
@@ -575,24 +643,30 @@ def _step(walk: _Walk) -> str:
         return walk.stop(
             Status.CLOSED, "the branch closed on itself (an isola) back at its start point"
         )
-    _record(walk, u_new, t_new, chord_length, values, correction, tests, payload)
+    _record(walk, point, chord_length, values)
     return _Step.ACCEPT
 
 
-def _record(walk, u_new, t_new, chord_length, values, correction, tests, payload) -> None:
-    """Accept the corrected point: remember it, adapt it (optional hook), grow the step."""
+def _record(walk: _Walk, point: revisit.ObservedPoint, chord_length: float, values) -> None:
+    """Accept the judged point: remember it, adapt it (optional hook), grow the step."""
     walk.tracked = step_control.tracked_after(walk.tracked, values, chord_length)
     walk.arclength += chord_length
+    correction = point.correction
     iterations = correction.iterations
+    u_new, t_new = point.u, point.tangent
     walk.rows.append(
-        (u_new, t_new, walk.arclength, iterations, correction.residual_norm, tests, payload)
+        (u_new, t_new, walk.arclength, iterations, correction.residual_norm, point.tests,
+         point.payload)
     )
     if walk.adapt is not None:
         u_new, t_new = _adapted(walk.adapt, u_new, t_new)
     walk.u, walk.t = u_new, t_new
-    walk.factors = walk.pending_factors
-    chord = walk.chord_on_factors
-    easy = step_control.EASY_CHORD_ITERATIONS if chord else step_control.EASY_ITERATIONS
+    walk.factors = point.factors
+    easy = (
+        step_control.EASY_CHORD_ITERATIONS
+        if point.chord_on_factors
+        else step_control.EASY_ITERATIONS
+    )
     walk.step = step_control.grown(walk.step, iterations, walk.largest, easy)
 
 

@@ -78,6 +78,13 @@ class LinearAlgebraPolicy:
         Floquet multipliers of models up to this size come from the dense
         monodromy matrix (all n of them); above, the few of largest modulus by
         Arnoldi on its action (:mod:`branchline.numerics.floquet`).
+    reuse_rejected_points_above : int
+        An equilibrium branch with a dense Jacobian and more states than this keeps
+        the points the test-function rule rejects, with their eigenvalues, and
+        records them later when they pass (continuation/revisit.py): all eigenvalues
+        are most of a point's cost there (~80% at 100 states), and about one step
+        in five is rejected. Below it the points stay where plain step control puts
+        them (the saving would be small, and small models' tests pin their points).
     """
 
     force: str | None = None
@@ -91,6 +98,7 @@ class LinearAlgebraPolicy:
     expression_sparse_above: int = 200
     cycle_blocks_dense_up_to: int = 50
     floquet_dense_up_to: int = 50
+    reuse_rejected_points_above: int = 50
 
     def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
         """Whether a curve of a model with ``size`` states is continued with sparse LU."""

@@ -34,6 +34,7 @@ Example
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
+from dataclasses import replace
 from functools import partial
 from typing import TYPE_CHECKING, Any
 
@@ -165,9 +166,18 @@ class EquilibriumBranch:
         # Large sparse models: the leading eigenvalues tracked from point to point,
         # and the branch-point test read from the tangent's factorization.
         self.spectrum: SpectrumTrack | None = None
+        # (start point, its leading eigenvalues, their track), shared by the sides of a trace
+        self.start_spectrum: tuple | None = None
         self._determinant: tuple[Any, float] | None = None
         # A user's own Jacobian is checked again where the corrector keeps struggling.
         self.watch = watch_for(model)
+        # The engine may keep points rejected by its test-function rule and record them
+        # later (continuation/revisit.py) when observe is pure: a dense Jacobian (no
+        # eigenvalues tracked, no factorization hook) and no Jacobian watch.
+        dense = not self.policy.sparse_curve(self.size, self.sparse)
+        self.revisit_rejected = (
+            dense and self.watch is None and self.size > self.policy.reuse_rejected_points_above
+        )
         # Names for the rule that stops a branch running off to infinity (continuation/escape).
         self.escape_names = (tuple(model.states), model.parameters[self.vary_index])
 
@@ -260,10 +270,7 @@ class EquilibriumBranch:
             if n <= self.policy.eigenvalues_dense_up_to:
                 eigenvalues = dense_eigenvalues(fx.toarray())
             else:
-                search, self.spectrum = track_leading_eigenvalues(
-                    fx, self.spectrum, policy=self.policy,
-                    determinant_sign=self._jacobian_sign(jacobian, tangent),
-                )
+                search = self._leading_eigenvalues(u, fx, jacobian, tangent)
                 if not search.found:
                     raise ObservationFailed(f"{EIGENVALUES_FAILED} ({search.message})")
                 eigenvalues = search.values
@@ -280,6 +287,29 @@ class EquilibriumBranch:
                 tests[2] = -tests[2]  # the last row is -t in trace order
             return eigenvalues, tests
         return eigenvalues, equilibrium_tests(fx, fp, oriented, eigenvalues, self.policy)
+
+    def _leading_eigenvalues(self, u: Array, fx: Any, jacobian: Any, tangent: Array):
+        """The leading eigenvalues of a large sparse f_x, tracked from the last point.
+
+        The first point of a side is the trace's start point, whose full search the
+        side traced before already ran (``start_spectrum``): it is taken from there,
+        not searched again (a full search costs ~1.5 s at 1,000 states, and the side
+        leaving the interval at a start on its edge has no other point).
+        """
+        sign = self._jacobian_sign(jacobian, tangent)
+        known = self.start_spectrum
+        if self.spectrum is None and known is not None and np.array_equal(known[0], u):
+            search, track = known[1], known[2]
+            # counted once, by the side that ran it
+            self.spectrum = replace(track, tracked=0, full_searches=0, determinant_sign=sign)
+            return search
+        first = self.spectrum is None
+        search, self.spectrum = track_leading_eigenvalues(
+            fx, self.spectrum, policy=self.policy, determinant_sign=sign
+        )
+        if first and search.found:
+            self.start_spectrum = (u.copy(), search, self.spectrum)
+        return search
 
     def _jacobian_sign(self, jacobian: Any, tangent: Array) -> float | None:
         """The sign of det f_x from the tangent's factorization, or None when unknown.
@@ -412,8 +442,11 @@ def trace_branch(
     problems: list[EquilibriumBranch] = []
 
     def make_problem(orientation: int) -> EquilibriumBranch:
-        problems.append(EquilibriumBranch(model, vary_index, parameters, orientation))
-        return problems[-1]
+        problem = EquilibriumBranch(model, vary_index, parameters, orientation)
+        if problems:  # the start point's leading eigenvalues, found by the side before
+            problem.start_spectrum = problems[-1].start_spectrum
+        problems.append(problem)
+        return problem
 
     curves = trace_sides(make_problem, request)
     status, message = summarize(curves)
