@@ -68,6 +68,14 @@ class LinearAlgebraPolicy:
         An expression model with more states than this, whose Jacobian has few
         structural nonzeros, returns it as a scipy.sparse matrix (and is
         continued with sparse LU); smaller ones return dense arrays.
+    hopf_curve_sparse_above : int
+        A Hopf curve of a model with a sparse Jacobian and more states than this
+        is followed on the complex bordered system [[A - i omega I, b], [c^H, 0]]
+        (:mod:`branchline.problems.sparse_hopf_curve`: A's own sparsity, one
+        complex LU per evaluation); smaller ones on the A^2 + kappa I system,
+        faster for small dense matrices but with A's condition number squared
+        (Newton no longer converged on a 2,000-state chain). 300, like
+        ``location_sparse_above``: where the rest of the sparse path starts.
     """
 
     force: str | None = None
@@ -79,12 +87,20 @@ class LinearAlgebraPolicy:
     finite_differences_dense_up_to: int = 200
     determinant_dense_up_to: int = 50
     expression_sparse_above: int = 200
+    hopf_curve_sparse_above: int = 300
 
     def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
         """Whether a curve of a model with ``size`` states is continued with sparse LU."""
         if self.force is not None:
             return self.force == "sparse"
         return jacobian_is_sparse
+
+    def sparse_hopf_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
+        """Whether a Hopf curve of a ``size``-state model takes the complex bordered
+        system (:mod:`branchline.problems.sparse_hopf_curve`)."""
+        if self.force is not None:
+            return self.force == "sparse" and size >= ARNOLDI_SMALLEST_SIZE
+        return jacobian_is_sparse and size > self.hopf_curve_sparse_above
 
     def sparse_location(self, size: int) -> bool:
         """Whether events and normal forms of a ``size``-state model use sparse methods.
