@@ -31,3 +31,69 @@ def chain_jacobian(x, p):
 
 def chain_start(p):
     return np.full(CHAIN_SIZE, 1.2)
+
+
+# ---------------------------------------------------------------------------
+# chains of identical cells coupled by diffusion (no-flux ends), sparse Jacobians:
+# on a uniform state the Jacobian splits into one block per discrete cosine mode,
+# J_cell - d mu_k, and the uniform mode (mu_0 = 0) is the single cell's linearization
+# (tests/cell_chains.py). Invented for tests only.
+
+
+def path_coupling(cells: int) -> scipy.sparse.csr_matrix:
+    """z_(i-1) - 2 z_i + z_(i+1) with z_(-1) = z_0, z_m = z_(m-1), (cells, cells) sparse."""
+    off = np.ones(cells - 1)
+    main = -2.0 * np.ones(cells)
+    main[[0, -1]] = -1.0
+    return scipy.sparse.diags([off, main, off], [-1, 0, 1], format="csr")
+
+
+_COUPLINGS: dict[int, scipy.sparse.csr_matrix] = {}
+
+
+def _coupling(cells: int) -> scipy.sparse.csr_matrix:
+    if cells not in _COUPLINGS:
+        _COUPLINGS[cells] = path_coupling(cells)
+    return _COUPLINGS[cells]
+
+
+def cusp_cells_rhs(x, p):
+    """x_i' = a + b x_i - x_i^3 + d (coupling x)_i (the cusp normal form in each cell)."""
+    return p["a"] + p["b"] * x - x**3 + p["d"] * (_coupling(x.shape[0]) @ x)
+
+
+def cusp_cells_jacobian(x, p):
+    return (scipy.sparse.diags(p["b"] - 3.0 * x * x) + p["d"] * _coupling(x.shape[0])).tocsc()
+
+
+def bautin_cells_rhs(x, p):
+    """The Bautin normal form in each cell, z' = (beta1 + i) z + beta2 z |z|^2 - z |z|^4
+    with z = x + i y (Kuznetsov, Elements of Applied Bifurcation Theory, section 8.3),
+    states (x_0 .. x_(m-1), y_0 .. y_(m-1)), coupled by diffusion d."""
+    cells = x.shape[0] // 2
+    u, v = x[:cells], x[cells:]
+    r2 = u * u + v * v
+    radial = p["beta1"] + p["beta2"] * r2 - r2 * r2
+    coupling = _coupling(cells)
+    return np.concatenate(
+        [radial * u - v + p["d"] * (coupling @ u), u + radial * v + p["d"] * (coupling @ v)]
+    )
+
+
+def bautin_cells_jacobian(x, p):
+    cells = x.shape[0] // 2
+    u, v = x[:cells], x[cells:]
+    r2 = u * u + v * v
+    radial = p["beta1"] + p["beta2"] * r2 - r2 * r2
+    slope = 2.0 * p["beta2"] - 4.0 * r2  # d radial / d(r^2) times 2
+    uu = radial + slope * u * u
+    vv = radial + slope * v * v
+    uv = slope * u * v
+    coupling = p["d"] * _coupling(cells)
+    return scipy.sparse.bmat(
+        [
+            [scipy.sparse.diags(uu) + coupling, scipy.sparse.diags(uv - 1.0)],
+            [scipy.sparse.diags(uv + 1.0), scipy.sparse.diags(vv) + coupling],
+        ],
+        format="csc",
+    )

@@ -220,7 +220,7 @@ class Factored:
         self.matrix = matrix
         if self.sparse:
             try:
-                self._lu = spla.splu(sps.csc_matrix(matrix))
+                self._lu = linalg.sparse_lu(matrix)
             except RuntimeError as exc:
                 raise linalg.SingularMatrixError(str(exc)) from exc
 

@@ -40,7 +40,6 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse as sps
-import scipy.sparse.linalg as spla
 
 from branchline.continuation.engine import ObservationFailed
 from branchline.events.normal_forms import hopf_normal_form
@@ -126,7 +125,7 @@ class SparseHopfCurve(BoundaryCurve):
             format="csc",
         )
         try:
-            factors = spla.splu(matrix)
+            factors = linalg.sparse_lu(matrix)
         except RuntimeError as exc:  # SuperLU: exactly singular
             raise linalg.SingularMatrixError(str(exc)) from exc
         self.factorizations += 1
