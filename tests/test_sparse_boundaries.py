@@ -198,7 +198,7 @@ def test_fold_curve_of_a_chain_of_cusp_cells_and_its_cusp():
     assert np.max(np.abs(cusp.state)) < 1e-10
 
 
-BAUTIN_CELLS = 200  # 400 states
+BAUTIN_CELLS = 160  # 320 states
 
 
 def test_bautin_point_on_the_hopf_curve_of_a_chain():
@@ -219,7 +219,9 @@ def test_bautin_point_on_the_hopf_curve_of_a_chain():
     assert "not refined" not in bautin.note
     # beta1 = beta2 = 0 at the Bautin point; l2 = -1 per cell, -1 / N^2 for the chain
     assert abs(bautin.value) < 1e-10 and abs(bautin.details["second_value"]) < 1e-10
-    assert bautin.details["second_lyapunov"] == pytest.approx(-1.0 / BAUTIN_CELLS**2, rel=1e-6)
+    # (l2 of a Python model comes from nested differences of its third derivative:
+    # good to about 1e-5 relative, branchline.events.hopf_coefficients)
+    assert bautin.details["second_lyapunov"] == pytest.approx(-1.0 / BAUTIN_CELLS**2, rel=1e-4)
 
 
 # ---------------------------------------------------------------------------

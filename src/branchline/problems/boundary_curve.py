@@ -17,7 +17,6 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse as sps
-import scipy.sparse.linalg as spla
 
 from branchline.events.normal_forms import CENTRAL_STEP, directional_jacobian
 from branchline.numerics import eigenvalues, linalg
