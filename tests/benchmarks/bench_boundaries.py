@@ -141,10 +141,9 @@ def large_curves(states: int) -> dict:
     import scipy.sparse as sps
 
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+    from branchline.results.records import Event
     from test_sparse_boundaries import hopf_event, python_model
     from test_sparse_eigen import brusselator_model, uniform_state
-
-    from branchline.results.records import Event
 
     out: dict = {"states": states}
     nodes = states // 2
