@@ -97,3 +97,43 @@ def bautin_cells_jacobian(x, p):
         ],
         format="csc",
     )
+
+
+def _cells(x, *directions):
+    """Per-cell (u, v) pairs of the state and of each direction, and s(a, b) = u_a u_b + v_a v_b."""
+    cells = x.shape[0] // 2
+    pairs = [(d[:cells], d[cells:]) for d in (x, *directions)]
+
+    def s(a, b):
+        return a[0] * b[0] + a[1] * b[1]
+
+    return pairs, s
+
+
+def bautin_cells_second(x, p, a, b):
+    """B(a, b) of :func:`bautin_cells_rhs` (the coupling is linear): with R = |z|^2 per cell
+    and rho(R) = beta1 + beta2 R - R^2, d^2 (rho z)[a, b] = rho'' (2 s_za)(2 s_zb) z
+    + 2 rho' (s_ab z + s_za b + s_zb a)."""
+    (z, a, b), s = _cells(x, a, b)
+    slope = p["beta2"] - 2.0 * s(z, z)  # rho'(R); rho'' = -2
+    sza, szb, sab = s(z, a), s(z, b), s(a, b)
+    out = [
+        -8.0 * sza * szb * z[k] + 2.0 * slope * (sab * z[k] + sza * b[k] + szb * a[k])
+        for k in (0, 1)
+    ]
+    return np.concatenate(out)
+
+
+def bautin_cells_third(x, p, a, b, c):
+    """C(a, b, c) of :func:`bautin_cells_rhs`: the derivative of B(a, b) along c."""
+    (z, a, b, c), s = _cells(x, a, b, c)
+    slope = p["beta2"] - 2.0 * s(z, z)
+    sza, szb, szc = s(z, a), s(z, b), s(z, c)
+    sab, sac, sbc = s(a, b), s(a, c), s(b, c)
+    out = [
+        -8.0 * (sbc * sza + szb * sac + szc * sab) * z[k]
+        - 8.0 * (sza * szb * c[k] + szc * sza * b[k] + szc * szb * a[k])
+        + 2.0 * slope * (sab * c[k] + sac * b[k] + sbc * a[k])
+        for k in (0, 1)
+    ]
+    return np.concatenate(out)

@@ -153,13 +153,21 @@ def test_l1_of_the_uniform_mode_is_the_cells_divided_by_n(brusselator_curve):
 # a fold curve with its cusp, and a Hopf curve with its Bautin point, on chains
 
 
-def python_model(parameters: dict, rhs: str, size: int):
+def python_model(parameters: dict, rhs: str, size: int, forms: bool = False):
+    """A chain of tests/boundary_models.py; ``forms``: with its B and C functions."""
+    extra = {}
+    if forms:
+        extra = {
+            "second_derivative": f"boundary_models:{rhs}_second",
+            "third_derivative": f"boundary_models:{rhs}_third",
+        }
     return build_model(
         PythonModelSpec(
             parameters=parameters,
             rhs=f"boundary_models:{rhs}_rhs",
             jacobian=f"boundary_models:{rhs}_jacobian",
             size=size,
+            **extra,
         )
     )
 
@@ -203,7 +211,7 @@ BAUTIN_CELLS = 160  # 320 states
 
 def test_bautin_point_on_the_hopf_curve_of_a_chain():
     model = python_model(
-        {"beta1": 0.0, "beta2": -0.5, "d": 0.3}, "bautin_cells", 2 * BAUTIN_CELLS
+        {"beta1": 0.0, "beta2": -0.5, "d": 0.3}, "bautin_cells", 2 * BAUTIN_CELLS, forms=True
     )
     assert curve_class(model, "hopf") is SparseHopfCurve
     event = hopf_event(model, "beta1", 0.0, np.zeros(2 * BAUTIN_CELLS), 1.0)
@@ -219,9 +227,9 @@ def test_bautin_point_on_the_hopf_curve_of_a_chain():
     assert "not refined" not in bautin.note
     # beta1 = beta2 = 0 at the Bautin point; l2 = -1 per cell, -1 / N^2 for the chain
     assert abs(bautin.value) < 1e-10 and abs(bautin.details["second_value"]) < 1e-10
-    # (l2 of a Python model comes from nested differences of its third derivative:
-    # good to about 1e-5 relative, branchline.events.hopf_coefficients)
-    assert bautin.details["second_lyapunov"] == pytest.approx(-1.0 / BAUTIN_CELLS**2, rel=1e-4)
+    # (l2 needs the fourth and fifth derivatives: central differences of the exact
+    # third, branchline.events.hopf_coefficients, good to about 1e-8 relative)
+    assert bautin.details["second_lyapunov"] == pytest.approx(-1.0 / BAUTIN_CELLS**2, rel=1e-6)
 
 
 # ---------------------------------------------------------------------------
