@@ -137,3 +137,31 @@ def bautin_cells_third(x, p, a, b, c):
         for k in (0, 1)
     ]
     return np.concatenate(out)
+
+
+def takens_cells_rhs(x, p):
+    """The Bogdanov-Takens normal form in each cell, x' = y, y' = b1 + b2 x + x^2 - x y
+    (Kuznetsov, Elements of Applied Bifurcation Theory, section 8.4), states
+    (x_0 .. x_(m-1), y_0 .. y_(m-1)), coupled by diffusion d."""
+    cells = x.shape[0] // 2
+    u, v = x[:cells], x[cells:]
+    coupling = _coupling(cells)
+    return np.concatenate(
+        [
+            v + p["d"] * (coupling @ u),
+            p["b1"] + p["b2"] * u + u * u - u * v + p["d"] * (coupling @ v),
+        ]
+    )
+
+
+def takens_cells_jacobian(x, p):
+    cells = x.shape[0] // 2
+    u, v = x[:cells], x[cells:]
+    coupling = p["d"] * _coupling(cells)
+    return scipy.sparse.bmat(
+        [
+            [coupling, scipy.sparse.identity(cells)],
+            [scipy.sparse.diags(p["b2"] + 2.0 * u - v), scipy.sparse.diags(-u) + coupling],
+        ],
+        format="csc",
+    )

@@ -14,7 +14,10 @@ tests/boundary_models.py):
   Bifurcation Theory, 3rd ed., section 8.2);
 - Bautin cells z' = (beta1 + i) z + beta2 z |z|^2 - z |z|^4 (Kuznetsov, section
   8.3): the Hopf curve beta1 = 0 with l1 = beta2 per cell and the Bautin point at
-  beta1 = beta2 = 0.
+  beta1 = beta2 = 0;
+- Bogdanov-Takens cells x' = y, y' = b1 + b2 x + x^2 - x y (Kuznetsov, section
+  8.4): the fold curve b1 = b2^2 / 4, the Hopf curve b1 = 0, b2 < 0 with
+  omega^2 = -b2, meeting at the Bogdanov-Takens point b1 = b2 = 0.
 
 On the uniform mode of N cells the eigenvectors are the cell's spread evenly,
 q = q_cell / sqrt(N) per cell (and likewise the adjoint), so the cubic terms of
@@ -31,6 +34,7 @@ import sympy as sp
 
 from branchline.model.build import build_model
 from branchline.problems.boundary import curve_class, trace_boundary
+from branchline.problems.boundary_switching import start_event
 from branchline.problems.sparse_hopf_curve import SparseHopfCurve
 from branchline.results.records import Event
 from branchline.scan.loader import PythonModelSpec, StepSettings
@@ -230,6 +234,52 @@ def test_bautin_point_on_the_hopf_curve_of_a_chain():
     # (l2 needs the fourth and fifth derivatives: central differences of the exact
     # third, branchline.events.hopf_coefficients, good to about 1e-8 relative)
     assert bautin.details["second_lyapunov"] == pytest.approx(-1.0 / BAUTIN_CELLS**2, rel=1e-6)
+
+
+TAKENS_CELLS = 200  # 400 states
+
+
+def test_bogdanov_takens_point_of_a_chain_starts_its_sparse_hopf_curve():
+    model = python_model({"b1": 0.25, "b2": -1.0, "d": 0.2}, "takens_cells", 2 * TAKENS_CELLS)
+    # the fold of the cell at b2 = -1: the double root x = 1/2 of b1 + b2 x + x^2, b1 = 1/4
+    state = np.concatenate([np.full(TAKENS_CELLS, 0.5), np.zeros(TAKENS_CELLS)])
+    fold = Event(
+        trace="line",
+        kind="fold",
+        vary="b1",
+        value=0.25,
+        state=state,
+        parameters=model.defaults.copy(),
+        arclength=0.0,
+    )
+    steps = StepSettings(initial=0.5, smallest=1e-8, largest=2.0, max_points=200)
+    window = {"b1": (-1.0, 1.0), "b2": (-2.0, 1.0)}
+    folds = trace_boundary(model, "fold", fold, "b2", window, steps)
+    b1, b2 = folds.boundary.first_values, folds.boundary.second_values
+    assert folds.boundary.status == "done", folds.boundary.message
+    np.testing.assert_allclose(b1, b2 * b2 / 4.0, rtol=0.0, atol=1e-10)  # Kuznetsov, sec. 8.4
+    (point,) = [e for e in folds.events if e.kind == "bogdanov_takens"]
+    assert "not refined" not in point.note
+    assert np.max(np.abs(point.parameters[:2])) < 1e-10 and np.max(np.abs(point.state)) < 1e-10
+    # the Hopf curve through it: started off the point on the null spaces of A^2
+    # (shift-invert Arnoldi), then followed on the complex bordered system
+    start, why = start_event(model, point, "hopf", "b2", 0.5)
+    assert start is not None, why
+    assert curve_class(model, "hopf") is SparseHopfCurve
+    hopf = trace_boundary(model, "hopf", start, "b2", window, steps)
+    boundary = hopf.boundary
+    assert boundary.status == "done", boundary.message
+    assert "Bogdanov-Takens" in boundary.message and boundary.second_values.min() == -2.0
+    assert np.max(np.abs(boundary.first_values)) < 1e-12  # b1 = 0
+    # omega^2 = -b2; the end row is the Bogdanov-Takens point located at omega = 0,
+    # where the complex bordered system is singular (Im g is odd in omega for real
+    # borders), so it is placed to about 1e-9 only
+    inner = boundary.second_values < -1e-3
+    np.testing.assert_allclose(
+        boundary.frequency[inner] ** 2, -boundary.second_values[inner], rtol=0.0, atol=1e-10
+    )
+    (end,) = [e for e in hopf.events if e.kind == "bogdanov_takens"]
+    assert np.max(np.abs(end.parameters[:2])) < 1e-8
 
 
 # ---------------------------------------------------------------------------
