@@ -111,10 +111,51 @@ eigvals_unchecked.__doc__ = """Dense eigenvalues (complex) without checks or sor
 BORDERED_PIVOT_THRESHOLD = 1e-6
 
 
+# A solve from factors with preferred diagonal pivots is accepted when its residual is
+# below this fraction of |M| |z| + |rhs| (max norms), after at most
+# REFINEMENT_STEPS steps of iterative refinement (Higham, Accuracy and Stability of
+# Numerical Algorithms, 2nd ed., chapter 12); else the matrix is factorized again
+# with strict partial pivoting.
+PIVOT_GROWTH_CHECK = 1e-12
+REFINEMENT_STEPS = 2
+
+
 def sparse_lu(matrix: object) -> object:
     """SuperLU factors of a square sparse (bordered) matrix with diagonal pivots preferred
     (:data:`BORDERED_PIVOT_THRESHOLD`). Raises RuntimeError when exactly singular."""
     return spla.splu(sp.csc_matrix(matrix), diag_pivot_thresh=BORDERED_PIVOT_THRESHOLD)
+
+
+def refined_solve(lu: object, matrix: object, rhs: Array, trans: str = "N") -> tuple[Array, bool]:
+    """(z, accurate): z solves op(matrix) z = rhs from the factors ``lu`` of ``matrix``
+    (op per SuperLU's ``trans``: "N", "T" or "H"), refined until its residual passes
+    :data:`PIVOT_GROWTH_CHECK` or :data:`REFINEMENT_STEPS` are spent."""
+    operator = {"N": matrix, "T": matrix.T, "H": matrix.conj().T}[trans]
+    with np.errstate(all="ignore"):
+        z = lu.solve(rhs, trans=trans)
+        size = float(np.max(np.abs(matrix.data))) if matrix.nnz else 0.0
+        for step in range(REFINEMENT_STEPS + 1):
+            if not np.all(np.isfinite(z)):
+                return z, False
+            residual = rhs - operator @ z
+            allowed = PIVOT_GROWTH_CHECK * (size * float(np.max(np.abs(z))) + float(np.max(np.abs(rhs))))
+            if float(np.max(np.abs(residual))) <= allowed:
+                return z, True
+            if step < REFINEMENT_STEPS:
+                z = z + lu.solve(residual, trans=trans)
+    return z, False
+
+
+def sparse_factor_solve(matrix: object, rhs: Array) -> tuple[object, Array]:
+    """(factors, z) with matrix z = rhs: :func:`sparse_lu` and :func:`refined_solve`, strict
+    partial pivoting when that is not accurate. Raises RuntimeError when singular."""
+    matrix = sp.csc_matrix(matrix)
+    lu = sparse_lu(matrix)
+    z, accurate = refined_solve(lu, matrix, rhs)
+    if accurate:
+        return lu, z
+    lu = spla.splu(matrix)
+    return lu, lu.solve(rhs)
 
 
 class SingularMatrixError(ArithmeticError):
@@ -222,7 +263,7 @@ def solve_square(matrix: object, rhs: Array) -> Array:
     """
     try:
         if sp.issparse(matrix):
-            solution = sparse_lu(matrix).solve(rhs)
+            solution = sparse_factor_solve(matrix, rhs)[1]
         else:
             solution = np.linalg.solve(matrix, rhs)
     except (np.linalg.LinAlgError, RuntimeError, ValueError) as exc:
@@ -385,13 +426,12 @@ def bordered_factor_solve(square: object) -> tuple[object, Array]:
     SingularMatrixError
         When the matrix is exactly singular.
     """
-    try:
-        lu = sparse_lu(square)
-    except RuntimeError as exc:
-        raise SingularMatrixError(str(exc)) from exc
     rhs = np.zeros(square.shape[0])
     rhs[-1] = 1.0
-    return lu, lu.solve(rhs)
+    try:
+        return sparse_factor_solve(square, rhs)
+    except RuntimeError as exc:
+        raise SingularMatrixError(str(exc)) from exc
 
 
 def lu_slogdet(lu: object) -> tuple[float, float]:

@@ -17,6 +17,7 @@ from typing import Any
 
 import numpy as np
 import scipy.sparse as sps
+import scipy.sparse.linalg as spla
 
 from branchline.events.normal_forms import CENTRAL_STEP, directional_jacobian
 from branchline.numerics import eigenvalues, linalg
@@ -219,13 +220,20 @@ class Factored:
         self.matrix = matrix
         if self.sparse:
             try:
-                self._lu = linalg.sparse_lu(matrix)
+                self.matrix = sps.csc_matrix(matrix)
+                self._lu = linalg.sparse_lu(self.matrix)
             except RuntimeError as exc:
                 raise linalg.SingularMatrixError(str(exc)) from exc
 
     def solve(self, rhs: Array, transposed: bool = False) -> Array:
         if self.sparse:
-            return self._lu.solve(np.ascontiguousarray(rhs), trans="T" if transposed else "N")
+            rhs = np.ascontiguousarray(rhs)
+            trans = "T" if transposed else "N"
+            z, accurate = linalg.refined_solve(self._lu, self.matrix, rhs, trans)
+            if not accurate:  # diagonal pivots grew the factors: strict pivoting
+                self._lu = spla.splu(self.matrix)
+                z = self._lu.solve(rhs, trans=trans)
+            return z
         matrix = self.matrix.T if transposed else self.matrix
         try:
             return np.linalg.solve(matrix, rhs)

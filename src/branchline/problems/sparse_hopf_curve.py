@@ -124,15 +124,14 @@ class SparseHopfCurve(BoundaryCurve):
             ],
             format="csc",
         )
+        unit = np.zeros(n + 1, dtype=complex)
+        unit[n] = 1.0
         try:
-            factors = linalg.sparse_lu(matrix)
+            factors, vg = linalg.sparse_factor_solve(matrix, unit)
         except RuntimeError as exc:  # SuperLU: exactly singular
             raise linalg.SingularMatrixError(str(exc)) from exc
         self.factorizations += 1
-        unit = np.zeros(n + 1, dtype=complex)
-        unit[n] = 1.0
-        vg = factors.solve(unit)
-        wh = factors.solve(unit, trans="H")
+        wh, _ = linalg.refined_solve(factors, matrix, unit, "H")
         if not (np.isfinite(vg).all() and np.isfinite(wh).all()):
             raise linalg.SingularMatrixError("the bordered Hopf matrix is singular")
         parts = (vg[:n], complex(vg[n]), wh[:n])
