@@ -312,3 +312,55 @@ def test_the_sparse_hopf_curve_runs_under_a_memory_cap():
     points, error, spread = lines[1].split()
     assert int(points) >= 5 and float(spread) > 0.0  # both sides left the start
     assert float(error) < 1e-10  # b = 1 + a^2 (Prigogine & Lefever 1968)
+
+
+# ---------------------------------------------------------------------------
+# the complex bordered system on a small expression model (every decision sparse)
+
+
+def test_sparse_hopf_curve_of_the_lorenz_equations_and_its_exact_jacobian():
+    """The Hopf curve of the Lorenz equations' nontrivial equilibria, rho = sigma (sigma +
+    beta + 3) / (sigma - beta - 1), omega^2 = beta (sigma + rho) (the closed form of
+    tests/test_boundaries.py; Lorenz, J. Atmos. Sci. 20, 1963; Sparrow, The Lorenz
+    Equations, 1982, from memory), on the complex bordered system with the exact
+    second-derivative entries of an expression model; its Jacobian against central
+    differences of its residual."""
+    from dataclasses import replace
+
+    from branchline.numerics.policy import SPARSE
+    from branchline.problems.equilibrium_branch import locate_events, trace_branch
+    from branchline.scan.loader import ExpressionModelSpec
+    from test_boundaries import LORENZ
+
+    model = build_model(ExpressionModelSpec(**LORENZ["model"]))
+    x = np.sqrt(8.0 / 3.0 * 19.0)
+    steps = StepSettings(0.05, 1e-8, 1.0, 2000)
+    branch = trace_branch(
+        model, "line", "rho", model.defaults.copy(), np.array([x, x, 19.0]), (1.5, 40.0),
+        "both", steps,
+    )
+    (event,) = [e for e in locate_events(model, branch) if e.kind == "hopf"]
+    model = replace(model, linear_algebra=SPARSE)
+    assert curve_class(model, "hopf") is SparseHopfCurve
+    window = {"rho": (1.5, 60.0), "sigma": (5.0, 20.0)}
+    boundary = trace_boundary(model, "onset", event, "sigma", window, steps).boundary
+    rho, sigma, beta = boundary.first_values, boundary.second_values, 8.0 / 3.0
+    assert boundary.status == "done" and sigma.min() == 5.0 and sigma.max() == 20.0
+    expected = sigma * (sigma + beta + 3.0) / (sigma - beta - 1.0)
+    assert np.max(np.abs(rho / expected - 1.0)) < 1e-9
+    assert np.max(np.abs(boundary.frequency**2 / (beta * (sigma + rho)) - 1.0)) < 1e-9
+
+    row = len(rho) // 3
+    u = np.concatenate(
+        [boundary.states[row], [sigma[row], boundary.frequency[row], rho[row]]]
+    )
+    curve = SparseHopfCurve(model, 0, 1, model.defaults.copy(), u)
+    u = u + 1e-3 * np.array([1.0, -2.0, 0.5, 0.3, -0.7, 1.1])  # off the curve: g != 0
+    _, jacobian = curve.evaluate(u)
+    jacobian = jacobian.toarray()
+    step = 1e-6
+    for k in range(u.size):
+        shift = np.zeros(u.size)
+        shift[k] = step
+        column = (curve.residual(u + shift) - curve.residual(u - shift)) / (2.0 * step)
+        np.testing.assert_allclose(jacobian[:, k], column, rtol=1e-6, atol=1e-7)
