@@ -183,14 +183,17 @@ def solve(matrix: object, rhs: Array) -> Array:
         return np.linalg.solve(matrix, rhs)
     matrix = sp.csc_matrix(matrix)
     try:
-        factor = sparse_lu(matrix)
+        if np.iscomplexobj(rhs) and not np.iscomplexobj(matrix.data):
+            real, imag = np.ascontiguousarray(rhs.real), np.ascontiguousarray(rhs.imag)
+            factor, first = sparse_factor_solve(matrix, real)
+            second, accurate = refined_solve(factor, matrix, imag)
+            if not accurate:
+                factor = spla.splu(matrix)
+                first, second = factor.solve(real), factor.solve(imag)
+            return first + 1j * second
+        return sparse_factor_solve(matrix, rhs)[1]
     except RuntimeError as exc:  # SuperLU: "Factor is exactly singular"
         raise np.linalg.LinAlgError(str(exc)) from exc
-    if np.iscomplexobj(rhs) and not np.iscomplexobj(matrix.data):
-        return factor.solve(np.ascontiguousarray(rhs.real)) + 1j * factor.solve(
-            np.ascontiguousarray(rhs.imag)
-        )
-    return factor.solve(rhs)
 
 
 def identity(size: int, like: object) -> object:
