@@ -134,18 +134,30 @@ def lu_seconds(matrix) -> float:
     return min(best(lambda: spla.splu(matrix))[0] for _ in range(3))
 
 
-def large_curves(states: int) -> dict:
+def large_curves(states: int, kinds=("hopf", "fold")) -> dict:
     """The Hopf and fold curves of the large models at ``states`` states (this process)."""
     import resource
 
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+    from test_sparse_boundaries import python_model
+
+    out: dict = {"states": states}
+    if "hopf" in kinds:
+        out["hopf"] = _large_hopf(states)
+    if "fold" in kinds:
+        out["fold"] = _large_fold(states, python_model)
+    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+    return out
+
+
+def _large_hopf(states: int) -> dict:
     import scipy.sparse as sps
 
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-    from branchline.results.records import Event
-    from test_sparse_boundaries import hopf_event, python_model
+    from test_sparse_boundaries import hopf_event
     from test_sparse_eigen import brusselator_model, uniform_state
 
-    out: dict = {"states": states}
     nodes = states // 2
     model = brusselator_model(nodes, 2.0)
     jacobian = sps.csc_matrix(model.jacobian(uniform_state(nodes, 2.0), model.defaults))
@@ -159,7 +171,7 @@ def large_curves(states: int) -> dict:
     lu = min(lu, lu_seconds(jacobian))
     curve = outcome.boundary
     a, b = curve.second_values, curve.first_values
-    out["hopf"] = {
+    return {
         "points": len(a),
         "seconds": seconds,
         "lu_per_point": seconds / len(a) / lu,
@@ -167,6 +179,13 @@ def large_curves(states: int) -> dict:
         "status": str(curve.status),
         "lu_seconds": lu,
     }
+
+
+def _large_fold(states: int, python_model) -> dict:
+    import scipy.sparse as sps
+
+    from branchline.results.records import Event
+
     model = python_model({"a": 0.0, "b": 1.0, "d": 0.5}, "cusp_cells", states)
     x0 = 1.0 / np.sqrt(3.0)
     fold = Event(
@@ -183,7 +202,7 @@ def large_curves(states: int) -> dict:
     lu = min(lu, lu_seconds(jacobian))
     curve = outcome.boundary
     a, b = curve.first_values, curve.second_values
-    out["fold"] = {
+    return {
         "points": len(a),
         "seconds": seconds,
         "lu_per_point": seconds / len(a) / lu,
@@ -192,12 +211,12 @@ def large_curves(states: int) -> dict:
         "lu_seconds": lu,
         "events": [e.kind for e in outcome.events],
     }
-    out["peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-    return out
 
 
 def print_large(out: dict) -> None:
     for kind in ("hopf", "fold"):
+        if kind not in out:
+            continue
         row = out[kind]
         print(
             f"{out['states']} states, {kind} curve: {row['points']} points, "
@@ -215,8 +234,8 @@ if __name__ == "__main__" and "--large" in sys.argv:
 
     os.environ["OPENBLAS_NUM_THREADS"] = "1"
     given = sys.argv[sys.argv.index("--large") + 1 :]
-    if given:
-        print(json.dumps(large_curves(int(given[0]))))
+    if given:  # --large STATES [hopf|fold]
+        print(json.dumps(large_curves(int(given[0]), tuple(given[1:]) or ("hopf", "fold"))))
     else:
         for size in LARGE_SIZES:
             done = subprocess.run(
