@@ -12,9 +12,6 @@ frequency a (trace zero, determinant a^2 of the single cell's linearization).
 from __future__ import annotations
 
 import json
-import subprocess
-import sys
-import textwrap
 from pathlib import Path
 
 import numpy as np
@@ -30,6 +27,7 @@ from branchline.problems.equilibrium_branch import locate_events, trace_branch
 from branchline.results.tables import run_info
 from branchline.scan.loader import PythonModelSpec, StepSettings
 from branchline.vocabulary import EventKind
+from memory_cap import run_under_memory_cap
 from test_sparse_eigen import (
     D1,
     D2,
@@ -160,49 +158,28 @@ def test_a_determinant_sign_change_unmatched_by_tracked_values_forces_the_full_s
 # ---------------------------------------------------------------------------
 # memory: no n x n dense array on the sparse path; a run that runs out keeps its points
 
-CAPPED_HOPF = textwrap.dedent(
-    """
-    import resource, sys
-    sys.path[:0] = [{src!r}, {tests!r}]
-    import numpy as np
-    from test_sparse_eigen import brusselator_model, trace_branch, locate_events, uniform_state
-    from branchline.scan.loader import StepSettings
+CAPPED_SETUP = """
+from test_sparse_eigen import brusselator_model, trace_branch, locate_events, uniform_state
+from branchline.scan.loader import StepSettings
 
-    nodes = {nodes}
-    model = brusselator_model(nodes, 1.999)
-    size_kb = next(int(line.split()[1]) for line in open("/proc/self/status")
-                   if line.startswith("VmSize:"))
-    cap = size_kb * 1024 + {headroom}
-    resource.setrlimit(resource.RLIMIT_AS, (cap, cap))
-    try:  # the cap is tight enough: one dense n x n array does not fit
-        np.eye(2 * nodes)
-        print("dense fits")
-    except MemoryError:
-        print("dense refused")
-    branch = trace_branch(model, "u", "b", model.defaults, uniform_state(nodes, 1.999),
-                          (1.999, 2.001), "increasing",
-                          StepSettings(initial=0.3, largest=0.3, max_points=10))
-    events = locate_events(model, branch)
-    print(branch.status, len(branch), [(e.kind, repr(e.value), e.details["method"])
-                                       for e in events])
-    """
-)
+nodes = {nodes}
+model = brusselator_model(nodes, 1.999)
+"""
+CAPPED_BODY = """
+branch = trace_branch(model, "u", "b", model.defaults, uniform_state(nodes, 1.999),
+                      (1.999, 2.001), "increasing",
+                      StepSettings(initial=0.3, largest=0.3, max_points=10))
+events = locate_events(model, branch)
+print(branch.status, len(branch), [(e.kind, repr(e.value), e.details["method"])
+                                   for e in events])
+"""
 
 
 def test_sparse_hopf_location_runs_under_a_memory_cap():
     nodes = 2000  # 4000 states: a dense 4000 x 4000 array takes 128 MB
-    code = CAPPED_HOPF.format(
-        src=str(TESTS.parent / "src"), tests=str(TESTS), nodes=nodes, headroom=96 * 2**20
+    lines = run_under_memory_cap(
+        CAPPED_SETUP.format(nodes=nodes), CAPPED_BODY, 2 * nodes, 96 * 2**20
     )
-    done = subprocess.run(
-        [sys.executable, "-c", code],
-        capture_output=True,
-        text=True,
-        timeout=600,
-        env={"OPENBLAS_NUM_THREADS": "1", "PATH": "/usr/bin:/bin"},
-    )
-    assert done.returncode == 0, done.stderr[-2000:]
-    lines = done.stdout.splitlines()
     assert lines[0] == "dense refused"
     status, _, rest = lines[1].partition(" ")
     assert status == "done"

@@ -12,6 +12,15 @@ Kuznetsov, Elements of Applied Bifurcation Theory, sections 8.2-8.6 and 10.3).
 The gradient of phi comes from central differences of that exactly computed
 scalar: the residual, and so the located point, stay exact; Newton converges
 linearly with a tiny rate instead of quadratically.
+
+Large sparse curves (``problem.sparse``) would need n + 1 evaluations of phi for
+that gradient and a dense Jacobian: there the point is found along the curve
+instead (:func:`locate_along_curve`), phi's root in the position between the
+bracket's rows, each trial point put on the curve by Newton on G(u) = 0 and a
+hyperplane across the bracket (sparse LU). The located point solves the curve's
+equations to rounding and phi(u) = 0 to the root finder's tolerance in that
+position (Brent's method, Brent, Algorithms for Minimization without
+Derivatives, 1973, chapter 4).
 """
 
 from __future__ import annotations
@@ -20,9 +29,11 @@ import itertools
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.optimize import brentq
 
 from branchline.events.defining_systems import newton
 from branchline.events.hopf_coefficients import hopf_coefficients
+from branchline.numerics import linalg
 from branchline.numerics.newton import NewtonResult, failure
 
 Array = np.ndarray
@@ -97,7 +108,10 @@ def _sparse_brackets(problem, kind: str, points: Array, values: Array) -> list[C
 
 
 def locate_on_curve(problem, bracket: CurveBracket) -> NewtonResult:
-    """Newton on (G(u), phi(u)) = 0 from the secant guess inside ``bracket``."""
+    """Newton on (G(u), phi(u)) = 0 from the secant guess inside ``bracket`` (large
+    sparse curves: :func:`locate_along_curve`)."""
+    if getattr(problem, "sparse", False):
+        return locate_along_curve(problem, bracket)
     a, b = bracket.value_before, bracket.value_after
     share = a / (a - b) if np.isfinite(a) and np.isfinite(b) and a != b else 0.5
     guess = bracket.u_before + min(max(share, 0.0), 1.0) * (bracket.u_after - bracket.u_before)
@@ -117,6 +131,70 @@ def locate_on_curve(problem, bracket: CurveBracket) -> NewtonResult:
         if float(np.linalg.norm(outcome.solution - guess)) > max(reach, 1e-12):
             return failure(guess, "Newton left the bracket", residual_norms=outcome.residual_norms)
     return outcome
+
+
+# Brent's method stops when the position between the bracket's rows is known to this
+# (absolute, the position runs over [0, 1]) or to rounding.
+POSITION_TOLERANCE = 1e-15
+
+
+def locate_along_curve(problem, bracket: CurveBracket) -> NewtonResult:
+    """The root of phi between the bracket's rows, on the curve (sparse LU only).
+
+    The point at position s in [0, 1] solves G(u) = 0 and d . (u - u_s) = 0 with
+    d = u_after - u_before and u_s = u_before + s d (Newton, sparse bordered LU);
+    phi there is a smooth function of s whose sign change the bracket holds.
+    """
+    start, chord = bracket.u_before, bracket.u_after - bracket.u_before
+    problem.reset_borders(start)
+    found: dict[float, NewtonResult] = {}
+
+    def on_curve(s: float) -> NewtonResult:
+        if s not in found:
+            target = start + s * chord
+            guess = target if not found else _nearest(found, s).solution + (s - _near(found, s)) * chord
+
+            def system(u: Array):
+                residual, jacobian = problem.evaluate(u)
+                return np.append(residual, chord @ (u - target)), linalg.bordered_matrix(
+                    jacobian, chord
+                )
+
+            found[s] = newton(system, guess)
+        return found[s]
+
+    def phi(s: float) -> float:
+        outcome = on_curve(s)
+        if not outcome.converged:
+            raise _OffCurve(f"no curve point between the rows ({outcome.message})")
+        value = float(problem.condition(bracket.kind, outcome.solution))
+        if not np.isfinite(value):
+            raise _OffCurve(f"the {bracket.kind} condition is not finite between the rows")
+        return value
+
+    try:
+        ends = phi(0.0), phi(1.0)
+        if ends[0] == 0.0 or ends[1] == 0.0:
+            root = 0.0 if ends[0] == 0.0 else 1.0
+        elif ends[0] * ends[1] > 0.0:
+            raise _OffCurve(f"the {bracket.kind} condition has no sign change between the rows")
+        else:
+            root = brentq(phi, 0.0, 1.0, xtol=POSITION_TOLERANCE, rtol=4 * np.finfo(float).eps)
+    except (_OffCurve, linalg.SingularMatrixError, ArithmeticError, ValueError) as exc:
+        return failure(start + 0.5 * chord, str(exc))
+    return on_curve(root)
+
+
+class _OffCurve(ArithmeticError):
+    """Why a point of the bracket could not be put on the curve or evaluated."""
+
+
+def _near(found: dict, s: float) -> float:
+    return min(found, key=lambda t: abs(t - s))
+
+
+def _nearest(found: dict, s: float) -> NewtonResult:
+    return found[_near(found, s)]
 
 
 def condition_gradient(problem, kind: str, u: Array) -> Array:

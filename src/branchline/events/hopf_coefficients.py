@@ -19,7 +19,9 @@ z' = i z + s z |z|^4 in the plane gives l2 = s.
 
 The fourth and fifth derivatives come from the model when it has them
 (``model.fourth``, ``model.fifth``: exact, expression models), otherwise from
-central differences of its third derivative.
+central differences of its third derivative. Large sparse models
+(``Model.state_jacobian`` sparse) solve with sparse LU and find q and p by
+shift-invert Arnoldi: no n x n dense array.
 """
 
 from __future__ import annotations
@@ -29,10 +31,11 @@ from dataclasses import dataclass
 from math import factorial
 
 import numpy as np
+import scipy.sparse as sps
 
 from branchline.events.normal_forms import _orient
 from branchline.numerics.eigenvalues import eigenvector_near
-from branchline.numerics.linalg import dense
+from branchline.numerics.linalg import solve
 
 Array = np.ndarray
 
@@ -148,10 +151,12 @@ def hopf_coefficients(model, x: Array, params: Array, omega: float) -> HopfCoeff
     omega : float
         The imaginary part of the critical pair.
     """
-    a_matrix = dense(model.jacobian(x, params))
+    a_matrix = model.state_jacobian(x, params)
     n = a_matrix.shape[0]
+    sparse = sps.issparse(a_matrix)
+    eye = sps.identity(n, format="csc") if sparse else np.eye(n)
     _, q = eigenvector_near(a_matrix, 1j * omega)
-    _, p = eigenvector_near(a_matrix.T, -1j * omega)
+    _, p = eigenvector_near(sps.csc_matrix(a_matrix.T) if sparse else a_matrix.T, -1j * omega)
     q = _orient(np.asarray(q, dtype=complex))
     q = q / np.sqrt(2.0 * np.vdot(q, q).real)
     p = p / np.conj(np.vdot(p, q))
@@ -165,15 +170,18 @@ def hopf_coefficients(model, x: Array, params: Array, omega: float) -> HopfCoeff
         if j - k == 1:
             g[(j, k)] = scale * np.vdot(p, right)
             right = right - q * g[(j, k)] / scale
-            bordered = np.block(
-                [
-                    [1j * omega * np.eye(n) - a_matrix, q[:, None]],
-                    [p.conj()[None, :], np.zeros((1, 1))],
-                ]
-            )
-            h[(j, k)] = scale * np.linalg.solve(bordered, np.append(right, 0.0))[:n]
+            shifted = 1j * omega * eye - a_matrix
+            if sparse:
+                bordered = sps.bmat(
+                    [[shifted, sps.csc_matrix(q[:, None])], [sps.csr_matrix(p.conj()[None, :]), None]],
+                    format="csc",
+                )
+            else:
+                bordered = np.block([[shifted, q[:, None]], [p.conj()[None, :], np.zeros((1, 1))]])
+            h[(j, k)] = scale * solve(bordered, np.append(right, 0.0))[:n]
         else:
-            h[(j, k)] = scale * np.linalg.solve(1j * (j - k) * omega * np.eye(n) - a_matrix, right)
+            shifted = 1j * (j - k) * omega * eye - a_matrix
+            h[(j, k)] = scale * solve(sps.csc_matrix(shifted) if sparse else shifted, right)
         h[(k, j)] = np.conj(h[(j, k)])
     c1, c2 = g[(2, 1)] / 2.0, g[(3, 2)] / 12.0
     return HopfCoefficients(omega, c1, c2, c1.real / omega, c2.real / omega)

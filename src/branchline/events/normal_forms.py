@@ -354,6 +354,7 @@ def hopf_normal_form(
     omega: float,
     q: Array | None = None,
     k: int | None = None,
+    left: Array | None = None,
 ) -> HopfNormalForm:
     """First Lyapunov coefficient of a Hopf point by the invariant formula.
 
@@ -377,13 +378,19 @@ def hopf_normal_form(
     k : int, optional
         Index of the varied parameter: also compute the crossing speed alpha' and
         on which side the cycles are.
+    left : ndarray (n,) complex, optional
+        A left eigenvector p, p^H (A - i omega I) = 0, when the caller has it (a
+        bordered solve on a Hopf curve gives it; otherwise it is computed, by
+        shift-invert Arnoldi for sparse models).
     """
     omega = abs(float(omega))
     a_matrix = model.state_jacobian(x, params)
     eye = identity(a_matrix.shape[0], a_matrix)
     if q is None:
         _, q = eigenvector_near(a_matrix, 1j * omega)
-    if sp.issparse(a_matrix):
+    if left is not None:
+        p = np.asarray(left, dtype=complex)
+    elif sp.issparse(a_matrix):
         _, p = eigenvector_near(sp.csc_matrix(a_matrix.T), -1j * omega)
     else:
         _, p, _ = _smallest_singular_vectors(a_matrix.T + 1j * omega * eye)

@@ -85,6 +85,14 @@ class LinearAlgebraPolicy:
         are most of a point's cost there (~80% at 100 states), and about one step
         in five is rejected. Below it the points stay where plain step control puts
         them (the saving would be small, and small models' tests pin their points).
+    hopf_curve_sparse_above : int
+        A Hopf curve of a model with a sparse Jacobian and more states than this
+        is followed on the complex bordered system [[A - i omega I, b], [c^H, 0]]
+        (:mod:`branchline.problems.sparse_hopf_curve`: A's own sparsity, one
+        complex LU per evaluation); smaller ones on the A^2 + kappa I system,
+        faster for small dense matrices but with A's condition number squared
+        (Newton no longer converged on a 2,000-state chain). 300, like
+        ``location_sparse_above``: where the rest of the sparse path starts.
     """
 
     force: str | None = None
@@ -99,12 +107,20 @@ class LinearAlgebraPolicy:
     cycle_blocks_dense_up_to: int = 50
     floquet_dense_up_to: int = 50
     reuse_rejected_points_above: int = 50
+    hopf_curve_sparse_above: int = 300
 
     def sparse_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
         """Whether a curve of a model with ``size`` states is continued with sparse LU."""
         if self.force is not None:
             return self.force == "sparse"
         return jacobian_is_sparse
+
+    def sparse_hopf_curve(self, size: int, jacobian_is_sparse: bool) -> bool:
+        """Whether a Hopf curve of a ``size``-state model takes the complex bordered
+        system (:mod:`branchline.problems.sparse_hopf_curve`)."""
+        if self.force is not None:
+            return self.force == "sparse" and size >= ARNOLDI_SMALLEST_SIZE
+        return jacobian_is_sparse and size > self.hopf_curve_sparse_above
 
     def sparse_location(self, size: int) -> bool:
         """Whether events and normal forms of a ``size``-state model use sparse methods.

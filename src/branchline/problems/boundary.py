@@ -30,6 +30,7 @@ from branchline.problems.boundary_switching import SWITCH_POINTS, start_event
 from branchline.problems.equilibrium_branch import state_limits_of, unstable_counts
 from branchline.problems.fold_curve import FoldCurve
 from branchline.problems.hopf_curve import NEUTRAL_SADDLE, HopfCurve
+from branchline.problems.sparse_hopf_curve import SparseHopfCurve
 from branchline.results.records import STATUS_DONE, STATUS_FAILED, Boundary, Event
 
 Array = np.ndarray
@@ -47,9 +48,24 @@ class BoundaryOutcome:
     events: list[Event]
 
 
+def curve_class(model, kind: str):
+    """The curve problem for a ``kind`` ("fold" or "hopf") boundary of ``model``: the Hopf
+    curve of a large sparse model is the complex bordered system
+    (:class:`SparseHopfCurve`, above ``LinearAlgebraPolicy.hopf_curve_sparse_above``
+    states), every other curve the one in :data:`PROBLEMS`."""
+    if kind == "hopf":
+        policy = model.linear_algebra
+        if policy.sparse_hopf_curve(len(model.states), bool(getattr(model, "sparse", False))):
+            return SparseHopfCurve
+    return PROBLEMS[kind]
+
+
 def start_point(problem_class, event: Event, first: int, second: int) -> Array:
     """u of the curve problem at a located fold or Hopf event."""
-    extra = () if problem_class is FoldCurve else (float(event.frequency or 0.0) ** 2,)
+    omega = float(event.frequency or 0.0)
+    extra = ()
+    if problem_class is not FoldCurve:
+        extra = (omega,) if getattr(problem_class, "unknown", "") == "omega" else (omega**2,)
     return np.concatenate(
         [event.state, [event.parameters[second]], extra, [event.parameters[first]]]
     )
@@ -91,7 +107,7 @@ def trace_boundary(
         Never raises for numerical trouble: the record's ``status`` and ``message``
         say how each side ended.
     """
-    problem_class = PROBLEMS[event.kind]
+    problem_class = curve_class(model, event.kind)
     first_index = model.parameter_index(event.vary)
     second_index = model.parameter_index(second)
     lo1, hi1 = window[event.vary]
@@ -99,9 +115,11 @@ def trace_boundary(
     n = len(model.states)
     engine_limits = (Limit(n, float(lo2), float(hi2), second), *state_limits_of(model, limits))
     u0 = start_point(problem_class, event, first_index, second_index)
-    sides = []
+    sides, borders = [], None
     for orientation in (-1, 1):
-        problem = problem_class(model, first_index, second_index, event.parameters, u0)
+        # the second side starts from the first one's start borders (no second eigen-solve)
+        problem = problem_class(model, first_index, second_index, event.parameters, u0, borders)
+        borders = (problem.right, problem.left)
         with np.errstate(all="ignore"):
             try:
                 base = linalg.initial_tangent(problem.jacobian(u0), 1.0)

@@ -19,7 +19,7 @@ import numpy as np
 import scipy.sparse as sps
 import scipy.sparse.linalg as spla
 
-from branchline.events.normal_forms import directional_jacobian
+from branchline.events.normal_forms import CENTRAL_STEP, directional_jacobian
 from branchline.numerics import eigenvalues, linalg
 
 Array = np.ndarray
@@ -124,18 +124,51 @@ class BoundaryCurve:
 
         Expression models contract the nonzero entries of f_xx and d/dp f_x
         from one fast compiled call (``Model.second_entries``); Python models
-        go through B(right, .) and d/dp (f_x right) by differences.
+        go through B(right, .) and d/dp (f_x right) by differences (on the sparse
+        path plain central differences of the sparse Jacobian, each distinct
+        direction once: :meth:`_difference_forms`).
         """
         entries = self._second_entries()
         if entries is not None:
             d_x, d_p = entries.contract(x, p, terms)
             return d_x, d_p[[self.second, self.first]]
+        if self.sparse:
+            return self._difference_forms(x, p, terms)
         d_x, d_p = 0.0, 0.0
         for left, right in terms:
             seconds = self.second_matrices(x, p, right)
             mixed = self.mixed_blocks(x, p, right)
             d_x = d_x + np.column_stack([b.T @ w for b, w in zip(seconds, left.T, strict=True)])
             d_p = d_p + np.column_stack([w @ m for m, w in zip(mixed, left.T, strict=True)])
+        return d_x, d_p
+
+    def _difference_forms(self, x: Array, p: Array, terms) -> tuple[Array, Array]:
+        """:meth:`gradient_forms` for Python models on the sparse path: B(right, .) as a
+        central difference of the sparse Jacobian along each distinct column of the
+        rights (two Jacobian calls each), d/dp f_x as one central difference per
+        parameter (two calls each; the extrapolated differences of
+        ``jacobian_parameter_derivative`` cost tens of calls and every parameter).
+        Accurate to about eps^(2/3): these are Newton's derivatives, not its residual."""
+        model = self.model
+        seconds: dict[bytes, Any] = {}
+        r = terms[0][0].shape[1]
+        d_x = np.zeros((self.n, r))
+        for left, right in terms:
+            for c in range(r):
+                column = np.ascontiguousarray(right[:, c])
+                key = column.tobytes()
+                if key not in seconds:
+                    seconds[key] = sps.csr_matrix(directional_jacobian(model, x, p, column))
+                d_x[:, c] += seconds[key].T @ left[:, c]
+        d_p = np.zeros((2, r))
+        for row, k in enumerate((self.second, self.first)):
+            h = CENTRAL_STEP * max(1.0, abs(float(p[k])))
+            up, down = p.copy(), p.copy()
+            up[k] += h
+            down[k] -= h
+            change = sps.csr_matrix(model.jacobian(x, up) - model.jacobian(x, down)) / (up[k] - down[k])
+            for left, right in terms:
+                d_p[row] += np.einsum("ic,ic->c", left, change @ right)
         return d_x, d_p
 
     def _second_entries(self):
@@ -187,13 +220,20 @@ class Factored:
         self.matrix = matrix
         if self.sparse:
             try:
-                self._lu = spla.splu(sps.csc_matrix(matrix))
+                self.matrix = sps.csc_matrix(matrix)
+                self._lu = linalg.sparse_lu(self.matrix)
             except RuntimeError as exc:
                 raise linalg.SingularMatrixError(str(exc)) from exc
 
     def solve(self, rhs: Array, transposed: bool = False) -> Array:
         if self.sparse:
-            return self._lu.solve(np.ascontiguousarray(rhs), trans="T" if transposed else "N")
+            rhs = np.ascontiguousarray(rhs)
+            trans = "T" if transposed else "N"
+            z, accurate = linalg.refined_solve(self._lu, self.matrix, rhs, trans)
+            if not accurate:  # diagonal pivots grew the factors: strict pivoting
+                self._lu = spla.splu(self.matrix)
+                z = self._lu.solve(rhs, trans=trans)
+            return z
         matrix = self.matrix.T if transposed else self.matrix
         try:
             return np.linalg.solve(matrix, rhs)

@@ -85,9 +85,10 @@ def _off_bogdanov_takens(model, point, second, step, common):
         predicted = u0 + step * tangent
 
         def system(u: Array):
-            residual, jacobian = problem.evaluate(u)
-            dense = jacobian.toarray() if hasattr(jacobian, "toarray") else np.asarray(jacobian)
-            return np.append(residual, tangent @ (u - predicted)), np.vstack([dense, tangent])
+            residual, jacobian = problem.evaluate(u)  # sparse for large sparse models
+            return np.append(residual, tangent @ (u - predicted)), linalg.bordered_matrix(
+                jacobian, tangent
+            )
 
         outcome = newton(system, predicted)
     u = outcome.solution

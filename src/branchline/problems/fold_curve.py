@@ -70,6 +70,18 @@ class FoldCurve(BoundaryCurve):
         self.right = np.real(right) / np.linalg.norm(np.real(right))
         self.left = np.real(left) / np.linalg.norm(np.real(left))
 
+    def _null_at(self, u: Array, a_matrix) -> tuple[Array, float, Array]:
+        """(v, g, w) of the bordered system at u: the last one is kept, so that the
+        evaluation, the observation and the conditions at one point share one
+        factorization of the bordered matrix (one per Newton step on the sparse path)."""
+        key = u.tobytes()
+        kept = getattr(self, "_kept", None)  # (key, right, left, parts): borders held, not ids
+        if kept is not None and kept[0] == key and kept[1] is self.right and kept[2] is self.left:
+            return kept[3]
+        parts = self._null(a_matrix)
+        self._kept = (key, self.right, self.left, parts)
+        return parts
+
     def _null(self, a_matrix) -> tuple[Array, float, Array]:
         """(v, g, w) of the bordered system at A."""
         n = self.n
@@ -83,14 +95,14 @@ class FoldCurve(BoundaryCurve):
     def residual(self, u: Array) -> Array:
         """(f, g), shape (n + 1,)."""
         x, p = u[: self.n], self.parameters_at(u)
-        _, g, _ = self._null(self.state_matrix(x, p))
+        _, g, _ = self._null_at(u, self.state_matrix(x, p))
         return np.append(self.model.rhs(x, p), g)
 
     def evaluate(self, u: Array) -> tuple[Array, Any]:
         """(f, g) and their Jacobian (n + 1, n + 2) with exact derivatives of g."""
         x, p = u[: self.n], self.parameters_at(u)
         a_matrix = self.state_matrix(x, p)
-        v, g, w = self._null(a_matrix)
+        v, g, w = self._null_at(u, a_matrix)
         g_x, g_p = self.gradient_forms(x, p, ((w[:, None], v[:, None]),))
         jacobian = self.stack(
             a_matrix, self.parameter_columns(x, p), -np.concatenate([g_x[:, 0], g_p[:, 0]])[None, :]
@@ -106,7 +118,7 @@ class FoldCurve(BoundaryCurve):
         borders move to this point's null vectors."""
         x, p = u[: self.n], self.parameters_at(u)
         a_matrix = self.state_matrix(x, p)
-        v, _, w = self._null(a_matrix)
+        v, _, w = self._null_at(u, a_matrix)
         eigenvalues = self.eigenvalues(a_matrix)
         tests = np.array(
             [
@@ -133,7 +145,7 @@ class FoldCurve(BoundaryCurve):
         smooth near it (the extra equation of its defining system)."""
         x, p = u[: self.n], self.parameters_at(u)
         a_matrix = self.state_matrix(x, p)
-        v, _, w = self._null(a_matrix)
+        v, _, w = self._null_at(u, a_matrix)
         if kind == "cusp":
             return self.cusp_test(x, p, v, w)
         if kind == "bogdanov_takens":

@@ -40,6 +40,7 @@ from branchline.events.normal_forms import hopf_normal_form
 from branchline.numerics import eigenvalues as eigen
 from branchline.numerics import linalg
 from branchline.numerics.eigenvalues import eigenvector_near
+from branchline.numerics.policy import ARNOLDI_SMALLEST_SIZE
 from branchline.problems.boundary_curve import (
     BoundaryCurve,
     Factored,
@@ -413,11 +414,29 @@ def _eigenvalues_and_vector(a_matrix: Array, omega: float) -> tuple[Array, Array
 
 
 def _square_null_spaces(a_matrix) -> tuple[Array, Array]:
-    """Orthonormal bases (n, 2) of the right and left null spaces of A^2 (dense SVD): at a
-    Bogdanov-Takens point they hold the generalized eigenvectors of the double zero."""
+    """Orthonormal bases (n, 2) of the right and left null spaces of A^2 (dense SVD; sparse
+    A: the two eigenvectors of A^2 and of its transpose nearest zero by shift-invert
+    Arnoldi, no n x n dense array): at a Bogdanov-Takens point they hold the generalized
+    eigenvectors of the double zero."""
+    if sps.issparse(a_matrix) and a_matrix.shape[0] > ARNOLDI_SMALLEST_SIZE + 1:
+        square = sps.csc_matrix(a_matrix @ a_matrix)
+        return _near_zero_pair(square), _near_zero_pair(sps.csc_matrix(square.T))
     dense = a_matrix.toarray() if sps.issparse(a_matrix) else np.asarray(a_matrix)
     left, _, right_t = np.linalg.svd(dense @ dense)
     return right_t[-2:].T.copy(), left[:, -2:].copy()
+
+
+def _near_zero_pair(matrix) -> Array:
+    """An orthonormal basis (n, 2) of the span of the two eigenvectors of a sparse matrix
+    nearest zero (shift-invert Arnoldi just off zero: the matrix is singular there)."""
+    import scipy.sparse.linalg as spla
+
+    scale = max(float(abs(matrix).max()), 1.0)
+    try:
+        _, vectors = spla.eigs(matrix, k=2, sigma=eigen.SHIFT_OFFSET * scale)
+    except (RuntimeError, spla.ArpackNoConvergence, spla.ArpackError) as exc:
+        raise linalg.SingularMatrixError(f"no null space of A^2 found ({exc})") from exc
+    return np.linalg.qr(np.column_stack([vectors.real, vectors.imag]))[0][:, :2]
 
 
 def _other_eigenvalues(eigenvalues: Array, omega: float) -> Array:
