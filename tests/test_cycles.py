@@ -349,21 +349,14 @@ def test_homoclinic_approach_on_a_saddle_node_on_the_orbit():
         assert orbit.maxima[0] == pytest.approx(math.sqrt(a), rel=1e-6)
 
 
-def test_torus_located_with_its_angle():
-    # An orbit r = 1, z = 0 of period 2 pi for every al, whose transverse linearization in
-    # (u, z), u = x^2 + y^2 - 1, is [[al, -w], [w, al]]: multipliers 1 and
-    # exp(2 pi (al +- i w)) (Floquet's theorem for a constant-coefficient linearization;
-    # Hartman, Ordinary Differential Equations, chapter IV). A complex pair crosses the
-    # unit circle at al = 0, at angle 2 pi w: a torus (Neimark-Sacker) point (Kuznetsov,
-    # Elements of Applied Bifurcation Theory, section 7.3 for maps; from memory).
-    from branchline.events.cycle_events import locate_cycle_events
+def _ring_family(w: float):
+    """The family of orbits r = 1, z = 0 of the ring model below, followed in al."""
     from branchline.model.build import build_model
     from branchline.numerics.collocation import representation_times
     from branchline.problems.cycle_family import family_record, follow_family
     from branchline.problems.cycles import PeriodicOrbitProblem
     from branchline.scan.loader import StepSettings
 
-    w = 0.3
     equations = {
         "x": "-y + 0.5*x*(al*(x^2 + y^2 - 1) - w*z)",
         "y": "x + 0.5*y*(al*(x^2 + y^2 - 1) - w*z)",
@@ -384,11 +377,47 @@ def test_torus_located_with_its_angle():
     curve, status, message = follow_family(problem, u0, tangent, steps, (-0.2, 0.2))
     family = family_record("ring", "al", model.defaults, curve, 4, (-0.2, 0.2), status, message)
     assert status == "done"
+    return model, family
+
+
+def test_torus_located_with_its_angle():
+    # An orbit r = 1, z = 0 of period 2 pi for every al, whose transverse linearization in
+    # (u, z), u = x^2 + y^2 - 1, is [[al, -w], [w, al]]: multipliers 1 and
+    # exp(2 pi (al +- i w)) (Floquet's theorem for a constant-coefficient linearization;
+    # Hartman, Ordinary Differential Equations, chapter IV). A complex pair crosses the
+    # unit circle at al = 0, at angle 2 pi w: a torus (Neimark-Sacker) point (Kuznetsov,
+    # Elements of Applied Bifurcation Theory, section 7.3 for maps; from memory).
+    from branchline.events.cycle_events import locate_cycle_events
+
+    w = 0.3
+    model, family = _ring_family(w)
     events = locate_cycle_events(model, family, family.test_values)
     assert [e.kind for e in events] == ["torus"]
     assert events[0].value == pytest.approx(0.0, abs=1e-10)
     assert events[0].details["angle"] == pytest.approx(2 * np.pi * w, rel=1e-8)
     assert "angle" in events[0].note
+
+
+def test_an_event_whose_multipliers_fail_is_named_not_dropped(monkeypatch):
+    # The torus of the ring above, with the Floquet multipliers failing inside its bracket
+    # (as Arnoldi may on a large model): no event, and a sentence that says where and why.
+    from branchline.events import cycle_events
+    from branchline.numerics.floquet import FloquetFailed
+
+    model, family = _ring_family(0.3)
+
+    def fail(*args, **kwargs):
+        raise FloquetFailed("Arnoldi did not converge on the monodromy matrix")
+
+    monkeypatch.setattr(cycle_events, "refine", fail)
+    missed: list[str] = []
+    assert cycle_events.locate_cycle_events(model, family, family.test_values, missed) == []
+    assert len(missed) == 1
+    text = missed[0]
+    assert "cycles ring" in text and "torus" in text and "was not located" in text
+    assert "Arnoldi did not converge" in text
+    low, high = (float(v) for v in text.split("(al ")[1].split(")")[0].split(" to "))
+    assert low < 0.0 < high  # the bracket holds the crossing at al = 0
 
 
 def test_collocation_jacobian_matches_central_differences():

@@ -400,7 +400,9 @@ def run_scan(
             events.extend(search.events)
             searches.append(search.record)
     stopped = stop is not None and stop.requested
-    families, cycle_events = run_cycles(model, scan.cycles, events, progress) if not stopped else ((), ())
+    families, cycle_events = (
+        run_cycles(model, scan.cycles, events, progress, warnings) if not stopped else ((), ())
+    )
     events.extend(cycle_events)
     if not stopped:
         events = with_sensitivities(model, events)

@@ -131,7 +131,9 @@ def _brackets(family: CycleFamily, tests: Array) -> list[tuple[int, int]]:
     return sorted(found)
 
 
-def locate_cycle_events(model, family: CycleFamily, tests: Array) -> list[Event]:
+def locate_cycle_events(
+    model, family: CycleFamily, tests: Array, missed: list[str] | None = None
+) -> list[Event]:
     """Located cycle folds, period doublings and tori on a family, in family order.
 
     Parameters
@@ -140,6 +142,9 @@ def locate_cycle_events(model, family: CycleFamily, tests: Array) -> list[Event]
     family : CycleFamily
     tests : ndarray (k, 3)
         The test values per orbit (the engine's ``test_values``).
+    missed : list of str, optional
+        Gets one sentence for every sign change that could not be located (Newton or
+        the Floquet multipliers failed inside its bracket): where it is and why.
     """
     events = []
     for row, which in _brackets(family, tests):
@@ -148,15 +153,29 @@ def locate_cycle_events(model, family: CycleFamily, tests: Array) -> list[Event]
         u_b = orbit_vector(problem, family.orbits[row + 1])
         try:
             located = refine(problem, u_a, u_b, which)
-        except FloquetFailed:
-            continue  # the multipliers fail inside the bracket: the event stays unlocated
-        if located is None or located[0] is None:
+            why = "" if located is not None and located[0] is not None else "Newton failed"
+            if located is not None and located[0] is None:
+                why = located[4] or why
+        except FloquetFailed as failure:
+            located, why = None, str(failure)
+        if why:
+            if missed is not None:
+                missed.append(_unlocated(family, row, KINDS[which], why))
             continue
         u, _tangent, point, iterations, _ = located
         event = _event(model, family, KINDS[which], problem, u, point, row, iterations)
         if event is not None:
             events.append(event)
     return events
+
+
+def _unlocated(family: CycleFamily, row: int, kind: EventKind, why: str) -> str:
+    """Where a sign change of a cycle test function lies and why it was not located."""
+    low, high = family.orbits[row].parameter, family.orbits[row + 1].parameter
+    return (
+        f"cycles {family.name}: a {kind.value.replace('_', ' ')} between orbits {row + 1} and "
+        f"{row + 2} ({family.vary} {low:.8g} to {high:.8g}) was not located: {why}"
+    )
 
 
 def _event(model, family, kind, problem, u, point, row, iterations) -> Event | None:

@@ -28,9 +28,16 @@ def hopf_points(events: Sequence[Event], trace: str) -> list[Event]:
 
 
 def run_cycles(
-    model, specs, events: Sequence[Event], progress: Progress | None = None
+    model,
+    specs,
+    events: Sequence[Event],
+    progress: Progress | None = None,
+    warnings: list[str] | None = None,
 ) -> tuple[list[CycleFamily], list[Event]]:
-    """Every family the specs ask for, with its events, in scan order (doubled ones after)."""
+    """Every family the specs ask for, with its events, in scan order (doubled ones after).
+
+    ``warnings`` gets a sentence for every cycle event that could not be located.
+    """
     families: list[CycleFamily] = []
     found: list[Event] = []
     for spec in specs:
@@ -66,16 +73,20 @@ def run_cycles(
             degree=spec.points,
             progress=callback,
         )
-        _add_with_doublings(model, spec, family, families, found, progress)
+        _add_with_doublings(model, spec, family, families, found, progress, warnings)
     return families, found
 
 
-def _add_with_doublings(model, spec, family, families, found, progress) -> None:
+def _add_with_doublings(model, spec, family, families, found, progress, warnings) -> None:
     """Append ``family`` and its events; switch at its first period doubling, repeatedly."""
     depth = 0
     while True:
         families.append(family)
-        located = locate_cycle_events(model, family, family.test_values) if len(family) > 1 else []
+        located = (
+            locate_cycle_events(model, family, family.test_values, warnings)
+            if len(family) > 1
+            else []
+        )
         found.extend(located)
         doublings = [e for e in located if e.kind == EventKind.PERIOD_DOUBLING]
         if depth >= spec.doublings or not doublings:
