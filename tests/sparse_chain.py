@@ -22,20 +22,13 @@ import scipy.sparse as sp
 
 from branchline.model.build import build_model
 from branchline.scan.loader import PythonModelSpec
+from cell_chains import _coupled  # the discrete Neumann Laplacian of one species
 
 
 def _feeds(cells: int, p) -> np.ndarray:
     if cells == 1:
         return np.array([p["a"]])
     return p["a"] * (1.0 + p["ramp"] * (np.arange(cells) / (cells - 1) - 0.5))
-
-
-def _coupled(z: np.ndarray) -> np.ndarray:
-    out = np.empty_like(z)
-    out[1:-1] = z[:-2] - 2.0 * z[1:-1] + z[2:]
-    out[0] = z[1] - z[0]
-    out[-1] = z[-2] - z[-1]
-    return out
 
 
 def chain_rhs(x, p):
